@@ -1,0 +1,52 @@
+// Build step (runs on `npm install` through `prepare`, and before tests and benchmarks):
+//  1. compile the WebAssembly kernels from src-shared/compute/wasm-src (AssemblyScript) to dist/wasm;
+//  2. bundle the CLI and the worker entry points with esbuild to dist/.
+import { build } from 'esbuild';
+import { execFileSync } from 'node:child_process';
+import fs from 'node:fs';
+import path from 'node:path';
+import { fileURLToPath } from 'node:url';
+
+const root = path.resolve(path.dirname(fileURLToPath(import.meta.url)), '..');
+const dist = path.join(root, 'dist');
+fs.mkdirSync(path.join(dist, 'wasm'), { recursive: true });
+
+// 1. WebAssembly kernels: every file in wasm-src whose name does not start with "_" is an entry.
+const wasmSrc = path.join(root, 'src-shared/compute/wasm-src');
+if (fs.existsSync(wasmSrc)) {
+  const asc = path.join(root, 'node_modules/assemblyscript/bin/asc.js');
+  for (const f of fs.readdirSync(wasmSrc)) {
+    if (!f.endsWith('.ts') || f.startsWith('_') || f.endsWith('.d.ts')) continue;
+    const name = f.replace(/\.ts$/, '');
+    const out = path.join(dist, 'wasm', `${name}.wasm`);
+    const src = path.join(wasmSrc, f);
+    if (fs.existsSync(out) && newestMtime(wasmSrc) <= fs.statSync(out).mtimeMs) continue;
+    execFileSync(process.execPath, [asc, src, '-o', out, '-O3', '--noAssert', '--enable', 'simd',
+      '--runtime', 'stub', '--importMemory', '--initialMemory', '1'], { stdio: 'inherit', cwd: root });
+  }
+}
+
+function newestMtime(dir) {
+  return Math.max(...fs.readdirSync(dir).map((f) => fs.statSync(path.join(dir, f)).mtimeMs));
+}
+
+// 2. Bundles. External: packages in node_modules (h5wasm loads its own .wasm beside itself).
+const entries = {
+  'cli': 'src-main/cli/main.ts',
+  'tile-worker': 'src-main/workers/tile-worker.ts',
+};
+const existing = Object.fromEntries(Object.entries(entries).filter(([, p]) => fs.existsSync(path.join(root, p))));
+if (Object.keys(existing).length) {
+  await build({
+    entryPoints: Object.fromEntries(Object.entries(existing).map(([k, p]) => [k, path.join(root, p)])),
+    outdir: dist,
+    outExtension: { '.js': '.mjs' },
+    bundle: true,
+    platform: 'node',
+    format: 'esm',
+    target: 'node20',
+    packages: 'external',
+    sourcemap: true,
+    logLevel: 'warning',
+  });
+}

@@ -1,0 +1,227 @@
+// `scanfold` command line: the same engine as the application, no window.
+import fs from 'node:fs';
+import path from 'node:path';
+import { parseArgs } from 'node:util';
+import { isInputError, InputError, CancelledError } from '../../src-shared/model/errors';
+import { Engine, type EngineOptions } from '../engine/engine';
+import { parseBytes, fmtBytes } from '../engine/budget';
+import { writeFloat64Results } from '../io/write-results';
+import { SOURCE_HELP, SOURCE_OPTIONS, sourceSpecFromFlags } from './source-flags';
+import { progressPrinter } from './progress';
+import { writeSample, SAMPLE_SIZES } from '../../samples/write-sample';
+import { runBenchmark } from '../engine/first-pass.bench';
+import { projectRoot } from '../engine/paths';
+
+const HELP = `scanfold — exploratory analysis of 4D-STEM datasets far larger than memory
+
+usage:
+  scanfold info FILE [source flags]
+      print the dataset descriptor as JSON (an HDF5 file without --dataset: its candidate datasets)
+  scanfold summary FILE [source flags] --out OUT.h5 [engine flags]
+      run the first streaming pass; write /mean_pattern, /max_pattern, /total_intensity (float64)
+  scanfold sample --size tiny|demo|large --out FILE.h5 [--seed N]
+      write a demo dataset of our own synthetic scenario (with its ground truth under /truth)
+  scanfold demo [--dir DIR]
+      make the demo dataset (once) and run the first pass over it, printing what it found
+  scanfold bench [--dir DIR] [--workers N]
+      benchmark the first pass on the 2 GiB 'large' sample (generated once into DIR)
+
+${SOURCE_HELP}
+
+engine flags:
+  --workers N             worker threads (default: available cores)
+  --budget SIZE           memory budget for a job, e.g. 1GiB, 256MiB (default 1GiB)
+  --preview-budget SIZE   preview cube budget (default 256MiB, at most a quarter of the budget)
+  --kernel wasm|reference kernels: WebAssembly SIMD (default) or the plain TypeScript reference
+  --quiet                 no progress bar
+
+Results are exploratory: check quantitative claims against your own validation.
+Exit status: 0 success, 2 bad input (nothing is written to --out), 1 other failure.`;
+
+const ENGINE_OPTIONS = {
+  workers: { type: 'string' },
+  budget: { type: 'string' },
+  'preview-budget': { type: 'string' },
+  kernel: { type: 'string' },
+  quiet: { type: 'boolean' },
+} as const;
+
+function engineOptions(v: Record<string, unknown>): EngineOptions {
+  const o: EngineOptions = {};
+  if (typeof v.workers === 'string') {
+    const n = Number(v.workers);
+    if (!Number.isInteger(n) || n < 1 || n > 256) throw new InputError(`--workers ${v.workers}: expected a whole number from 1 to 256`);
+    o.workers = n;
+  }
+  if (typeof v.budget === 'string') o.budgetBytes = parseBytes(v.budget);
+  if (typeof v['preview-budget'] === 'string') o.previewBudgetBytes = parseBytes(v['preview-budget']);
+  if (typeof v.kernel === 'string') {
+    if (v.kernel !== 'wasm' && v.kernel !== 'reference') throw new InputError(`--kernel ${v.kernel}: expected wasm or reference`);
+    o.kernel = v.kernel;
+  }
+  return o;
+}
+
+type Flags = Record<string, string | boolean | undefined>;
+
+function parse(args: string[], options: Record<string, { type: 'string' | 'boolean' }>): { values: Flags; positionals: string[] } {
+  try {
+    const r = parseArgs({ args, options: { ...options, help: { type: 'boolean', short: 'h' } }, allowPositionals: true, strict: true });
+    return { values: r.values as Flags, positionals: r.positionals };
+  } catch (e) {
+    throw new InputError(`${(e as Error).message}\nrun \`scanfold --help\` for usage`);
+  }
+}
+
+async function cmdInfo(args: string[]) {
+  const { values, positionals } = parse(args, SOURCE_OPTIONS);
+  const spec = sourceSpecFromFlags(positionals[0], values);
+  const engineless = await import('../io/index');
+  const r = await engineless.inspectSource(spec);
+  const out = r.kind === 'dataset' ? r.descriptor : { path: r.path, datasets: r.datasets };
+  process.stdout.write(JSON.stringify(out, null, 2) + '\n');
+}
+
+async function runSummary(spec: ReturnType<typeof sourceSpecFromFlags>, values: Record<string, unknown>, quiet: boolean) {
+  const engine = new Engine(engineOptions(values));
+  try {
+    const job = engine.firstPass(spec);
+    const bar = progressPrinter('first pass', !quiet);
+    job.onProgress((p) => bar.update(p));
+    const onSigint = () => job.cancel('interrupted');
+    process.once('SIGINT', onSigint);
+    try {
+      const r = await job.result;
+      bar.update(job.progress);
+      return r;
+    } finally {
+      bar.done();
+      process.off('SIGINT', onSigint);
+    }
+  } finally {
+    await engine.close();
+  }
+}
+
+async function cmdSummary(args: string[]) {
+  const { values, positionals } = parse(args, { ...SOURCE_OPTIONS, ...ENGINE_OPTIONS, out: { type: 'string' } });
+  const spec = sourceSpecFromFlags(positionals[0], values);
+  if (typeof values.out !== 'string') throw new InputError('summary needs --out OUT.h5');
+  const out = path.resolve(values.out);
+  if (!fs.existsSync(path.dirname(out))) throw new InputError(`--out ${out}: the folder ${path.dirname(out)} does not exist`);
+  const r = await runSummary(spec, values, values.quiet === true);
+  const { scanY, scanX, detY, detX } = r.descriptor.shape;
+  await writeFloat64Results(out, {
+    mean_pattern: { data: r.meanPattern, shape: [detY, detX] },
+    max_pattern: { data: r.maxPattern, shape: [detY, detX] },
+    total_intensity: { data: r.totalIntensity, shape: [scanY, scanX] },
+  }, {
+    source_path: r.descriptor.path,
+    source_dataset: r.descriptor.datasetPath ?? '',
+    source_fingerprint: r.descriptor.fingerprint,
+    non_finite_values: r.nonFinite,
+    producer: 'scanfold summary',
+  });
+  if (r.nonFinite > 0) process.stderr.write(`note: ${r.nonFinite} NaN/Inf values were left out of the sums and maxima\n`);
+  if (values.quiet !== true) {
+    process.stderr.write(`wrote ${out} (${fmtBytes(r.descriptor.byteSize)} in ${r.seconds.toFixed(2)} s, ` +
+      `${(r.descriptor.byteSize / r.seconds / 1e9).toFixed(2)} GB/s)\n`);
+  }
+}
+
+async function cmdSample(args: string[]) {
+  const { values } = parse(args, { size: { type: 'string' }, out: { type: 'string' }, seed: { type: 'string' }, quiet: { type: 'boolean' } });
+  const size = typeof values.size === 'string' ? values.size : 'demo';
+  if (!(size in SAMPLE_SIZES)) throw new InputError(`--size ${size}: expected one of ${Object.keys(SAMPLE_SIZES).join(', ')}`);
+  if (typeof values.out !== 'string') throw new InputError('sample needs --out FILE.h5');
+  const seed = values.seed === undefined ? undefined : Number(values.seed);
+  if (seed !== undefined && !Number.isSafeInteger(seed)) throw new InputError(`--seed ${values.seed}: expected a whole number`);
+  const out = path.resolve(values.out);
+  if (!fs.existsSync(path.dirname(out))) throw new InputError(`--out ${out}: the folder ${path.dirname(out)} does not exist`);
+  let lastDecile = -1;
+  const r = await writeSample({
+    size: size as keyof typeof SAMPLE_SIZES, out, seed,
+    onProgress: (f: number) => {
+      const d = Math.floor(f * 10);
+      if (!values.quiet && d !== lastDecile) { lastDecile = d; process.stderr.write(`sample ${size}: ${d * 10}%\n`); }
+    },
+  });
+  process.stdout.write(JSON.stringify(r) + '\n');
+}
+
+async function cmdDemo(args: string[]) {
+  const { values } = parse(args, { dir: { type: 'string' }, ...ENGINE_OPTIONS });
+  const dir = path.resolve(typeof values.dir === 'string' ? values.dir : path.join(projectRoot(), 'demo-data'));
+  fs.mkdirSync(dir, { recursive: true });
+  const file = path.join(dir, 'demo.h5');
+  if (!fs.existsSync(file)) {
+    process.stderr.write(`making the demo dataset ${file} …\n`);
+    await writeSample({ size: 'demo', out: file });
+  }
+  const spec = { path: file, datasetPath: '/scan/frames' };
+  const r = await runSummary(spec, values, values.quiet === true);
+  const out = path.join(dir, 'demo-summary.h5');
+  const { scanY, scanX, detY, detX } = r.descriptor.shape;
+  await writeFloat64Results(out, {
+    mean_pattern: { data: r.meanPattern, shape: [detY, detX] },
+    max_pattern: { data: r.maxPattern, shape: [detY, detX] },
+    total_intensity: { data: r.totalIntensity, shape: [scanY, scanX] },
+  }, { source_path: file, source_fingerprint: r.descriptor.fingerprint, producer: 'scanfold demo' });
+  let tmin = Infinity, tmax = -Infinity;
+  for (const v of r.totalIntensity) { if (v < tmin) tmin = v; if (v > tmax) tmax = v; }
+  let brightest = 0;
+  for (let i = 1; i < r.meanPattern.length; i++) if (r.meanPattern[i] > r.meanPattern[brightest]) brightest = i;
+  process.stdout.write(JSON.stringify({
+    dataset: r.descriptor.path + ':' + r.descriptor.datasetPath,
+    shape: r.descriptor.shape,
+    dtype: r.descriptor.dtype,
+    seconds: Number(r.seconds.toFixed(3)),
+    totalIntensity: { min: tmin, max: tmax },
+    brightestMeanPixel: { row: Math.floor(brightest / detX), col: brightest % detX },
+    previewCube: { shape: [r.preview.qY, r.preview.qX, r.preview.pY, r.preview.pX], detBin: r.preview.detBin, scanBin: r.preview.scanBin },
+    summaryFile: out,
+  }, null, 2) + '\n');
+}
+
+async function cmdBench(args: string[]) {
+  const { values } = parse(args, { dir: { type: 'string' }, workers: { type: 'string' } });
+  const dir = path.resolve(typeof values.dir === 'string' ? values.dir : path.join(projectRoot(), 'bench-data'));
+  const workers = values.workers === undefined ? 2 : Number(values.workers);
+  await runBenchmark({ dir, workers });
+}
+
+export async function main(argv: string[]): Promise<number> {
+  const [cmd, ...rest] = argv;
+  try {
+    if (!cmd || cmd === '--help' || cmd === '-h' || cmd === 'help' || rest.includes('--help') || rest.includes('-h')) {
+      process.stdout.write(HELP + '\n');
+      return 0;
+    }
+    switch (cmd) {
+      case 'info': await cmdInfo(rest); break;
+      case 'summary': await cmdSummary(rest); break;
+      case 'sample': await cmdSample(rest); break;
+      case 'demo': await cmdDemo(rest); break;
+      case 'bench': await cmdBench(rest); break;
+      default: throw new InputError(`unknown command "${cmd}"; expected info, summary, sample, demo or bench (see scanfold --help)`);
+    }
+    return 0;
+  } catch (e) {
+    if (isInputError(e)) {
+      process.stderr.write(`scanfold: ${e.message}\n`);
+      return 2;
+    }
+    if (e instanceof CancelledError) {
+      process.stderr.write(`scanfold: ${e.message}\n`);
+      return 130;
+    }
+    process.stderr.write(`scanfold: ${(e as Error)?.stack ?? String(e)}\n`);
+    return 1;
+  }
+}
+
+main(process.argv.slice(2)).then((code) => {
+  // For the bounded-memory test: the peak resident set of the whole process (all threads).
+  if (process.env.SCANFOLD_REPORT_PEAK_RSS) process.stderr.write(`peak-rss-bytes ${process.resourceUsage().maxRSS * 1024}\n`);
+  process.exitCode = code;
+});

@@ -1,0 +1,114 @@
+// `npm run bench`: the first pass over the page-cached 2 GiB `large` sample, beside a plain
+// sequential read of the same bytes and NumPy (memmap) doing the same sums, as ratios from
+// one run. Not a timed test: these machines are noisy, so compare within one run.
+import fs from 'node:fs';
+import path from 'node:path';
+import { spawnSync } from 'node:child_process';
+import { Engine } from './engine';
+import { openTileSource } from '../io/index';
+import { writeSample } from '../../samples/write-sample';
+import { projectRoot } from './paths';
+import { fmtBytes } from './budget';
+import { allocTyped } from '../../src-shared/model/dtype';
+
+const PY = '/usr/bin/python3';
+
+function gbps(bytes: number, seconds: number): string { return (bytes / seconds / 1e9).toFixed(2); }
+
+/** Read a whole file sequentially in 64 MiB blocks into page-aligned WebAssembly memory. */
+function plainRead(file: string): { seconds: number; bytes: number } {
+  const block = 64 * 1024 * 1024;
+  const mem = new WebAssembly.Memory({ initial: block / 65536 });
+  const buf = new Uint8Array(mem.buffer, 0, block);
+  const fd = fs.openSync(file, 'r');
+  const size = fs.fstatSync(fd).size;
+  const t0 = performance.now();
+  let pos = 0;
+  let x = 0;
+  while (pos < size) {
+    const n = fs.readSync(fd, buf, 0, Math.min(block, size - pos), pos);
+    if (n <= 0) break;
+    x ^= buf[n - 1];
+    pos += n;
+  }
+  const seconds = (performance.now() - t0) / 1000;
+  fs.closeSync(fd);
+  if (x < 0) console.log(x);
+  return { seconds, bytes: pos };
+}
+
+async function ensureLarge(dir: string): Promise<{ h5: string; raw: string; shape: number[] }> {
+  fs.mkdirSync(dir, { recursive: true });
+  const h5 = path.join(dir, 'large.h5');
+  const raw = path.join(dir, 'large.u16');
+  if (!fs.existsSync(h5)) {
+    console.error(`generating ${h5} (2 GiB, once) …`);
+    await writeSample({ size: 'large', out: h5 });
+  }
+  const src = await openTileSource({ path: h5, datasetPath: '/scan/frames' });
+  const { scanY, scanX, detY, detX } = src.descriptor.shape;
+  if (!fs.existsSync(raw) || fs.statSync(raw).size !== src.descriptor.byteSize) {
+    console.error(`writing a raw copy ${raw} for the memmap comparison …`);
+    const fd = fs.openSync(raw + '.partial', 'w');
+    const rows = 8;
+    const tile = allocTyped(src.descriptor.dtype, rows * scanX * detY * detX);
+    let pos = 0;
+    for (let r = 0; r < scanY; r += rows) {
+      const n = Math.min(rows, scanY - r);
+      const view = tile.subarray(0, n * scanX * detY * detX);
+      src.readRows(r, n, view);
+      fs.writeSync(fd, new Uint8Array(view.buffer, view.byteOffset, view.byteLength), 0, view.byteLength, pos);
+      pos += view.byteLength;
+    }
+    fs.closeSync(fd);
+    fs.renameSync(raw + '.partial', raw);
+  }
+  src.close();
+  return { h5, raw, shape: [scanY, scanX, detY, detX] };
+}
+
+async function timedFirstPass(spec: Parameters<Engine['firstPass']>[0], workers: number) {
+  const engine = new Engine({ workers });
+  try {
+    const r = await engine.firstPass(spec).result;
+    return r;
+  } finally {
+    await engine.close();
+  }
+}
+
+export async function runBenchmark(opts: { dir: string; workers: number }): Promise<void> {
+  const { h5, raw, shape } = await ensureLarge(opts.dir);
+  const [sy, sx, ky, kx] = shape;
+  const rawSpec = { path: raw, format: 'raw' as const, raw: { shape: { scanY: sy, scanX: sx, detY: ky, detX: kx }, dtype: 'uint16' as const, byteOrder: 'little' as const, offset: 0 } };
+  const h5Spec = { path: h5, datasetPath: '/scan/frames' };
+  // Warm the page cache (and check the files are readable) before any timing.
+  plainRead(raw); plainRead(h5);
+  const read = plainRead(raw);
+  const fpRaw = await timedFirstPass(rawSpec, opts.workers);
+  const fpH5 = await timedFirstPass(h5Spec, opts.workers);
+  const bytes = fpRaw.descriptor.byteSize;
+  let numpy: Record<string, number | string> | null = null;
+  if (fs.existsSync(PY)) {
+    const p = spawnSync(PY, [path.join(projectRoot(), 'src-main/engine/numpy_first_pass.py'), raw, String(sy), String(sx), String(ky), String(kx)], { encoding: 'utf8' });
+    if (p.status === 0) numpy = JSON.parse(p.stdout.trim().split('\n').pop()!);
+    else console.error('NumPy comparison skipped: ' + (p.stderr || p.error?.message));
+  }
+  const readRate = bytes / read.seconds;
+  const rows: string[][] = [
+    ['plain sequential read (1 thread, into WASM memory)', gbps(read.bytes, read.seconds), '1.00'],
+    [`first pass, raw file (${opts.workers} workers)`, gbps(bytes, fpRaw.seconds), (bytes / fpRaw.seconds / readRate).toFixed(2)],
+    [`first pass, HDF5 chunked (${opts.workers} workers)`, gbps(bytes, fpH5.seconds), (bytes / fpH5.seconds / readRate).toFixed(2)],
+  ];
+  if (numpy) {
+    rows.push([`NumPy ${numpy.numpy} memmap: same sums and max`, gbps(bytes, numpy.first_pass as number), ((bytes / (numpy.first_pass as number)) / readRate).toFixed(2)]);
+    rows.push([`NumPy ${numpy.numpy} memmap: plain sum`, gbps(bytes, numpy.plain_sum as number), ((bytes / (numpy.plain_sum as number)) / readRate).toFixed(2)]);
+  }
+  console.log(`first-pass benchmark on ${h5} (${shape.join('×')} uint16, ${fmtBytes(bytes)}, page-cached), one run:`);
+  console.log(['what', 'GB/s', '× plain read'].join(' | '));
+  for (const r of rows) console.log(r.join(' | '));
+  if (numpy) {
+    console.log(`first pass (raw) vs NumPy same sums: ${((numpy.first_pass as number) / fpRaw.seconds).toFixed(2)}×; vs NumPy plain sum: ${((numpy.plain_sum as number) / fpRaw.seconds).toFixed(2)}×`);
+  }
+  console.log(`worker time split (raw): read ${(fpRaw.readMs / 1000).toFixed(2)} s, compute ${(fpRaw.computeMs / 1000).toFixed(2)} s (summed over workers); tiles of ${fpRaw.plan.tileRows} rows, preview ${fpRaw.preview.qY}×${fpRaw.preview.qX}×${fpRaw.preview.pY}×${fpRaw.preview.pX}`);
+}

@@ -1,0 +1,92 @@
+import type { DatasetDescriptor, SourceSpec } from '../../src-shared/model/dataset';
+import type { FirstPassGeometry } from '../../src-shared/compute/first-pass-types';
+import { planFirstPass, type EngineLimits, type FirstPassPlan } from './budget';
+import { Job } from './job';
+import { runTiles } from './tile-runner';
+import type { WorkerPool } from './worker-pool';
+import type { KernelKind, FirstPassTileReply } from '../workers/tile-worker';
+
+/** The binned in-memory copy used for instant previews. */
+export interface PreviewCube {
+  /** (qY, qX, pY, pX) float32: detector-bin sums, averaged over each scan bin. */
+  data: Float32Array;
+  qY: number;
+  qX: number;
+  pY: number;
+  pX: number;
+  detBin: number;
+  scanBin: number;
+}
+
+export interface FirstPassSummary {
+  descriptor: DatasetDescriptor;
+  /** Mean pattern over all probe positions (detY × detX), float64. */
+  meanPattern: Float64Array;
+  /** Max pattern over all probe positions (detY × detX). */
+  maxPattern: Float64Array;
+  /** Sum of each pattern (scanY × scanX), float64. */
+  totalIntensity: Float64Array;
+  preview: PreviewCube;
+  /** NaN/±Inf values met in float data; they were left out of every sum and max. */
+  nonFinite: number;
+  plan: FirstPassPlan;
+  seconds: number;
+  /** Time the workers spent reading vs computing, summed over tiles (ms). */
+  readMs: number;
+  computeMs: number;
+}
+
+/**
+ * The single streaming pass run on every open: mean and max pattern, total-intensity
+ * image and preview cube, accumulated in float64 (preview in float32).
+ */
+export function startFirstPass(pool: WorkerPool, spec: SourceSpec, limits: EngineLimits, kernel: KernelKind): Job<FirstPassSummary> {
+  const job = new Job<FirstPassSummary>('first-pass', `first pass over ${spec.path}`, 0);
+  (async () => {
+    const t0 = performance.now();
+    const { descriptor: d, rowAlignment } = await pool.run((w) => w.open(spec));
+    if (job.cancelled) return;
+    const plan = planFirstPass(d, rowAlignment, limits);
+    job.bytesTotal = d.byteSize;
+    const { scanY, scanX, detY, detX } = d.shape;
+    const pixels = detY * detX;
+    const geometry: FirstPassGeometry = { scanX, detY, detX, detBin: plan.detBin, scanBin: plan.scanBin };
+    const sum = new Float64Array(pixels);
+    const max = new Float64Array(pixels).fill(-Infinity);
+    const total = new Float64Array(scanY * scanX);
+    const pv = plan.preview;
+    const preview = new Float32Array(pv.qY * pv.qX * pv.pY * pv.pX);
+    const previewRow = pv.qX * pv.pY * pv.pX;
+    let nonFinite = 0;
+    let readMs = 0;
+    let computeMs = 0;
+    const options = { kernel, maxTileBytes: plan.tileBytes };
+    await runTiles<FirstPassTileReply>({
+      pool, job, tiles: plan.tiles,
+      compute: async (w, tile) => {
+        await w.open(d.spec);
+        return w.firstPassTile(tile.row0, tile.nRows, geometry, options);
+      },
+      merge: (r, tile) => {
+        for (let i = 0; i < pixels; i++) {
+          sum[i] += r.sum[i];
+          if (r.max[i] > max[i]) max[i] = r.max[i];
+        }
+        total.set(r.total, tile.row0 * scanX);
+        preview.set(r.preview, (tile.row0 / plan.scanBin) * previewRow);
+        nonFinite += r.nonFinite;
+        readMs += r.readMs;
+        computeMs += r.computeMs;
+      },
+    });
+    const n = scanY * scanX;
+    const mean = new Float64Array(pixels);
+    for (let i = 0; i < pixels; i++) mean[i] = sum[i] / n;
+    job.succeed({
+      descriptor: d, meanPattern: mean, maxPattern: max, totalIntensity: total,
+      preview: { data: preview, qY: pv.qY, qX: pv.qX, pY: pv.pY, pX: pv.pX, detBin: plan.detBin, scanBin: plan.scanBin },
+      nonFinite, plan, seconds: (performance.now() - t0) / 1000, readMs, computeMs,
+    });
+  })().catch((e) => job.fail(e));
+  return job;
+}

@@ -1,0 +1,483 @@
+import * as fs from 'node:fs';
+import * as nodePath from 'node:path';
+import type { DatasetDescriptor, Hdf5DatasetInfo, Shape4D, SourceSpec } from '../../src-shared/model/dataset';
+import { DTYPE_BYTES, DTYPES, isDType, typedView, type ByteOrder, type DType, type NumericArray } from '../../src-shared/model/dtype';
+import { InputError } from '../../src-shared/model/errors';
+import { fingerprint } from './fingerprint';
+import { availableFilterNames, briefHdf5Error, filterName, getH5, isFilterAvailable, type H5Runtime } from './h5wasm-module';
+import { checkRowRequest, type TileSource } from './tile-source';
+import { scanShapeFor3D, validateShape } from './validate';
+
+/**
+ * Above this a tile is read in several hyperslabs: every byte of a slice passes through
+ * h5wasm's heap, which is capped at 2 GiB per thread and never shrinks.
+ */
+export const DEFAULT_MAX_SLICE_BYTES = 512 * 2 ** 20;
+
+/** rowAlignment is capped so that one aligned group of rows still fits in one slice. */
+const MAX_ALIGNMENT_BYTES = DEFAULT_MAX_SLICE_BYTES;
+
+const HDF5_SIGNATURE = Buffer.from([0x89, 0x48, 0x44, 0x46, 0x0d, 0x0a, 0x1a, 0x0a]);
+
+export interface Hdf5ReadOptions {
+  /** Largest hyperslab read in one call, in bytes; smaller values exist for tests of the splitting. */
+  maxSliceBytes?: number;
+}
+
+type H5File = InstanceType<H5Runtime['h5wasm']['File']>;
+type H5Metadata = ReturnType<H5Runtime['Module']['get_dataset_metadata']>;
+type H5Filter = ReturnType<H5Runtime['Module']['get_dataset_filters']>[number];
+
+interface DatasetFacts {
+  path: string;
+  shape: number[] | null;
+  /** NumPy-style name for numeric types, the HDF5 class otherwise. */
+  dtype: string;
+  numeric: boolean;
+  byteOrder: ByteOrder;
+  chunks: number[] | null;
+  filters: H5Filter[];
+}
+
+/** Every numeric dataset in the file (soft and external links are not followed), with whether it can be opened. */
+export async function listHdf5Datasets(path: string): Promise<Hdf5DatasetInfo[]> {
+  const file = checkHdf5File(path);
+  const rt = await getH5();
+  const h5 = openH5File(rt, file);
+  try {
+    return listDatasets(rt, h5);
+  } finally {
+    h5.close();
+  }
+}
+
+/** Open one 3-D or 4-D numeric dataset of an HDF5 file as a TileSource. */
+export async function openHdf5(spec: SourceSpec, options: Hdf5ReadOptions = {}): Promise<TileSource> {
+  const file = checkHdf5File(spec.path);
+  const rt = await getH5();
+  const h5 = openH5File(rt, file);
+  try {
+    const datasetPath = spec.datasetPath ? normaliseDatasetPath(spec.datasetPath) : chooseOnlyCandidate(rt, h5, file);
+    const what = `${file}:${datasetPath}`;
+    const kind = entityKind(rt, h5, datasetPath);
+    if (kind !== 'dataset') {
+      const found = kind === 'missing' ? 'nothing' : `a ${kind}`;
+      throw new InputError(`${what}: found ${found} at this path; expected a dataset. ${candidateSummary(listDatasets(rt, h5))}`, 'not-a-dataset');
+    }
+    let facts: DatasetFacts;
+    try {
+      facts = datasetFacts(rt, h5, datasetPath);
+    } catch (e) {
+      throw new InputError(`${what}: the HDF5 library could not describe the dataset (${briefHdf5Error(e)}); expected a readable dataset`, 'bad-input');
+    }
+    const storedShape = facts.shape ?? [];
+    if (!isDType(facts.dtype)) {
+      throw new InputError(
+        `${what}: data type ${facts.dtype} is not supported; expected one of ${DTYPES.join(', ')} (little- or big-endian)`,
+        'bad-dtype');
+    }
+    const dtype = facts.dtype;
+    if (storedShape.length !== 3 && storedShape.length !== 4) {
+      throw new InputError(
+        `${what}: the dataset is ${storedShape.length}-D with shape (${storedShape.join(', ')}); ` +
+        'expected 4-D (scan_y, scan_x, det_y, det_x) or 3-D (positions, det_y, det_x) with a scan shape',
+        'bad-rank');
+    }
+    const rank = storedShape.length as 3 | 4;
+    const shape = to4D(storedShape, spec.scanShape, what);
+    const elementBytes = DTYPE_BYTES[dtype];
+    validateShape(shape, elementBytes, what);
+    for (const f of facts.filters) {
+      if (!isFilterAvailable(f.id)) {
+        throw new InputError(
+          `${what}: the data is compressed with the HDF5 filter '${filterName(f.id, f.name)}' (filter id ${f.id}), which this build cannot decode; ` +
+          `expected data stored uncompressed or with one of: ${availableFilterNames().join(', ')}`,
+          'missing-filter');
+      }
+    }
+    const byteSize = shape.scanY * shape.scanX * shape.detY * shape.detX * elementBytes;
+    const source = new Hdf5TileSource(rt, h5, {
+      file, datasetPath, rank, shape, dtype, chunks: facts.chunks, maxSliceBytes: options.maxSliceBytes ?? DEFAULT_MAX_SLICE_BYTES,
+    });
+    const descriptor: DatasetDescriptor = {
+      format: 'hdf5',
+      path: file,
+      datasetPath,
+      shape,
+      storedShape,
+      dtype,
+      byteSize,
+      fingerprint: fingerprint({ format: 'hdf5', datasetPath, shape: storedShape, dtype }, source.samplePatterns()),
+      layout: {
+        kind: 'hdf5',
+        rank,
+        chunks: facts.chunks,
+        filters: facts.filters.map((f) => filterName(f.id, f.name)),
+        byteOrder: facts.byteOrder,
+      },
+      spec: {
+        ...spec,
+        path: file,
+        format: 'hdf5',
+        datasetPath,
+        ...(rank === 3 ? { scanShape: [shape.scanY, shape.scanX] as [number, number] } : {}),
+      },
+    };
+    source.descriptor = descriptor;
+    return source;
+  } catch (e) {
+    h5.close();
+    throw e;
+  }
+}
+
+interface SourceGeometry {
+  file: string;
+  datasetPath: string;
+  rank: 3 | 4;
+  shape: Shape4D;
+  dtype: DType;
+  chunks: number[] | null;
+  maxSliceBytes: number;
+}
+
+/** One hyperslab of the dataset and where its elements go in the tile. */
+interface Piece {
+  offset: number[];
+  count: number[];
+  /** Element index in dest. */
+  destStart: number;
+}
+
+class Hdf5TileSource implements TileSource {
+  descriptor!: DatasetDescriptor;
+  readonly rowAlignment: number;
+  private h5: H5File | null;
+  private readonly elementBytes: number;
+  private readonly patternElements: number;
+  private readonly rowElements: number;
+
+  constructor(private readonly rt: H5Runtime, h5: H5File, private readonly g: SourceGeometry) {
+    this.h5 = h5;
+    this.elementBytes = DTYPE_BYTES[g.dtype];
+    this.patternElements = g.shape.detY * g.shape.detX;
+    this.rowElements = g.shape.scanX * this.patternElements;
+    this.rowAlignment = rowAlignmentFor(g.rank, g.chunks, g.shape, this.rowElements * this.elementBytes);
+  }
+
+  readRows(row0: number, nRows: number, dest: NumericArray): void {
+    const { file, shape, dtype } = this.g;
+    if (this.h5 === null) throw new Error(`readRows on ${file}: the source is closed`);
+    checkRowRequest(file, shape.scanY, this.rowElements, dtype, row0, nRows, dest);
+    for (const piece of this.plan(row0, nRows)) this.readPiece(piece, dest);
+  }
+
+  /** Patterns at the first, middle and last position, for the fingerprint. */
+  samplePatterns(): Uint8Array[] {
+    const { scanY, scanX } = this.g.shape;
+    const last = scanY * scanX - 1;
+    const positions = [...new Set([0, Math.floor(last / 2), last])];
+    return positions.map((p) => {
+      const pattern = typedView(this.g.dtype, new ArrayBuffer(this.patternElements * this.elementBytes), 0, this.patternElements);
+      this.readPiece(this.pieceForPositions(p, p + 1, p), pattern);
+      return new Uint8Array(pattern.buffer, pattern.byteOffset, pattern.byteLength);
+    });
+  }
+
+  close(): void {
+    if (this.h5 === null) return;
+    const h5 = this.h5;
+    this.h5 = null;
+    h5.close();
+  }
+
+  /**
+   * Hyperslabs for rows [row0, row0 + nRows): whole rows while a slice stays under the cap,
+   * cut at absolute multiples of the alignment so that each chunk is decompressed once;
+   * a single row too large for one slice is cut along the scan into chunk-aligned runs.
+   */
+  private plan(row0: number, nRows: number): Piece[] {
+    const { shape, maxSliceBytes, rank, chunks } = this.g;
+    const rowBytes = this.rowElements * this.elementBytes;
+    const pieces: Piece[] = [];
+    const tileStart = row0 * shape.scanX;
+    const end = row0 + nRows;
+    if (rowBytes <= maxSliceBytes) {
+      let step = Math.floor(maxSliceBytes / rowBytes);
+      if (step >= this.rowAlignment) step -= step % this.rowAlignment;
+      for (let r = row0; r < end;) {
+        const next = Math.min(end, (Math.floor(r / step) + 1) * step);
+        pieces.push(this.pieceForPositions(r * shape.scanX, next * shape.scanX, tileStart));
+        r = next;
+      }
+      return pieces;
+    }
+    const patternBytes = this.patternElements * this.elementBytes;
+    let step = Math.max(1, Math.floor(maxSliceBytes / patternBytes));
+    // 4-D chunks along scan_x count from each row's start; 3-D chunks along positions from the dataset's start.
+    const chunkAlong = chunks ? (rank === 4 ? chunks[1] : chunks[0]) : 1;
+    if (step >= chunkAlong) step -= step % chunkAlong;
+    for (let r = row0; r < end; r++) {
+      const rowStart = r * shape.scanX;
+      const origin = rank === 4 ? rowStart : 0;
+      for (let p = rowStart; p < rowStart + shape.scanX;) {
+        const next = Math.min(rowStart + shape.scanX, origin + (Math.floor((p - origin) / step) + 1) * step);
+        pieces.push(this.pieceForPositions(p, next, tileStart));
+        p = next;
+      }
+    }
+    return pieces;
+  }
+
+  /** The hyperslab for positions [p0, p1), which must be whole rows or lie within one row for 4-D data. */
+  private pieceForPositions(p0: number, p1: number, tileStart: number): Piece {
+    const { shape, rank } = this.g;
+    const destStart = (p0 - tileStart) * this.patternElements;
+    if (rank === 3) return { offset: [p0, 0, 0], count: [p1 - p0, shape.detY, shape.detX], destStart };
+    const r0 = Math.floor(p0 / shape.scanX), c0 = p0 % shape.scanX;
+    if (c0 === 0 && p1 % shape.scanX === 0) {
+      return { offset: [r0, 0, 0, 0], count: [(p1 - p0) / shape.scanX, shape.scanX, shape.detY, shape.detX], destStart };
+    }
+    if (Math.floor((p1 - 1) / shape.scanX) !== r0) throw new Error(`pieceForPositions: [${p0}, ${p1}) spans rows partially`);
+    return { offset: [r0, c0, 0, 0], count: [1, p1 - p0, shape.detY, shape.detX], destStart };
+  }
+
+  /**
+   * Read one hyperslab straight into a heap buffer of our own and copy it into dest once
+   * (Dataset.slice would copy the heap into a fresh array first, doubling the traffic).
+   */
+  private readPiece(piece: Piece, dest: NumericArray): void {
+    const { Module } = this.rt;
+    const h5 = this.h5;
+    if (h5 === null) throw new Error(`readRows on ${this.g.file}: the source is closed`);
+    const dims = this.g.rank === 4
+      ? [this.g.shape.scanY, this.g.shape.scanX, this.g.shape.detY, this.g.shape.detX]
+      : [this.g.shape.scanY * this.g.shape.scanX, this.g.shape.detY, this.g.shape.detX];
+    // HDF5 given an offset past the extent fails with a misleading allocation error; refuse first.
+    piece.offset.forEach((o, i) => {
+      if (o < 0 || piece.count[i] < 1 || o + piece.count[i] > dims[i]) {
+        throw new Error(`readPiece on ${this.g.file}: hyperslab offset ${piece.offset} count ${piece.count} is outside shape ${dims}`);
+      }
+    });
+    const n = piece.count.reduce((a, b) => a * b, 1);
+    const nbytes = n * this.elementBytes;
+    if (nbytes > Module.MAXIMUM_MEMORY) {
+      throw new Error(`readPiece on ${this.g.file}: a ${nbytes}-byte slice exceeds h5wasm's ${Module.MAXIMUM_MEMORY}-byte heap`);
+    }
+    const ptr = Module._malloc(nbytes);
+    if (ptr === 0) throw new Error(`readPiece on ${this.g.file}: h5wasm could not allocate ${nbytes} bytes for a slice`);
+    try {
+      try {
+        Module.get_dataset_data(h5.file_id, this.g.datasetPath, piece.count.map(BigInt), piece.offset.map(BigInt),
+          piece.count.map(() => 1n), BigInt(ptr));
+      } catch (e) {
+        throw new InputError(
+          `${this.g.file}:${this.g.datasetPath}: reading positions at offset (${piece.offset.join(', ')}) failed: ${briefHdf5Error(e)}; ` +
+          'expected an intact HDF5 file (was it truncated or changed while open?)',
+          'bad-input');
+      }
+      // After the read: the heap may have grown, which replaces Module.HEAPU8's buffer.
+      dest.set(typedView(this.g.dtype, Module.HEAPU8.buffer, ptr, n), piece.destStart);
+    } finally {
+      Module._free(ptr);
+    }
+  }
+}
+
+/**
+ * Scan rows per chunk-aligned group: for 4-D the chunk extent along scan_y; for 3-D the
+ * fewest whole rows that hold whole chunks along positions, lcm(chunk, scan_x) / scan_x.
+ * Capped so that one group fits in one slice; when the cap bites for 3-D data, the rows one
+ * chunk spans keep most chunks whole.
+ */
+export function rowAlignmentFor(rank: 3 | 4, chunks: number[] | null, shape: Shape4D, rowBytes: number): number {
+  if (!chunks) return 1;
+  const capRows = Math.max(1, Math.floor(MAX_ALIGNMENT_BYTES / rowBytes));
+  let rows = rank === 4 ? chunks[0] : chunks[0] / gcd(chunks[0], shape.scanX);
+  rows = Math.min(rows, shape.scanY);
+  if (rows > capRows) rows = rank === 3 ? Math.min(capRows, Math.ceil(chunks[0] / shape.scanX)) : capRows;
+  return Math.max(1, rows);
+}
+
+function gcd(a: number, b: number): number {
+  while (b) [a, b] = [b, a % b];
+  return a;
+}
+
+function to4D(stored: number[], scanShape: [number, number] | undefined, what: string): Shape4D {
+  if (stored.length === 4) {
+    const [scanY, scanX, detY, detX] = stored;
+    if (scanShape && (scanShape[0] !== scanY || scanShape[1] !== scanX)) {
+      throw new InputError(
+        `${what}: the dataset is 4-D with scan shape ${scanY}×${scanX}, but scan shape ${scanShape[0]}×${scanShape[1]} was asked for; expected them to agree (or give none)`,
+        'bad-shape');
+    }
+    return { scanY, scanX, detY, detX };
+  }
+  const [positions, detY, detX] = stored;
+  const [scanY, scanX] = scanShapeFor3D(positions, scanShape, what);
+  return { scanY, scanX, detY, detX };
+}
+
+/** The file as an absolute path, after checking it exists and carries the HDF5 signature. */
+function checkHdf5File(path: string): string {
+  const file = nodePath.resolve(path);
+  let fd: number;
+  try {
+    fd = fs.openSync(file, 'r');
+  } catch (e) {
+    const code = (e as NodeJS.ErrnoException).code;
+    if (code === 'ENOENT' || code === 'ENOTDIR') {
+      throw new InputError(`${file}: file not found; expected an HDF5 file at this path`, 'missing-file');
+    }
+    throw new InputError(`${file}: cannot open (${code ?? String(e)}); expected a readable HDF5 file`, 'bad-input');
+  }
+  try {
+    const st = fs.fstatSync(fd);
+    if (!st.isFile()) {
+      throw new InputError(`${file}: is ${st.isDirectory() ? 'a directory' : 'not a regular file'}; expected an HDF5 file`, 'bad-input');
+    }
+    // The superblock may follow a user block, at 512, 1024, 2048, … bytes.
+    const head = Buffer.alloc(8);
+    for (let off = 0; off + 8 <= st.size && off <= 2 ** 30; off = off === 0 ? 512 : off * 2) {
+      if (fs.readSync(fd, head, 0, 8, off) === 8 && head.equals(HDF5_SIGNATURE)) return file;
+    }
+    throw new InputError(
+      `${file}: not an HDF5 file (no HDF5 signature at byte 0 or after a user block); expected an HDF5 file`,
+      'bad-input');
+  } finally {
+    fs.closeSync(fd);
+  }
+}
+
+function openH5File(rt: H5Runtime, file: string): H5File {
+  try {
+    return new rt.h5wasm.File(file, 'r');
+  } catch (e) {
+    throw new InputError(`${file}: the HDF5 library could not open it (${briefHdf5Error(e)}); expected an intact HDF5 file`, 'bad-input');
+  }
+}
+
+function normaliseDatasetPath(p: string): string {
+  const trimmed = p.trim().replace(/\/+$/, '');
+  return trimmed.startsWith('/') ? trimmed : '/' + trimmed;
+}
+
+type EntityKind = 'dataset' | 'group' | 'soft link to nothing' | 'external link' | 'named datatype' | 'missing';
+
+function entityKind(rt: H5Runtime, h5: H5File, path: string): EntityKind {
+  const { Module } = rt;
+  let type: number;
+  try {
+    type = Module.get_type(h5.file_id, path);
+  } catch {
+    return 'missing';
+  }
+  if (type === Module.H5G_DATASET) return 'dataset';
+  if (type === Module.H5G_GROUP) return 'group';
+  if (type === Module.H5G_LINK) return 'soft link to nothing';
+  if (type === Module.H5G_UDLINK) return 'external link';
+  if (type === Module.H5G_TYPE) return 'named datatype';
+  return 'missing';
+}
+
+function datasetFacts(rt: H5Runtime, h5: H5File, path: string): DatasetFacts {
+  const { Module } = rt;
+  const meta: H5Metadata = Module.get_dataset_metadata(h5.file_id, path);
+  const filters: H5Filter[] = Module.get_dataset_filters(h5.file_id, path);
+  const C = Module.H5T_class_t;
+  const numeric = meta.type === C.H5T_INTEGER.value || meta.type === C.H5T_FLOAT.value;
+  return {
+    path,
+    shape: meta.shape,
+    dtype: typeName(rt, meta),
+    numeric,
+    byteOrder: meta.littleEndian || meta.size === 1 ? 'little' : 'big',
+    chunks: meta.chunks,
+    filters,
+  };
+}
+
+function typeName(rt: H5Runtime, meta: H5Metadata): string {
+  const C = rt.Module.H5T_class_t;
+  switch (meta.type) {
+    case C.H5T_INTEGER.value: return `${meta.signed ? 'int' : 'uint'}${meta.size * 8}`;
+    case C.H5T_FLOAT.value: return `float${meta.size * 8}`;
+    case C.H5T_STRING.value: return 'string';
+    case C.H5T_COMPOUND.value: return 'compound';
+    case C.H5T_ENUM.value: return 'enum';
+    case C.H5T_VLEN.value: return 'variable-length';
+    case C.H5T_ARRAY.value: return 'array';
+    case C.H5T_REFERENCE.value: return 'reference';
+    case C.H5T_BITFIELD.value: return 'bitfield';
+    case C.H5T_OPAQUE.value: return 'opaque';
+    case C.H5T_TIME.value: return 'time';
+    default: return `HDF5 type class ${meta.type}`;
+  }
+}
+
+/**
+ * Walk with HDF5's own link visitor (it does not traverse soft or external links and visits
+ * each group once, so hard-link cycles cannot loop), then skip every link that is not hard.
+ */
+function listDatasets(rt: H5Runtime, h5: H5File): Hdf5DatasetInfo[] {
+  const { Module } = rt;
+  const out: Hdf5DatasetInfo[] = [];
+  const names: string[] = Module.get_names(h5.file_id, '/', true);
+  for (const name of names) {
+    const path = '/' + name;
+    let facts: DatasetFacts;
+    try {
+      if (Module.get_symbolic_link(h5.file_id, path) != null) continue;
+      const ext = Module.get_external_link(h5.file_id, path) as { filename?: string } | null;
+      if (ext && ext.filename !== undefined) continue;
+      if (Module.get_type(h5.file_id, path) !== Module.H5G_DATASET) continue;
+      facts = datasetFacts(rt, h5, path);
+    } catch {
+      // An entry HDF5 cannot describe is left out rather than spoiling the whole listing.
+      continue;
+    }
+    if (!facts.numeric || facts.shape === null) continue;
+    out.push(datasetInfo(facts));
+  }
+  return out;
+}
+
+function datasetInfo(f: DatasetFacts): Hdf5DatasetInfo {
+  const shape = f.shape ?? [];
+  const filters = f.filters.map((x) => filterName(x.id, x.name));
+  const info: Hdf5DatasetInfo = { path: f.path, shape, dtype: f.dtype, chunks: f.chunks, filters, candidate: false };
+  const rankOk = shape.length === 3 || shape.length === 4;
+  const dtypeOk = isDType(f.dtype);
+  info.candidate = rankOk && dtypeOk;
+  const notes: string[] = [];
+  if (!rankOk) notes.push(`${shape.length === 0 ? 'a single value' : `${shape.length}-D`}; expected 4-D (scan_y, scan_x, det_y, det_x) or 3-D (positions, det_y, det_x)`);
+  if (!dtypeOk) notes.push(`data type ${f.dtype} is not supported`);
+  if (info.candidate) {
+    if (shape.length === 3) notes.push(`3-D: needs a scan shape whose product is ${shape[0]}`);
+    if (shape.some((d) => d === 0)) notes.push('empty: an axis has length 0');
+    const missing = f.filters.filter((x) => !isFilterAvailable(x.id));
+    for (const x of missing) notes.push(`compressed with '${filterName(x.id, x.name)}' (filter id ${x.id}), which cannot be decoded here`);
+  }
+  if (notes.length) info.note = notes.join('; ');
+  return info;
+}
+
+function candidateSummary(list: Hdf5DatasetInfo[]): string {
+  const candidates = list.filter((d) => d.candidate);
+  if (candidates.length === 0) return 'The file has no 3-D or 4-D numeric dataset of a supported type.';
+  return `Datasets that can be opened: ${candidates.map((d) => `${d.path} (${d.shape.join('×')} ${d.dtype})`).join(', ')}.`;
+}
+
+function chooseOnlyCandidate(rt: H5Runtime, h5: H5File, file: string): string {
+  const list = listDatasets(rt, h5);
+  const candidates = list.filter((d) => d.candidate);
+  if (candidates.length === 1) return candidates[0].path;
+  if (candidates.length === 0) {
+    throw new InputError(`${file}: no dataset path was given and ${candidateSummary(list).replace(/^The file/, 'the file')}`, 'not-a-dataset');
+  }
+  throw new InputError(
+    `${file}: the file holds ${candidates.length} datasets that could be opened; expected a dataset path naming one of: ` +
+    candidates.map((d) => `${d.path} (${d.shape.join('×')} ${d.dtype})`).join(', '),
+    'not-a-dataset');
+}

@@ -1,0 +1,106 @@
+// Worker thread entry: opens its own reader (positional reads for raw/.npy, its own h5wasm
+// instance for HDF5), reads tiles straight into the kernel's memory and returns small
+// partial results. Tiles never pass through the main thread.
+import { parentPort, workerData } from 'node:worker_threads';
+import * as Comlink from 'comlink';
+import nodeEndpoint from 'comlink/dist/esm/node-adapter.mjs';
+import type { SourceSpec, DatasetDescriptor } from '../../src-shared/model/dataset';
+import { DTYPE_BYTES } from '../../src-shared/model/dtype';
+import type { FirstPassGeometry, FirstPassKernel, FirstPassTileResult } from '../../src-shared/compute/first-pass-types';
+import { createReferenceKernel } from '../../src-shared/compute/first-pass';
+import { createWasmFirstPassKernel } from '../../src-shared/compute/first-pass-wasm';
+import { openTileSource, type TileSource } from '../io/index';
+import { loadWasmModule } from './wasm-loader';
+
+export type KernelKind = 'wasm' | 'reference';
+
+export interface OpenReply {
+  descriptor: DatasetDescriptor;
+  rowAlignment: number;
+}
+
+export interface KernelOptions {
+  /** Largest tile this worker will be asked to read, in bytes. */
+  maxTileBytes: number;
+  kernel: KernelKind;
+}
+
+export interface FirstPassTileReply extends FirstPassTileResult {
+  row0: number;
+  nRows: number;
+  bytes: number;
+  readMs: number;
+  computeMs: number;
+}
+
+let source: TileSource | null = null;
+let sourceKey = '';
+let firstPass: FirstPassKernel | null = null;
+let firstPassKey = '';
+
+
+function transferables(r: FirstPassTileResult): ArrayBuffer[] {
+  return [r.sum.buffer, r.max.buffer, r.total.buffer, r.preview.buffer] as ArrayBuffer[];
+}
+
+const api = {
+  /** Open (or keep open) the source; returns its descriptor and storage row alignment. */
+  async open(spec: SourceSpec): Promise<OpenReply> {
+    const key = JSON.stringify(spec);
+    if (!source || key !== sourceKey) {
+      source?.close();
+      source = null;
+      source = await openTileSource(spec);
+      sourceKey = key;
+    }
+    return { descriptor: source.descriptor, rowAlignment: source.rowAlignment };
+  },
+
+  firstPassTile(row0: number, nRows: number, geometry: FirstPassGeometry, options: KernelOptions): FirstPassTileReply {
+    if (!source) throw new Error('worker: open() must be called before firstPassTile()');
+    const firstPass = firstPassKernel(options);
+    const d = source.descriptor;
+    const n = nRows * d.shape.scanX * d.shape.detY * d.shape.detX;
+    const t0 = performance.now();
+    const tile = firstPass.tileBuffer(d.dtype, n);
+    source.readRows(row0, nRows, tile);
+    const t1 = performance.now();
+    const r = firstPass.run(d.dtype, nRows, geometry);
+    const t2 = performance.now();
+    const reply: FirstPassTileReply = {
+      ...r, row0, nRows, bytes: n * DTYPE_BYTES[d.dtype], readMs: t1 - t0, computeMs: t2 - t1,
+    };
+    return Comlink.transfer(reply, transferables(r));
+  },
+
+  close(): void {
+    source?.close();
+    source = null;
+    sourceKey = '';
+  },
+
+  /** For tests of failure handling: throw from inside a task, or end the thread abruptly. */
+  fail(how: 'throw' | 'exit'): void {
+    if (how === 'exit') process.exit(3);
+    throw new Error('worker: deliberate failure');
+  },
+
+  ping(): number {
+    return (workerData as { index?: number } | undefined)?.index ?? -1;
+  },
+};
+
+function firstPassKernel(options: KernelOptions): FirstPassKernel {
+  const key = `${options.kernel}:${options.maxTileBytes}`;
+  if (firstPass && key === firstPassKey) return firstPass;
+  const k = options.kernel === 'wasm'
+    ? createWasmFirstPassKernel(loadWasmModule('first-pass'), options.maxTileBytes)
+    : createReferenceKernel();
+  firstPass = k;
+  firstPassKey = key;
+  return k;
+}
+
+export type TileWorkerApi = typeof api;
+
+if (parentPort) Comlink.expose(api, nodeEndpoint(parentPort as never));

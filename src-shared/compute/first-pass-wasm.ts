@@ -1,0 +1,119 @@
+import { DTYPE_BYTES, typedView, type DType, type NumericArray } from '../model/dtype';
+import { checkGeometry } from './first-pass';
+import { previewDims, type FirstPassGeometry, type FirstPassKernel, type FirstPassTileResult } from './first-pass-types';
+
+/**
+ * The WebAssembly SIMD first-pass kernel (built from wasm-src/first-pass.ts to
+ * dist/wasm/first-pass.wasm). The caller compiles the module (see src-main/workers/wasm-loader.ts);
+ * this file stays free of Node imports so a browser worker could use it too.
+ *
+ * Memory layout: [0, 64 KiB) is left to the module's own static data; the tile buffer starts at
+ * 64 KiB, so its start is page-aligned for callers that read files straight into it; the
+ * accumulators and results follow the tile buffer and are laid out afresh on every run.
+ *
+ * The tile buffer never moves, but growing the memory (tileBuffer for a larger tile, or run
+ * for a geometry needing more scratch than any run before) detaches every view of it.
+ * So: call tileBuffer before every run, fill the view it returns, then run; never keep a view
+ * across a run. The tile's contents survive growth.
+ */
+export function createWasmFirstPassKernel(wasmModule: WebAssembly.Module, maxTileBytes: number): FirstPassKernel {
+  if (!Number.isFinite(maxTileBytes) || maxTileBytes < 0) throw new RangeError(`first pass: maxTileBytes must be ≥ 0, got ${maxTileBytes}`);
+  let tileCapacity = roundUp(Math.max(maxTileBytes, 1), PAGE_BYTES);
+  // Room for the tile plus the scratch of a typical run, so most runs never grow the memory.
+  const memory = new WebAssembly.Memory({ initial: pagesFor(TILE_OFFSET + tileCapacity + tileCapacity / 2 + PAGE_BYTES) });
+  const instance = new WebAssembly.Instance(wasmModule, {
+    env: {
+      memory,
+      abort: () => { throw new Error('first pass: WebAssembly kernel aborted'); },
+    },
+  });
+  const exports = instance.exports as unknown as Record<string, FirstPassExport>;
+
+  const ensureBytes = (bytes: number) => {
+    const have = memory.buffer.byteLength;
+    if (bytes <= have) return;
+    const pages = pagesFor(bytes);
+    if (pages > MAX_PAGES) throw new RangeError(`first pass: needs ${bytes} bytes of WebAssembly memory, more than the 4 GiB a 32-bit module can address; use smaller tiles`);
+    memory.grow(pages - have / PAGE_BYTES);
+  };
+
+  let tileDType: DType | null = null;
+  let tileElements = 0;
+
+  return {
+    tileBuffer(dtype: DType, nElements: number): NumericArray {
+      const bytes = nElements * DTYPE_BYTES[dtype];
+      if (bytes > tileCapacity) tileCapacity = roundUp(bytes, PAGE_BYTES);
+      ensureBytes(TILE_OFFSET + tileCapacity);
+      tileDType = dtype;
+      tileElements = nElements;
+      return typedView(dtype, memory.buffer, TILE_OFFSET, nElements);
+    },
+
+    run(dtype: DType, nRows: number, g: FirstPassGeometry): FirstPassTileResult {
+      checkGeometry(nRows, g);
+      if (tileDType !== dtype) throw new Error(`first pass: tileBuffer('${dtype}', …) must be called before run`);
+      const nPix = g.detY * g.detX;
+      const nElements = nRows * g.scanX * nPix;
+      if (nElements > tileElements) throw new RangeError(`first pass: run needs ${nElements} elements but tileBuffer was asked for ${tileElements}`);
+      if (Math.min(g.detBin, g.detX) > MAX_BIN_ROW_VALUES) {
+        // A bin lane takes up to min(detBin, detX) values per detector row and must not overflow within one row.
+        throw new RangeError(`first pass: detector rows of more than ${MAX_BIN_ROW_VALUES} pixels per bin are not supported`);
+      }
+      const { qY, qX, pY, pX } = previewDims(nRows, g);
+      const nPreview = qY * qX * pY * pX;
+      const nPatterns = nRows * g.scanX;
+      if (nPatterns === 0) {
+        return { sum: new Float64Array(nPix), max: new Float64Array(nPix).fill(-Infinity), total: new Float64Array(0), preview: new Float32Array(nPreview), nonFinite: 0 };
+      }
+
+      let cursor = TILE_OFFSET + tileCapacity;
+      const take = (bytes: number) => { const at = cursor; cursor = roundUp(cursor + bytes, 16); return at; };
+      const sumOut = take(nPix * 8);
+      const maxOut = take(nPix * 8);
+      const totalOut = take(nPatterns * 8);
+      const previewOut = take(nPreview * 4);
+      const sumAcc = take(nPix * 8);
+      const maxAcc = take(nPix * 8);
+      const binAcc = take(pX * 8 + 64);
+      const binF64 = take(pX * 8);
+      const previewAcc = take(g.scanBin > 1 ? qX * pY * pX * 8 : 0);
+      ensureBytes(cursor);
+
+      const nonFinite = exports[EXPORT_NAMES[dtype]](TILE_OFFSET, nRows, g.scanX, g.detY, g.detX, g.detBin, g.scanBin,
+        sumOut, maxOut, totalOut, previewOut, sumAcc, maxAcc, binAcc, binF64, previewAcc);
+
+      const buf = memory.buffer;
+      return {
+        sum: new Float64Array(buf, sumOut, nPix).slice(),
+        max: new Float64Array(buf, maxOut, nPix).slice(),
+        total: new Float64Array(buf, totalOut, nPatterns).slice(),
+        preview: new Float32Array(buf, previewOut, nPreview).slice(),
+        nonFinite,
+      };
+    },
+  };
+}
+
+type FirstPassExport = (tile: number, nRows: number, scanX: number, detY: number, detX: number, detBin: number, scanBin: number,
+  sumOut: number, maxOut: number, totalOut: number, previewOut: number,
+  sumAcc: number, maxAcc: number, binAcc: number, binF64: number, previewAcc: number) => number;
+
+const EXPORT_NAMES: Record<DType, string> = {
+  uint8: 'firstPassUint8', uint16: 'firstPassUint16', uint32: 'firstPassUint32',
+  int8: 'firstPassInt8', int16: 'firstPassInt16', int32: 'firstPassInt32',
+  float32: 'firstPassFloat32', float64: 'firstPassFloat64',
+};
+
+const PAGE_BYTES = 65536;
+const TILE_OFFSET = PAGE_BYTES;
+const MAX_PAGES = 65536;
+const MAX_BIN_ROW_VALUES = 65536;
+
+function roundUp(n: number, to: number): number {
+  return Math.ceil(n / to) * to;
+}
+
+function pagesFor(bytes: number): number {
+  return Math.ceil(bytes / PAGE_BYTES);
+}

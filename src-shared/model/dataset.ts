@@ -1,0 +1,81 @@
+import type { ByteOrder, DType } from './dtype';
+
+/** Shape of a 4D-STEM dataset: a scan of probe positions, a diffraction pattern at each. */
+export interface Shape4D {
+  scanY: number;
+  scanX: number;
+  detY: number;
+  detX: number;
+}
+
+export type SourceFormat = 'hdf5' | 'npy' | 'raw';
+
+/** The user's description of a raw binary stack. */
+export interface RawLayoutSpec {
+  shape: Shape4D;
+  dtype: DType;
+  byteOrder: ByteOrder;
+  /** Bytes to skip at the start of the file. */
+  offset: number;
+}
+
+/** What the user asks to open. Serializable: workers receive it and open their own reader. */
+export interface SourceSpec {
+  path: string;
+  /** Detected from the file's content and name when omitted. */
+  format?: SourceFormat;
+  /** HDF5: the dataset inside the file. */
+  datasetPath?: string;
+  /** For 3-D data (positions, det_y, det_x): the scan shape. */
+  scanShape?: [number, number];
+  /** Raw binary: required. */
+  raw?: RawLayoutSpec;
+}
+
+/** How the bytes are stored, for the readers. */
+export type StorageLayout =
+  | { kind: 'contiguous'; dataOffset: number; byteOrder: ByteOrder }
+  | { kind: 'hdf5'; rank: 3 | 4; chunks: number[] | null; filters: string[]; byteOrder: ByteOrder };
+
+/** A validated dataset, as every reader returns it. */
+export interface DatasetDescriptor {
+  format: SourceFormat;
+  /** Absolute path of the file. */
+  path: string;
+  /** HDF5 dataset path, or null. */
+  datasetPath: string | null;
+  shape: Shape4D;
+  /** Shape as stored (3-D HDF5 / 4-D), for display. */
+  storedShape: number[];
+  dtype: DType;
+  /** Size of the data itself in bytes (shape × element size). */
+  byteSize: number;
+  /** Identifies the data without hashing all of it: sampled bytes + shape + dtype. */
+  fingerprint: string;
+  layout: StorageLayout;
+  /** The spec that reopens exactly this dataset. */
+  spec: SourceSpec;
+}
+
+/** One numeric dataset found in an HDF5 file, whether or not it can be opened as 4D-STEM. */
+export interface Hdf5DatasetInfo {
+  path: string;
+  shape: number[];
+  dtype: string;
+  chunks: number[] | null;
+  filters: string[];
+  /** True when rank is 3 or 4 with a supported dtype. */
+  candidate: boolean;
+  /** Why it is not a candidate, or a caveat. */
+  note?: string;
+}
+
+export const MAX_SAFE_BYTES = 2 ** 53;
+
+export function patternsCount(s: Shape4D): number {
+  return s.scanY * s.scanX;
+}
+
+export function patternSize(s: Shape4D): number {
+  return s.detY * s.detX;
+}
