@@ -16,7 +16,7 @@ export interface EngineLimits {
 export const DEFAULT_BUDGET = 1 * GiB;
 export const DEFAULT_PREVIEW_BUDGET = 256 * MiB;
 /** Larger tiles gain nothing in read speed and make progress and cancel coarse. */
-export const MAX_TILE_BYTES = 64 * MiB;
+export const MAX_TILE_BYTES = 32 * MiB;
 
 export interface TilePlan {
   row0: number;
@@ -57,29 +57,27 @@ export function choosePreviewBinning(d: DatasetDescriptor, budget: number): { de
   return { detBin, scanBin };
 }
 
-/**
- * Split the scan into tiles of whole rows so that every worker's tile, the accumulators and
- * the preview cube together stay inside the budget. Tile height is a multiple of the
- * reader's row alignment (HDF5 chunks) and of the scan binning.
- */
-export function planFirstPass(d: DatasetDescriptor, rowAlignment: number, limits: EngineLimits): FirstPassPlan {
-  const { scanY, scanX, detY, detX } = d.shape;
-  const eb = DTYPE_BYTES[d.dtype];
-  const pixels = detY * detX;
-  const previewBudget = Math.min(limits.previewBudgetBytes, Math.floor(limits.budgetBytes / 4));
-  const { detBin, scanBin } = choosePreviewBinning(d, previewBudget);
-  const pv = { qY: Math.ceil(scanY / scanBin), qX: Math.ceil(scanX / scanBin), pY: Math.ceil(detY / detBin), pX: Math.ceil(detX / detBin), bytes: 0 };
-  pv.bytes = previewBytes(d, detBin, scanBin);
+export interface TilesPlan {
+  tileRows: number;
+  tileBytes: number;
+  tiles: TilePlan[];
+  plannedBytes: number;
+}
 
-  // Accumulators: sum+max (float64) on the main thread and in each worker's reply, totals image.
-  const accumulators = 16 * pixels * (limits.workers + 1) + 8 * scanY * scanX;
-  // HDF5 tiles exist twice in a worker: h5wasm's slice copy and the kernel's memory.
+/**
+ * Split the scan into tiles of whole rows so that every worker's tile plus `reservedBytes`
+ * (accumulators, results, preview cube) stay inside the budget. Tile height is a multiple of
+ * the reader's row alignment (HDF5 chunks) and of `rowMultiple` (e.g. the preview scan bin).
+ */
+export function planTiles(d: DatasetDescriptor, rowAlignment: number, limits: EngineLimits, reservedBytes: number, rowMultiple = 1): TilesPlan {
+  const { scanY, scanX, detY, detX } = d.shape;
+  const rowBytes = scanX * detY * detX * DTYPE_BYTES[d.dtype];
+  // HDF5 tiles exist twice in a worker: h5wasm's heap copy and the kernel's memory.
   const copies = d.format === 'hdf5' ? 2 : 1;
-  const perWorker = Math.floor((limits.budgetBytes - pv.bytes - accumulators) / (limits.workers * copies));
-  const rowBytes = scanX * pixels * eb;
-  const unit = lcm(Math.max(1, rowAlignment), scanBin);
-  const need = unit * rowBytes * copies * limits.workers + pv.bytes + accumulators;
+  const perWorker = Math.floor((limits.budgetBytes - reservedBytes) / (limits.workers * copies));
+  const unit = lcm(Math.max(1, rowAlignment), rowMultiple);
   if (perWorker < unit * rowBytes) {
+    const need = unit * rowBytes * copies * limits.workers + reservedBytes;
     throw new InputError(
       `${d.path}: a memory budget of ${fmtBytes(limits.budgetBytes)} is too small for this dataset ` +
       `(one tile of ${unit} scan row(s) is ${fmtBytes(unit * rowBytes)} per worker, ${limits.workers} worker(s)); ` +
@@ -94,10 +92,20 @@ export function planFirstPass(d: DatasetDescriptor, rowAlignment: number, limits
     const n = Math.min(tileRows, scanY - r);
     tiles.push({ row0: r, nRows: n, bytes: n * rowBytes });
   }
-  return {
-    detBin, scanBin, preview: pv, tileRows, tileBytes: tileRows * rowBytes, tiles,
-    plannedBytes: tileRows * rowBytes * copies * limits.workers + pv.bytes + accumulators,
-  };
+  return { tileRows, tileBytes: tileRows * rowBytes, tiles, plannedBytes: tileRows * rowBytes * copies * limits.workers + reservedBytes };
+}
+
+/** The first pass: the preview cube and sum/max accumulators are reserved before the tiles. */
+export function planFirstPass(d: DatasetDescriptor, rowAlignment: number, limits: EngineLimits): FirstPassPlan {
+  const { scanY, scanX, detY, detX } = d.shape;
+  const pixels = detY * detX;
+  const previewBudget = Math.min(limits.previewBudgetBytes, Math.floor(limits.budgetBytes / 4));
+  const { detBin, scanBin } = choosePreviewBinning(d, previewBudget);
+  const pv = { qY: Math.ceil(scanY / scanBin), qX: Math.ceil(scanX / scanBin), pY: Math.ceil(detY / detBin), pX: Math.ceil(detX / detBin), bytes: 0 };
+  pv.bytes = previewBytes(d, detBin, scanBin);
+  // Accumulators: sum+max (float64) on the main thread and in each worker's reply, totals image.
+  const accumulators = 16 * pixels * (limits.workers + 1) + 8 * scanY * scanX;
+  return { detBin, scanBin, preview: pv, ...planTiles(d, rowAlignment, limits, pv.bytes + accumulators, scanBin) };
 }
 
 export function fmtBytes(n: number): string {

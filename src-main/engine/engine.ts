@@ -24,8 +24,10 @@ export class Engine {
   readonly pool: WorkerPool;
   readonly limits: EngineLimits;
   readonly kernel: KernelKind;
+  /** Running jobs; finished ones are kept only as their final JobInfo, not with their results. */
   // eslint-disable-next-line @typescript-eslint/no-explicit-any
-  private readonly jobs: Job<any>[] = [];
+  private readonly running = new Set<Job<any>>();
+  private readonly finished: JobInfo[] = [];
 
   constructor(options: EngineOptions = {}) {
     const workers = options.workers ?? os.availableParallelism();
@@ -45,25 +47,30 @@ export class Engine {
 
   /** The first streaming pass: mean/max pattern, total intensity, preview cube. */
   firstPass(spec: SourceSpec): Job<FirstPassSummary> {
-    const job = startFirstPass(this.pool, spec, this.limits, this.kernel);
-    this.jobs.push(job);
+    return this.track(startFirstPass(this.pool, spec, this.limits, this.kernel));
+  }
+
+  private track<T>(job: Job<T>): Job<T> {
+    this.running.add(job);
+    const done = () => { this.running.delete(job); this.finished.push(job.info()); };
+    job.result.then(done, done);
     return job;
   }
 
   /** The Activity list. */
   activity(): JobInfo[] {
-    return this.jobs.map((j) => j.info());
+    return [...this.finished, ...[...this.running].map((j) => j.info())].sort((a, b) => a.id - b.id);
   }
 
   cancel(jobId: number): boolean {
-    const j = this.jobs.find((x) => x.id === jobId);
+    const j = [...this.running].find((x) => x.id === jobId);
     if (!j) return false;
     j.cancel();
     return true;
   }
 
   async close(): Promise<void> {
-    for (const j of this.jobs) j.cancel('engine closing');
+    for (const j of this.running) j.cancel('engine closing');
     await this.pool.close();
   }
 }

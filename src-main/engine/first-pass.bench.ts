@@ -67,11 +67,21 @@ async function ensureLarge(dir: string): Promise<{ h5: string; raw: string; shap
   return { h5, raw, shape: [scanY, scanX, detY, detX] };
 }
 
+/**
+ * The first pass on a fresh engine (cold: worker start-up, first touch of kernel memory) and
+ * then three more on the same engine (warm, as in the application, whose workers live on);
+ * the warm figure is the median of those three.
+ */
 async function timedFirstPass(spec: Parameters<Engine['firstPass']>[0], workers: number) {
   const engine = new Engine({ workers });
   try {
-    const r = await engine.firstPass(spec).result;
-    return r;
+    const t0 = performance.now();
+    const cold = await engine.firstPass(spec).result;
+    const coldSeconds = (performance.now() - t0) / 1000;
+    const warm = [];
+    for (let i = 0; i < 3; i++) warm.push(await engine.firstPass(spec).result);
+    warm.sort((a, b) => a.seconds - b.seconds);
+    return { cold, coldSeconds, ...warm[1] };
   } finally {
     await engine.close();
   }
@@ -97,8 +107,10 @@ export async function runBenchmark(opts: { dir: string; workers: number }): Prom
   const readRate = bytes / read.seconds;
   const rows: string[][] = [
     ['plain sequential read (1 thread, into WASM memory)', gbps(read.bytes, read.seconds), '1.00'],
-    [`first pass, raw file (${opts.workers} workers)`, gbps(bytes, fpRaw.seconds), (bytes / fpRaw.seconds / readRate).toFixed(2)],
-    [`first pass, HDF5 chunked (${opts.workers} workers)`, gbps(bytes, fpH5.seconds), (bytes / fpH5.seconds / readRate).toFixed(2)],
+    [`first pass, raw file (${opts.workers} workers, warm engine)`, gbps(bytes, fpRaw.seconds), (bytes / fpRaw.seconds / readRate).toFixed(2)],
+    [`first pass, raw file (${opts.workers} workers, fresh engine incl. start-up)`, gbps(bytes, fpRaw.coldSeconds), (bytes / fpRaw.coldSeconds / readRate).toFixed(2)],
+    [`first pass, HDF5 chunked (${opts.workers} workers, warm engine)`, gbps(bytes, fpH5.seconds), (bytes / fpH5.seconds / readRate).toFixed(2)],
+    [`first pass, HDF5 chunked (${opts.workers} workers, fresh engine incl. start-up)`, gbps(bytes, fpH5.coldSeconds), (bytes / fpH5.coldSeconds / readRate).toFixed(2)],
   ];
   if (numpy) {
     rows.push([`NumPy ${numpy.numpy} memmap: same sums and max`, gbps(bytes, numpy.first_pass as number), ((bytes / (numpy.first_pass as number)) / readRate).toFixed(2)]);

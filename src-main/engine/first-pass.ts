@@ -53,10 +53,15 @@ export function startFirstPass(pool: WorkerPool, spec: SourceSpec, limits: Engin
     const geometry: FirstPassGeometry = { scanX, detY, detX, detBin: plan.detBin, scanBin: plan.scanBin };
     const sum = new Float64Array(pixels);
     const max = new Float64Array(pixels).fill(-Infinity);
-    const total = new Float64Array(scanY * scanX);
     const pv = plan.preview;
-    const preview = new Float32Array(pv.qY * pv.qX * pv.pY * pv.pX);
-    const previewRow = pv.qX * pv.pY * pv.pX;
+    // Workers write preview rows and totals straight into these shared arrays.
+    const shared = {
+      preview: new SharedArrayBuffer(pv.qY * pv.qX * pv.pY * pv.pX * 4),
+      total: new SharedArrayBuffer(scanY * scanX * 8),
+      previewRowValues: pv.qX * pv.pY * pv.pX,
+    };
+    const preview = new Float32Array(shared.preview);
+    const total = new Float64Array(shared.total);
     let nonFinite = 0;
     let readMs = 0;
     let computeMs = 0;
@@ -65,15 +70,13 @@ export function startFirstPass(pool: WorkerPool, spec: SourceSpec, limits: Engin
       pool, job, tiles: plan.tiles,
       compute: async (w, tile) => {
         await w.open(d.spec);
-        return w.firstPassTile(tile.row0, tile.nRows, geometry, options);
+        return w.firstPassTile(tile.row0, tile.nRows, geometry, options, shared);
       },
-      merge: (r, tile) => {
+      merge: (r) => {
         for (let i = 0; i < pixels; i++) {
           sum[i] += r.sum[i];
           if (r.max[i] > max[i]) max[i] = r.max[i];
         }
-        total.set(r.total, tile.row0 * scanX);
-        preview.set(r.preview, (tile.row0 / plan.scanBin) * previewRow);
         nonFinite += r.nonFinite;
         readMs += r.readMs;
         computeMs += r.computeMs;

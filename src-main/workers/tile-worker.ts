@@ -25,12 +25,28 @@ export interface KernelOptions {
   kernel: KernelKind;
 }
 
-export interface FirstPassTileReply extends FirstPassTileResult {
+export interface FirstPassTileReply extends Pick<FirstPassTileResult, 'sum' | 'max' | 'nonFinite'> {
   row0: number;
   nRows: number;
   bytes: number;
   readMs: number;
   computeMs: number;
+}
+
+/** The whole preview cube (float32) and total-intensity image (float64), shared with the main thread. */
+export interface FirstPassShared {
+  preview: SharedArrayBuffer;
+  total: SharedArrayBuffer;
+  /** Preview values per preview row (qX × pY × pX). */
+  previewRowValues: number;
+}
+
+function sharedOutputs(row0: number, nRows: number, g: FirstPassGeometry, shared: FirstPassShared) {
+  const rows = Math.ceil(nRows / g.scanBin);
+  return {
+    preview: new Float32Array(shared.preview, (row0 / g.scanBin) * shared.previewRowValues * 4, rows * shared.previewRowValues),
+    total: new Float64Array(shared.total, row0 * g.scanX * 8, nRows * g.scanX),
+  };
 }
 
 let source: TileSource | null = null;
@@ -39,9 +55,6 @@ let firstPass: FirstPassKernel | null = null;
 let firstPassKey = '';
 
 
-function transferables(r: FirstPassTileResult): ArrayBuffer[] {
-  return [r.sum.buffer, r.max.buffer, r.total.buffer, r.preview.buffer] as ArrayBuffer[];
-}
 
 const api = {
   /** Open (or keep open) the source; returns its descriptor and storage row alignment. */
@@ -56,21 +69,24 @@ const api = {
     return { descriptor: source.descriptor, rowAlignment: source.rowAlignment };
   },
 
-  firstPassTile(row0: number, nRows: number, geometry: FirstPassGeometry, options: KernelOptions): FirstPassTileReply {
+  /**
+   * One tile of the first pass. The preview rows and the totals go straight into the shared
+   * arrays that hold the whole preview cube and total-intensity image; sum and max come back.
+   */
+  firstPassTile(row0: number, nRows: number, geometry: FirstPassGeometry, options: KernelOptions, shared: FirstPassShared): FirstPassTileReply {
     if (!source) throw new Error('worker: open() must be called before firstPassTile()');
-    const firstPass = firstPassKernel(options);
+    const k = firstPassKernel(options);
     const d = source.descriptor;
     const n = nRows * d.shape.scanX * d.shape.detY * d.shape.detX;
     const t0 = performance.now();
-    const tile = firstPass.tileBuffer(d.dtype, n);
+    const tile = k.tileBuffer(d.dtype, n);
     source.readRows(row0, nRows, tile);
     const t1 = performance.now();
-    const r = firstPass.run(d.dtype, nRows, geometry);
-    const t2 = performance.now();
+    const r = k.run(d.dtype, nRows, geometry, sharedOutputs(row0, nRows, geometry, shared));
     const reply: FirstPassTileReply = {
-      ...r, row0, nRows, bytes: n * DTYPE_BYTES[d.dtype], readMs: t1 - t0, computeMs: t2 - t1,
+      sum: r.sum, max: r.max, nonFinite: r.nonFinite, row0, nRows, bytes: n * DTYPE_BYTES[d.dtype], readMs: t1 - t0, computeMs: performance.now() - t1,
     };
-    return Comlink.transfer(reply, transferables(r));
+    return Comlink.transfer(reply, [r.sum.buffer, r.max.buffer] as ArrayBuffer[]);
   },
 
   close(): void {

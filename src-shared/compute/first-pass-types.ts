@@ -28,12 +28,22 @@ export interface FirstPassTileResult {
   nonFinite: number;
 }
 
+export interface FirstPassOutputs {
+  preview?: Float32Array;
+  total?: Float64Array;
+}
+
 /** The fast kernel (WebAssembly SIMD) and its plain TypeScript twin share this shape. */
 export interface FirstPassKernel {
   /** A writable view of `nElements` elements of `dtype` that the next `run` reads: read the tile straight into it. */
   tileBuffer(dtype: DType, nElements: number): NumericArray;
-  /** Process `nRows` scan rows held in the tile buffer. Tiles must start on a multiple of scanBin. */
-  run(dtype: DType, nRows: number, geometry: FirstPassGeometry): FirstPassTileResult;
+  /**
+   * Process `nRows` scan rows held in the tile buffer. Tiles must start on a multiple of scanBin.
+   * With `out`, the preview and totals are written into the given arrays (e.g. views on a
+   * SharedArrayBuffer that holds the whole preview cube) and returned as those same arrays,
+   * instead of fresh ones: fresh memory costs page faults, which are slow on some machines.
+   */
+  run(dtype: DType, nRows: number, geometry: FirstPassGeometry, out?: FirstPassOutputs): FirstPassTileResult;
 }
 
 export function previewDims(scanY: number, g: FirstPassGeometry) {

@@ -1,6 +1,6 @@
 import { DTYPE_BYTES, typedView, type DType, type NumericArray } from '../model/dtype';
 import { checkGeometry } from './first-pass';
-import { previewDims, type FirstPassGeometry, type FirstPassKernel, type FirstPassTileResult } from './first-pass-types';
+import { previewDims, type FirstPassGeometry, type FirstPassKernel, type FirstPassOutputs, type FirstPassTileResult } from './first-pass-types';
 
 /**
  * The WebAssembly SIMD first-pass kernel (built from wasm-src/first-pass.ts to
@@ -50,7 +50,7 @@ export function createWasmFirstPassKernel(wasmModule: WebAssembly.Module, maxTil
       return typedView(dtype, memory.buffer, TILE_OFFSET, nElements);
     },
 
-    run(dtype: DType, nRows: number, g: FirstPassGeometry): FirstPassTileResult {
+    run(dtype: DType, nRows: number, g: FirstPassGeometry, out?: FirstPassOutputs): FirstPassTileResult {
       checkGeometry(nRows, g);
       if (tileDType !== dtype) throw new Error(`first pass: tileBuffer('${dtype}', …) must be called before run`);
       const nPix = g.detY * g.detX;
@@ -67,6 +67,9 @@ export function createWasmFirstPassKernel(wasmModule: WebAssembly.Module, maxTil
         return { sum: new Float64Array(nPix), max: new Float64Array(nPix).fill(-Infinity), total: new Float64Array(0), preview: new Float32Array(nPreview), nonFinite: 0 };
       }
 
+      // A bin wider than what it bins is one bin either way; clamping keeps the kernel's i32 index arithmetic small.
+      const detBin = Math.min(g.detBin, Math.max(g.detY, g.detX));
+      const scanBin = Math.min(g.scanBin, Math.max(nRows, g.scanX));
       let cursor = TILE_OFFSET + tileCapacity;
       const take = (bytes: number) => { const at = cursor; cursor = roundUp(cursor + bytes, 16); return at; };
       const sumOut = take(nPix * 8);
@@ -77,27 +80,36 @@ export function createWasmFirstPassKernel(wasmModule: WebAssembly.Module, maxTil
       const maxAcc = take(nPix * 8);
       const binAcc = take(pX * 8 + 64);
       const binF64 = take(pX * 8);
-      const previewAcc = take(g.scanBin > 1 ? qX * pY * pX * 8 : 0);
+      const columnAcc = take(g.detX * 8);
+      const previewAcc = take(scanBin > 1 ? qX * pY * pX * 8 : 0);
       ensureBytes(cursor);
 
-      const nonFinite = exports[EXPORT_NAMES[dtype]](TILE_OFFSET, nRows, g.scanX, g.detY, g.detX, g.detBin, g.scanBin,
-        sumOut, maxOut, totalOut, previewOut, sumAcc, maxAcc, binAcc, binF64, previewAcc);
+      const nonFinite = exports[EXPORT_NAMES[dtype]](TILE_OFFSET, nRows, g.scanX, g.detY, g.detX, detBin, scanBin,
+        sumOut, maxOut, totalOut, previewOut, sumAcc, maxAcc, binAcc, binF64, columnAcc, previewAcc);
 
       const buf = memory.buffer;
       return {
         sum: new Float64Array(buf, sumOut, nPix).slice(),
         max: new Float64Array(buf, maxOut, nPix).slice(),
-        total: new Float64Array(buf, totalOut, nPatterns).slice(),
-        preview: new Float32Array(buf, previewOut, nPreview).slice(),
+        total: place(new Float64Array(buf, totalOut, nPatterns), out?.total, 'total'),
+        preview: place(new Float32Array(buf, previewOut, nPreview), out?.preview, 'preview'),
         nonFinite,
       };
     },
   };
 }
 
+/** Copy a result out of kernel memory: into the caller's array when given, else a fresh one. */
+function place<T extends Float32Array | Float64Array>(view: T, target: T | undefined, what: string): T {
+  if (!target) return view.slice() as T;
+  if (target.length !== view.length) throw new RangeError(`first pass: ${what} output holds ${target.length} values, expected ${view.length}`);
+  target.set(view);
+  return target;
+}
+
 type FirstPassExport = (tile: number, nRows: number, scanX: number, detY: number, detX: number, detBin: number, scanBin: number,
   sumOut: number, maxOut: number, totalOut: number, previewOut: number,
-  sumAcc: number, maxAcc: number, binAcc: number, binF64: number, previewAcc: number) => number;
+  sumAcc: number, maxAcc: number, binAcc: number, binF64: number, columnAcc: number, previewAcc: number) => number;
 
 const EXPORT_NAMES: Record<DType, string> = {
   uint8: 'firstPassUint8', uint16: 'firstPassUint16', uint32: 'firstPassUint32',

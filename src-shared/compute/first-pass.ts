@@ -1,5 +1,5 @@
 import { allocTyped, type DType, type NumericArray } from '../model/dtype';
-import { previewDims, type FirstPassGeometry, type FirstPassKernel, type FirstPassTileResult } from './first-pass-types';
+import { previewDims, type FirstPassGeometry, type FirstPassKernel, type FirstPassOutputs, type FirstPassTileResult } from './first-pass-types';
 
 /**
  * The first pass over one tile, written for clarity: it is the reference the WebAssembly
@@ -71,13 +71,30 @@ export function createReferenceKernel(): FirstPassKernel {
       length = nElements;
       return buffer.subarray(0, nElements);
     },
-    run(dtype: DType, nRows: number, geometry: FirstPassGeometry): FirstPassTileResult {
+    run(dtype: DType, nRows: number, geometry: FirstPassGeometry, out?: FirstPassOutputs): FirstPassTileResult {
       if (!buffer || bufferDType !== dtype) throw new Error(`first pass: tileBuffer('${dtype}', …) must be called before run`);
       const needed = nRows * geometry.scanX * geometry.detY * geometry.detX;
       if (needed > length) throw new RangeError(`first pass: run needs ${needed} elements but tileBuffer was asked for ${length}`);
-      return firstPassReference(buffer.subarray(0, needed), nRows, geometry);
+      return placeOutputs(firstPassReference(buffer.subarray(0, needed), nRows, geometry), out);
     },
   };
+}
+
+/** Copy a result's preview and totals into caller-given arrays, when given. */
+export function placeOutputs(r: FirstPassTileResult, out?: FirstPassOutputs): FirstPassTileResult {
+  if (!out) return r;
+  const placed = { ...r };
+  if (out.preview) {
+    if (out.preview.length !== r.preview.length) throw new RangeError(`first pass: preview output holds ${out.preview.length} values, expected ${r.preview.length}`);
+    out.preview.set(r.preview);
+    placed.preview = out.preview;
+  }
+  if (out.total) {
+    if (out.total.length !== r.total.length) throw new RangeError(`first pass: total output holds ${out.total.length} values, expected ${r.total.length}`);
+    out.total.set(r.total);
+    placed.total = out.total;
+  }
+  return placed;
 }
 
 /** Geometry comes from a validated dataset descriptor; a bad one here is a caller's bug. */

@@ -169,6 +169,10 @@ describe('first-pass kernel near the type limits (analytic answers for constant 
     { dtype: 'uint8', value: 255, nRows: 30, g: { scanX: 20, detY: 5, detX: 37, detBin: 4, scanBin: 1 }, why: '600 patterns: u16 sum lanes flushed every 257' },
     { dtype: 'int8', value: -128, nRows: 30, g: { scanX: 20, detY: 5, detX: 37, detBin: 2, scanBin: 3 }, why: 'i16 sum lanes flushed every 256' },
     { dtype: 'int8', value: 127, nRows: 30, g: { scanX: 20, detY: 5, detX: 37, detBin: 16, scanBin: 1 }, why: 'i16 sum lanes, positive limit' },
+    { dtype: 'uint16', value: 65535, nRows: 1, g: { scanX: 2, detY: 256, detX: 256, detBin: 256, scanBin: 1 }, why: 'one bin of 65536 · 65535, just below 2³²' },
+    { dtype: 'int16', value: -32768, nRows: 1, g: { scanX: 2, detY: 256, detX: 256, detBin: 256, scanBin: 2 }, why: 'one bin of exactly −2³¹' },
+    { dtype: 'uint8', value: 255, nRows: 1, g: { scanX: 3, detY: 256, detX: 260, detBin: 256, scanBin: 1 }, why: '256-row column sums of 8-bit data' },
+    { dtype: 'int8', value: -128, nRows: 1, g: { scanX: 3, detY: 256, detX: 260, detBin: 256, scanBin: 1 }, why: '256-row column sums of signed 8-bit data' },
     { dtype: 'uint32', value: 4e9, nRows: 5, g: { scanX: 7, detY: 9, detX: 13, detBin: 3, scanBin: 2 }, why: 'sums far beyond 2³²' },
     { dtype: 'int32', value: -2147483648, nRows: 5, g: { scanX: 7, detY: 9, detX: 13, detBin: 4, scanBin: 3 }, why: 'sums far below −2³¹' },
   ];
@@ -246,7 +250,7 @@ describe('first-pass kernel object', () => {
     const r = kernel.run('uint16', 8, g);
     expectMatchesReference(r, tile, 'uint16', 8, g);
     expect(view.length, 'the old view is detached by the growth').toBe(0);
-    expect(kernel.tileBuffer('uint16', tile.length)).toEqual(tile);
+    expectSame('tile after growth', kernel.tileBuffer('uint16', tile.length), tile, (x, y) => x === y);
   });
 
   it('rejects a run larger than the tile buffer and a bad geometry', () => {

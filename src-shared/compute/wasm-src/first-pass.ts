@@ -16,54 +16,60 @@
 //   maxAcc  per-pixel running max in the data's own type
 //   binAcc  one row of detector bins: i32 lanes for 8/16-bit data, f64 otherwise (+64 bytes slack)
 //   binF64  one row of detector bins in f64, used only when i32 bin lanes must be emptied mid-bin
+//   columnAcc  one detector row of column sums (detX lanes of i32 or f64) for odd bin widths
 //   previewAcc  f64 bins of one preview row (qX·pY·pX), used only when scanBin > 1
 //
-// Work is ordered so each pattern is read from main memory once: a band of detBin detector
-// rows (a few KiB) is first folded into the per-pixel sum and max, then binned while it is
-// still in L1.
+// Work is ordered so each pattern is read from main memory once and the per-pixel accumulators
+// (which outgrow L1 for big detectors) are swept as rarely as possible: the same band of detBin
+// detector rows of four consecutive patterns is folded into the per-pixel sum and max in one
+// sweep, then each pattern's band (a few KiB) is binned while it is still in L1.
+//
+// Integer data are summed exactly in integer lanes, emptied into f64 before any lane could
+// overflow. The caller keeps min(detBin, detX) ≤ 65536 and detBin, scanBin no larger than the
+// extents they bin, so no 32-bit index or bin lane overflows within one detector row.
 
 // ---------------------------------------------------------------------------------------------
 // Exported entry points, one per dtype.
 
 export function firstPassUint8(tile: usize, nRows: i32, scanX: i32, detY: i32, detX: i32, detBin: i32, scanBin: i32,
   sumOut: usize, maxOut: usize, totalOut: usize, previewOut: usize,
-  sumAcc: usize, maxAcc: usize, binAcc: usize, binF64: usize, previewAcc: usize): f64 {
-  return firstPass<u8>(tile, nRows, scanX, detY, detX, detBin, scanBin, sumOut, maxOut, totalOut, previewOut, sumAcc, maxAcc, binAcc, binF64, previewAcc);
+  sumAcc: usize, maxAcc: usize, binAcc: usize, binF64: usize, columnAcc: usize, previewAcc: usize): f64 {
+  return firstPass<u8>(tile, nRows, scanX, detY, detX, detBin, scanBin, sumOut, maxOut, totalOut, previewOut, sumAcc, maxAcc, binAcc, binF64, columnAcc, previewAcc);
 }
 export function firstPassUint16(tile: usize, nRows: i32, scanX: i32, detY: i32, detX: i32, detBin: i32, scanBin: i32,
   sumOut: usize, maxOut: usize, totalOut: usize, previewOut: usize,
-  sumAcc: usize, maxAcc: usize, binAcc: usize, binF64: usize, previewAcc: usize): f64 {
-  return firstPass<u16>(tile, nRows, scanX, detY, detX, detBin, scanBin, sumOut, maxOut, totalOut, previewOut, sumAcc, maxAcc, binAcc, binF64, previewAcc);
+  sumAcc: usize, maxAcc: usize, binAcc: usize, binF64: usize, columnAcc: usize, previewAcc: usize): f64 {
+  return firstPass<u16>(tile, nRows, scanX, detY, detX, detBin, scanBin, sumOut, maxOut, totalOut, previewOut, sumAcc, maxAcc, binAcc, binF64, columnAcc, previewAcc);
 }
 export function firstPassUint32(tile: usize, nRows: i32, scanX: i32, detY: i32, detX: i32, detBin: i32, scanBin: i32,
   sumOut: usize, maxOut: usize, totalOut: usize, previewOut: usize,
-  sumAcc: usize, maxAcc: usize, binAcc: usize, binF64: usize, previewAcc: usize): f64 {
-  return firstPass<u32>(tile, nRows, scanX, detY, detX, detBin, scanBin, sumOut, maxOut, totalOut, previewOut, sumAcc, maxAcc, binAcc, binF64, previewAcc);
+  sumAcc: usize, maxAcc: usize, binAcc: usize, binF64: usize, columnAcc: usize, previewAcc: usize): f64 {
+  return firstPass<u32>(tile, nRows, scanX, detY, detX, detBin, scanBin, sumOut, maxOut, totalOut, previewOut, sumAcc, maxAcc, binAcc, binF64, columnAcc, previewAcc);
 }
 export function firstPassInt8(tile: usize, nRows: i32, scanX: i32, detY: i32, detX: i32, detBin: i32, scanBin: i32,
   sumOut: usize, maxOut: usize, totalOut: usize, previewOut: usize,
-  sumAcc: usize, maxAcc: usize, binAcc: usize, binF64: usize, previewAcc: usize): f64 {
-  return firstPass<i8>(tile, nRows, scanX, detY, detX, detBin, scanBin, sumOut, maxOut, totalOut, previewOut, sumAcc, maxAcc, binAcc, binF64, previewAcc);
+  sumAcc: usize, maxAcc: usize, binAcc: usize, binF64: usize, columnAcc: usize, previewAcc: usize): f64 {
+  return firstPass<i8>(tile, nRows, scanX, detY, detX, detBin, scanBin, sumOut, maxOut, totalOut, previewOut, sumAcc, maxAcc, binAcc, binF64, columnAcc, previewAcc);
 }
 export function firstPassInt16(tile: usize, nRows: i32, scanX: i32, detY: i32, detX: i32, detBin: i32, scanBin: i32,
   sumOut: usize, maxOut: usize, totalOut: usize, previewOut: usize,
-  sumAcc: usize, maxAcc: usize, binAcc: usize, binF64: usize, previewAcc: usize): f64 {
-  return firstPass<i16>(tile, nRows, scanX, detY, detX, detBin, scanBin, sumOut, maxOut, totalOut, previewOut, sumAcc, maxAcc, binAcc, binF64, previewAcc);
+  sumAcc: usize, maxAcc: usize, binAcc: usize, binF64: usize, columnAcc: usize, previewAcc: usize): f64 {
+  return firstPass<i16>(tile, nRows, scanX, detY, detX, detBin, scanBin, sumOut, maxOut, totalOut, previewOut, sumAcc, maxAcc, binAcc, binF64, columnAcc, previewAcc);
 }
 export function firstPassInt32(tile: usize, nRows: i32, scanX: i32, detY: i32, detX: i32, detBin: i32, scanBin: i32,
   sumOut: usize, maxOut: usize, totalOut: usize, previewOut: usize,
-  sumAcc: usize, maxAcc: usize, binAcc: usize, binF64: usize, previewAcc: usize): f64 {
-  return firstPass<i32>(tile, nRows, scanX, detY, detX, detBin, scanBin, sumOut, maxOut, totalOut, previewOut, sumAcc, maxAcc, binAcc, binF64, previewAcc);
+  sumAcc: usize, maxAcc: usize, binAcc: usize, binF64: usize, columnAcc: usize, previewAcc: usize): f64 {
+  return firstPass<i32>(tile, nRows, scanX, detY, detX, detBin, scanBin, sumOut, maxOut, totalOut, previewOut, sumAcc, maxAcc, binAcc, binF64, columnAcc, previewAcc);
 }
 export function firstPassFloat32(tile: usize, nRows: i32, scanX: i32, detY: i32, detX: i32, detBin: i32, scanBin: i32,
   sumOut: usize, maxOut: usize, totalOut: usize, previewOut: usize,
-  sumAcc: usize, maxAcc: usize, binAcc: usize, binF64: usize, previewAcc: usize): f64 {
-  return firstPass<f32>(tile, nRows, scanX, detY, detX, detBin, scanBin, sumOut, maxOut, totalOut, previewOut, sumAcc, maxAcc, binAcc, binF64, previewAcc);
+  sumAcc: usize, maxAcc: usize, binAcc: usize, binF64: usize, columnAcc: usize, previewAcc: usize): f64 {
+  return firstPass<f32>(tile, nRows, scanX, detY, detX, detBin, scanBin, sumOut, maxOut, totalOut, previewOut, sumAcc, maxAcc, binAcc, binF64, columnAcc, previewAcc);
 }
 export function firstPassFloat64(tile: usize, nRows: i32, scanX: i32, detY: i32, detX: i32, detBin: i32, scanBin: i32,
   sumOut: usize, maxOut: usize, totalOut: usize, previewOut: usize,
-  sumAcc: usize, maxAcc: usize, binAcc: usize, binF64: usize, previewAcc: usize): f64 {
-  return firstPass<f64>(tile, nRows, scanX, detY, detX, detBin, scanBin, sumOut, maxOut, totalOut, previewOut, sumAcc, maxAcc, binAcc, binF64, previewAcc);
+  sumAcc: usize, maxAcc: usize, binAcc: usize, binF64: usize, columnAcc: usize, previewAcc: usize): f64 {
+  return firstPass<f64>(tile, nRows, scanX, detY, detX, detBin, scanBin, sumOut, maxOut, totalOut, previewOut, sumAcc, maxAcc, binAcc, binF64, columnAcc, previewAcc);
 }
 
 // ---------------------------------------------------------------------------------------------
@@ -123,7 +129,7 @@ const GROUP: usize = 4;
 // @ts-ignore: decorator
 @inline function firstPass<T extends number>(tile: usize, nRows: i32, scanX: i32, detY: i32, detX: i32, detBin: i32, scanBin: i32,
   sumOut: usize, maxOut: usize, totalOut: usize, previewOut: usize,
-  sumAcc: usize, maxAcc: usize, binAcc: usize, binF64: usize, previewAcc: usize): f64 {
+  sumAcc: usize, maxAcc: usize, binAcc: usize, binF64: usize, columnAcc: usize, previewAcc: usize): f64 {
   const nPix = <usize>detY * <usize>detX;
   const patternBytes = nPix * sizeof<T>();
   const pY = (detY + detBin - 1) / detBin;
@@ -177,7 +183,7 @@ const GROUP: usize = 4;
           const dest = scanBin == 1
             ? previewOut + ((<usize>qr * <usize>qX + <usize>c) * binsPerPattern + binRowIndex) * 4
             : previewAcc + (<usize>(c / scanBin) * binsPerPattern + binRowIndex) * 8;
-          const bandTotal = binBand<T>(band + j * patternBytes, detX, y1 - y0, detBin, pX, binAcc, binF64, rowsPerBinFlush, dest, scanBin == 1);
+          const bandTotal = binBand<T>(band + j * patternBytes, detX, y1 - y0, detBin, pX, binAcc, binF64, columnAcc, rowsPerBinFlush, dest, scanBin == 1);
           const totalAt = totalOut + pattern * 8;
           store<f64>(totalAt, load<f64>(totalAt) + bandTotal);
         }
@@ -194,19 +200,26 @@ const GROUP: usize = 4;
   return nonFinite;
 }
 
-/** Bins one band (h ≤ detBin detector rows) of one pattern, emits the bin row and returns its total. */
+/**
+ * Bins one band (h ≤ detBin detector rows) of one pattern, emits the bin row and returns its total.
+ * Common small bins of 8/16-bit and float32 data take the column-by-column SIMD path; other
+ * widths sum the band down each column first; only bins too wide for that (8/16-bit data,
+ * detBin > 256) go row by row, emptying the i32 bin lanes into f64 before they could overflow.
+ */
 // @ts-ignore: decorator
 @inline function binBand<T extends number>(band: usize, detX: i32, h: i32, detBin: i32, pX: i32, binAcc: usize, binF64: usize,
-  rowsPerBinFlush: i32, dest: usize, destIsF32: bool): f64 {
+  columnAcc: usize, rowsPerBinFlush: i32, dest: usize, destIsF32: bool): f64 {
   const rowBytes = <usize>detX * sizeof<T>();
   const x = binBandColumns<T>(band, rowBytes, detX, h, detBin, binAcc);
   let binF64Used = false;
   if (x >= 0) {
     if (x < detX) for (let y = 0; y < h; y++) binRowScalar<T>(band + <usize>y * rowBytes, x, detX, detBin, binAcc);
+  } else if (!binsInI32<T>() || detBin <= MAX_COLUMN_SUM_ROWS) {
+    binBandByColumnSums<T>(band, rowBytes, detX, h, detBin, binAcc, columnAcc);
   } else {
     let rowsInBinLanes = 0;
     for (let y = 0; y < h; y++) {
-      binRow<T>(band + <usize>y * rowBytes, detX, detBin, binAcc);
+      binRowScalar<T>(band + <usize>y * rowBytes, 0, detX, detBin, binAcc);
       if (binsInI32<T>() && ++rowsInBinLanes == rowsPerBinFlush && y + 1 < h) {
         moveI32BinsToF64<T>(binAcc, binF64, pX, binF64Used);
         binF64Used = true;
@@ -215,6 +228,139 @@ const GROUP: usize = 4;
     }
   }
   return emitBinRow<T>(binAcc, binF64, binF64Used, pX, dest, destIsF32);
+}
+
+/**
+ * Widest bins whose sums binBandByColumnSums keeps in 32-bit lanes: 8-bit column sums of 256
+ * rows fit 16-bit lanes, and a bin of 256 · 256 values of 16-bit data fits 32 bits
+ * (65536 · 65535 < 2³², 65536 · −32768 = −2³¹).
+ */
+const MAX_COLUMN_SUM_ROWS = 256;
+
+/**
+ * Any bin width: the band's rows are summed down each column in registers (SIMD), then each
+ * bin adds its columns. Stores every bin of the row (including the partial edge bin).
+ */
+// @ts-ignore: decorator
+@inline function binBandByColumnSums<T extends number>(band: usize, rowBytes: usize, detX: i32, h: i32, detBin: i32, binAcc: usize, columnAcc: usize): void {
+  let x = 0;
+  if (isInteger<T>() && sizeof<T>() == 2) {
+    for (; x + 8 <= detX; x += 8) {
+      let s = band + <usize>x * 2;
+      let lo = i32x4.splat(0), hi = lo;
+      for (let y = 0; y < h; y++) {
+        const v = v128.load(s);
+        lo = i32x4.add(lo, v128.extend_low<T>(v));
+        hi = i32x4.add(hi, v128.extend_high<T>(v));
+        s += rowBytes;
+      }
+      const p = columnAcc + <usize>x * 4;
+      v128.store(p, lo);
+      v128.store(p, hi, 16);
+    }
+  } else if (isInteger<T>() && sizeof<T>() == 1) {
+    for (; x + 16 <= detX; x += 16) {
+      let s = band + <usize>x;
+      let lo = i16x8.splat(0), hi = lo;
+      for (let y = 0; y < h; y++) {
+        const v = v128.load(s);
+        lo = i16x8.add(lo, v128.extend_low<T>(v));
+        hi = i16x8.add(hi, v128.extend_high<T>(v));
+        s += rowBytes;
+      }
+      const p = columnAcc + <usize>x * 4;
+      if (isSigned<T>()) {
+        v128.store(p, i32x4.extend_low_i16x8_s(lo));
+        v128.store(p, i32x4.extend_high_i16x8_s(lo), 16);
+        v128.store(p, i32x4.extend_low_i16x8_s(hi), 32);
+        v128.store(p, i32x4.extend_high_i16x8_s(hi), 48);
+      } else {
+        v128.store(p, i32x4.extend_low_i16x8_u(lo));
+        v128.store(p, i32x4.extend_high_i16x8_u(lo), 16);
+        v128.store(p, i32x4.extend_low_i16x8_u(hi), 32);
+        v128.store(p, i32x4.extend_high_i16x8_u(hi), 48);
+      }
+    }
+  } else if (isFloat<T>() && sizeof<T>() == 4) {
+    for (; x + 4 <= detX; x += 4) {
+      let s = band + <usize>x * 4;
+      let lo = f64x2.splat(0), hi = lo;
+      for (let y = 0; y < h; y++) {
+        const v = finiteOrZeroF32(v128.load(s));
+        lo = f64x2.add(lo, f64x2.promote_low_f32x4(v));
+        hi = f64x2.add(hi, f64x2.promote_low_f32x4(highHalf(v)));
+        s += rowBytes;
+      }
+      storeF64Lanes(columnAcc + <usize>x * 8, lo, hi);
+    }
+  } else if (isFloat<T>()) {
+    for (; x + 2 <= detX; x += 2) {
+      let s = band + <usize>x * 8;
+      let acc = f64x2.splat(0);
+      for (let y = 0; y < h; y++) {
+        const v = v128.load(s);
+        acc = f64x2.add(acc, v128.and(v, finiteMaskF64(v)));
+        s += rowBytes;
+      }
+      v128.store(columnAcc + <usize>x * 8, acc);
+    }
+  } else {
+    // 32-bit integers: exact in f64 for any band a tile can hold (h · 2³² < 2⁵³).
+    for (; x + 4 <= detX; x += 4) {
+      let s = band + <usize>x * 4;
+      let lo = f64x2.splat(0), hi = lo;
+      for (let y = 0; y < h; y++) {
+        const v = v128.load(s);
+        if (isSigned<T>()) {
+          lo = f64x2.add(lo, f64x2.convert_low_i32x4_s(v));
+          hi = f64x2.add(hi, f64x2.convert_low_i32x4_s(highHalf(v)));
+        } else {
+          lo = f64x2.add(lo, f64x2.convert_low_i32x4_u(v));
+          hi = f64x2.add(hi, f64x2.convert_low_i32x4_u(highHalf(v)));
+        }
+        s += rowBytes;
+      }
+      storeF64Lanes(columnAcc + <usize>x * 8, lo, hi);
+    }
+  }
+  // Columns past the last whole vector.
+  for (; x < detX; x++) {
+    let s = band + <usize>x * sizeof<T>();
+    if (binsInI32<T>()) {
+      let sum: i32 = 0;
+      for (let y = 0; y < h; y++) { sum += <i32>load<T>(s); s += rowBytes; }
+      store<i32>(columnAcc + <usize>x * 4, sum);
+    } else {
+      let sum: f64 = 0;
+      for (let y = 0; y < h; y++) {
+        const v = <f64>load<T>(s);
+        if (isFloat<T>()) { if (Math.abs(v) < Infinity) sum += v; } else sum += v;
+        s += rowBytes;
+      }
+      store<f64>(columnAcc + <usize>x * 8, sum);
+    }
+  }
+  // Each bin adds its columns; i32 lanes wrap like the unsigned sums they stand for.
+  let b = 0;
+  for (let x0 = 0; x0 < detX; x0 += detBin) {
+    const x1 = min(detX, x0 + detBin);
+    if (binsInI32<T>()) {
+      let sum: i32 = 0;
+      for (let c = x0; c < x1; c++) sum += load<i32>(columnAcc + <usize>c * 4);
+      store<i32>(binAcc + <usize>b * 4, sum);
+    } else {
+      let sum: f64 = 0;
+      for (let c = x0; c < x1; c++) sum += load<f64>(columnAcc + <usize>c * 8);
+      store<f64>(binAcc + <usize>b * 8, sum);
+    }
+    b++;
+  }
+}
+
+// @ts-ignore: decorator
+@inline function storeF64Lanes(p: usize, lo: v128, hi: v128): void {
+  v128.store(p, lo);
+  v128.store(p, hi, 16);
 }
 
 // @ts-ignore: decorator
@@ -739,48 +885,6 @@ function writePreviewRow(previewAcc: usize, dest: usize, scanX: i32, scanBin: i3
     return -1;
   }
   return x;
-}
-
-/**
- * Adds one detector row into the bin lanes, for the bins binBandColumns leaves alone: bins
- * that are a multiple of 8 (16-bit), 16 (8-bit) or 4 (float32) values wide are reduced one
- * vector group at a time; any other width, and the edge bin, go through the scalar loop.
- */
-// @ts-ignore: decorator
-@inline function binRow<T extends number>(row: usize, detX: i32, detBin: i32, binAcc: usize): void {
-  let x = 0;
-  if (isInteger<T>() && sizeof<T>() == 2) {
-    if ((detBin & 7) == 0) {
-      for (; x + detBin <= detX; x += detBin) {
-        let acc = i32x4.splat(0);
-        for (let k = 0; k < detBin; k += 8) acc = i32x4.add(acc, pairs16<T>(v128.load(row + <usize>(x + k) * 2)));
-        const p = binAcc + <usize>(x / detBin) * 4;
-        store<i32>(p, load<i32>(p) + laneSumI32(acc));
-      }
-    }
-  } else if (isInteger<T>() && sizeof<T>() == 1) {
-    if ((detBin & 15) == 0) {
-      for (; x + detBin <= detX; x += detBin) {
-        let acc = i32x4.splat(0);
-        for (let k = 0; k < detBin; k += 16) acc = i32x4.add(acc, quads8<T>(v128.load(row + <usize>(x + k))));
-        const p = binAcc + <usize>(x / detBin) * 4;
-        store<i32>(p, load<i32>(p) + laneSumI32(acc));
-      }
-    }
-  } else if (isFloat<T>() && sizeof<T>() == 4) {
-    if ((detBin & 3) == 0) {
-      for (; x + detBin <= detX; x += detBin) {
-        let acc = f64x2.splat(0);
-        for (let k = 0; k < detBin; k += 4) {
-          const v = finiteOrZeroF32(v128.load(row + <usize>(x + k) * 4));
-          acc = f64x2.add(acc, f64x2.add(f64x2.promote_low_f32x4(v), f64x2.promote_low_f32x4(highHalf(v))));
-        }
-        const p = binAcc + <usize>(x / detBin) * 8;
-        store<f64>(p, load<f64>(p) + (f64x2.extract_lane(acc, 0) + f64x2.extract_lane(acc, 1)));
-      }
-    }
-  }
-  binRowScalar<T>(row, x, detX, detBin, binAcc);
 }
 
 /** Bins from x (a bin boundary) to the end of the row, including a partial edge bin. */
