@@ -1,0 +1,47 @@
+import fs from 'node:fs';
+import path from 'node:path';
+import { DTYPE_BYTES, typedView } from '../../src-shared/model/dtype';
+import { InputError } from '../../src-shared/model/errors';
+import { openForReading, readFullyAt, swapBytesInPlace } from './contiguous';
+import { npyDType, readNpyHeader } from './npy';
+
+/** A small 2-D array read whole from a .npy file (masks, not datasets). */
+export interface SmallArray2D {
+  height: number;
+  width: number;
+  values: Float64Array;
+}
+
+const MAX_SMALL_BYTES = 256 * 1024 * 1024;
+
+/**
+ * Read a 2-D .npy array (e.g. a painted detector mask or a scan region) as float64. Accepts
+ * NumPy's boolean dtype '|b1' besides the numeric ones; C order only.
+ */
+export function readNpy2D(file: string, what: string): SmallArray2D {
+  const abs = path.resolve(file);
+  const f = openForReading(abs, `a .npy ${what}`);
+  try {
+    const h = readNpyHeader(f.fd, f.size, abs);
+    if (h.fortranOrder !== false) throw new InputError(`${abs}: Fortran-ordered arrays are not supported; save the ${what} with np.ascontiguousarray`, 'unsupported');
+    const shape = h.shape as number[];
+    if (!Array.isArray(shape) || shape.length !== 2) {
+      throw new InputError(`${abs}: the ${what} has shape (${Array.isArray(shape) ? shape.join(', ') : String(shape)}); expected a 2-D array`, 'bad-shape');
+    }
+    const [height, width] = shape;
+    const isBool = h.descr === '|b1';
+    const { dtype, byteOrder } = isBool ? { dtype: 'uint8' as const, byteOrder: 'little' as const } : npyDType(h.descr, abs);
+    const bytes = height * width * DTYPE_BYTES[dtype];
+    if (bytes > MAX_SMALL_BYTES) throw new InputError(`${abs}: the ${what} is ${bytes} bytes; expected a small 2-D array`, 'bad-shape');
+    if (f.size < h.dataOffset + bytes) {
+      throw new InputError(`${abs}: file is ${f.size} bytes, expected ${h.dataOffset + bytes} for a ${height}×${width} ${String(h.descr)} array`, 'short-file');
+    }
+    const raw = new Uint8Array(bytes);
+    readFullyAt(f.fd, raw, h.dataOffset, abs);
+    if (byteOrder === 'big') swapBytesInPlace(raw, DTYPE_BYTES[dtype]);
+    const typed = typedView(dtype, raw.buffer, 0, height * width);
+    return { height, width, values: Float64Array.from(typed) };
+  } finally {
+    fs.closeSync(f.fd);
+  }
+}

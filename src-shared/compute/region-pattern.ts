@@ -1,0 +1,37 @@
+import type { NumericArray } from '../model/dtype';
+
+/**
+ * Virtual diffraction over a real-space region: fold the patterns of a tile whose positions
+ * are selected into running float64 sum and max patterns. Non-finite values are left out
+ * and counted. `select[i]` is 1 when pattern i of the tile is in the region.
+ */
+export function accumulateRegionPatterns(
+  tile: NumericArray, nPatterns: number, pixels: number, select: Uint8Array,
+  sum: Float64Array, max: Float64Array,
+): { count: number; nonFinite: number } {
+  if (tile.length !== nPatterns * pixels) throw new Error(`accumulateRegionPatterns: tile holds ${tile.length} values, expected ${nPatterns} × ${pixels}`);
+  if (select.length !== nPatterns) throw new Error(`accumulateRegionPatterns: select has ${select.length} entries, expected ${nPatterns}`);
+  let count = 0;
+  let nonFinite = 0;
+  const float = tile instanceof Float32Array || tile instanceof Float64Array;
+  for (let p = 0; p < nPatterns; p++) {
+    if (!select[p]) continue;
+    count++;
+    const base = p * pixels;
+    if (float) {
+      for (let i = 0; i < pixels; i++) {
+        const v = tile[base + i];
+        if (!Number.isFinite(v)) { nonFinite++; continue; }
+        sum[i] += v;
+        if (v > max[i]) max[i] = v;
+      }
+    } else {
+      for (let i = 0; i < pixels; i++) {
+        const v = tile[base + i];
+        sum[i] += v;
+        if (v > max[i]) max[i] = v;
+      }
+    }
+  }
+  return { count, nonFinite };
+}
