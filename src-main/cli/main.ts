@@ -11,6 +11,7 @@ import { progressPrinter } from './progress';
 import { writeSample, SAMPLE_SIZES } from '../../samples/write-sample';
 import { runBenchmark } from '../engine/first-pass.bench';
 import { projectRoot } from '../engine/paths';
+import { ANALYSIS_HELP, cmdCalibrate, cmdCom, cmdImage } from './analysis-commands';
 
 const HELP = `scanfold — exploratory analysis of 4D-STEM datasets far larger than memory
 
@@ -19,6 +20,7 @@ usage:
       print the dataset descriptor as JSON (an HDF5 file without --dataset: its candidate datasets)
   scanfold summary FILE [source flags] --out OUT.h5 [engine flags]
       run the first streaming pass; write /mean_pattern, /max_pattern, /total_intensity (float64)
+${ANALYSIS_HELP}
   scanfold sample --size tiny|demo|large --out FILE.h5 [--seed N]
       write a demo dataset of our own synthetic scenario (with its ground truth under /truth)
   scanfold demo [--dir DIR]
@@ -190,6 +192,17 @@ async function cmdBench(args: string[]) {
   await runBenchmark({ dir, workers });
 }
 
+/** parseArgs throws TypeErrors with codes for unknown or malformed flags: those are bad input. */
+async function wrapParse(fn: () => Promise<void>): Promise<void> {
+  try {
+    await fn();
+  } catch (e) {
+    const code = (e as { code?: string }).code;
+    if (typeof code === 'string' && code.startsWith('ERR_PARSE_ARGS')) throw new InputError(`${(e as Error).message}\nrun \`scanfold --help\` for usage`);
+    throw e;
+  }
+}
+
 export async function main(argv: string[]): Promise<number> {
   const [cmd, ...rest] = argv;
   try {
@@ -202,8 +215,11 @@ export async function main(argv: string[]): Promise<number> {
       case 'summary': await cmdSummary(rest); break;
       case 'sample': await cmdSample(rest); break;
       case 'demo': await cmdDemo(rest); break;
+      case 'image': await wrapParse(() => cmdImage(rest, engineOptions, ENGINE_OPTIONS)); break;
+      case 'com': await wrapParse(() => cmdCom(rest, engineOptions, ENGINE_OPTIONS)); break;
+      case 'calibrate': await wrapParse(() => cmdCalibrate(rest, engineOptions, ENGINE_OPTIONS)); break;
       case 'bench': await cmdBench(rest); break;
-      default: throw new InputError(`unknown command "${cmd}"; expected info, summary, sample, demo or bench (see scanfold --help)`);
+      default: throw new InputError(`unknown command "${cmd}"; expected info, summary, image, com, calibrate, sample, demo or bench (see scanfold --help)`);
     }
     return 0;
   } catch (e) {

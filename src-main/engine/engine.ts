@@ -3,6 +3,9 @@ import type { SourceSpec } from '../../src-shared/model/dataset';
 import type { JobInfo } from '../../src-shared/contract/jobs';
 import { DEFAULT_BUDGET, DEFAULT_PREVIEW_BUDGET, type EngineLimits } from './budget';
 import { startFirstPass, type FirstPassSummary } from './first-pass';
+import { startComSums, startRegionPattern, startVirtualImages, type ComSumsResult, type RegionPatternResult, type VirtualImagesResult } from './analyses';
+import type { CompiledDetector } from '../../src-shared/model/detectors';
+import type { ComOptions } from '../../src-shared/compute/tile-kernels-types';
 import type { Job } from './job';
 import { WorkerPool } from './worker-pool';
 import type { KernelKind } from '../workers/tile-worker';
@@ -48,6 +51,21 @@ export class Engine {
   /** The first streaming pass: mean/max pattern, total intensity, preview cube. */
   firstPass(spec: SourceSpec): Job<FirstPassSummary> {
     return this.track(startFirstPass(this.pool, spec, this.limits, this.kernel));
+  }
+
+  /** Virtual images of several detectors in one streaming pass. */
+  virtualImages(spec: SourceSpec, detectors: CompiledDetector[]): Job<VirtualImagesResult> {
+    return this.track(startVirtualImages(this.pool, spec, detectors, this.limits, this.kernel));
+  }
+
+  /** Per-position centre-of-mass sums (Σ I, Σ I·x, Σ I·y). */
+  comSums(spec: SourceSpec, options: ComOptions): Job<ComSumsResult> {
+    return this.track(startComSums(this.pool, spec, options, this.limits, this.kernel));
+  }
+
+  /** Mean and max pattern over a real-space region (mask of the scan's shape). */
+  regionPattern(spec: SourceSpec, region: Uint8Array): Job<RegionPatternResult> {
+    return this.track(startRegionPattern(this.pool, spec, region, this.limits));
   }
 
   private track<T>(job: Job<T>): Job<T> {

@@ -10,6 +10,7 @@ import { writeSample } from '../../samples/write-sample';
 import { projectRoot } from './paths';
 import { fmtBytes } from './budget';
 import { allocTyped } from '../../src-shared/model/dtype';
+import { runAnalysesBenchmark } from './analyses.bench';
 
 const PY = '/usr/bin/python3';
 
@@ -122,5 +123,7 @@ export async function runBenchmark(opts: { dir: string; workers: number }): Prom
   if (numpy) {
     console.log(`first pass (raw) vs NumPy same sums: ${((numpy.first_pass as number) / fpRaw.seconds).toFixed(2)}×; vs NumPy plain sum: ${((numpy.plain_sum as number) / fpRaw.seconds).toFixed(2)}×`);
   }
-  console.log(`worker time split (raw): read ${(fpRaw.readMs / 1000).toFixed(2)} s, compute ${(fpRaw.computeMs / 1000).toFixed(2)} s (summed over workers); tiles of ${fpRaw.plan.tileRows} rows, preview ${fpRaw.preview.qY}×${fpRaw.preview.qX}×${fpRaw.preview.pY}×${fpRaw.preview.pX}`);
+  const detail = `worker time split (raw): read ${(fpRaw.readMs / 1000).toFixed(2)} s, compute ${(fpRaw.computeMs / 1000).toFixed(2)} s (summed over workers); tiles of ${fpRaw.plan.tileRows} rows, preview ${fpRaw.preview.qY}×${fpRaw.preview.qX}×${fpRaw.preview.pY}×${fpRaw.preview.pX}`;
+  console.log(detail);
+  await runAnalysesBenchmark({ raw, shape, workers: opts.workers, readRate });
 }

@@ -5,10 +5,17 @@ import { parentPort, workerData } from 'node:worker_threads';
 import * as Comlink from 'comlink';
 import nodeEndpoint from 'comlink/dist/esm/node-adapter.mjs';
 import type { SourceSpec, DatasetDescriptor } from '../../src-shared/model/dataset';
-import { DTYPE_BYTES } from '../../src-shared/model/dtype';
+import { allocTyped, DTYPE_BYTES, type NumericArray } from '../../src-shared/model/dtype';
+import type { CompiledDetector } from '../../src-shared/model/detectors';
 import type { FirstPassGeometry, FirstPassKernel, FirstPassTileResult } from '../../src-shared/compute/first-pass-types';
+import type { ComKernel, ComOptions, VirtualImageKernel } from '../../src-shared/compute/tile-kernels-types';
 import { createReferenceKernel } from '../../src-shared/compute/first-pass';
 import { createWasmFirstPassKernel } from '../../src-shared/compute/first-pass-wasm';
+import { createReferenceVirtualImageKernel } from '../../src-shared/compute/virtual-image';
+import { createWasmVirtualImageKernel } from '../../src-shared/compute/virtual-image-wasm';
+import { createReferenceComKernel } from '../../src-shared/compute/com';
+import { createWasmComKernel } from '../../src-shared/compute/com-wasm';
+import { accumulateRegionPatterns } from '../../src-shared/compute/region-pattern';
 import { openTileSource, type TileSource } from '../io/index';
 import { loadWasmModule } from './wasm-loader';
 
@@ -25,13 +32,16 @@ export interface KernelOptions {
   kernel: KernelKind;
 }
 
-export interface FirstPassTileReply extends Pick<FirstPassTileResult, 'sum' | 'max' | 'nonFinite'> {
+/** Where the time of one tile went, for benchmarks and diagnostics. */
+export interface TileTiming {
   row0: number;
   nRows: number;
   bytes: number;
   readMs: number;
   computeMs: number;
 }
+
+export type FirstPassTileReply = Pick<FirstPassTileResult, 'sum' | 'max' | 'nonFinite'> & TileTiming;
 
 /** The whole preview cube (float32) and total-intensity image (float64), shared with the main thread. */
 export interface FirstPassShared {
@@ -48,13 +58,53 @@ function sharedOutputs(row0: number, nRows: number, g: FirstPassGeometry, shared
     total: new Float64Array(shared.total, row0 * g.scanX * 8, nRows * g.scanX),
   };
 }
+export type VirtualImagesTileReply = { images: Float64Array; nonFinite: number } & TileTiming;
+export type ComTileReply = { total: Float64Array; sumX: Float64Array; sumY: Float64Array; nonFinite: number } & TileTiming;
+export type RegionTileReply = { sum: Float64Array; max: Float64Array; count: number; nonFinite: number } & TileTiming;
 
 let source: TileSource | null = null;
 let sourceKey = '';
-let firstPass: FirstPassKernel | null = null;
-let firstPassKey = '';
 
+/**
+ * One kernel at a time: each owns memory sized for a whole tile, and the memory budget
+ * counts one tile per worker, so switching analyses drops the previous kernel.
+ */
+type AnyKernel = FirstPassKernel | VirtualImageKernel | ComKernel;
+let active: { key: string; kernel: AnyKernel } | null = null;
 
+function kernelFor<K extends AnyKernel>(kind: 'first-pass' | 'virtual-image' | 'com', options: KernelOptions): K {
+  const key = `${kind}:${options.kernel}:${options.maxTileBytes}`;
+  if (active && active.key === key) return active.kernel as K;
+  active = null;
+  let kernel: AnyKernel;
+  if (options.kernel === 'wasm') {
+    const module = loadWasmModule(kind);
+    kernel = kind === 'first-pass' ? createWasmFirstPassKernel(module, options.maxTileBytes)
+      : kind === 'virtual-image' ? createWasmVirtualImageKernel(module, options.maxTileBytes)
+        : createWasmComKernel(module, options.maxTileBytes);
+  } else {
+    kernel = kind === 'first-pass' ? createReferenceKernel()
+      : kind === 'virtual-image' ? createReferenceVirtualImageKernel()
+        : createReferenceComKernel();
+  }
+  active = { key, kernel };
+  return kernel as K;
+}
+
+function openSource(): TileSource {
+  if (!source) throw new Error('worker: open() must be called before reading tiles');
+  return source;
+}
+
+/** Read rows straight into `buffer` (kernel memory) and time it. */
+function readInto(src: TileSource, row0: number, nRows: number, buffer: (n: number) => NumericArray) {
+  const d = src.descriptor;
+  const n = nRows * d.shape.scanX * d.shape.detY * d.shape.detX;
+  const t0 = performance.now();
+  const tile = buffer(n);
+  src.readRows(row0, nRows, tile);
+  return { tile, n, bytes: n * DTYPE_BYTES[d.dtype], readMs: performance.now() - t0 };
+}
 
 const api = {
   /** Open (or keep open) the source; returns its descriptor and storage row alignment. */
@@ -74,48 +124,81 @@ const api = {
    * arrays that hold the whole preview cube and total-intensity image; sum and max come back.
    */
   firstPassTile(row0: number, nRows: number, geometry: FirstPassGeometry, options: KernelOptions, shared: FirstPassShared): FirstPassTileReply {
-    if (!source) throw new Error('worker: open() must be called before firstPassTile()');
-    const k = firstPassKernel(options);
-    const d = source.descriptor;
-    const n = nRows * d.shape.scanX * d.shape.detY * d.shape.detX;
-    const t0 = performance.now();
-    const tile = k.tileBuffer(d.dtype, n);
-    source.readRows(row0, nRows, tile);
+    const src = openSource();
+    const k = kernelFor<FirstPassKernel>('first-pass', options);
+    const dtype = src.descriptor.dtype;
+    const { bytes, readMs } = readInto(src, row0, nRows, (n) => k.tileBuffer(dtype, n));
     const t1 = performance.now();
-    const r = k.run(d.dtype, nRows, geometry, sharedOutputs(row0, nRows, geometry, shared));
+    const out = sharedOutputs(row0, nRows, geometry, shared);
+    const r = k.run(dtype, nRows, geometry, out);
     const reply: FirstPassTileReply = {
-      sum: r.sum, max: r.max, nonFinite: r.nonFinite, row0, nRows, bytes: n * DTYPE_BYTES[d.dtype], readMs: t1 - t0, computeMs: performance.now() - t1,
+      sum: r.sum, max: r.max, nonFinite: r.nonFinite, row0, nRows, bytes, readMs, computeMs: performance.now() - t1,
     };
     return Comlink.transfer(reply, [r.sum.buffer, r.max.buffer] as ArrayBuffer[]);
+  },
+
+  virtualImagesTile(row0: number, nRows: number, detectors: CompiledDetector[], options: KernelOptions): VirtualImagesTileReply {
+    const src = openSource();
+    const k = kernelFor<VirtualImageKernel>('virtual-image', options);
+    const dtype = src.descriptor.dtype;
+    const { n, bytes, readMs } = readInto(src, row0, nRows, (n) => k.tileBuffer(dtype, n));
+    void n;
+    const t1 = performance.now();
+    k.setDetectors(detectors);
+    const r = k.run(dtype, nRows * src.descriptor.shape.scanX);
+    const reply: VirtualImagesTileReply = { images: r.images, nonFinite: r.nonFinite, row0, nRows, bytes, readMs, computeMs: performance.now() - t1 };
+    return Comlink.transfer(reply, [r.images.buffer as ArrayBuffer]);
+  },
+
+  comTile(row0: number, nRows: number, com: ComOptions, options: KernelOptions): ComTileReply {
+    const src = openSource();
+    const k = kernelFor<ComKernel>('com', options);
+    const { dtype, shape } = src.descriptor;
+    const { bytes, readMs } = readInto(src, row0, nRows, (n) => k.tileBuffer(dtype, n));
+    const t1 = performance.now();
+    k.setOptions(com, shape.detY, shape.detX);
+    const r = k.run(dtype, nRows * shape.scanX);
+    const reply: ComTileReply = { ...r, row0, nRows, bytes, readMs, computeMs: performance.now() - t1 };
+    return Comlink.transfer(reply, [r.total.buffer, r.sumX.buffer, r.sumY.buffer] as ArrayBuffer[]);
+  },
+
+  /** Sum and max pattern over the selected positions of rows [row0, row0+nRows). */
+  regionPatternTile(row0: number, nRows: number, select: Uint8Array): RegionTileReply {
+    const src = openSource();
+    const { dtype, shape } = src.descriptor;
+    const pixels = shape.detY * shape.detX;
+    // Rows are read one at a time: a region usually touches few positions per row.
+    const t0 = performance.now();
+    const rowBuf = allocTyped(dtype, shape.scanX * pixels);
+    const sum = new Float64Array(pixels);
+    const max = new Float64Array(pixels).fill(-Infinity);
+    let count = 0, nonFinite = 0, readMs = 0, bytes = 0;
+    for (let r = 0; r < nRows; r++) {
+      const sel = select.subarray(r * shape.scanX, (r + 1) * shape.scanX);
+      if (!sel.some((v) => v !== 0)) continue;
+      const tr = performance.now();
+      src.readRows(row0 + r, 1, rowBuf);
+      readMs += performance.now() - tr;
+      bytes += rowBuf.byteLength;
+      const a = accumulateRegionPatterns(rowBuf, shape.scanX, pixels, sel, sum, max);
+      count += a.count;
+      nonFinite += a.nonFinite;
+    }
+    const computeMs = performance.now() - t0 - readMs;
+    return Comlink.transfer({ sum, max, count, nonFinite, row0, nRows, bytes, readMs, computeMs }, [sum.buffer, max.buffer]);
   },
 
   close(): void {
     source?.close();
     source = null;
     sourceKey = '';
-  },
-
-  /** For tests of failure handling: throw from inside a task, or end the thread abruptly. */
-  fail(how: 'throw' | 'exit'): void {
-    if (how === 'exit') process.exit(3);
-    throw new Error('worker: deliberate failure');
+    active = null;
   },
 
   ping(): number {
     return (workerData as { index?: number } | undefined)?.index ?? -1;
   },
 };
-
-function firstPassKernel(options: KernelOptions): FirstPassKernel {
-  const key = `${options.kernel}:${options.maxTileBytes}`;
-  if (firstPass && key === firstPassKey) return firstPass;
-  const k = options.kernel === 'wasm'
-    ? createWasmFirstPassKernel(loadWasmModule('first-pass'), options.maxTileBytes)
-    : createReferenceKernel();
-  firstPass = k;
-  firstPassKey = key;
-  return k;
-}
 
 export type TileWorkerApi = typeof api;
 

@@ -1,0 +1,287 @@
+// `scanfold image`, `scanfold com`, `scanfold calibrate`: virtual imaging, centre of mass and
+// calibration from the command line, through the same engine as the application.
+import fs from 'node:fs';
+import path from 'node:path';
+import { parseArgs } from 'node:util';
+import type { SourceSpec } from '../../src-shared/model/dataset';
+import type { DetectorShape, DetectorSpec } from '../../src-shared/model/detectors';
+import { InputError } from '../../src-shared/model/errors';
+import { compileDetector, describeDetector } from '../../src-shared/compute/detector-masks';
+import { findBadPixels, replaceBadPixels } from '../../src-shared/compute/bad-pixels';
+import { findBrightFieldDisk } from '../../src-shared/compute/bright-field-disk';
+import { calibrate } from '../../src-shared/compute/calibration';
+import { strongestRing } from '../../src-shared/compute/radial-profile';
+import { descan, rotateCom, divergence, curl, estimateRotation, integrateCom, type DescanMode } from '../../src-shared/compute/com-field';
+import { Engine, type EngineOptions } from '../engine/engine';
+import type { FirstPassSummary } from '../engine/first-pass';
+import { writeFloat64Results, type ResultArray } from '../io/write-results';
+import { readNpy2D } from '../io/npy-array';
+import { progressPrinter } from './progress';
+import { SOURCE_OPTIONS, sourceSpecFromFlags } from './source-flags';
+
+export const ANALYSIS_HELP = `  scanfold image FILE [source flags] --disk CX,CY,R --annulus CX,CY,R0,R1 --rect X0,Y0,X1,Y1
+                 --polygon "X,Y X,Y X,Y" --mask MASK.npy [--weighted] [--bad-pixels auto|none] --out OUT.h5
+      virtual images of any number of detectors (detector px; x column, y row), in the order
+      given, in one pass: /images (n_detectors, scan_y, scan_x) float64
+  scanfold com FILE [source flags] [--mask-disk CX,CY,R] [--threshold T] [--descan none|mean|plane]
+                 [--rotation auto|DEGREES] [--flip auto|yes|no] [--bad-pixels auto|none] --out OUT.h5
+      centre of mass per pattern: /com_x, /com_y (detector px, after descan and rotation),
+      /total_intensity, /divergence, /curl, /phase (integrated COM), attributes rotation_degrees, flip
+  scanfold calibrate FILE [source flags] --energy-kev E [--convergence-mrad A | --lattice-spacing-angstrom D
+                 [--bragg-distance-px G]]
+      wavelength, bright-field disk, mrad and Å⁻¹ per detector pixel, as JSON
+  --bad-pixels auto (default) finds hot and dead detector pixels on the mean/max pattern (one
+      extra pass) and leaves them out of every detector and of the COM; none keeps every pixel.`;
+
+type Flags = Record<string, string | boolean | (string | boolean)[] | undefined>;
+
+function numbers(flag: string, s: string, count: number): number[] {
+  const parts = s.split(',').map((p) => p.trim());
+  const v = parts.map(Number);
+  if (parts.length !== count || v.some((x) => !Number.isFinite(x))) {
+    throw new InputError(`--${flag} ${s}: expected ${count} numbers separated by commas`);
+  }
+  return v;
+}
+
+function positive(flag: string, s: string | undefined): number | undefined {
+  if (s === undefined) return undefined;
+  const v = Number(s);
+  if (!Number.isFinite(v) || v <= 0) throw new InputError(`--${flag} ${s}: expected a positive number`);
+  return v;
+}
+
+/** Detector flags in the order the user gave them. */
+function detectorShapes(tokens: ReturnType<typeof parseArgs>['tokens'], detY: number, detX: number): DetectorShape[] {
+  const shapes: DetectorShape[] = [];
+  for (const t of tokens ?? []) {
+    if (t.kind !== 'option' || typeof t.value !== 'string') continue;
+    const v = t.value;
+    switch (t.name) {
+      case 'disk': { const [cx, cy, r] = numbers('disk', v, 3); shapes.push({ kind: 'disk', cx, cy, r }); break; }
+      case 'annulus': { const [cx, cy, rInner, rOuter] = numbers('annulus', v, 4); shapes.push({ kind: 'annulus', cx, cy, rInner, rOuter }); break; }
+      case 'rect': { const [x0, y0, x1, y1] = numbers('rect', v, 4); shapes.push({ kind: 'rectangle', x0, y0, x1, y1 }); break; }
+      case 'polygon': {
+        const pts = v.trim().split(/\s+/).map((p) => numbers('polygon', p, 2) as [number, number]);
+        shapes.push({ kind: 'polygon', points: pts });
+        break;
+      }
+      case 'mask': {
+        const m = readNpy2D(v, 'detector mask');
+        if (m.height !== detY || m.width !== detX) {
+          throw new InputError(`${path.resolve(v)}: the mask is ${m.height}×${m.width}, but the patterns are ${detY}×${detX}; expected a mask of the detector's shape`);
+        }
+        shapes.push({ kind: 'mask', width: m.width, height: m.height, values: m.values });
+        break;
+      }
+    }
+  }
+  return shapes;
+}
+
+async function withEngine<T>(options: EngineOptions, fn: (e: Engine) => Promise<T>): Promise<T> {
+  const engine = new Engine(options);
+  try { return await fn(engine); } finally { await engine.close(); }
+}
+
+async function runJob<T>(job: { result: Promise<T>; onProgress: (cb: (p: import('../../src-shared/contract/jobs').JobProgress) => void) => unknown; cancel: (r?: string) => void; progress: import('../../src-shared/contract/jobs').JobProgress }, label: string, quiet: boolean): Promise<T> {
+  const bar = progressPrinter(label, !quiet);
+  job.onProgress((p) => bar.update(p));
+  const onSigint = () => job.cancel('interrupted');
+  process.once('SIGINT', onSigint);
+  try {
+    const r = await job.result;
+    bar.update(job.progress);
+    return r;
+  } finally {
+    bar.done();
+    process.off('SIGINT', onSigint);
+  }
+}
+
+/** The bad-pixel mask from a first pass, or none. */
+async function badPixelMask(engine: Engine, spec: SourceSpec, mode: string, quiet: boolean): Promise<{ mask: Uint8Array | undefined; count: number; summary?: FirstPassSummary }> {
+  if (mode === 'none') return { mask: undefined, count: 0 };
+  if (mode !== 'auto') throw new InputError(`--bad-pixels ${mode}: expected auto or none`);
+  const s = await runJob(engine.firstPass(spec), 'first pass (bad pixels)', quiet);
+  const { detY, detX, scanY, scanX } = s.descriptor.shape;
+  const bad = findBadPixels(s.meanPattern, s.maxPattern, detY, detX, { patternCount: scanY * scanX });
+  return { mask: bad.mask, count: bad.hot.length + bad.dead.length, summary: s };
+}
+
+function needOut(v: Flags): string {
+  if (typeof v.out !== 'string') throw new InputError('--out OUT.h5 is required');
+  const out = path.resolve(v.out);
+  if (!fs.existsSync(path.dirname(out))) throw new InputError(`--out ${out}: the folder ${path.dirname(out)} does not exist`);
+  return out;
+}
+
+export async function cmdImage(args: string[], engineOptions: (v: Record<string, unknown>) => EngineOptions, engineFlags: Record<string, { type: 'string' | 'boolean' }>): Promise<void> {
+  const parsed = parseArgs({
+    args, allowPositionals: true, strict: true, tokens: true,
+    options: {
+      ...SOURCE_OPTIONS, ...engineFlags, out: { type: 'string' }, weighted: { type: 'boolean' }, 'bad-pixels': { type: 'string' },
+      disk: { type: 'string', multiple: true }, annulus: { type: 'string', multiple: true }, rect: { type: 'string', multiple: true },
+      polygon: { type: 'string', multiple: true }, mask: { type: 'string', multiple: true },
+    },
+  });
+  const v = parsed.values as Flags;
+  const spec = sourceSpecFromFlags(parsed.positionals[0], v as Record<string, unknown>);
+  const out = needOut(v);
+  const quiet = v.quiet === true;
+  await withEngine(engineOptions(v as Record<string, unknown>), async (engine) => {
+    const insp = await engine.inspect(spec);
+    if (insp.kind !== 'dataset') throw new InputError(`${spec.path}: give --dataset; candidates: ${insp.datasets.filter((d) => d.candidate).map((d) => d.path).join(', ')}`);
+    const { detY, detX, scanY, scanX } = insp.descriptor.shape;
+    const shapes = detectorShapes(parsed.tokens, detY, detX);
+    if (shapes.length === 0) throw new InputError('image needs at least one detector: --disk, --annulus, --rect, --polygon or --mask');
+    const specs: DetectorSpec[] = shapes.map((shape) => ({ shape, weighted: v.weighted === true }));
+    // Check every detector before any pass over the data.
+    for (const s of specs) compileDetector(s, detY, detX);
+    const bad = await badPixelMask(engine, spec, typeof v['bad-pixels'] === 'string' ? v['bad-pixels'] : 'auto', quiet);
+    const compiled = specs.map((s) => ({ ...compileDetector(s, detY, detX, { excludePixels: bad.mask }), label: describeDetector(s) }));
+    const r = await runJob(engine.virtualImages(spec, compiled), 'virtual images', quiet);
+    const n = scanY * scanX;
+    const all = new Float64Array(specs.length * n);
+    r.images.forEach((img, k) => all.set(img, k * n));
+    const attrs: Record<string, string | number> = { detectors: JSON.stringify(specs.map(describeDetector)), bad_pixels_left_out: bad.count, non_finite_values: r.nonFinite };
+    specs.forEach((s, k) => { attrs[`detector_${k}`] = describeDetector(s); });
+    await writeFloat64Results(out, { images: { data: all, shape: [specs.length, scanY, scanX], attrs } }, {
+      source_path: r.descriptor.path, source_dataset: r.descriptor.datasetPath ?? '', source_fingerprint: r.descriptor.fingerprint, producer: 'scanfold image',
+    });
+    if (!quiet) process.stderr.write(`wrote ${out}: ${specs.length} image(s) ${scanY}×${scanX}${bad.count ? `, ${bad.count} bad detector pixel(s) left out` : ''}\n`);
+  });
+}
+
+export async function cmdCom(args: string[], engineOptions: (v: Record<string, unknown>) => EngineOptions, engineFlags: Record<string, { type: 'string' | 'boolean' }>): Promise<void> {
+  const parsed = parseArgs({
+    args, allowPositionals: true, strict: true,
+    options: {
+      ...SOURCE_OPTIONS, ...engineFlags, out: { type: 'string' }, 'mask-disk': { type: 'string' }, threshold: { type: 'string' },
+      descan: { type: 'string' }, rotation: { type: 'string' }, flip: { type: 'string' }, 'bad-pixels': { type: 'string' },
+    },
+  });
+  const v = parsed.values as Flags;
+  const spec = sourceSpecFromFlags(parsed.positionals[0], v as Record<string, unknown>);
+  const out = needOut(v);
+  const quiet = v.quiet === true;
+  const threshold = v.threshold === undefined ? 0 : Number(v.threshold);
+  if (!Number.isFinite(threshold)) throw new InputError(`--threshold ${v.threshold}: expected a number`);
+  const descanName = typeof v.descan === 'string' ? v.descan : 'none';
+  if (!['none', 'mean', 'plane'].includes(descanName)) throw new InputError(`--descan ${descanName}: expected none, mean or plane`);
+  const rotationArg = typeof v.rotation === 'string' ? v.rotation : 'auto';
+  const rotationGiven = rotationArg === 'auto' ? null : Number(rotationArg);
+  if (rotationGiven !== null && !Number.isFinite(rotationGiven)) throw new InputError(`--rotation ${rotationArg}: expected auto or a number of degrees`);
+  const flipArg = typeof v.flip === 'string' ? v.flip : 'auto';
+  if (!['auto', 'yes', 'no'].includes(flipArg)) throw new InputError(`--flip ${flipArg}: expected auto, yes or no`);
+  if ((rotationGiven === null) !== (flipArg === 'auto')) {
+    throw new InputError('--rotation and --flip go together: both auto (estimated from the data), or both given');
+  }
+  await withEngine(engineOptions(v as Record<string, unknown>), async (engine) => {
+    const insp = await engine.inspect(spec);
+    if (insp.kind !== 'dataset') throw new InputError(`${spec.path}: give --dataset; candidates: ${insp.datasets.filter((d) => d.candidate).map((d) => d.path).join(', ')}`);
+    const { detY, detX, scanY, scanX } = insp.descriptor.shape;
+    let maskSpec: DetectorSpec | null = null;
+    if (typeof v['mask-disk'] === 'string') {
+      const [cx, cy, r] = numbers('mask-disk', v['mask-disk'], 3);
+      maskSpec = { shape: { kind: 'disk', cx, cy, r } };
+      compileDetector(maskSpec, detY, detX);
+    }
+    const bad = await badPixelMask(engine, spec, typeof v['bad-pixels'] === 'string' ? v['bad-pixels'] : 'auto', quiet);
+    // Bad pixels leave the COM through the mask; with no mask given the mask is the whole detector.
+    const wantsMask = maskSpec !== null || bad.count > 0;
+    const mask = wantsMask
+      ? compileDetector(maskSpec ?? { shape: { kind: 'rectangle', x0: 0, y0: 0, x1: detX - 1, y1: detY - 1 } }, detY, detX, { excludePixels: bad.mask })
+      : null;
+    const sums = await runJob(engine.comSums(spec, { mask, threshold }), 'centre of mass', quiet);
+    const n = scanY * scanX;
+    const comX = new Float64Array(n), comY = new Float64Array(n);
+    let zeroTotal = 0;
+    for (let i = 0; i < n; i++) {
+      const t = sums.total[i];
+      if (t === 0) { comX[i] = NaN; comY[i] = NaN; zeroTotal++; continue; }
+      comX[i] = sums.sumX[i] / t;
+      comY[i] = sums.sumY[i] / t;
+    }
+    const mode: DescanMode = { kind: descanName as 'none' | 'mean' | 'plane' };
+    const d = descan(comX, comY, scanY, scanX, mode);
+    let degrees: number, flip: boolean, estimate: ReturnType<typeof estimateRotation> | null = null;
+    if (rotationGiven === null) {
+      estimate = estimateRotation(d.comX, d.comY, scanY, scanX);
+      degrees = estimate.degrees; flip = estimate.flip;
+    } else { degrees = rotationGiven; flip = flipArg === 'yes'; }
+    const rotated = rotateCom(d.comX, d.comY, degrees, flip);
+    const div = divergence(rotated.comX, rotated.comY, scanY, scanX);
+    const cu = curl(rotated.comX, rotated.comY, scanY, scanX);
+    const phase = integrateCom(rotated.comX, rotated.comY, scanY, scanX);
+    const shape = [scanY, scanX];
+    const arrays: Record<string, ResultArray> = {
+      com_x: { data: rotated.comX, shape, attrs: { units: 'detector pixels' } },
+      com_y: { data: rotated.comY, shape, attrs: { units: 'detector pixels' } },
+      total_intensity: { data: sums.total, shape },
+      divergence: { data: div, shape, attrs: { units: 'detector pixels per scan step' } },
+      curl: { data: cu, shape, attrs: { units: 'detector pixels per scan step' } },
+      phase: { data: phase.phase, shape, attrs: { units: 'detector pixels × scan steps (integrated COM)', method: 'Fourier integration, mirrored edges' } },
+    };
+    const rootAttrs: Record<string, string | number> = {
+      rotation_degrees: degrees, flip: flip ? 'yes' : 'no', rotation_source: estimate ? 'estimated (least curl)' : 'given',
+      descan: descanName, threshold, zero_total_patterns: zeroTotal, bad_pixels_left_out: bad.count, non_finite_values: sums.nonFinite,
+      com_mask: maskSpec ? describeDetector(maskSpec) : 'whole pattern',
+      source_path: sums.descriptor.path, source_dataset: sums.descriptor.datasetPath ?? '', source_fingerprint: sums.descriptor.fingerprint, producer: 'scanfold com',
+    };
+    if (estimate) {
+      rootAttrs.rotation_alternative_degrees = estimate.alternativeDegrees;
+      rootAttrs.rotation_curl_relative = estimate.curlRelative;
+      rootAttrs.rotation_half_turn_rule = estimate.halfTurnRule;
+    }
+    await writeFloat64Results(out, arrays, rootAttrs);
+    if (!quiet) {
+      process.stderr.write(`wrote ${out}: rotation ${degrees.toFixed(2)}°, flip ${flip ? 'yes' : 'no'}${estimate ? ` (estimated; relative curl ${estimate.curlRelative.toFixed(3)}; 180° away: ${estimate.alternativeDegrees.toFixed(2)}°)` : ''}` +
+        `${zeroTotal ? `; ${zeroTotal} pattern(s) with zero total → NaN` : ''}\n`);
+    }
+  });
+}
+
+export async function cmdCalibrate(args: string[], engineOptions: (v: Record<string, unknown>) => EngineOptions, engineFlags: Record<string, { type: 'string' | 'boolean' }>): Promise<void> {
+  const parsed = parseArgs({
+    args, allowPositionals: true, strict: true,
+    options: {
+      ...SOURCE_OPTIONS, ...engineFlags, 'energy-kev': { type: 'string' }, 'convergence-mrad': { type: 'string' },
+      'lattice-spacing-angstrom': { type: 'string' }, 'bragg-distance-px': { type: 'string' }, 'scan-step-nm': { type: 'string' },
+    },
+  });
+  const v = parsed.values as Flags;
+  const spec = sourceSpecFromFlags(parsed.positionals[0], v as Record<string, unknown>);
+  const energy = positive('energy-kev', v['energy-kev'] as string | undefined);
+  if (energy === undefined) throw new InputError('calibrate needs --energy-kev E (the beam energy)');
+  const alpha = positive('convergence-mrad', v['convergence-mrad'] as string | undefined);
+  const d = positive('lattice-spacing-angstrom', v['lattice-spacing-angstrom'] as string | undefined);
+  const braggGiven = positive('bragg-distance-px', v['bragg-distance-px'] as string | undefined);
+  const scanStep = positive('scan-step-nm', v['scan-step-nm'] as string | undefined);
+  if ((alpha === undefined) === (d === undefined)) throw new InputError('calibrate needs exactly one of --convergence-mrad A or --lattice-spacing-angstrom D');
+  await withEngine(engineOptions(v as Record<string, unknown>), async (engine) => {
+    const s = await runJob(engine.firstPass(spec), 'first pass', v.quiet === true);
+    const { detY, detX, scanY, scanX } = s.descriptor.shape;
+    const bad = findBadPixels(s.meanPattern, s.maxPattern, detY, detX, { patternCount: scanY * scanX });
+    const mean = replaceBadPixels(s.meanPattern, detY, detX, bad.mask);
+    const disk = findBrightFieldDisk(mean, detY, detX, { excludePixels: bad.mask });
+    let braggPx: number | undefined;
+    if (d !== undefined) braggPx = braggGiven ?? strongestRing(mean, detY, detX, disk.cx, disk.cy, disk.r * 1.5, bad.mask).radius;
+    const cal = calibrate(alpha !== undefined
+      ? { source: 'convergence-angle', energyKeV: energy, convergenceSemiAngleMrad: alpha, diskRadiusPx: disk.r, scanStepNm: scanStep }
+      : { source: 'lattice-spacing', energyKeV: energy, latticeSpacingAngstrom: d!, braggDistancePx: braggPx!, scanStepNm: scanStep });
+    process.stdout.write(JSON.stringify({
+      wavelength_pm: cal.wavelengthPm,
+      disk_center_px: { x: disk.cx, y: disk.cy },
+      disk_radius_px: disk.r,
+      disk_edge_consistency: disk.edgeConsistency,
+      mrad_per_pixel: cal.mradPerPixel,
+      inverse_angstrom_per_pixel: cal.inverseAngstromPerPixel,
+      ...(braggPx !== undefined ? { bragg_distance_px: braggPx, bragg_distance_source: braggGiven !== undefined ? 'given' : 'strongest ring of the mean pattern' } : {}),
+      ...(scanStep !== undefined ? { scan_step_nm: scanStep } : {}),
+      calibration_source: alpha !== undefined ? 'convergence-angle' : 'lattice-spacing',
+      bad_pixels: { hot: bad.hot.length, dead: bad.dead.length },
+      note: 'exploratory: check against a reference specimen before quoting numbers',
+    }, null, 2) + '\n');
+  });
+}

@@ -1,0 +1,174 @@
+// `scanfold image`, `scanfold com` and `scanfold calibrate` end to end, against NumPy's results
+// on files h5py wrote (test/fixtures/make_analysis_fixtures.py).
+import fs from 'node:fs';
+import os from 'node:os';
+import path from 'node:path';
+import { spawnSync } from 'node:child_process';
+import { afterAll, beforeAll, describe, expect, it } from 'vitest';
+import { makeFixtures, maxRelDiff, PYTHON, readNpyF64 } from '../helpers/fixtures';
+
+const root = path.resolve(__dirname, '../..');
+let fx: string;
+let tmp: string;
+
+function scanfold(...args: string[]) {
+  const p = spawnSync(process.execPath, [path.join(root, 'bin/scanfold.mjs'), ...args], { encoding: 'utf8' });
+  return { code: p.status, out: p.stdout, err: p.stderr };
+}
+
+/** Datasets and root attributes read back by h5py, the reference HDF5 library. */
+function h5py(file: string): { data: Record<string, { shape: number[]; values: (number | null)[]; attrs: Record<string, unknown> }>; attrs: Record<string, unknown> } {
+  const code = `import h5py, json, sys, numpy as np
+f = h5py.File(sys.argv[1], 'r')
+conv = lambda v: v.decode() if isinstance(v, bytes) else (v.item() if hasattr(v, 'item') else v)
+data = {k: {'shape': list(f[k].shape), 'values': [None if np.isnan(x) else float(x) for x in np.asarray(f[k], dtype=np.float64).ravel()],
+            'attrs': {a: conv(f[k].attrs[a]) for a in f[k].attrs}} for k in f.keys()}
+print(json.dumps({'data': data, 'attrs': {a: conv(f.attrs[a]) for a in f.attrs}}))`;
+  const p = spawnSync(PYTHON, ['-c', code, file], { encoding: 'utf8', maxBuffer: 1 << 28 });
+  if (p.status !== 0) throw new Error(p.stderr);
+  return JSON.parse(p.stdout);
+}
+
+const nanAware = (v: (number | null)[]) => v.map((x) => (x === null ? NaN : x));
+
+beforeAll(() => {
+  fx = makeFixtures('make_analysis_fixtures.py');
+  tmp = fs.mkdtempSync(path.join(os.tmpdir(), 'scanfold-an-'));
+});
+afterAll(() => {
+  fs.rmSync(fx, { recursive: true, force: true });
+  fs.rmSync(tmp, { recursive: true, force: true });
+});
+
+describe('scanfold image', () => {
+  it('every shape kind, in the order given, equals NumPy mask sums (1e-9)', () => {
+    const out = path.join(tmp, 'images.h5');
+    const meta = JSON.parse(fs.readFileSync(path.join(fx, 'meta.json'), 'utf8'));
+    const poly = (meta.polygon as number[][]).map((p) => p.join(',')).join(' ');
+    const r = scanfold('image', path.join(fx, 'a.h5'), '--dataset', '/frames', '--bad-pixels', 'none', '--quiet',
+      '--annulus', '20,18.5,8,15.25', '--disk', '20.3,17.6,6.5', '--rect', '3.5,30,12,40', '--polygon', poly,
+      '--mask', path.join(fx, 'painted.npy'), '--out', out);
+    expect(r.code, r.err).toBe(0);
+    const got = h5py(out).data.images;
+    expect(got.shape).toEqual([5, 6, 7]);
+    const n = 42;
+    ['annulus', 'disk', 'rect', 'polygon', 'painted'].forEach((name, k) => {
+      // reference: NumPy tile.reshape(n,-1) @ mask (make_analysis_fixtures.py), same centre-inside rules
+      const ref = readNpyF64(path.join(fx, `image_${name}.npy`)).data;
+      expect(maxRelDiff(got.values.slice(k * n, (k + 1) * n) as number[], ref), name).toBeLessThan(1e-9);
+    });
+    expect(String(got.attrs.detector_0)).toMatch(/annulus/);
+    expect(String(got.attrs.detector_4)).toMatch(/mask/);
+  });
+
+  it('float data: NaN/Inf are counted and left out, not propagated', () => {
+    const out = path.join(tmp, 'b.h5');
+    const r = scanfold('image', path.join(fx, 'b.h5'), '--dataset', '/frames', '--bad-pixels', 'none', '--rect', '0,0,10,8', '--out', out);
+    expect(r.code, r.err).toBe(0);
+    const got = h5py(out).data.images;
+    // reference: NumPy sum over the whole pattern with non-finite values set to 0
+    expect(maxRelDiff(got.values as number[], readNpyF64(path.join(fx, 'b_image_full.npy')).data)).toBeLessThan(1e-6);
+    expect(got.attrs.non_finite_values).toBe(2);
+  });
+
+  const bad: [string, string[], RegExp][] = [
+    ['detector wholly outside the pattern', ['--disk', '500,500,3'], /outside|empty|no pixel/i],
+    ['r_outer ≤ r_inner', ['--annulus', '20,18,10,10'], /inner|outer/i],
+    ['polygon with < 3 points', ['--polygon', '1,1 5,5'], /3|three/],
+    ['mask of the wrong shape', ['--mask', 'WRONG'], /38.*41|41.*38|shape/],
+    ['no detector at all', [], /detector/],
+  ];
+  for (const [what, args, msg] of bad) {
+    it(`bad input: ${what} → exit 2 with a message, nothing written`, () => {
+      const out = path.join(tmp, `bad-${what.replace(/\W+/g, '-')}.h5`);
+      const a = args.map((x) => (x === 'WRONG' ? path.join(fx, 'wrong-shape.npy') : x));
+      const r = scanfold('image', path.join(fx, 'a.h5'), '--dataset', '/frames', '--bad-pixels', 'none', ...a, '--out', out);
+      expect(r.code, r.err).toBe(2);
+      expect(r.err).toMatch(msg);
+      expect(fs.existsSync(out)).toBe(false);
+    });
+  }
+
+  it('a detector partly outside the pattern is clipped', () => {
+    const out = path.join(tmp, 'clipped.h5');
+    const r = scanfold('image', path.join(fx, 'a.h5'), '--dataset', '/frames', '--bad-pixels', 'none', '--rect', '3.5,30,12,40', '--out', out);
+    expect(r.code, r.err).toBe(0);
+    // reference: NumPy mask of the same rectangle, cut at the detector edge
+    expect(maxRelDiff(h5py(out).data.images.values as number[], readNpyF64(path.join(fx, 'image_rect.npy')).data)).toBeLessThan(1e-9);
+  });
+});
+
+describe('scanfold com', () => {
+  for (const [name, extra] of [['plain', []], ['masked', ['--mask-disk', '20.3,17.6,6.5']], ['threshold', ['--threshold', '40']]] as const) {
+    it(`--descan none --rotation 0 --flip no (${name}) is the plain definition, equal to NumPy`, () => {
+      const out = path.join(tmp, `com-${name}.h5`);
+      const r = scanfold('com', path.join(fx, 'a.h5'), '--dataset', '/frames', '--bad-pixels', 'none', '--descan', 'none',
+        '--rotation', '0', '--flip', 'no', ...extra, '--out', out, '--quiet');
+      expect(r.code, r.err).toBe(0);
+      const h = h5py(out);
+      // reference: NumPy (t*xx).sum()/t.sum() per pattern (x column, y row); the zero pattern gives NaN
+      for (const [ds, ref] of [['com_x', 'x'], ['com_y', 'y'], ['total_intensity', 'total']]) {
+        const want = readNpyF64(path.join(fx, `com_${name}_${ref}.npy`)).data;
+        const got = nanAware(h.data[ds].values);
+        expect(Number.isNaN(got[0]) || ds === 'total_intensity').toBe(true);
+        expect(maxRelDiff(got.slice(1), want.slice(1)), ds).toBeLessThan(1e-9);
+      }
+      expect(h.attrs.rotation_degrees).toBe(0);
+      expect(h.attrs.flip).toBe('no');
+      expect(h.attrs.zero_total_patterns).toBe(1);
+      for (const ds of ['divergence', 'curl', 'phase']) expect(h.data[ds].shape).toEqual([6, 7]);
+    });
+  }
+});
+
+describe('demo scenario (its generator knows the truth)', () => {
+  let sample: string;
+  beforeAll(() => {
+    sample = path.join(tmp, 'demo.h5');
+    const r = scanfold('sample', '--size', 'demo', '--out', sample, '--quiet');
+    if (r.code !== 0) throw new Error(r.err);
+  });
+
+  it('a hot pixel appears in no result: image and COM leave the planted bad pixels out', () => {
+    const img = path.join(tmp, 'demo-image.h5');
+    const com = path.join(tmp, 'demo-com.h5');
+    // a rectangle over the whole detector covers every hot pixel; bad pixels are found automatically
+    expect(scanfold('image', sample, '--dataset', '/scan/frames', '--rect', '0,0,1000,1000', '--out', img, '--quiet').code).toBe(0);
+    expect(scanfold('com', sample, '--dataset', '/scan/frames', '--descan', 'none', '--rotation', '0', '--flip', 'no', '--out', com, '--quiet').code).toBe(0);
+    // reference: NumPy sums and COM of each pattern without the pixels the generator planted
+    // (/truth/hot_pixels, /truth/dead_pixels)
+    const code = `import h5py, numpy as np, sys, json
+f = h5py.File(sys.argv[1]); a = f['/scan/frames'][...].astype(np.float64)
+m = np.ones(a.shape[2:], bool)
+for k in ('hot_pixels', 'dead_pixels'):
+    for y, x in f['truth'][k][...].reshape(-1, 2): m[y, x] = False
+yy, xx = np.mgrid[0:a.shape[2], 0:a.shape[3]]
+t = (a * m).sum(axis=(2, 3))
+print(json.dumps({'total': t.ravel().tolist(), 'x': ((a * m * xx).sum(axis=(2, 3)) / t).ravel().tolist(), 'y': ((a * m * yy).sum(axis=(2, 3)) / t).ravel().tolist()}))`;
+    const p = spawnSync(PYTHON, ['-c', code, sample], { encoding: 'utf8', maxBuffer: 1 << 26 });
+    expect(p.status, p.stderr).toBe(0);
+    const want = JSON.parse(p.stdout) as Record<string, number[]>;
+    expect(maxRelDiff(h5py(img).data.images.values as number[], want.total)).toBeLessThan(1e-9);
+    const h = h5py(com);
+    expect(maxRelDiff(nanAware(h.data.com_x.values), want.x)).toBeLessThan(1e-9);
+    expect(maxRelDiff(nanAware(h.data.com_y.values), want.y)).toBeLessThan(1e-9);
+    expect(h.attrs.bad_pixels_left_out).toBe(7);
+  });
+
+  it('calibrate finds the bright-field disk the scenario drew and scales reciprocal space', () => {
+    const truth = JSON.parse(spawnSync(PYTHON, ['-c', `import h5py, sys, json
+d = h5py.File(sys.argv[1])['/truth/disk_center']
+print(json.dumps({'yx': d[...].tolist(), 'r': float(d.attrs['disk_radius_px'])}))`, sample], { encoding: 'utf8' }).stdout);
+    const r = scanfold('calibrate', sample, '--dataset', '/scan/frames', '--energy-kev', '200', '--convergence-mrad', '20', '--quiet');
+    expect(r.code, r.err).toBe(0);
+    const j = JSON.parse(r.out);
+    // handbook value: λ(200 kV) = 2.508 pm (commonly tabulated; from memory)
+    expect(Math.abs(j.wavelength_pm - 2.508) / 2.508).toBeLessThan(1e-3);
+    // analytic: the scenario drew its disk at this centre (y, x) and radius, under noise and hot pixels
+    expect(Math.abs(j.disk_center_px.x - truth.yx[1])).toBeLessThan(0.1);
+    expect(Math.abs(j.disk_center_px.y - truth.yx[0])).toBeLessThan(0.1);
+    expect(Math.abs(j.disk_radius_px - truth.r)).toBeLessThan(0.1);
+    // definition: mrad per pixel = α / r_disk
+    expect(Math.abs(j.mrad_per_pixel - 20 / j.disk_radius_px)).toBeLessThan(1e-12);
+  });
+});
