@@ -13,6 +13,7 @@ fs.mkdirSync(path.join(dist, 'wasm'), { recursive: true });
 
 // 1. WebAssembly kernels: every file in wasm-src whose name does not start with "_" is an entry.
 const wasmSrc = path.join(root, 'src-shared/compute/wasm-src');
+const SHARED_MEMORY_ENTRIES = new Set(['preview-image']);
 if (fs.existsSync(wasmSrc)) {
   const asc = path.join(root, 'node_modules/assemblyscript/bin/asc.js');
   for (const f of fs.readdirSync(wasmSrc)) {
@@ -21,7 +22,11 @@ if (fs.existsSync(wasmSrc)) {
     const out = path.join(dist, 'wasm', `${name}.wasm`);
     const src = path.join(wasmSrc, f);
     if (fs.existsSync(out) && newestMtime(wasmSrc) <= fs.statSync(out).mtimeMs) continue;
-    execFileSync(process.execPath, [asc, src, '-o', out, '-O3', '--noAssert', '--enable', 'simd',
+    // The preview cube's memory is shared: the first pass's workers write into it directly.
+    const memoryFlags = SHARED_MEMORY_ENTRIES.has(name)
+      ? ['--enable', 'simd,threads', '--sharedMemory', '--maximumMemory', '65536']
+      : ['--enable', 'simd'];
+    execFileSync(process.execPath, [asc, src, '-o', out, '-O3', '--noAssert', ...memoryFlags,
       '--runtime', 'stub', '--importMemory', '--initialMemory', '1'], { stdio: 'inherit', cwd: root });
   }
 }

@@ -11,7 +11,8 @@ import { findBadPixels, replaceBadPixels } from '../../src-shared/compute/bad-pi
 import { findBrightFieldDisk } from '../../src-shared/compute/bright-field-disk';
 import { calibrate } from '../../src-shared/compute/calibration';
 import { strongestRing } from '../../src-shared/compute/radial-profile';
-import { descan, rotateCom, divergence, curl, estimateRotation, integrateCom, type DescanMode } from '../../src-shared/compute/com-field';
+import { descan, rotateCom, divergence, curl, estimateRotation, integrateCom, magnitudeDirection, type DescanMode } from '../../src-shared/compute/com-field';
+import { compileRegion } from '../../src-shared/compute/region-masks';
 import { Engine, type EngineOptions } from '../engine/engine';
 import type { FirstPassSummary } from '../engine/first-pass';
 import { writeFloat64Results, type ResultArray } from '../io/write-results';
@@ -23,10 +24,12 @@ export const ANALYSIS_HELP = `  scanfold image FILE [source flags] --disk CX,CY,
                  --polygon "X,Y X,Y X,Y" --mask MASK.npy [--weighted] [--bad-pixels auto|none] --out OUT.h5
       virtual images of any number of detectors (detector px; x column, y row), in the order
       given, in one pass: /images (n_detectors, scan_y, scan_x) float64
-  scanfold com FILE [source flags] [--mask-disk CX,CY,R] [--threshold T] [--descan none|mean|plane]
+  scanfold com FILE [source flags] [--mask-disk CX,CY,R] [--threshold T] [--descan none|mean|plane|reference
+                 [--descan-region X0,Y0,X1,Y1]]
                  [--rotation auto|DEGREES] [--flip auto|yes|no] [--bad-pixels auto|none] --out OUT.h5
       centre of mass per pattern: /com_x, /com_y (detector px, after descan and rotation),
-      /total_intensity, /divergence, /curl, /phase (integrated COM), attributes rotation_degrees, flip
+      /total_intensity, /magnitude, /direction, /divergence, /curl, /phase (integrated COM),
+      attributes rotation_degrees, flip
   scanfold calibrate FILE [source flags] --energy-kev E [--convergence-mrad A | --lattice-spacing-angstrom D
                  [--bragg-distance-px G]]
       wavelength, bright-field disk, mrad and Å⁻¹ per detector pixel, as JSON
@@ -158,7 +161,7 @@ export async function cmdCom(args: string[], engineOptions: (v: Record<string, u
     args, allowPositionals: true, strict: true,
     options: {
       ...SOURCE_OPTIONS, ...engineFlags, out: { type: 'string' }, 'mask-disk': { type: 'string' }, threshold: { type: 'string' },
-      descan: { type: 'string' }, rotation: { type: 'string' }, flip: { type: 'string' }, 'bad-pixels': { type: 'string' },
+      descan: { type: 'string' }, 'descan-region': { type: 'string' }, rotation: { type: 'string' }, flip: { type: 'string' }, 'bad-pixels': { type: 'string' },
     },
   });
   const v = parsed.values as Flags;
@@ -167,8 +170,11 @@ export async function cmdCom(args: string[], engineOptions: (v: Record<string, u
   const quiet = v.quiet === true;
   const threshold = v.threshold === undefined ? 0 : Number(v.threshold);
   if (!Number.isFinite(threshold)) throw new InputError(`--threshold ${v.threshold}: expected a number`);
-  const descanName = typeof v.descan === 'string' ? v.descan : 'none';
-  if (!['none', 'mean', 'plane'].includes(descanName)) throw new InputError(`--descan ${descanName}: expected none, mean or plane`);
+  const descanName = typeof v.descan === 'string' ? v.descan : (typeof v['descan-region'] === 'string' ? 'reference' : 'none');
+  if (!['none', 'mean', 'plane', 'reference'].includes(descanName)) throw new InputError(`--descan ${descanName}: expected none, mean, plane or reference`);
+  if ((descanName === 'reference') !== (typeof v['descan-region'] === 'string')) {
+    throw new InputError('--descan reference needs --descan-region X0,Y0,X1,Y1 (scan positions of a reference area such as vacuum), and that flag needs --descan reference');
+  }
   const rotationArg = typeof v.rotation === 'string' ? v.rotation : 'auto';
   const rotationGiven = rotationArg === 'auto' ? null : Number(rotationArg);
   if (rotationGiven !== null && !Number.isFinite(rotationGiven)) throw new InputError(`--rotation ${rotationArg}: expected auto or a number of degrees`);
@@ -203,7 +209,13 @@ export async function cmdCom(args: string[], engineOptions: (v: Record<string, u
       comX[i] = sums.sumX[i] / t;
       comY[i] = sums.sumY[i] / t;
     }
-    const mode: DescanMode = { kind: descanName as 'none' | 'mean' | 'plane' };
+    let mode: DescanMode;
+    if (descanName === 'reference') {
+      const [x0, y0, x1, y1] = numbers('descan-region', v['descan-region'] as string, 4);
+      mode = { kind: 'reference', mask: compileRegion({ kind: 'rectangle', x0, y0, x1, y1 }, scanY, scanX) };
+    } else {
+      mode = { kind: descanName as 'none' | 'mean' | 'plane' };
+    }
     const d = descan(comX, comY, scanY, scanX, mode);
     let degrees: number, flip: boolean, estimate: ReturnType<typeof estimateRotation> | null = null;
     if (rotationGiven === null) {
@@ -214,11 +226,14 @@ export async function cmdCom(args: string[], engineOptions: (v: Record<string, u
     const div = divergence(rotated.comX, rotated.comY, scanY, scanX);
     const cu = curl(rotated.comX, rotated.comY, scanY, scanX);
     const phase = integrateCom(rotated.comX, rotated.comY, scanY, scanX);
+    const md = magnitudeDirection(rotated.comX, rotated.comY);
     const shape = [scanY, scanX];
     const arrays: Record<string, ResultArray> = {
       com_x: { data: rotated.comX, shape, attrs: { units: 'detector pixels' } },
       com_y: { data: rotated.comY, shape, attrs: { units: 'detector pixels' } },
       total_intensity: { data: sums.total, shape },
+      magnitude: { data: md.magnitude, shape, attrs: { units: 'detector pixels' } },
+      direction: { data: md.directionRadians, shape, attrs: { units: 'radians, atan2(com_y, com_x)' } },
       divergence: { data: div, shape, attrs: { units: 'detector pixels per scan step' } },
       curl: { data: cu, shape, attrs: { units: 'detector pixels per scan step' } },
       phase: { data: phase.phase, shape, attrs: { units: 'detector pixels × scan steps (integrated COM)', method: 'Fourier integration, mirrored edges' } },

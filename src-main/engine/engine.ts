@@ -2,7 +2,7 @@ import os from 'node:os';
 import type { SourceSpec } from '../../src-shared/model/dataset';
 import type { JobInfo } from '../../src-shared/contract/jobs';
 import { DEFAULT_BUDGET, DEFAULT_PREVIEW_BUDGET, type EngineLimits } from './budget';
-import { startFirstPass, type FirstPassSummary } from './first-pass';
+import { PreviewPool, startFirstPass, type FirstPassSummary } from './first-pass';
 import { startComSums, startRegionPattern, startVirtualImages, type ComSumsResult, type RegionPatternResult, type VirtualImagesResult } from './analyses';
 import type { CompiledDetector } from '../../src-shared/model/detectors';
 import type { ComOptions } from '../../src-shared/compute/tile-kernels-types';
@@ -31,6 +31,7 @@ export class Engine {
   // eslint-disable-next-line @typescript-eslint/no-explicit-any
   private readonly running = new Set<Job<any>>();
   private readonly finished: JobInfo[] = [];
+  private readonly previews = new PreviewPool();
 
   constructor(options: EngineOptions = {}) {
     const workers = options.workers ?? os.availableParallelism();
@@ -50,7 +51,14 @@ export class Engine {
 
   /** The first streaming pass: mean/max pattern, total intensity, preview cube. */
   firstPass(spec: SourceSpec): Job<FirstPassSummary> {
-    return this.track(startFirstPass(this.pool, spec, this.limits, this.kernel));
+    return this.track(startFirstPass(this.pool, spec, this.limits, this.kernel, this.previews));
+  }
+
+  /** Give back a first-pass result that is no longer shown; its preview cube's memory is reused. */
+  release(summary: FirstPassSummary): void {
+    this.previews.release(summary.preview.imager);
+    summary.preview.imager = null;
+    summary.preview.data = new Float32Array(0);
   }
 
   /** Virtual images of several detectors in one streaming pass. */
@@ -89,6 +97,7 @@ export class Engine {
 
   async close(): Promise<void> {
     for (const j of this.running) j.cancel('engine closing');
+    this.previews.clear();
     await this.pool.close();
   }
 }

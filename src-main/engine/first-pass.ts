@@ -3,6 +3,8 @@ import type { FirstPassGeometry } from '../../src-shared/compute/first-pass-type
 import { planFirstPass, type EngineLimits, type FirstPassPlan } from './budget';
 import { Job } from './job';
 import { runTiles } from './tile-runner';
+import { createWasmPreviewImager, type PreviewImager } from '../../src-shared/compute/preview-image-wasm';
+import { loadWasmModule } from '../workers/wasm-loader';
 import type { WorkerPool } from './worker-pool';
 import type { KernelKind, FirstPassTileReply } from '../workers/tile-worker';
 
@@ -16,6 +18,8 @@ export interface PreviewCube {
   pX: number;
   detBin: number;
   scanBin: number;
+  /** The WebAssembly kernel holding `data` in its memory, for fast detector images; null with the reference kernels. */
+  imager: PreviewImager | null;
 }
 
 export interface FirstPassSummary {
@@ -40,7 +44,32 @@ export interface FirstPassSummary {
  * The single streaming pass run on every open: mean and max pattern, total-intensity
  * image and preview cube, accumulated in float64 (preview in float32).
  */
-export function startFirstPass(pool: WorkerPool, spec: SourceSpec, limits: EngineLimits, kernel: KernelKind): Job<FirstPassSummary> {
+/**
+ * Preview cubes of finished analyses that were released (a dataset closed, a pass repeated).
+ * Fresh memory costs page faults that are slow on some machines (≈2.5 GB/s per thread here),
+ * so the engine keeps at most one released cube and reuses it for a cube of the same shape.
+ */
+export class PreviewPool {
+  private spare: PreviewImager | null = null;
+
+  take(qY: number, qX: number, pY: number, pX: number): PreviewImager {
+    const s = this.spare;
+    if (s && s.qY === qY && s.qX === qX && s.pY === pY && s.pX === pX) {
+      this.spare = null;
+      return s;
+    }
+    return createWasmPreviewImager(loadWasmModule('preview-image'), qY, qX, pY, pX);
+  }
+
+  /** Hand back a cube nobody uses any more (its contents will be overwritten). */
+  release(imager: PreviewImager | null): void {
+    if (imager) this.spare = imager;
+  }
+
+  clear(): void { this.spare = null; }
+}
+
+export function startFirstPass(pool: WorkerPool, spec: SourceSpec, limits: EngineLimits, kernel: KernelKind, previews = new PreviewPool()): Job<FirstPassSummary> {
   const job = new Job<FirstPassSummary>('first-pass', `first pass over ${spec.path}`, 0);
   (async () => {
     const t0 = performance.now();
@@ -54,18 +83,22 @@ export function startFirstPass(pool: WorkerPool, spec: SourceSpec, limits: Engin
     const sum = new Float64Array(pixels);
     const max = new Float64Array(pixels).fill(-Infinity);
     const pv = plan.preview;
-    // Workers write preview rows and totals straight into these shared arrays.
+    // The cube lives in the shared memory of the kernel that answers detector drags from it;
+    // workers write preview rows and totals straight into shared memory.
+    const imager = kernel === 'wasm' ? previews.take(pv.qY, pv.qX, pv.pY, pv.pX) : null;
     const shared = {
-      preview: new SharedArrayBuffer(pv.qY * pv.qX * pv.pY * pv.pX * 4),
+      preview: imager ? imager.sharedBuffer : new SharedArrayBuffer(pv.qY * pv.qX * pv.pY * pv.pX * 4),
+      previewByteOffset: imager ? imager.cubeByteOffset : 0,
       total: new SharedArrayBuffer(scanY * scanX * 8),
       previewRowValues: pv.qX * pv.pY * pv.pX,
     };
-    const preview = new Float32Array(shared.preview);
+    const preview = imager ? imager.cube() : new Float32Array(shared.preview);
     const total = new Float64Array(shared.total);
     let nonFinite = 0;
     let readMs = 0;
     let computeMs = 0;
     const options = { kernel, maxTileBytes: plan.tileBytes };
+    // A cancelled pass's cube is dropped, not pooled: tiles still in flight may write into it.
     await runTiles<FirstPassTileReply>({
       pool, job, tiles: plan.tiles,
       compute: async (w, tile) => {
@@ -82,12 +115,13 @@ export function startFirstPass(pool: WorkerPool, spec: SourceSpec, limits: Engin
         computeMs += r.computeMs;
       },
     });
+    if (job.cancelled) return;
     const n = scanY * scanX;
     const mean = new Float64Array(pixels);
     for (let i = 0; i < pixels; i++) mean[i] = sum[i] / n;
     job.succeed({
       descriptor: d, meanPattern: mean, maxPattern: max, totalIntensity: total,
-      preview: { data: preview, qY: pv.qY, qX: pv.qX, pY: pv.pY, pX: pv.pX, detBin: plan.detBin, scanBin: plan.scanBin },
+      preview: { data: preview, qY: pv.qY, qX: pv.qX, pY: pv.pY, pX: pv.pX, detBin: plan.detBin, scanBin: plan.scanBin, imager },
       nonFinite, plan, seconds: (performance.now() - t0) / 1000, readMs, computeMs,
     });
   })().catch((e) => job.fail(e));

@@ -10,5 +10,6 @@ import type { PreviewCube } from './first-pass';
  */
 export function previewDetectorImages(cube: PreviewCube, detectors: CompiledDetector[]): { images: Float64Array[]; qY: number; qX: number; scanBin: number } {
   const weights = detectors.map((d) => binDetectorWeights(d, cube.detBin));
-  return { images: previewImages(cube.data, cube.qY, cube.qX, cube.pY, cube.pX, weights), qY: cube.qY, qX: cube.qX, scanBin: cube.scanBin };
+  const images = cube.imager ? cube.imager.images(weights) : previewImages(cube.data, cube.qY, cube.qX, cube.pY, cube.pX, weights);
+  return { images, qY: cube.qY, qX: cube.qX, scanBin: cube.scanBin };
 }

@@ -46,6 +46,8 @@ export type FirstPassTileReply = Pick<FirstPassTileResult, 'sum' | 'max' | 'nonF
 /** The whole preview cube (float32) and total-intensity image (float64), shared with the main thread. */
 export interface FirstPassShared {
   preview: SharedArrayBuffer;
+  /** Where the cube starts in `preview` (it may live inside a WebAssembly memory). */
+  previewByteOffset: number;
   total: SharedArrayBuffer;
   /** Preview values per preview row (qX × pY × pX). */
   previewRowValues: number;
@@ -54,7 +56,7 @@ export interface FirstPassShared {
 function sharedOutputs(row0: number, nRows: number, g: FirstPassGeometry, shared: FirstPassShared) {
   const rows = Math.ceil(nRows / g.scanBin);
   return {
-    preview: new Float32Array(shared.preview, (row0 / g.scanBin) * shared.previewRowValues * 4, rows * shared.previewRowValues),
+    preview: new Float32Array(shared.preview, shared.previewByteOffset + (row0 / g.scanBin) * shared.previewRowValues * 4, rows * shared.previewRowValues),
     total: new Float64Array(shared.total, row0 * g.scanX * 8, nRows * g.scanX),
   };
 }

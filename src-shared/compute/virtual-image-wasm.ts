@@ -52,7 +52,7 @@ export function createWasmVirtualImageKernel(wasmModule: WebAssembly.Module, max
   const planLayout = (): Layout => {
     let cursor = TILE_OFFSET + tileCapacity + OVER_READ_SLACK;
     const take = (bytes: number) => { const at = cursor; cursor = roundUp(cursor + bytes, 16); return at; };
-    const padded = roundUp(Math.max(nPix, 1), 16);
+    const padded = roundUp(Math.max(nPix, 1), DENSE_ALIGN);
     const nDet = detectors.length;
     const table = take(nDet * RECORD_INTS * 4);
     const acc = take(nDet * 8);
@@ -79,7 +79,7 @@ export function createWasmVirtualImageKernel(wasmModule: WebAssembly.Module, max
   /** Writes the detector table and whichever representation each detector gets for this dtype. */
   const prepare = (dtype: DType, l: Layout) => {
     const buf = memory.buffer;
-    const padded = roundUp(nPix, 16);
+    const padded = roundUp(nPix, DENSE_ALIGN);
     const float = isFloatDType(dtype);
     const rules = SPARSE_RULE[dtype];
     const records: number[][] = [];
@@ -292,8 +292,10 @@ const TILE_OFFSET = PAGE_BYTES;
 const MAX_PAGES = 65536;
 /** Pixels per block of the kernel's dense sweeps (wasm-src/virtual-image.ts BLOCK). */
 const BLOCK = 1024;
-/** Whole-vector sweeps read up to 15 elements past the last pattern. */
-const OVER_READ_SLACK = 256;
+/** Dense masks and weights are zero-padded to whole blocks of this many pixels (the kernel's sweeps take 32 at a time). */
+const DENSE_ALIGN = 32;
+/** Whole-vector sweeps read up to 31 elements (248 bytes) past the last pattern. */
+const OVER_READ_SLACK = 512;
 
 function roundUp(n: number, to: number): number {
   return Math.ceil(n / to) * to;

@@ -65,9 +65,3 @@
     ? f64x2.convert_low_i32x4_s(i32x4.extend_low_i16x8_s(i16x8.extend_low_i8x16_s(b)))
     : f64x2.convert_low_i32x4_u(i32x4.extend_low_i16x8_u(i16x8.extend_low_i8x16_u(b)));
 }
-
-/** A scalar element of T as f64. */
-// @ts-ignore: decorator
-@inline export function loadF64<T extends number>(p: usize): f64 {
-  return <f64>load<T>(p);
-}

@@ -13,8 +13,8 @@
 //   DENSE_BINARY     (integer and float32 data) a lane mask at a, n = pixels set
 //                                                                         Σ I over the set pixels
 //   DENSE_WEIGHTS    f64 weights at a, one per pixel                       Σ w·I
-// Dense arrays hold roundUp(nPix, 16) entries, zero past nPix, so whole vectors run to the end of
-// a pattern; the last pattern's over-read lands in memory the JS side keeps after the tile.
+// Dense arrays hold roundUp(nPix, 32) entries, zero past nPix, so whole (pairs of) vectors run to
+// the end of a pattern; the last pattern's over-read lands in memory the JS side keeps after the tile.
 // Lane masks match the data width: u8 0xFF for 8-bit data, i16 1 for 16-bit data (a
 // multiplier for i32x4.dot_i16x8_s), u32 0xFFFFFFFF for 32-bit integers and float32.
 //
@@ -37,7 +37,7 @@ const DENSE_WEIGHTS: i32 = 3;
 /**
  * Pixels of one pattern handled for every dense detector before moving on: the block (≤ 8 KiB
  * of data, 8 KiB as f64) stays in L1 while each detector's mask or weights stream past it, and
- * i32 lanes cannot overflow within one block (16-bit: 64 vectors · 65536 per lane).
+ * i32 lanes cannot overflow within one block (16-bit: at most 128 vectors · 65536 per lane).
  */
 const BLOCK: i32 = 1024;
 
@@ -98,7 +98,7 @@ const RECORD: usize = 32;
       memory.fill(acc, 0, <usize>nDet * 8);
       for (let b0 = 0; b0 < nPix; b0 += BLOCK) {
         const len = min(BLOCK, nPix - b0);
-        const lenV = (len + 15) & ~15;
+        const lenV = (len + 31) & ~31;
         const src = pattern + <usize>b0 * sizeof<T>();
         if (needScratch) {
           const count = toF64Block<T>(src, scratch, lenV, union + <usize>b0 * sizeof<T>(), countInBlocks);
@@ -161,7 +161,7 @@ const RECORD: usize = 32;
       if (kind >= DENSE_BINARY) continue;
       const n = load<i32>(rec, 4);
       const a = <usize>load<u32>(rec, 8);
-      const value = kind == SPARSE_RUNS ? runsSum<T>(pattern, a, n) : weightedRunsSum<T>(pattern, a, <usize>load<u32>(rec, 12), n);
+      const value = kind == SPARSE_WEIGHTED ? weightedRunsSum<T>(pattern, a, <usize>load<u32>(rec, 12), n) : runsSum<T>(pattern, a, n);
       store<f64>(out + (<usize>load<i32>(rec, 16) * <usize>nPatterns + <usize>p) * 8, value);
     }
 
@@ -172,11 +172,6 @@ const RECORD: usize = 32;
 
 // ---------------------------------------------------------------------------------------------
 // Sparse detectors: over their own pixels only, as runs of consecutive pixels.
-
-// @ts-ignore: decorator
-@inline function at<T extends number>(pattern: usize, indices: usize, k: i32): usize {
-  return pattern + <usize>load<u32>(indices + <usize>k * 4) * sizeof<T>();
-}
 
 // @ts-ignore: decorator
 @inline function finiteOrZero(v: f64): f64 {
@@ -211,7 +206,7 @@ const RECORD: usize = 32;
         a1 = i64x2.add(a1, isSigned<T>() ? i64x2.extend_high_i32x4_s(tail) : i64x2.extend_high_i32x4_u(tail));
         total = i64x2.add(total, i64x2.add(a0, a1));
       } else {
-        // i32 lanes: a run of ≤ 32768 values puts at most 8192 · 2 · 65535 < 2^31 in a lane.
+        // i32 lanes: a run of ≤ 32768 values puts at most 8192 values of ≤ 65535 in a lane, < 2^31.
         let a = pairsToI32<T>(tail);
         for (; q < vecEnd; q += 16) a = i32x4.add(a, pairsToI32<T>(v128.load(q)));
         total = i64x2.add(total, isSigned<T>()
@@ -326,7 +321,7 @@ const RECORD: usize = 32;
 }
 
 // ---------------------------------------------------------------------------------------------
-// Dense detectors over one block of lenV pixels (a multiple of 16).
+// Dense detectors over one block of lenV pixels (a multiple of 32).
 
 /** Σ of the masked values of one block, exact. */
 // @ts-ignore: decorator
@@ -475,7 +470,7 @@ const RECORD: usize = 32;
   return -laneSumI64(misses);
 }
 
-/** Σ x[i]·w[i] over lenV f64 values (lenV a multiple of 16). */
+/** Σ x[i]·w[i] over lenV f64 values (lenV a multiple of 32). */
 // @ts-ignore: decorator
 @inline function dotF64(x: usize, w: usize, lenV: i32): f64 {
   let a0 = f64x2.splat(0), a1 = a0, a2 = a0, a3 = a0;

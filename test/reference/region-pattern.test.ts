@@ -1,0 +1,33 @@
+// Virtual diffraction: the mean and max pattern over a real-space region, against NumPy on a
+// file h5py wrote (test/fixtures/make_analysis_fixtures.py).
+import fs from 'node:fs';
+import path from 'node:path';
+import { afterAll, beforeAll, expect, it } from 'vitest';
+import { Engine } from '../../src-main/engine/engine';
+import { compileRegion } from '../../src-shared/compute/region-masks';
+import { readNpy2D } from '../../src-main/io/npy-array';
+import { makeFixtures, maxRelDiff, readNpyF64 } from '../helpers/fixtures';
+
+let fx: string;
+let engine: Engine;
+beforeAll(() => { fx = makeFixtures('make_analysis_fixtures.py'); engine = new Engine({ workers: 2, budgetBytes: 1 << 20 }); });
+afterAll(async () => { await engine.close(); fs.rmSync(fx, { recursive: true, force: true }); });
+
+for (const name of ['rect', 'mask'] as const) {
+  it(`mean and max pattern over a ${name} region equal NumPy's`, async () => {
+    const spec = { path: path.join(fx, 'a.h5'), datasetPath: '/frames' };
+    const m = readNpy2D(path.join(fx, 'region-mask.npy'), 'region');
+    const region = name === 'rect'
+      ? compileRegion({ kind: 'rectangle', x0: 1, y0: 2, x1: 4.5, y1: 5 }, 6, 7)
+      : compileRegion({ kind: 'mask', width: m.width, height: m.height, values: m.values }, 6, 7);
+    const r = await engine.regionPattern(spec, region).result;
+    // reference: NumPy a[mask].mean(axis=0) and .max(axis=0), float64
+    expect(maxRelDiff(r.mean, readNpyF64(path.join(fx, `region_${name}_mean.npy`)).data)).toBeLessThan(1e-9);
+    expect(Array.from(r.max)).toEqual(Array.from(readNpyF64(path.join(fx, `region_${name}_max.npy`)).data));
+    expect(r.count).toBe(region.reduce((s, v) => s + v, 0));
+  });
+}
+
+it('a region of the wrong size is refused with a message', async () => {
+  await expect(engine.regionPattern({ path: path.join(fx, 'a.h5'), datasetPath: '/frames' }, new Uint8Array(5)).result).rejects.toThrow(/6×7/);
+});
