@@ -121,6 +121,38 @@ describe('scanfold com', () => {
   }
 });
 
+describe('scanfold com descan', () => {
+  it('--descan plane removes a least-squares plane from each component, as NumPy lstsq does', () => {
+    const out = path.join(tmp, 'com-plane.h5');
+    const r = scanfold('com', path.join(fx, 'a.h5'), '--dataset', '/frames', '--bad-pixels', 'none', '--descan', 'plane',
+      '--rotation', '0', '--flip', 'no', '--out', out, '--quiet');
+    expect(r.code, r.err).toBe(0);
+    // reference: NumPy np.linalg.lstsq of [1, x, y] against the plain COM (NaN positions left out)
+    const code = `import numpy as np, sys, json
+res = {}
+for c in ('x', 'y'):
+    g = np.load(sys.argv[1] + '/com_plain_' + c + '.npy')
+    yy, xx = np.mgrid[0:g.shape[0], 0:g.shape[1]]
+    ok = np.isfinite(g)
+    A = np.stack([np.ones(ok.sum()), xx[ok], yy[ok]], axis=1)
+    coef = np.linalg.lstsq(A, g[ok], rcond=None)[0]
+    res[c] = (g - (coef[0] + coef[1] * xx + coef[2] * yy)).ravel().tolist()
+print(json.dumps(res).replace('NaN', 'null'))`;
+    const p = spawnSync(PYTHON, ['-c', code, fx], { encoding: 'utf8' });
+    expect(p.status, p.stderr).toBe(0);
+    const want = JSON.parse(p.stdout) as Record<string, (number | null)[]>;
+    const h = h5py(out);
+    for (const c of ['x', 'y']) {
+      const got = nanAware(h.data[`com_${c}`].values);
+      const ref = nanAware(want[c]);
+      // compare absolute differences: after descan the values are near zero
+      const worst = Math.max(...got.slice(1).map((v, i) => Math.abs(v - ref[i + 1])));
+      expect(worst).toBeLessThan(1e-9);
+    }
+    expect(h.attrs.descan).toBe('plane');
+  });
+});
+
 describe('demo scenario (its generator knows the truth)', () => {
   let sample: string;
   beforeAll(() => {
