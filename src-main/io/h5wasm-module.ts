@@ -2,10 +2,11 @@ import fs from 'node:fs';
 import { createRequire } from 'node:module';
 import path from 'node:path';
 import { pathToFileURL } from 'node:url';
-import h5wasm from 'h5wasm/node';
+// Loaded on first use: readers of raw and .npy data, and their worker threads, never pay for it.
+import type h5wasmDefault from 'h5wasm/node';
 
-export type H5Lib = typeof h5wasm;
-export type H5Module = Awaited<typeof h5wasm.ready>;
+export type H5Lib = typeof h5wasmDefault;
+export type H5Module = Awaited<typeof h5wasmDefault.ready>;
 
 export interface H5Runtime {
   h5wasm: H5Lib;
@@ -65,6 +66,7 @@ export function getH5(): Promise<H5Runtime> {
 }
 
 async function initialise(): Promise<H5Runtime> {
+  const h5wasm: H5Lib = (await import('h5wasm/node')).default;
   const Module = await h5wasm.ready;
   // Without it a failed read leaves the output buffer as it was and reports nothing.
   Module.activate_throwing_error_handler();
