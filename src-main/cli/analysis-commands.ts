@@ -1,6 +1,5 @@
 // `scanfold image`, `scanfold com`, `scanfold calibrate`: virtual imaging, centre of mass and
 // calibration from the command line, through the same engine as the application.
-import fs from 'node:fs';
 import path from 'node:path';
 import { parseArgs } from 'node:util';
 import type { SourceSpec } from '../../src-shared/model/dataset';
@@ -18,7 +17,7 @@ import type { FirstPassSummary } from '../engine/first-pass';
 import { writeFloat64Results, type ResultArray } from '../io/write-results';
 import { readNpy2D } from '../io/npy-array';
 import { progressPrinter } from './progress';
-import { SOURCE_OPTIONS, sourceSpecFromFlags } from './source-flags';
+import { rejectExtraPositionals, resolveOut, SOURCE_OPTIONS, sourceSpecFromFlags } from './source-flags';
 
 export const ANALYSIS_HELP = `  scanfold image FILE [source flags] --disk CX,CY,R --annulus CX,CY,R0,R1 --rect X0,Y0,X1,Y1
                  --polygon "X,Y X,Y X,Y" --mask MASK.npy [--weighted] [--bad-pixels auto|none] --out OUT.h5
@@ -112,12 +111,6 @@ async function badPixelMask(engine: Engine, spec: SourceSpec, mode: string, quie
   return { mask: bad.mask, count: bad.hot.length + bad.dead.length, summary: s };
 }
 
-function needOut(v: Flags): string {
-  if (typeof v.out !== 'string') throw new InputError('--out OUT.h5 is required');
-  const out = path.resolve(v.out);
-  if (!fs.existsSync(path.dirname(out))) throw new InputError(`--out ${out}: the folder ${path.dirname(out)} does not exist`);
-  return out;
-}
 
 export async function cmdImage(args: string[], engineOptions: (v: Record<string, unknown>) => EngineOptions, engineFlags: Record<string, { type: 'string' | 'boolean' }>): Promise<void> {
   const parsed = parseArgs({
@@ -129,8 +122,9 @@ export async function cmdImage(args: string[], engineOptions: (v: Record<string,
     },
   });
   const v = parsed.values as Flags;
+  rejectExtraPositionals(parsed.positionals, 'image');
   const spec = sourceSpecFromFlags(parsed.positionals[0], v as Record<string, unknown>);
-  const out = needOut(v);
+  const out = resolveOut(v.out, spec.path, 'image');
   const quiet = v.quiet === true;
   await withEngine(engineOptions(v as Record<string, unknown>), async (engine) => {
     const insp = await engine.inspect(spec);
@@ -165,8 +159,9 @@ export async function cmdCom(args: string[], engineOptions: (v: Record<string, u
     },
   });
   const v = parsed.values as Flags;
+  rejectExtraPositionals(parsed.positionals, 'com');
   const spec = sourceSpecFromFlags(parsed.positionals[0], v as Record<string, unknown>);
-  const out = needOut(v);
+  const out = resolveOut(v.out, spec.path, 'com');
   const quiet = v.quiet === true;
   const threshold = v.threshold === undefined ? 0 : Number(v.threshold);
   if (!Number.isFinite(threshold)) throw new InputError(`--threshold ${v.threshold}: expected a number`);
@@ -187,6 +182,14 @@ export async function cmdCom(args: string[], engineOptions: (v: Record<string, u
     const insp = await engine.inspect(spec);
     if (insp.kind !== 'dataset') throw new InputError(`${spec.path}: give --dataset; candidates: ${insp.datasets.filter((d) => d.candidate).map((d) => d.path).join(', ')}`);
     const { detY, detX, scanY, scanX } = insp.descriptor.shape;
+    // Everything the user typed is checked before any pass over the data.
+    let mode: DescanMode;
+    if (descanName === 'reference') {
+      const [x0, y0, x1, y1] = numbers('descan-region', v['descan-region'] as string, 4);
+      mode = { kind: 'reference', mask: compileRegion({ kind: 'rectangle', x0, y0, x1, y1 }, scanY, scanX) };
+    } else {
+      mode = { kind: descanName as 'none' | 'mean' | 'plane' };
+    }
     let maskSpec: DetectorSpec | null = null;
     if (typeof v['mask-disk'] === 'string') {
       const [cx, cy, r] = numbers('mask-disk', v['mask-disk'], 3);
@@ -208,13 +211,6 @@ export async function cmdCom(args: string[], engineOptions: (v: Record<string, u
       if (t === 0) { comX[i] = NaN; comY[i] = NaN; zeroTotal++; continue; }
       comX[i] = sums.sumX[i] / t;
       comY[i] = sums.sumY[i] / t;
-    }
-    let mode: DescanMode;
-    if (descanName === 'reference') {
-      const [x0, y0, x1, y1] = numbers('descan-region', v['descan-region'] as string, 4);
-      mode = { kind: 'reference', mask: compileRegion({ kind: 'rectangle', x0, y0, x1, y1 }, scanY, scanX) };
-    } else {
-      mode = { kind: descanName as 'none' | 'mean' | 'plane' };
     }
     const d = descan(comX, comY, scanY, scanX, mode);
     let degrees: number, flip: boolean, estimate: ReturnType<typeof estimateRotation> | null = null;
@@ -274,6 +270,8 @@ export async function cmdCalibrate(args: string[], engineOptions: (v: Record<str
   const braggGiven = positive('bragg-distance-px', v['bragg-distance-px'] as string | undefined);
   const scanStep = positive('scan-step-nm', v['scan-step-nm'] as string | undefined);
   if ((alpha === undefined) === (d === undefined)) throw new InputError('calibrate needs exactly one of --convergence-mrad A or --lattice-spacing-angstrom D');
+  if (braggGiven !== undefined && d === undefined) throw new InputError('--bragg-distance-px goes with --lattice-spacing-angstrom (the distance of that Bragg disk from the centre)');
+  rejectExtraPositionals(parsed.positionals, 'calibrate');
   await withEngine(engineOptions(v as Record<string, unknown>), async (engine) => {
     const s = await runJob(engine.firstPass(spec), 'first pass', v.quiet === true);
     const { detY, detX, scanY, scanX } = s.descriptor.shape;

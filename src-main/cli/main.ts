@@ -6,7 +6,7 @@ import { isInputError, InputError, CancelledError } from '../../src-shared/model
 import { Engine, type EngineOptions } from '../engine/engine';
 import { parseBytes, fmtBytes } from '../engine/budget';
 import { writeFloat64Results } from '../io/write-results';
-import { SOURCE_HELP, SOURCE_OPTIONS, sourceSpecFromFlags } from './source-flags';
+import { rejectExtraPositionals, resolveOut, SOURCE_HELP, SOURCE_OPTIONS, sourceSpecFromFlags } from './source-flags';
 import { progressPrinter } from './progress';
 import { writeSample, SAMPLE_SIZES } from '../../samples/write-sample';
 import { runBenchmark } from '../engine/first-pass.bench';
@@ -77,6 +77,7 @@ function parse(args: string[], options: Record<string, { type: 'string' | 'boole
 
 async function cmdInfo(args: string[]) {
   const { values, positionals } = parse(args, SOURCE_OPTIONS);
+  rejectExtraPositionals(positionals, 'info');
   const spec = sourceSpecFromFlags(positionals[0], values);
   const engineless = await import('../io/index');
   const r = await engineless.inspectSource(spec);
@@ -107,10 +108,9 @@ async function runSummary(spec: ReturnType<typeof sourceSpecFromFlags>, values: 
 
 async function cmdSummary(args: string[]) {
   const { values, positionals } = parse(args, { ...SOURCE_OPTIONS, ...ENGINE_OPTIONS, out: { type: 'string' } });
+  rejectExtraPositionals(positionals, 'summary');
   const spec = sourceSpecFromFlags(positionals[0], values);
-  if (typeof values.out !== 'string') throw new InputError('summary needs --out OUT.h5');
-  const out = path.resolve(values.out);
-  if (!fs.existsSync(path.dirname(out))) throw new InputError(`--out ${out}: the folder ${path.dirname(out)} does not exist`);
+  const out = resolveOut(values.out, spec.path, 'summary');
   const r = await runSummary(spec, values, values.quiet === true);
   const { scanY, scanX, detY, detX } = r.descriptor.shape;
   await writeFloat64Results(out, {
@@ -188,7 +188,7 @@ async function cmdDemo(args: string[]) {
 async function cmdBench(args: string[]) {
   const { values } = parse(args, { dir: { type: 'string' }, workers: { type: 'string' } });
   const dir = path.resolve(typeof values.dir === 'string' ? values.dir : path.join(projectRoot(), 'bench-data'));
-  const workers = values.workers === undefined ? 2 : Number(values.workers);
+  const workers = values.workers === undefined ? 2 : engineOptions(values).workers!;
   await runBenchmark({ dir, workers });
 }
 

@@ -1,3 +1,4 @@
+import fs from 'node:fs';
 import path from 'node:path';
 import type { SourceSpec } from '../../src-shared/model/dataset';
 import { isDType, DTYPES } from '../../src-shared/model/dtype';
@@ -44,6 +45,11 @@ export function sourceSpecFromFlags(file: string | undefined, v: Record<string, 
     spec.format = v.format as SourceSpec['format'];
   }
   const rawShape = v['raw-shape'];
+  if (typeof rawShape === 'string' && spec.format !== undefined && spec.format !== 'raw') {
+    throw new InputError(`--format ${spec.format} and --raw-shape contradict each other: --raw-shape describes a raw binary file`);
+  }
+  if (typeof rawShape === 'string' && spec.datasetPath !== undefined) throw new InputError('--dataset names a dataset inside an HDF5 file; a raw binary file has none');
+  if (typeof rawShape === 'string' && spec.scanShape !== undefined) throw new InputError('--scan-shape is for 3-D datasets; a raw binary file takes its whole shape from --raw-shape');
   if (typeof rawShape === 'string' || spec.format === 'raw') {
     if (typeof rawShape !== 'string') throw new InputError(`${spec.path}: raw binary needs --raw-shape SY,SX,KY,KX and --dtype`);
     const [scanY, scanX, detY, detX] = ints('raw-shape', rawShape, 4);
@@ -61,4 +67,29 @@ export function sourceSpecFromFlags(file: string | undefined, v: Record<string, 
     throw new InputError('--dtype, --byte-order and --offset describe a raw binary file and need --raw-shape');
   }
   return spec;
+}
+
+/**
+ * The --out file of a command: its folder must exist, it must not be a folder, and it must not
+ * be the input itself (writing the results would destroy the dataset).
+ */
+export function resolveOut(out: unknown, input: string, usage: string): string {
+  if (typeof out !== 'string') throw new InputError(`${usage} needs --out OUT.h5`);
+  const file = path.resolve(out);
+  const dir = path.dirname(file);
+  if (!fs.existsSync(dir) || !fs.statSync(dir).isDirectory()) throw new InputError(`--out ${file}: the folder ${dir} does not exist`);
+  if (fs.existsSync(file)) {
+    const st = fs.statSync(file);
+    if (st.isDirectory()) throw new InputError(`--out ${file}: is a folder; expected a file name such as results.h5`);
+    if (fs.existsSync(input)) {
+      const inp = fs.statSync(input);
+      if (inp.dev === st.dev && inp.ino === st.ino) throw new InputError(`--out ${file}: is the input file itself; writing results there would destroy the dataset`);
+    }
+  }
+  return file;
+}
+
+/** Refuse what the command would otherwise ignore. */
+export function rejectExtraPositionals(positionals: string[], command: string): void {
+  if (positionals.length > 1) throw new InputError(`${command} takes one input file, got ${positionals.length}: ${positionals.join(' ')}`);
 }

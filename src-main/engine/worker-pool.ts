@@ -44,7 +44,9 @@ export class WorkerPool {
   replacements = 0;
 
   constructor(options: PoolOptions = {}) {
-    this.size = Math.max(1, Math.floor(options.size ?? os.availableParallelism()));
+    const size = options.size ?? os.availableParallelism();
+    if (!Number.isInteger(size) || size < 1) throw new RangeError(`worker pool: size must be a whole number ≥ 1, got ${size}`);
+    this.size = size;
     this.workerFile = options.workerFile ?? distFile('tile-worker.mjs');
     for (let i = 0; i < this.size; i++) this.slots.push(this.spawn(i, 0));
   }

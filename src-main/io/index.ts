@@ -24,6 +24,7 @@ export function detectFormat(spec: SourceSpec): SourceFormat {
     throw new InputError(`${file}: file not found or not readable`, 'missing-file');
   }
   try {
+    if (!fs.fstatSync(fd).isFile()) throw new InputError(`${file}: not a regular file (a folder?); expected an HDF5, .npy or raw data file`, 'bad-input');
     const head = Buffer.alloc(8);
     const n = fs.readSync(fd, head, 0, 8, 0);
     if (n >= 6 && head.subarray(0, 6).equals(NPY_MAGIC)) return 'npy';

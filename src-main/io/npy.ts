@@ -41,6 +41,7 @@ export async function describeNpy(spec: SourceSpec): Promise<DatasetDescriptor> 
 
 function openNpySync(spec: SourceSpec): TileSource {
   const path = nodePath.resolve(spec.path);
+  if (spec.datasetPath !== undefined) throw new InputError(`${path}: a .npy file holds one array; --dataset (${spec.datasetPath}) applies to HDF5 files only`, 'bad-input');
   const file = openForReading(path, 'a NumPy .npy file');
   try {
     const header = readNpyHeader(file.fd, file.size, path);

@@ -14,15 +14,17 @@ export async function writeHdf5Atomically(out: string, fill: (f: H5File, h5wasm:
   const partial = file + '.partial';
   fs.rmSync(partial, { force: true });
   const f = new h5wasm.File(partial, 'w');
+  let open = true;
   try {
     await fill(f, h5wasm);
-  } catch (e) {
     f.close();
+    open = false;
+    fs.renameSync(partial, file);
+  } catch (e) {
+    if (open) f.close();
     fs.rmSync(partial, { force: true });
     throw e;
   }
-  f.close();
-  fs.renameSync(partial, file);
   return file;
 }
 
@@ -35,11 +37,20 @@ export interface ResultArray {
 /** Write float64 result arrays (and attributes on the root group) to a new HDF5 file. */
 export async function writeFloat64Results(out: string, arrays: Record<string, ResultArray>, rootAttrs: Record<string, string | number> = {}): Promise<void> {
   await writeHdf5Atomically(out, (f) => {
-    for (const [k, v] of Object.entries(rootAttrs)) f.create_attribute(k, v);
+    for (const [k, v] of Object.entries(rootAttrs)) writeAttr(f, k, v);
     for (const [name, a] of Object.entries(arrays)) {
       // '<d' is h5wasm's spelling of float64; it reads '<f8' as float32.
       const ds = f.create_dataset({ name, data: a.data, shape: a.shape, dtype: '<d' });
-      for (const [k, v] of Object.entries(a.attrs ?? {})) ds.create_attribute(k, v);
+      for (const [k, v] of Object.entries(a.attrs ?? {})) writeAttr(ds, k, v);
     }
   });
+}
+
+/**
+ * Numbers are written as float64 whatever their value: h5wasm would guess int32 for whole
+ * numbers, which wraps large counts and makes an attribute's type depend on its value.
+ */
+function writeAttr(target: { create_attribute: H5File['create_attribute'] }, key: string, value: string | number): void {
+  if (typeof value === 'number') target.create_attribute(key, value, null, '<d');
+  else target.create_attribute(key, value);
 }

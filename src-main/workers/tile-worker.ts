@@ -68,9 +68,11 @@ let source: TileSource | null = null;
 let sourceKey = '';
 
 /**
- * One kernel at a time: each owns memory sized for a whole tile, and the memory budget
- * counts one tile per worker, so switching analyses drops the previous kernel.
+ * One WebAssembly memory per worker, shared by every kernel (they have no static data and only
+ * one runs at a time): the memory budget counts one tile per worker, whichever analysis runs.
+ * It grows to the largest tile planned and is never replaced.
  */
+const workerMemory = new WebAssembly.Memory({ initial: 1 });
 type AnyKernel = FirstPassKernel | VirtualImageKernel | ComKernel;
 let active: { key: string; kernel: AnyKernel } | null = null;
 
@@ -81,9 +83,9 @@ function kernelFor<K extends AnyKernel>(kind: 'first-pass' | 'virtual-image' | '
   let kernel: AnyKernel;
   if (options.kernel === 'wasm') {
     const module = loadWasmModule(kind);
-    kernel = kind === 'first-pass' ? createWasmFirstPassKernel(module, options.maxTileBytes)
-      : kind === 'virtual-image' ? createWasmVirtualImageKernel(module, options.maxTileBytes)
-        : createWasmComKernel(module, options.maxTileBytes);
+    kernel = kind === 'first-pass' ? createWasmFirstPassKernel(module, options.maxTileBytes, workerMemory)
+      : kind === 'virtual-image' ? createWasmVirtualImageKernel(module, options.maxTileBytes, {}, workerMemory)
+        : createWasmComKernel(module, options.maxTileBytes, {}, workerMemory);
   } else {
     kernel = kind === 'first-pass' ? createReferenceKernel()
       : kind === 'virtual-image' ? createReferenceVirtualImageKernel()
@@ -112,7 +114,8 @@ const api = {
   /** Open (or keep open) the source; returns its descriptor and storage row alignment. */
   async open(spec: SourceSpec): Promise<OpenReply> {
     const key = JSON.stringify(spec);
-    if (!source || key !== sourceKey) {
+    // The user's spec and the descriptor's resolved spec name the same source: keep it open.
+    if (!source || (key !== sourceKey && key !== JSON.stringify(source.descriptor.spec))) {
       source?.close();
       source = null;
       source = await openTileSource(spec);

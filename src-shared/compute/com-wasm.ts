@@ -17,10 +17,14 @@ import { prefersRuns, type SparseRule } from './virtual-image-wasm';
  * A mask is applied one of two ways, chosen per element type by how many pixels it covers: over
  * runs of its own pixels, or by a dense SIMD sweep of the whole pattern (see SPARSE_RULE).
  */
-export function createWasmComKernel(wasmModule: WebAssembly.Module, maxTileBytes: number, tuning: ComTuning = {}): ComKernel {
+export function createWasmComKernel(wasmModule: WebAssembly.Module, maxTileBytes: number, tuning: ComTuning = {}, sharedMemory?: WebAssembly.Memory): ComKernel {
   if (!Number.isFinite(maxTileBytes) || maxTileBytes < 0) throw new RangeError(`centre of mass: maxTileBytes must be ≥ 0, got ${maxTileBytes}`);
   let tileCapacity = roundUp(Math.max(maxTileBytes, 1), PAGE_BYTES);
-  const memory = new WebAssembly.Memory({ initial: pagesFor(TILE_OFFSET + tileCapacity + tileCapacity / 64 + 4 * 2 ** 20) });
+  // A worker gives every kernel the same memory (the kernels have no static data), so one tile's
+  // worth of memory serves whichever analysis runs; alone, a kernel makes its own.
+  const wantedPages = pagesFor(TILE_OFFSET + tileCapacity + tileCapacity / 64 + 4 * 2 ** 20);
+  const memory = sharedMemory ?? new WebAssembly.Memory({ initial: wantedPages });
+  if (memory.buffer.byteLength < wantedPages * PAGE_BYTES) memory.grow(wantedPages - memory.buffer.byteLength / PAGE_BYTES);
   const instance = new WebAssembly.Instance(wasmModule, {
     env: {
       memory,

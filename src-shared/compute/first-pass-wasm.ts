@@ -16,11 +16,15 @@ import { previewDims, type FirstPassGeometry, type FirstPassKernel, type FirstPa
  * So: call tileBuffer before every run, fill the view it returns, then run; never keep a view
  * across a run. The tile's contents survive growth.
  */
-export function createWasmFirstPassKernel(wasmModule: WebAssembly.Module, maxTileBytes: number): FirstPassKernel {
+export function createWasmFirstPassKernel(wasmModule: WebAssembly.Module, maxTileBytes: number, sharedMemory?: WebAssembly.Memory): FirstPassKernel {
   if (!Number.isFinite(maxTileBytes) || maxTileBytes < 0) throw new RangeError(`first pass: maxTileBytes must be ≥ 0, got ${maxTileBytes}`);
   let tileCapacity = roundUp(Math.max(maxTileBytes, 1), PAGE_BYTES);
   // Room for the tile plus the scratch of a typical run, so most runs never grow the memory.
-  const memory = new WebAssembly.Memory({ initial: pagesFor(TILE_OFFSET + tileCapacity + tileCapacity / 2 + PAGE_BYTES) });
+  // A worker gives every kernel the same memory (the kernels have no static data), so one tile's
+  // worth of memory serves whichever analysis runs; alone, a kernel makes its own.
+  const wantedPages = pagesFor(TILE_OFFSET + tileCapacity + tileCapacity / 2 + PAGE_BYTES);
+  const memory = sharedMemory ?? new WebAssembly.Memory({ initial: wantedPages });
+  if (memory.buffer.byteLength < wantedPages * PAGE_BYTES) memory.grow(wantedPages - memory.buffer.byteLength / PAGE_BYTES);
   const instance = new WebAssembly.Instance(wasmModule, {
     env: {
       memory,

@@ -20,11 +20,15 @@ import { checkDetectors, supportUnion } from './virtual-image';
  * lane mask or weights; see SPARSE_RULE.
  */
 export function createWasmVirtualImageKernel(wasmModule: WebAssembly.Module, maxTileBytes: number,
-  tuning: VirtualImageTuning = {}): VirtualImageKernel {
+  tuning: VirtualImageTuning = {}, sharedMemory?: WebAssembly.Memory): VirtualImageKernel {
   if (!Number.isFinite(maxTileBytes) || maxTileBytes < 0) throw new RangeError(`virtual image: maxTileBytes must be ≥ 0, got ${maxTileBytes}`);
   let tileCapacity = roundUp(Math.max(maxTileBytes, 1), PAGE_BYTES);
   // Room for the tile plus detector data for a few large detectors, so most runs never grow the memory.
-  const memory = new WebAssembly.Memory({ initial: pagesFor(TILE_OFFSET + tileCapacity + tileCapacity / 64 + 4 * 2 ** 20) });
+  // A worker gives every kernel the same memory (the kernels have no static data), so one tile's
+  // worth of memory serves whichever analysis runs; alone, a kernel makes its own.
+  const wantedPages = pagesFor(TILE_OFFSET + tileCapacity + tileCapacity / 64 + 4 * 2 ** 20);
+  const memory = sharedMemory ?? new WebAssembly.Memory({ initial: wantedPages });
+  if (memory.buffer.byteLength < wantedPages * PAGE_BYTES) memory.grow(wantedPages - memory.buffer.byteLength / PAGE_BYTES);
   const instance = new WebAssembly.Instance(wasmModule, {
     env: {
       memory,

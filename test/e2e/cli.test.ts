@@ -94,6 +94,10 @@ describe('scanfold CLI', () => {
     ['shape overflowing 2^53 bytes', () => ['summary', path.join(fx, 'c.raw'), '--raw-shape', '100000,100000,100000,100000', '--dtype', 'float64'], /2\^53/],
     ['budget too small for one row', () => ['summary', path.join(fx, 'a.npy'), '--budget', '1KiB'], /budget/],
     ['unknown flag', () => ['summary', path.join(fx, 'a.npy'), '--frobnicate'], /frobnicate/],
+    ['--dataset on a .npy file', () => ['summary', path.join(fx, 'a.npy'), '--dataset', '/x'], /HDF5/],
+    ['--scan-shape with a raw file', () => ['summary', path.join(fx, 'c.raw'), '--raw-shape', '5,4,6,8', '--dtype', 'float64', '--scan-shape', '4,5'], /scan-shape/],
+    ['two input files', () => ['summary', path.join(fx, 'a.npy'), path.join(fx, 'a.h5')], /one input file/],
+    ['a folder as input', () => ['summary', fx], /folder|directory/],
   ];
   for (const [what, args, msg] of bad) {
     it(`bad input: ${what} → exit 2, a message, nothing written`, () => {
@@ -106,6 +110,44 @@ describe('scanfold CLI', () => {
       expect(fs.existsSync(out + '.partial')).toBe(false);
     });
   }
+
+  it('refuses --out that is the input file itself, and leaves the input intact', () => {
+    const copy = path.join(tmp, 'self.h5');
+    fs.copyFileSync(path.join(fx, 'a.h5'), copy);
+    const before = fs.readFileSync(copy);
+    const r = scanfold('summary', copy, '--dataset', '/entry/frames', '--out', copy);
+    expect(r.code).toBe(2);
+    expect(r.err).toMatch(/input file itself/);
+    expect(fs.readFileSync(copy).equals(before)).toBe(true);
+  });
+
+  it('refuses --out that is a folder, before any pass, writing nothing', () => {
+    const dir = path.join(tmp, 'outdir');
+    fs.mkdirSync(dir, { recursive: true });
+    const r = scanfold('summary', path.join(fx, 'a.npy'), '--out', dir);
+    expect(r.code).toBe(2);
+    expect(r.err).toMatch(/folder/);
+    expect(fs.existsSync(dir + '.partial')).toBe(false);
+  });
+
+  it('info on a folder is bad input, not a crash', () => {
+    const r = scanfold('info', fx);
+    expect(r.code).toBe(2);
+    expect(r.err).not.toMatch(/\n\s+at /);
+  });
+
+  it('bench --workers must be a number (it would otherwise wait forever)', () => {
+    const r = scanfold('bench', '--workers', 'abc');
+    expect(r.code).toBe(2);
+    expect(r.err).toMatch(/--workers/);
+  });
+
+  it('numeric attributes are float64 whatever their value (h5py reads the type)', () => {
+    const out = path.join(tmp, 'attrs.h5');
+    expect(scanfold('summary', path.join(fx, 'c.raw'), '--raw-shape', '5,4,6,8', '--dtype', 'float64', '--byte-order', 'big', '--offset', '128', '--out', out, '--quiet').code).toBe(0);
+    const p = spawnSync(PYTHON, ['-c', 'import h5py,sys; print(h5py.File(sys.argv[1]).attrs["non_finite_values"].dtype)', out], { encoding: 'utf8' });
+    expect(p.stdout.trim()).toBe('float64');
+  });
 
   it('sample --size tiny writes an HDF5 file that h5py reads', () => {
     const out = path.join(tmp, 'tiny.h5');
