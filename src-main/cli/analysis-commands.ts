@@ -215,7 +215,8 @@ export async function cmdCom(args: string[], engineOptions: (v: Record<string, u
     const d = descan(comX, comY, scanY, scanX, mode);
     let degrees: number, flip: boolean, estimate: ReturnType<typeof estimateRotation> | null = null;
     if (rotationGiven === null) {
-      estimate = estimateRotation(d.comX, d.comY, scanY, scanX);
+      // A reference region given for the descan is vacuum, which also settles the 180° ambiguity.
+      estimate = estimateRotation(d.comX, d.comY, scanY, scanX, mode.kind === 'reference' ? { vacuumMask: mode.mask } : {});
       degrees = estimate.degrees; flip = estimate.flip;
     } else { degrees = rotationGiven; flip = flipArg === 'yes'; }
     const rotated = rotateCom(d.comX, d.comY, degrees, flip);
