@@ -3,7 +3,7 @@
 import path from 'node:path';
 import { parseArgs } from 'node:util';
 import type { SourceSpec } from '../../src-shared/model/dataset';
-import type { DetectorShape, DetectorSpec } from '../../src-shared/model/detectors';
+import type { DetectorShape, DetectorSpec, RegionShape } from '../../src-shared/model/detectors';
 import { InputError } from '../../src-shared/model/errors';
 import { compileDetector, describeDetector } from '../../src-shared/compute/detector-masks';
 import { findBadPixels, replaceBadPixels } from '../../src-shared/compute/bad-pixels';
@@ -11,7 +11,7 @@ import { findBrightFieldDisk } from '../../src-shared/compute/bright-field-disk'
 import { calibrate } from '../../src-shared/compute/calibration';
 import { strongestRing } from '../../src-shared/compute/radial-profile';
 import { descan, rotateCom, divergence, curl, estimateRotation, integrateCom, magnitudeDirection, type DescanMode } from '../../src-shared/compute/com-field';
-import { compileRegion } from '../../src-shared/compute/region-masks';
+import { compileRegion, describeRegion } from '../../src-shared/compute/region-masks';
 import { Engine, type EngineOptions } from '../engine/engine';
 import type { FirstPassSummary } from '../engine/first-pass';
 import { writeFloat64Results, type ResultArray } from '../io/write-results';
@@ -297,5 +297,48 @@ export async function cmdCalibrate(args: string[], engineOptions: (v: Record<str
       bad_pixels: { hot: bad.hot.length, dead: bad.dead.length },
       note: 'exploratory: check against a reference specimen before quoting numbers',
     }, null, 2) + '\n');
+  });
+}
+
+export const REGION_HELP = `  scanfold pattern FILE [source flags] (--region-rect X0,Y0,X1,Y1 | --region-polygon "X,Y X,Y X,Y" |
+                 --region-mask MASK.npy) --out OUT.h5
+      virtual diffraction: /mean_pattern and /max_pattern (det_y, det_x) float64 over a region of
+      the scan (scan positions; x column, y row)`;
+
+export async function cmdPattern(args: string[], engineOptions: (v: Record<string, unknown>) => EngineOptions, engineFlags: Record<string, { type: 'string' | 'boolean' }>): Promise<void> {
+  const parsed = parseArgs({
+    args, allowPositionals: true, strict: true,
+    options: { ...SOURCE_OPTIONS, ...engineFlags, out: { type: 'string' }, 'region-rect': { type: 'string' }, 'region-polygon': { type: 'string' }, 'region-mask': { type: 'string' } },
+  });
+  const v = parsed.values as Flags;
+  rejectExtraPositionals(parsed.positionals, 'pattern');
+  const spec = sourceSpecFromFlags(parsed.positionals[0], v as Record<string, unknown>);
+  const out = resolveOut(v.out, spec.path, 'pattern');
+  const given = ['region-rect', 'region-polygon', 'region-mask'].filter((k) => typeof v[k] === 'string');
+  if (given.length !== 1) throw new InputError('pattern needs exactly one of --region-rect, --region-polygon or --region-mask');
+  await withEngine(engineOptions(v as Record<string, unknown>), async (engine) => {
+    const insp = await engine.inspect(spec);
+    if (insp.kind !== 'dataset') throw new InputError(`${spec.path}: give --dataset; candidates: ${insp.datasets.filter((d) => d.candidate).map((d) => d.path).join(', ')}`);
+    const { detY, detX, scanY, scanX } = insp.descriptor.shape;
+    let shape: RegionShape;
+    if (typeof v['region-rect'] === 'string') {
+      const [x0, y0, x1, y1] = numbers('region-rect', v['region-rect'], 4);
+      shape = { kind: 'rectangle', x0, y0, x1, y1 };
+    } else if (typeof v['region-polygon'] === 'string') {
+      shape = { kind: 'polygon', points: v['region-polygon'].trim().split(/\s+/).map((p) => numbers('region-polygon', p, 2) as [number, number]) };
+    } else {
+      const m = readNpy2D(v['region-mask'] as string, 'region mask');
+      shape = { kind: 'mask', width: m.width, height: m.height, values: m.values };
+    }
+    const region = compileRegion(shape, scanY, scanX);
+    const r = await runJob(engine.regionPattern(spec, region), 'region pattern', v.quiet === true);
+    await writeFloat64Results(out, {
+      mean_pattern: { data: r.mean, shape: [detY, detX] },
+      max_pattern: { data: r.max, shape: [detY, detX] },
+    }, {
+      region: describeRegion(shape), positions: r.count, non_finite_values: r.nonFinite,
+      source_path: r.descriptor.path, source_dataset: r.descriptor.datasetPath ?? '', source_fingerprint: r.descriptor.fingerprint, producer: 'scanfold pattern',
+    });
+    if (v.quiet !== true) process.stderr.write(`wrote ${out}: mean and max pattern over ${r.count} probe position(s)\n`);
   });
 }

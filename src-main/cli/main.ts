@@ -11,7 +11,7 @@ import { progressPrinter } from './progress';
 import { writeSample, SAMPLE_SIZES } from '../../samples/write-sample';
 import { runBenchmark } from '../engine/first-pass.bench';
 import { projectRoot } from '../engine/paths';
-import { ANALYSIS_HELP, cmdCalibrate, cmdCom, cmdImage } from './analysis-commands';
+import { ANALYSIS_HELP, REGION_HELP, cmdCalibrate, cmdCom, cmdImage, cmdPattern } from './analysis-commands';
 
 const HELP = `scanfold — exploratory analysis of 4D-STEM datasets far larger than memory
 
@@ -21,6 +21,7 @@ usage:
   scanfold summary FILE [source flags] --out OUT.h5 [engine flags]
       run the first streaming pass; write /mean_pattern, /max_pattern, /total_intensity (float64)
 ${ANALYSIS_HELP}
+${REGION_HELP}
   scanfold sample --size tiny|demo|large --out FILE.h5 [--seed N]
       write a demo dataset of our own synthetic scenario (with its ground truth under /truth)
   scanfold demo [--dir DIR]
@@ -218,8 +219,9 @@ export async function main(argv: string[]): Promise<number> {
       case 'image': await wrapParse(() => cmdImage(rest, engineOptions, ENGINE_OPTIONS)); break;
       case 'com': await wrapParse(() => cmdCom(rest, engineOptions, ENGINE_OPTIONS)); break;
       case 'calibrate': await wrapParse(() => cmdCalibrate(rest, engineOptions, ENGINE_OPTIONS)); break;
+      case 'pattern': await wrapParse(() => cmdPattern(rest, engineOptions, ENGINE_OPTIONS)); break;
       case 'bench': await cmdBench(rest); break;
-      default: throw new InputError(`unknown command "${cmd}"; expected info, summary, image, com, calibrate, sample, demo or bench (see scanfold --help)`);
+      default: throw new InputError(`unknown command "${cmd}"; expected info, summary, image, com, calibrate, pattern, sample, demo or bench (see scanfold --help)`);
     }
     return 0;
   } catch (e) {

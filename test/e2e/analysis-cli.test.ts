@@ -121,6 +121,27 @@ describe('scanfold com', () => {
   }
 });
 
+describe('scanfold pattern (virtual diffraction over a region)', () => {
+  for (const [name, flag] of [['rect', ['--region-rect', '1,2,4.5,5']], ['mask', ['--region-mask', 'MASK']]] as const) {
+    it(`mean and max pattern over a ${name} region equal NumPy's`, () => {
+      const out = path.join(tmp, `pattern-${name}.h5`);
+      const args = flag.map((x) => (x === 'MASK' ? path.join(fx, 'region-mask.npy') : x));
+      const r = scanfold('pattern', path.join(fx, 'a.h5'), '--dataset', '/frames', ...args, '--out', out, '--quiet');
+      expect(r.code, r.err).toBe(0);
+      const h = h5py(out);
+      // reference: NumPy a[mask].mean(axis=0) / .max(axis=0) (make_analysis_fixtures.py)
+      expect(maxRelDiff(h.data.mean_pattern.values as number[], readNpyF64(path.join(fx, `region_${name}_mean.npy`)).data)).toBeLessThan(1e-9);
+      expect(h.data.max_pattern.values).toEqual(Array.from(readNpyF64(path.join(fx, `region_${name}_max.npy`)).data));
+    });
+  }
+
+  it('an empty region is bad input', () => {
+    const r = scanfold('pattern', path.join(fx, 'a.h5'), '--dataset', '/frames', '--region-rect', '100,100,200,200', '--out', path.join(tmp, 'pe.h5'));
+    expect(r.code).toBe(2);
+    expect(r.err).toMatch(/region/);
+  });
+});
+
 describe('scanfold com descan', () => {
   it('--descan plane removes a least-squares plane from each component, as NumPy lstsq does', () => {
     const out = path.join(tmp, 'com-plane.h5');
