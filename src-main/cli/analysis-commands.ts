@@ -9,6 +9,7 @@ import { compileDetector, describeDetector } from '../../src-shared/compute/dete
 import { findBadPixels, replaceBadPixels } from '../../src-shared/compute/bad-pixels';
 import { findBrightFieldDisk } from '../../src-shared/compute/bright-field-disk';
 import { calibrate } from '../../src-shared/compute/calibration';
+import { electronWavelengthPm } from '../../src-shared/compute/wavelength';
 import { strongestRing } from '../../src-shared/compute/radial-profile';
 import { descan, rotateCom, divergence, curl, estimateRotation, integrateCom, magnitudeDirection, type DescanMode } from '../../src-shared/compute/com-field';
 import { compileRegion, describeRegion } from '../../src-shared/compute/region-masks';
@@ -25,10 +26,11 @@ export const ANALYSIS_HELP = `  scanfold image FILE [source flags] --disk CX,CY,
       given, in one pass: /images (n_detectors, scan_y, scan_x) float64
   scanfold com FILE [source flags] [--mask-disk CX,CY,R] [--threshold T] [--descan none|mean|plane|reference
                  [--descan-region X0,Y0,X1,Y1]]
-                 [--rotation auto|DEGREES] [--flip auto|yes|no] [--bad-pixels auto|none] --out OUT.h5
+                 [--rotation auto|DEGREES] [--flip auto|yes|no] [--bad-pixels auto|none]
+                 [--mrad-per-pixel M --energy-kev E --scan-step-nm S] --out OUT.h5
       centre of mass per pattern: /com_x, /com_y (detector px, after descan and rotation),
       /total_intensity, /magnitude, /direction, /divergence, /curl, /phase (integrated COM),
-      attributes rotation_degrees, flip
+      attributes rotation_degrees, flip; with the calibration also /com_x_mrad, /com_y_mrad, /phase_radians
   scanfold calibrate FILE [source flags] --energy-kev E [--convergence-mrad A | --lattice-spacing-angstrom D
                  [--bragg-distance-px G]]
       wavelength, bright-field disk, mrad and Å⁻¹ per detector pixel, as JSON
@@ -156,6 +158,7 @@ export async function cmdCom(args: string[], engineOptions: (v: Record<string, u
     options: {
       ...SOURCE_OPTIONS, ...engineFlags, out: { type: 'string' }, 'mask-disk': { type: 'string' }, threshold: { type: 'string' },
       descan: { type: 'string' }, 'descan-region': { type: 'string' }, rotation: { type: 'string' }, flip: { type: 'string' }, 'bad-pixels': { type: 'string' },
+      'mrad-per-pixel': { type: 'string' }, 'energy-kev': { type: 'string' }, 'scan-step-nm': { type: 'string' },
     },
   });
   const v = parsed.values as Flags;
@@ -177,6 +180,11 @@ export async function cmdCom(args: string[], engineOptions: (v: Record<string, u
   if (!['auto', 'yes', 'no'].includes(flipArg)) throw new InputError(`--flip ${flipArg}: expected auto, yes or no`);
   if ((rotationGiven === null) !== (flipArg === 'auto')) {
     throw new InputError('--rotation and --flip go together: both auto (estimated from the data), or both given');
+  }
+  // With the calibration, COM is also given as a deflection in mrad and the phase in radians.
+  const cal = ['mrad-per-pixel', 'energy-kev', 'scan-step-nm'].map((k) => positive(k, v[k] as string | undefined));
+  if (cal.some((x) => x !== undefined) && cal.some((x) => x === undefined)) {
+    throw new InputError('--mrad-per-pixel, --energy-kev and --scan-step-nm go together (they put the COM in mrad and the phase in radians)');
   }
   await withEngine(engineOptions(v as Record<string, unknown>), async (engine) => {
     const insp = await engine.inspect(spec);
@@ -245,6 +253,17 @@ export async function cmdCom(args: string[], engineOptions: (v: Record<string, u
       rootAttrs.rotation_alternative_degrees = estimate.alternativeDegrees;
       rootAttrs.rotation_curl_relative = estimate.curlRelative;
       rootAttrs.rotation_half_turn_rule = estimate.halfTurnRule;
+    }
+    if (cal[0] !== undefined) {
+      const [mradPerPx, kev, stepNm] = cal as number[];
+      // For a weak phase object the beam is deflected by θ = (λ / 2π)·∇φ (common practice), so
+      // φ[rad] = (2π / λ) ∫ θ dx: with θ = COM·mrad/px·1e-3 and dx in scan steps of stepNm.
+      const lambdaNm = electronWavelengthPm(kev) / 1000;
+      const toRad = (2 * Math.PI / lambdaNm) * mradPerPx * 1e-3 * stepNm;
+      arrays.com_x_mrad = { data: rotated.comX.map((x) => x * mradPerPx), shape, attrs: { units: 'mrad' } };
+      arrays.com_y_mrad = { data: rotated.comY.map((x) => x * mradPerPx), shape, attrs: { units: 'mrad' } };
+      arrays.phase_radians = { data: phase.phase.map((x) => x * toRad), shape, attrs: { units: 'radians (weak-phase approximation)', radians_per_phase_unit: toRad } };
+      Object.assign(rootAttrs, { mrad_per_pixel: mradPerPx, energy_kev: kev, wavelength_pm: lambdaNm * 1000, scan_step_nm: stepNm });
     }
     await writeFloat64Results(out, arrays, rootAttrs);
     if (!quiet) {

@@ -121,6 +121,30 @@ describe('scanfold com', () => {
   }
 });
 
+describe('scanfold com with a calibration', () => {
+  it('gives COM in mrad and the phase in radians by the weak-phase relation θ = (λ/2π)∇φ', () => {
+    const out = path.join(tmp, 'com-cal.h5');
+    const r = scanfold('com', path.join(fx, 'a.h5'), '--dataset', '/frames', '--bad-pixels', 'none', '--rotation', '0', '--flip', 'no',
+      '--mrad-per-pixel', '0.8', '--energy-kev', '200', '--scan-step-nm', '0.5', '--out', out, '--quiet');
+    expect(r.code, r.err).toBe(0);
+    const h = h5py(out);
+    // formula: φ[rad] = (2π/λ)·θ·dx; λ(200 kV) = 2.508 pm (handbook, from memory) = 0.002508 nm,
+    // θ per px = 0.8e-3 rad, dx = 0.5 nm → 2π/0.0025079 × 0.8e-3 × 0.5 ≈ 1002.2 rad per (px × step)
+    const factor = (2 * Math.PI / 0.0025079340450548) * 0.8e-3 * 0.5;
+    const phase = nanAware(h.data.phase.values), rad = nanAware(h.data.phase_radians.values);
+    for (let i = 0; i < phase.length; i++) expect(Math.abs(rad[i] - factor * phase[i])).toBeLessThanOrEqual(1e-9 * Math.abs(factor * phase[i]) + 1e-12);
+    const cx = nanAware(h.data.com_x.values), cxm = nanAware(h.data.com_x_mrad.values);
+    expect(cxm[5]).toBeCloseTo(cx[5] * 0.8, 12);
+    expect(h.data.phase_radians.attrs.units).toMatch(/radians/);
+  });
+
+  it('calibration flags go together', () => {
+    const r = scanfold('com', path.join(fx, 'a.h5'), '--dataset', '/frames', '--mrad-per-pixel', '0.8', '--out', path.join(tmp, 'x.h5'));
+    expect(r.code).toBe(2);
+    expect(r.err).toMatch(/go together/);
+  });
+});
+
 describe('scanfold pattern (virtual diffraction over a region)', () => {
   for (const [name, flag] of [['rect', ['--region-rect', '1,2,4.5,5']], ['mask', ['--region-mask', 'MASK']]] as const) {
     it(`mean and max pattern over a ${name} region equal NumPy's`, () => {
