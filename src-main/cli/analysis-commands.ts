@@ -17,7 +17,7 @@ import { Engine, type EngineOptions } from '../engine/engine';
 import type { FirstPassSummary } from '../engine/first-pass';
 import { writeFloat64Results, type ResultArray } from '../io/write-results';
 import { readNpy2D } from '../io/npy-array';
-import { progressPrinter } from './progress';
+import { runJobWithProgress } from './progress';
 import { rejectExtraPositionals, resolveOut, SOURCE_OPTIONS, sourceSpecFromFlags } from './source-flags';
 
 export const ANALYSIS_HELP = `  scanfold image FILE [source flags] --disk CX,CY,R --annulus CX,CY,R0,R1 --rect X0,Y0,X1,Y1
@@ -88,20 +88,7 @@ async function withEngine<T>(options: EngineOptions, fn: (e: Engine) => Promise<
   try { return await fn(engine); } finally { await engine.close(); }
 }
 
-async function runJob<T>(job: { result: Promise<T>; onProgress: (cb: (p: import('../../src-shared/contract/jobs').JobProgress) => void) => unknown; cancel: (r?: string) => void; progress: import('../../src-shared/contract/jobs').JobProgress }, label: string, quiet: boolean): Promise<T> {
-  const bar = progressPrinter(label, !quiet);
-  job.onProgress((p) => bar.update(p));
-  const onSigint = () => job.cancel('interrupted');
-  process.once('SIGINT', onSigint);
-  try {
-    const r = await job.result;
-    bar.update(job.progress);
-    return r;
-  } finally {
-    bar.done();
-    process.off('SIGINT', onSigint);
-  }
-}
+const runJob = runJobWithProgress;
 
 /** The bad-pixel mask from a first pass, or none. */
 async function badPixelMask(engine: Engine, spec: SourceSpec, mode: string, quiet: boolean): Promise<{ mask: Uint8Array | undefined; count: number; summary?: FirstPassSummary }> {

@@ -7,7 +7,7 @@ import { Engine, type EngineOptions } from '../engine/engine';
 import { parseBytes, fmtBytes } from '../engine/budget';
 import { writeFloat64Results } from '../io/write-results';
 import { rejectExtraPositionals, resolveOut, SOURCE_HELP, SOURCE_OPTIONS, sourceSpecFromFlags } from './source-flags';
-import { progressPrinter } from './progress';
+import { runJobWithProgress } from './progress';
 import { writeSample, SAMPLE_SIZES } from '../../samples/write-sample';
 import { runBenchmark } from '../engine/first-pass.bench';
 import { projectRoot } from '../engine/paths';
@@ -89,19 +89,7 @@ async function cmdInfo(args: string[]) {
 async function runSummary(spec: ReturnType<typeof sourceSpecFromFlags>, values: Record<string, unknown>, quiet: boolean) {
   const engine = new Engine(engineOptions(values));
   try {
-    const job = engine.firstPass(spec);
-    const bar = progressPrinter('first pass', !quiet);
-    job.onProgress((p) => bar.update(p));
-    const onSigint = () => job.cancel('interrupted');
-    process.once('SIGINT', onSigint);
-    try {
-      const r = await job.result;
-      bar.update(job.progress);
-      return r;
-    } finally {
-      bar.done();
-      process.off('SIGINT', onSigint);
-    }
+    return await runJobWithProgress(engine.firstPass(spec), 'first pass', quiet);
   } finally {
     await engine.close();
   }

@@ -1,4 +1,5 @@
 import type { JobProgress } from '../../src-shared/contract/jobs';
+import type { Job } from '../engine/job';
 import { fmtBytes } from '../engine/budget';
 
 /** A progress bar on stderr: redrawn in place on a terminal, a line per 10 % otherwise. */
@@ -28,4 +29,20 @@ export function progressPrinter(label: string, enabled: boolean) {
     },
     done() { if (enabled && tty) process.stderr.write('\n'); },
   };
+}
+
+/** Wait for a job with a progress bar on stderr; Ctrl-C cancels the job. */
+export async function runJobWithProgress<T>(job: Job<T>, label: string, quiet: boolean): Promise<T> {
+  const bar = progressPrinter(label, !quiet);
+  job.onProgress((p) => bar.update(p));
+  const onSigint = () => job.cancel('interrupted');
+  process.once('SIGINT', onSigint);
+  try {
+    const r = await job.result;
+    bar.update(job.progress);
+    return r;
+  } finally {
+    bar.done();
+    process.off('SIGINT', onSigint);
+  }
 }
