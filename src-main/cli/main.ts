@@ -11,6 +11,8 @@ import { runJobWithProgress } from './progress';
 import { writeSample, SAMPLE_SIZES } from '../../samples/write-sample';
 import { runBenchmark } from '../engine/first-pass.bench';
 import { projectRoot } from '../engine/paths';
+import { findBadPixels, replaceBadPixels } from '../../src-shared/compute/bad-pixels';
+import { findBrightFieldDisk } from '../../src-shared/compute/bright-field-disk';
 import { ANALYSIS_HELP, REGION_HELP, cmdCalibrate, cmdCom, cmdImage, cmdPattern } from './analysis-commands';
 
 const HELP = `scanfold — exploratory analysis of 4D-STEM datasets far larger than memory
@@ -160,17 +162,20 @@ async function cmdDemo(args: string[]) {
   }, { source_path: file, source_fingerprint: r.descriptor.fingerprint, producer: 'scanfold demo' });
   let tmin = Infinity, tmax = -Infinity;
   for (const v of r.totalIntensity) { if (v < tmin) tmin = v; if (v > tmax) tmax = v; }
-  let brightest = 0;
-  for (let i = 1; i < r.meanPattern.length; i++) if (r.meanPattern[i] > r.meanPattern[brightest]) brightest = i;
+  const bad = findBadPixels(r.meanPattern, r.maxPattern, detY, detX, { patternCount: scanY * scanX });
+  const disk = findBrightFieldDisk(replaceBadPixels(r.meanPattern, detY, detX, bad.mask), detY, detX, { excludePixels: bad.mask });
   process.stdout.write(JSON.stringify({
     dataset: r.descriptor.path + ':' + r.descriptor.datasetPath,
     shape: r.descriptor.shape,
     dtype: r.descriptor.dtype,
     seconds: Number(r.seconds.toFixed(3)),
     totalIntensity: { min: tmin, max: tmax },
-    brightestMeanPixel: { row: Math.floor(brightest / detX), col: brightest % detX },
+    brightFieldDisk: { x: Number(disk.cx.toFixed(2)), y: Number(disk.cy.toFixed(2)), radiusPx: Number(disk.r.toFixed(2)) },
+    badDetectorPixels: { hot: bad.hot, dead: bad.dead },
     previewCube: { shape: [r.preview.qY, r.preview.qX, r.preview.pY, r.preview.pX], detBin: r.preview.detBin, scanBin: r.preview.scanBin },
     summaryFile: out,
+    next: `try: npx scanfold image ${file} --dataset /scan/frames --annulus ${disk.cx.toFixed(1)},${disk.cy.toFixed(1)},${Math.ceil(disk.r + 2)},40 --out ${path.join(dir, 'adf.h5')}`,
+    note: 'results are exploratory; validate quantitative claims yourself',
   }, null, 2) + '\n');
 }
 
