@@ -213,6 +213,10 @@ export async function cmdCom(args: string[], engineOptions: (v: Record<string, u
       // A reference region given for the descan is vacuum, which also settles the 180° ambiguity.
       estimate = estimateRotation(d.comX, d.comY, scanY, scanX, mode.kind === 'reference' ? { vacuumMask: mode.mask } : {});
       degrees = estimate.degrees; flip = estimate.flip;
+      if (estimate.curlRelative > 0.5 && !quiet) {
+        process.stderr.write(`note: the COM field has about as much curl at every angle (relative curl ${estimate.curlRelative.toFixed(2)}), ` +
+          'so the rotation estimate is weak; set --rotation and --flip by hand if you know them\n');
+      }
     } else { degrees = rotationGiven; flip = flipArg === 'yes'; }
     const rotated = rotateCom(d.comX, d.comY, degrees, flip);
     const div = divergence(rotated.comX, rotated.comY, scanY, scanX);
