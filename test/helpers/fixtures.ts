@@ -1,7 +1,10 @@
 import fs from 'node:fs';
 import os from 'node:os';
 import path from 'node:path';
-import { spawnSync } from 'node:child_process';
+import { execFileSync, spawnSync } from 'node:child_process';
+import { expect } from 'vitest';
+import { DTYPE_BYTES, isDType, typedView, type DType, type NumericArray } from '../../src-shared/model/dtype';
+import type { CompiledDetector } from '../../src-shared/model/detectors';
 
 /** Debian's interpreter, which has numpy, h5py and hdf5plugin (the pyenv python3 on PATH may not). */
 export const PYTHON = '/usr/bin/python3';
@@ -41,4 +44,45 @@ export function maxRelDiff(a: ArrayLike<number>, b: ArrayLike<number>): number {
     if (!(d <= m)) m = d;
   }
   return m;
+}
+
+/**
+ * Run a fixture script from test/fixtures that writes cases.json ({ numpy, cases }) into a fresh
+ * temp folder named from `prefix`; returns the folder, NumPy's version and the cases.
+ */
+export function loadFixtureCases<C>(script: string, prefix: string): { dir: string; numpy: string; cases: C[] } {
+  const dir = fs.mkdtempSync(path.join(os.tmpdir(), prefix));
+  execFileSync(PYTHON, [path.join(__dirname, '..', 'fixtures', script), dir], { stdio: 'pipe' });
+  const meta = JSON.parse(fs.readFileSync(path.join(dir, 'cases.json'), 'utf8')) as { numpy: string; cases: C[] };
+  return { dir, numpy: meta.numpy, cases: meta.cases };
+}
+
+/** A headerless little-endian float64 file, as NumPy's tofile writes it. */
+export function readRawF64(file: string): Float64Array {
+  const bytes = fs.readFileSync(file);
+  return new Float64Array(bytes.buffer.slice(bytes.byteOffset, bytes.byteOffset + bytes.byteLength));
+}
+
+/** The raw tile `<name>.tile.bin` in dir: n values of dtype (its byte length is checked). */
+export function readFixtureTile(dir: string, name: string, dtype: string, n: number): { tile: NumericArray; dtype: DType } {
+  if (!isDType(dtype)) throw new Error(`fixture ${name}: unknown dtype ${dtype}`);
+  const bytes = fs.readFileSync(path.join(dir, `${name}.tile.bin`));
+  expect(bytes.byteLength).toBe(n * DTYPE_BYTES[dtype]);
+  return { tile: typedView(dtype, bytes.buffer.slice(bytes.byteOffset, bytes.byteOffset + bytes.byteLength), 0, n), dtype };
+}
+
+/** A fixture case's masks (`<name>.masks.f64` in dir) as compiled detectors: 0/1 masks as sorted indices, weights as they are. */
+export function readFixtureDetectors(
+  dir: string,
+  c: { name: string; detY: number; detX: number; masks: { label: string; mode: 'binary' | 'weights' }[] },
+): CompiledDetector[] {
+  const all = readRawF64(path.join(dir, `${c.name}.masks.f64`));
+  const nPix = c.detY * c.detX;
+  return c.masks.map((m, k) => {
+    const values = all.subarray(k * nPix, (k + 1) * nPix);
+    if (m.mode === 'weights') return { mode: 'weights', weights: Float64Array.from(values), detY: c.detY, detX: c.detX, label: m.label };
+    const indices: number[] = [];
+    values.forEach((v, i) => { if (v === 1) indices.push(i); });
+    return { mode: 'indices', indices: Uint32Array.from(indices), detY: c.detY, detX: c.detX, label: m.label };
+  });
 }

@@ -1,15 +1,13 @@
-import { execFileSync } from 'node:child_process';
 import fs from 'node:fs';
-import os from 'node:os';
 import path from 'node:path';
-import { fileURLToPath } from 'node:url';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
-import { allocTyped, DTYPE_BYTES, DTYPES, isDType, typedView, type DType, type NumericArray } from '../../src-shared/model/dtype';
+import { allocTyped, DTYPES, type DType, type NumericArray } from '../../src-shared/model/dtype';
 import type { CompiledDetector } from '../../src-shared/model/detectors';
 import type { ComOptions } from '../../src-shared/compute/tile-kernels-types';
 import { comSumsReference, type ComSums } from '../../src-shared/compute/com';
 import { createWasmComKernel, type ComTuning } from '../../src-shared/compute/com-wasm';
 import { loadWasmModule } from '../../src-main/workers/wasm-loader';
+import { loadFixtureCases, readFixtureDetectors, readFixtureTile, readRawF64 } from '../helpers/fixtures';
 
 // Both centre-of-mass kernels against NumPy on the seeded tiles and masks of
 // test/fixtures/make_kernel_fixtures.py (written to a temp dir: NumPy's (tile * xx).sum(axis=(1, 2)),
@@ -22,19 +20,13 @@ interface FixtureCase {
   com: { mask: number | null; threshold: number; nonFinite: number }[];
 }
 
-const here = path.dirname(fileURLToPath(import.meta.url));
-const script = path.resolve(here, '../fixtures/make_kernel_fixtures.py');
 let dir = '';
 let numpyVersion = '';
 let cases: FixtureCase[] = [];
 let wasmModule: WebAssembly.Module;
 
 beforeAll(() => {
-  dir = fs.mkdtempSync(path.join(os.tmpdir(), 'scanfold-com-'));
-  execFileSync('/usr/bin/python3', [script, dir], { stdio: 'pipe' });
-  const meta = JSON.parse(fs.readFileSync(path.join(dir, 'cases.json'), 'utf8')) as { numpy: string; cases: FixtureCase[] };
-  numpyVersion = meta.numpy;
-  cases = meta.cases;
+  ({ dir, numpy: numpyVersion, cases } = loadFixtureCases<FixtureCase>('make_kernel_fixtures.py', 'scanfold-com-'));
   wasmModule = loadWasmModule('com');
 });
 
@@ -42,31 +34,9 @@ afterAll(() => {
   if (dir) fs.rmSync(dir, { recursive: true, force: true });
 });
 
-function readF64(file: string): Float64Array {
-  const bytes = fs.readFileSync(path.join(dir, file));
-  return new Float64Array(bytes.buffer.slice(bytes.byteOffset, bytes.byteOffset + bytes.byteLength));
-}
-
-function readTile(c: FixtureCase): { tile: NumericArray; dtype: DType } {
-  const dtype = c.dtype;
-  if (!isDType(dtype)) throw new Error(`fixture ${c.name}: unknown dtype ${dtype}`);
-  const bytes = fs.readFileSync(path.join(dir, `${c.name}.tile.bin`));
-  const n = c.n * c.detY * c.detX;
-  expect(bytes.byteLength).toBe(n * DTYPE_BYTES[dtype]);
-  return { tile: typedView(dtype, bytes.buffer.slice(bytes.byteOffset, bytes.byteOffset + bytes.byteLength), 0, n), dtype };
-}
-
-function readMasks(c: FixtureCase): CompiledDetector[] {
-  const all = readF64(`${c.name}.masks.f64`);
-  const nPix = c.detY * c.detX;
-  return c.masks.map((m, k) => {
-    const values = all.subarray(k * nPix, (k + 1) * nPix);
-    if (m.mode === 'weights') return { mode: 'weights', weights: Float64Array.from(values), detY: c.detY, detX: c.detX, label: m.label };
-    const indices: number[] = [];
-    values.forEach((v, i) => { if (v === 1) indices.push(i); });
-    return { mode: 'indices', indices: Uint32Array.from(indices), detY: c.detY, detX: c.detX, label: m.label };
-  });
-}
+const readF64 = (file: string) => readRawF64(path.join(dir, file));
+const readTile = (c: FixtureCase) => readFixtureTile(dir, c.name, c.dtype, c.n * c.detY * c.detX);
+const readMasks = (c: FixtureCase) => readFixtureDetectors(dir, c);
 
 const WASM_MODES: { name: string; tuning: ComTuning }[] = [
   { name: 'WASM, runs', tuning: { sparseFill: 2 } },

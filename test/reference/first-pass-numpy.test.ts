@@ -1,14 +1,13 @@
-import { execFileSync } from 'node:child_process';
 import fs from 'node:fs';
-import os from 'node:os';
 import path from 'node:path';
-import { fileURLToPath } from 'node:url';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
-import { isDType, typedView, DTYPE_BYTES, type DType, type NumericArray } from '../../src-shared/model/dtype';
+import type { DType, NumericArray } from '../../src-shared/model/dtype';
 import type { FirstPassGeometry, FirstPassTileResult } from '../../src-shared/compute/first-pass-types';
 import { firstPassReference } from '../../src-shared/compute/first-pass';
 import { createWasmFirstPassKernel } from '../../src-shared/compute/first-pass-wasm';
 import { loadWasmModule } from '../../src-main/workers/wasm-loader';
+import { loadFixtureCases, readFixtureTile, readRawF64 } from '../helpers/fixtures';
+import { firstMismatch } from '../helpers/synthetic';
 
 // Both first-pass kernels against NumPy on tiles that test/fixtures/make_first_pass_fixture.py
 // generates (fixed seed) into a temp dir, together with NumPy's sums, max, totals and binned preview.
@@ -18,42 +17,20 @@ interface FixtureCase {
   detBin: number; scanBin: number; nonFinite: number;
 }
 
-const here = path.dirname(fileURLToPath(import.meta.url));
-const script = path.resolve(here, '../fixtures/make_first_pass_fixture.py');
 let dir = '';
 let numpyVersion = '';
 let cases: FixtureCase[] = [];
 
 beforeAll(() => {
-  dir = fs.mkdtempSync(path.join(os.tmpdir(), 'scanfold-first-pass-'));
-  execFileSync('/usr/bin/python3', [script, dir], { stdio: 'pipe' });
-  const meta = JSON.parse(fs.readFileSync(path.join(dir, 'cases.json'), 'utf8')) as { numpy: string; cases: FixtureCase[] };
-  numpyVersion = meta.numpy;
-  cases = meta.cases;
+  ({ dir, numpy: numpyVersion, cases } = loadFixtureCases<FixtureCase>('make_first_pass_fixture.py', 'scanfold-first-pass-'));
 });
 
 afterAll(() => {
   if (dir) fs.rmSync(dir, { recursive: true, force: true });
 });
 
-function readF64(name: string, key: string): Float64Array {
-  const bytes = fs.readFileSync(path.join(dir, `${name}.${key}.f64`));
-  return new Float64Array(bytes.buffer.slice(bytes.byteOffset, bytes.byteOffset + bytes.byteLength));
-}
-
-function readTile(c: FixtureCase): NumericArray {
-  if (!isDType(c.dtype)) throw new Error(`fixture ${c.name}: unknown dtype ${c.dtype}`);
-  const bytes = fs.readFileSync(path.join(dir, `${c.name}.tile.bin`));
-  const n = c.nRows * c.scanX * c.detY * c.detX;
-  expect(bytes.byteLength).toBe(n * DTYPE_BYTES[c.dtype]);
-  return typedView(c.dtype, bytes.buffer.slice(bytes.byteOffset, bytes.byteOffset + bytes.byteLength), 0, n);
-}
-
-function firstMismatch(got: ArrayLike<number>, want: ArrayLike<number>, ok: (x: number, y: number, i: number) => boolean): number {
-  if (got.length !== want.length) return -2;
-  for (let i = 0; i < got.length; i++) if (!ok(got[i], want[i], i)) return i;
-  return -1;
-}
+const readF64 = (name: string, key: string) => readRawF64(path.join(dir, `${name}.${key}.f64`));
+const readTile = (c: FixtureCase): NumericArray => readFixtureTile(dir, c.name, c.dtype, c.nRows * c.scanX * c.detY * c.detX).tile;
 
 function expectClose(what: string, got: ArrayLike<number>, want: ArrayLike<number>, ok: (x: number, y: number, i: number) => boolean) {
   const i = firstMismatch(got, want, ok);

@@ -1,33 +1,12 @@
 import { describe, expect, it } from 'vitest';
 import { findBadPixels, replaceBadPixels } from '../../src-shared/compute/bad-pixels';
 import { InputError } from '../../src-shared/model/errors';
+import { mulberry32, poisson } from '../helpers/synthetic';
 
 // Synthetic stacks of Poisson-noise frames whose true content is known: a disk (area-weighted
 // pixel coverage, supersampled 16×16 per pixel, plenty for a detection test), a background, and
 // planted hot pixels (a stuck excess in every frame) and dead pixels (zero in every frame). The
 // planted lists are the reference; mean and max are computed here over the frames.
-
-function mulberry32(seed: number): () => number {
-  let a = seed >>> 0;
-  return () => {
-    a = (a + 0x6d2b79f5) >>> 0;
-    let t = a;
-    t = Math.imul(t ^ (t >>> 15), t | 1);
-    t ^= t + Math.imul(t ^ (t >>> 7), t | 61);
-    return ((t ^ (t >>> 14)) >>> 0) / 4294967296;
-  };
-}
-
-/** Poisson deviate by Knuth's product of uniforms, in chunks of λ ≤ 30 so e^−λ stays representable. */
-function poisson(rand: () => number, lambda: number): number {
-  let total = 0;
-  for (let left = lambda; left > 0; left -= 30) {
-    const limit = Math.exp(-Math.min(left, 30));
-    let p = rand();
-    while (p > limit) { total++; p *= rand(); }
-  }
-  return total;
-}
 
 function diskCoverage(detY: number, detX: number, cx: number, cy: number, r: number, sub = 16): Float64Array {
   const out = new Float64Array(detY * detX);

@@ -1,32 +1,11 @@
 import { describe, expect, it } from 'vitest';
 import { findBrightFieldDisk } from '../../src-shared/compute/bright-field-disk';
 import { InputError } from '../../src-shared/model/errors';
+import { mulberry32, poisson } from '../helpers/synthetic';
 
 // Analytic synthetic disks: each pixel holds the exact fraction of its area inside the circle,
 // computed by supersampling 64 × 64 points per pixel (error ≲ 1/4096 of a pixel's area on the
 // edge), so the true centre and radius are known. Noise comes from a seeded PRNG.
-
-function mulberry32(seed: number): () => number {
-  let a = seed >>> 0;
-  return () => {
-    a = (a + 0x6d2b79f5) >>> 0;
-    let t = a;
-    t = Math.imul(t ^ (t >>> 15), t | 1);
-    t ^= t + Math.imul(t ^ (t >>> 7), t | 61);
-    return ((t ^ (t >>> 14)) >>> 0) / 4294967296;
-  };
-}
-
-/** Poisson deviate by Knuth's product of uniforms, in chunks of λ ≤ 30 so e^−λ stays representable. */
-function poisson(rand: () => number, lambda: number): number {
-  let total = 0;
-  for (let left = lambda; left > 0; left -= 30) {
-    const limit = Math.exp(-Math.min(left, 30));
-    let p = rand();
-    while (p > limit) { total++; p *= rand(); }
-  }
-  return total;
-}
 
 /** Pixel (y, x) covers [x − ½, x + ½] × [y − ½, y + ½]; pixels wholly inside or outside skip the sampling. */
 function diskCoverage(detY: number, detX: number, cx: number, cy: number, r: number, sub = 64): Float64Array {

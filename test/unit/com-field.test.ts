@@ -13,17 +13,7 @@ import {
 } from '../../src-shared/compute/com-field';
 import { InputError } from '../../src-shared/model/errors';
 import { makeFixtures, readNpyF64 } from '../helpers/fixtures';
-
-function mulberry32(seed: number): () => number {
-  let a = seed >>> 0;
-  return () => {
-    a = (a + 0x6d2b79f5) >>> 0;
-    let t = a;
-    t = Math.imul(t ^ (t >>> 15), t | 1);
-    t ^= t + Math.imul(t ^ (t >>> 7), t | 61);
-    return ((t ^ (t >>> 14)) >>> 0) / 4294967296;
-  };
-}
+import { mulberry32 } from '../helpers/synthetic';
 
 function gaussianNoise(rand: () => number): number {
   return Math.sqrt(-2 * Math.log(1 - rand())) * Math.cos(2 * Math.PI * rand());

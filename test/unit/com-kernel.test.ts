@@ -5,6 +5,7 @@ import type { ComOptions } from '../../src-shared/compute/tile-kernels-types';
 import { comSumsReference, createReferenceComKernel, type ComSums } from '../../src-shared/compute/com';
 import { createWasmComKernel, rowRunsOf, type ComTuning } from '../../src-shared/compute/com-wasm';
 import { loadWasmModule } from '../../src-main/workers/wasm-loader';
+import { mulberry32, RANGES, randomTile, binary, weighted, absTile, expectAll } from '../helpers/synthetic';
 
 // The WebAssembly centre-of-mass kernel must reproduce its TypeScript twin — exactly for
 // integer data without weights, to 1e-12 of the sums of |contributions| otherwise — and the
@@ -21,49 +22,6 @@ const MODES: { name: string; tuning: ComTuning }[] = [
   { name: 'dense', tuning: { sparseFill: 0 } },
   { name: "kernel's choice", tuning: {} },
 ];
-
-function mulberry32(seed: number): () => number {
-  let a = seed >>> 0;
-  return () => {
-    a = (a + 0x6d2b79f5) >>> 0;
-    let t = a;
-    t = Math.imul(t ^ (t >>> 15), t | 1);
-    t ^= t + Math.imul(t ^ (t >>> 7), t | 61);
-    return ((t ^ (t >>> 14)) >>> 0) / 4294967296;
-  };
-}
-
-const RANGES: Record<DType, [number, number]> = {
-  uint8: [0, 255], uint16: [0, 65535], uint32: [0, 4294967295],
-  int8: [-128, 127], int16: [-32768, 32767], int32: [-2147483648, 2147483647],
-  float32: [-1000, 1000], float64: [-1e6, 1e6],
-};
-
-function randomTile(dtype: DType, n: number, seed: number): NumericArray {
-  const rand = mulberry32(seed);
-  const tile = allocTyped(dtype, n);
-  const [lo, hi] = RANGES[dtype];
-  for (let i = 0; i < n; i++) {
-    if (isFloatDType(dtype)) {
-      tile[i] = rand() < 0.03 ? [NaN, Infinity, -Infinity][i % 3] : lo + (hi - lo) * rand();
-    } else {
-      tile[i] = Math.min(hi, lo + Math.floor((hi - lo + 1) * rand()));
-    }
-  }
-  return tile;
-}
-
-function binary(detY: number, detX: number, inside: (x: number, y: number) => boolean, label: string): CompiledDetector {
-  const indices: number[] = [];
-  for (let y = 0; y < detY; y++) for (let x = 0; x < detX; x++) if (inside(x, y)) indices.push(y * detX + x);
-  return { mode: 'indices', indices: Uint32Array.from(indices), detY, detX, label };
-}
-
-function weighted(detY: number, detX: number, w: (x: number, y: number) => number, label: string): CompiledDetector {
-  const weights = new Float64Array(detY * detX);
-  for (let y = 0; y < detY; y++) for (let x = 0; x < detX; x++) weights[y * detX + x] = w(x, y);
-  return { mode: 'weights', weights, detY, detX, label };
-}
 
 function masks(detY: number, detX: number, seed: number): (CompiledDetector | null)[] {
   const rand = mulberry32(seed);
@@ -89,22 +47,6 @@ function runWasm(dtype: DType, tile: NumericArray, nPatterns: number, detY: numb
   kernel.setOptions(options, detY, detX);
   kernel.tileBuffer(dtype, tile.length).set(tile as never);
   return kernel.run(dtype, nPatterns);
-}
-
-function absTile(tile: NumericArray): Float64Array {
-  return Float64Array.from(tile, (v) => (Number.isFinite(v) ? Math.abs(v) : v));
-}
-
-function firstMismatch(a: ArrayLike<number>, b: ArrayLike<number>, ok: (x: number, y: number, i: number) => boolean): number {
-  if (a.length !== b.length) return -2;
-  for (let i = 0; i < a.length; i++) if (!ok(a[i], b[i], i)) return i;
-  return -1;
-}
-
-function expectAll(name: string, got: ArrayLike<number>, want: ArrayLike<number>, ok: (x: number, y: number, i: number) => boolean) {
-  const i = firstMismatch(got, want, ok);
-  const detail = i === -2 ? `length ${got.length} vs ${want.length}` : `at ${i}: ${got[i]} vs ${want[i]}`;
-  expect(i, `${name} differs ${detail}`).toBe(-1);
 }
 
 const SUMS = ['total', 'sumX', 'sumY'] as const;

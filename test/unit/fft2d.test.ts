@@ -3,17 +3,7 @@ import path from 'node:path';
 import { beforeAll, describe, expect, it } from 'vitest';
 import { createFft2dPlan, fft2d, ifft2d, isPowerOfTwo, mirrorPad, nextPowerOfTwo, realToComplex } from '../../src-shared/compute/fft2d';
 import { makeFixtures, readNpyF64 } from '../helpers/fixtures';
-
-function mulberry32(seed: number): () => number {
-  let a = seed >>> 0;
-  return () => {
-    a = (a + 0x6d2b79f5) >>> 0;
-    let t = a;
-    t = Math.imul(t ^ (t >>> 15), t | 1);
-    t ^= t + Math.imul(t ^ (t >>> 7), t | 61);
-    return ((t ^ (t >>> 14)) >>> 0) / 4294967296;
-  };
-}
+import { mulberry32 } from '../helpers/synthetic';
 
 function randomComplex(n: number, seed: number): Float64Array {
   const rand = mulberry32(seed);

@@ -4,6 +4,7 @@ import { previewDims, type FirstPassGeometry, type FirstPassKernel, type FirstPa
 import { firstPassReference, createReferenceKernel } from '../../src-shared/compute/first-pass';
 import { createWasmFirstPassKernel } from '../../src-shared/compute/first-pass-wasm';
 import { loadWasmModule } from '../../src-main/workers/wasm-loader';
+import { mulberry32, randomTileCounted as randomTile, absTile, expectAll as expectSame } from '../helpers/synthetic';
 
 // The WebAssembly kernel must reproduce its TypeScript twin, which test/reference/first-pass-numpy.test.ts
 // checks against NumPy. Where the answer is known in closed form (constant tiles), it is checked directly.
@@ -17,41 +18,6 @@ beforeAll(() => {
   shared = createWasmFirstPassKernel(wasmModule, 1024);
 });
 
-function mulberry32(seed: number): () => number {
-  let a = seed >>> 0;
-  return () => {
-    a = (a + 0x6d2b79f5) >>> 0;
-    let t = a;
-    t = Math.imul(t ^ (t >>> 15), t | 1);
-    t ^= t + Math.imul(t ^ (t >>> 7), t | 61);
-    return ((t ^ (t >>> 14)) >>> 0) / 4294967296;
-  };
-}
-
-const RANGES: Record<DType, [number, number]> = {
-  uint8: [0, 255], uint16: [0, 65535], uint32: [0, 4294967295],
-  int8: [-128, 127], int16: [-32768, 32767], int32: [-2147483648, 2147483647],
-  float32: [-1000, 1000], float64: [-1e6, 1e6],
-};
-
-/** Random values over the type's whole range; float data also get NaN, +Inf and −Inf sprinkled in. */
-function randomTile(dtype: DType, n: number, seed: number): { tile: NumericArray; nonFinite: number } {
-  const rand = mulberry32(seed);
-  const tile = allocTyped(dtype, n);
-  const [lo, hi] = RANGES[dtype];
-  let nonFinite = 0;
-  for (let i = 0; i < n; i++) {
-    if (isFloatDType(dtype)) {
-      const u = rand();
-      if (u < 0.03) { tile[i] = [NaN, Infinity, -Infinity][i % 3]; nonFinite++; continue; }
-      tile[i] = lo + (hi - lo) * rand();
-    } else {
-      tile[i] = Math.min(hi, lo + Math.floor((hi - lo + 1) * rand()));
-    }
-  }
-  return { tile, nonFinite };
-}
-
 function constantTile(dtype: DType, n: number, value: number): NumericArray {
   return allocTyped(dtype, n).fill(value);
 }
@@ -60,23 +26,6 @@ function runKernel(kernel: FirstPassKernel, dtype: DType, tile: NumericArray, nR
   // The view is fetched afresh for every run: a run may grow the memory and detach older views.
   kernel.tileBuffer(dtype, tile.length).set(tile as never);
   return kernel.run(dtype, nRows, g);
-}
-
-function absTile(tile: NumericArray): Float64Array {
-  return Float64Array.from(tile, (v) => (Number.isFinite(v) ? Math.abs(v) : v));
-}
-
-/** Index of the first element where `ok` fails, or −1. */
-function firstMismatch(a: ArrayLike<number>, b: ArrayLike<number>, ok: (x: number, y: number, i: number) => boolean): number {
-  if (a.length !== b.length) return -2;
-  for (let i = 0; i < a.length; i++) if (!ok(a[i], b[i], i)) return i;
-  return -1;
-}
-
-function expectSame(name: string, got: ArrayLike<number>, want: ArrayLike<number>, ok: (x: number, y: number, i: number) => boolean) {
-  const i = firstMismatch(got, want, ok);
-  const detail = i === -2 ? `length ${got.length} vs ${want.length}` : `at ${i}: ${got[i]} vs ${want[i]}`;
-  expect(i, `${name} differs ${detail}`).toBe(-1);
 }
 
 /** Exact for integer data; ≤1e-12 of Σ|v| for float sums; within one float32 rounding for the preview. */

@@ -4,6 +4,7 @@ import { previewImages } from '../../src-shared/compute/preview-image';
 import { createWasmPreviewImager, previewImagesOf } from '../../src-shared/compute/preview-image-wasm';
 import { virtualImagesReference } from '../../src-shared/compute/virtual-image';
 import { loadWasmModule } from '../../src-main/workers/wasm-loader';
+import { mulberry32 } from '../helpers/synthetic';
 
 // Preview images against full-resolution virtual images, by an algebraic identity: when a tile
 // is constant within each detector bin and each scan bin, binning loses nothing, so a detector
@@ -16,17 +17,6 @@ let wasmModule: WebAssembly.Module;
 beforeAll(() => {
   wasmModule = loadWasmModule('preview-image');
 });
-
-function mulberry32(seed: number): () => number {
-  let a = seed >>> 0;
-  return () => {
-    a = (a + 0x6d2b79f5) >>> 0;
-    let t = a;
-    t = Math.imul(t ^ (t >>> 15), t | 1);
-    t ^= t + Math.imul(t ^ (t >>> 7), t | 61);
-    return ((t ^ (t >>> 14)) >>> 0) / 4294967296;
-  };
-}
 
 // Scan 7 × 10 in scan bins of 2 (edge bins partial), detector 26 × 30 in detector bins of 4
 // (edge bins 2 pixels wide).

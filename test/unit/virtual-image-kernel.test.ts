@@ -4,6 +4,7 @@ import type { CompiledDetector } from '../../src-shared/model/detectors';
 import { createReferenceVirtualImageKernel, virtualImagesReference } from '../../src-shared/compute/virtual-image';
 import { createWasmVirtualImageKernel, runsOf, type VirtualImageTuning } from '../../src-shared/compute/virtual-image-wasm';
 import { loadWasmModule } from '../../src-main/workers/wasm-loader';
+import { mulberry32, RANGES, randomTile, binary, weighted, absTile, expectAll } from '../helpers/synthetic';
 
 // The WebAssembly kernel must reproduce its TypeScript twin — exactly for binary detectors over
 // integer data, to 1e-12 of Σ|w·I| otherwise — and the twin is held to NumPy in
@@ -22,52 +23,8 @@ const MODES: { name: string; tuning: VirtualImageTuning }[] = [
   { name: "kernel's choice", tuning: {} },
 ];
 
-function mulberry32(seed: number): () => number {
-  let a = seed >>> 0;
-  return () => {
-    a = (a + 0x6d2b79f5) >>> 0;
-    let t = a;
-    t = Math.imul(t ^ (t >>> 15), t | 1);
-    t ^= t + Math.imul(t ^ (t >>> 7), t | 61);
-    return ((t ^ (t >>> 14)) >>> 0) / 4294967296;
-  };
-}
-
-const RANGES: Record<DType, [number, number]> = {
-  uint8: [0, 255], uint16: [0, 65535], uint32: [0, 4294967295],
-  int8: [-128, 127], int16: [-32768, 32767], int32: [-2147483648, 2147483647],
-  float32: [-1000, 1000], float64: [-1e6, 1e6],
-};
-
-/** Random values over the type's whole range; float data also get NaN, +Inf and −Inf. */
-function randomTile(dtype: DType, n: number, seed: number): NumericArray {
-  const rand = mulberry32(seed);
-  const tile = allocTyped(dtype, n);
-  const [lo, hi] = RANGES[dtype];
-  for (let i = 0; i < n; i++) {
-    if (isFloatDType(dtype)) {
-      tile[i] = rand() < 0.03 ? [NaN, Infinity, -Infinity][i % 3] : lo + (hi - lo) * rand();
-    } else {
-      tile[i] = Math.min(hi, lo + Math.floor((hi - lo + 1) * rand()));
-    }
-  }
-  return tile;
-}
-
-function binary(detY: number, detX: number, inside: (x: number, y: number) => boolean, label: string): CompiledDetector {
-  const indices: number[] = [];
-  for (let y = 0; y < detY; y++) for (let x = 0; x < detX; x++) if (inside(x, y)) indices.push(y * detX + x);
-  return { mode: 'indices', indices: Uint32Array.from(indices), detY, detX, label };
-}
-
 function ring(detY: number, detX: number, cx: number, cy: number, r0: number, r1: number, label: string): CompiledDetector {
   return binary(detY, detX, (x, y) => { const r2 = (x - cx) ** 2 + (y - cy) ** 2; return r2 >= r0 * r0 && r2 <= r1 * r1; }, label);
-}
-
-function weighted(detY: number, detX: number, w: (x: number, y: number) => number, label: string): CompiledDetector {
-  const weights = new Float64Array(detY * detX);
-  for (let y = 0; y < detY; y++) for (let x = 0; x < detX; x++) weights[y * detX + x] = w(x, y);
-  return { mode: 'weights', weights, detY, detX, label };
 }
 
 /** Detectors of every kind and fill over a detY × detX pattern. */
@@ -95,23 +52,6 @@ function runWasm(dtype: DType, tile: NumericArray, nPatterns: number, detectors:
   kernel.setDetectors(detectors);
   kernel.tileBuffer(dtype, tile.length).set(tile as never);
   return kernel.run(dtype, nPatterns);
-}
-
-function absTile(tile: NumericArray): Float64Array {
-  return Float64Array.from(tile, (v) => (Number.isFinite(v) ? Math.abs(v) : v));
-}
-
-/** Index of the first element where `ok` fails, or −1 (−2: lengths differ). */
-function firstMismatch(a: ArrayLike<number>, b: ArrayLike<number>, ok: (x: number, y: number, i: number) => boolean): number {
-  if (a.length !== b.length) return -2;
-  for (let i = 0; i < a.length; i++) if (!ok(a[i], b[i], i)) return i;
-  return -1;
-}
-
-function expectAll(name: string, got: ArrayLike<number>, want: ArrayLike<number>, ok: (x: number, y: number, i: number) => boolean) {
-  const i = firstMismatch(got, want, ok);
-  const detail = i === -2 ? `length ${got.length} vs ${want.length}` : `at ${i}: ${got[i]} vs ${want[i]}`;
-  expect(i, `${name} differs ${detail}`).toBe(-1);
 }
 
 /** Non-finite values at pixels some detector reads, counted directly from the tile. */
