@@ -18,7 +18,7 @@ import type { FirstPassSummary } from '../engine/first-pass';
 import { writeFloat64Results, type ResultArray } from '../io/write-results';
 import { readNpy2D } from '../io/npy-array';
 import { runJobWithProgress } from './progress';
-import { rejectExtraPositionals, resolveOut, SOURCE_OPTIONS, sourceSpecFromFlags } from './source-flags';
+import { numberList, rejectExtraPositionals, resolveOut, SOURCE_OPTIONS, sourceSpecFromFlags } from './source-flags';
 
 export const ANALYSIS_HELP = `  scanfold image FILE [source flags] --disk CX,CY,R --annulus CX,CY,R0,R1 --rect X0,Y0,X1,Y1
                  --polygon "X,Y X,Y X,Y" --mask MASK.npy [--weighted] [--bad-pixels auto|none] --out OUT.h5
@@ -39,14 +39,7 @@ export const ANALYSIS_HELP = `  scanfold image FILE [source flags] --disk CX,CY,
 
 type Flags = Record<string, string | boolean | (string | boolean)[] | undefined>;
 
-function numbers(flag: string, s: string, count: number): number[] {
-  const parts = s.split(',').map((p) => p.trim());
-  const v = parts.map(Number);
-  if (parts.length !== count || v.some((x) => !Number.isFinite(x))) {
-    throw new InputError(`--${flag} ${s}: expected ${count} numbers separated by commas`);
-  }
-  return v;
-}
+const numbers = (flag: string, s: string, count: number) => numberList(flag, s, count);
 
 function positive(flag: string, s: string | undefined): number | undefined {
   if (s === undefined) return undefined;
@@ -116,9 +109,7 @@ export async function cmdImage(args: string[], engineOptions: (v: Record<string,
   const out = resolveOut(v.out, spec.path, 'image');
   const quiet = v.quiet === true;
   await withEngine(engineOptions(v as Record<string, unknown>), async (engine) => {
-    const insp = await engine.inspect(spec);
-    if (insp.kind !== 'dataset') throw new InputError(`${spec.path}: give --dataset; candidates: ${insp.datasets.filter((d) => d.candidate).map((d) => d.path).join(', ')}`);
-    const { detY, detX, scanY, scanX } = insp.descriptor.shape;
+    const { detY, detX, scanY, scanX } = (await engine.describe(spec)).shape;
     const shapes = detectorShapes(parsed.tokens, detY, detX);
     if (shapes.length === 0) throw new InputError('image needs at least one detector: --disk, --annulus, --rect, --polygon or --mask');
     const specs: DetectorSpec[] = shapes.map((shape) => ({ shape, weighted: v.weighted === true }));
@@ -174,9 +165,7 @@ export async function cmdCom(args: string[], engineOptions: (v: Record<string, u
     throw new InputError('--mrad-per-pixel, --energy-kev and --scan-step-nm go together (they put the COM in mrad and the phase in radians)');
   }
   await withEngine(engineOptions(v as Record<string, unknown>), async (engine) => {
-    const insp = await engine.inspect(spec);
-    if (insp.kind !== 'dataset') throw new InputError(`${spec.path}: give --dataset; candidates: ${insp.datasets.filter((d) => d.candidate).map((d) => d.path).join(', ')}`);
-    const { detY, detX, scanY, scanX } = insp.descriptor.shape;
+    const { detY, detX, scanY, scanX } = (await engine.describe(spec)).shape;
     // Everything the user typed is checked before any pass over the data.
     let mode: DescanMode;
     if (descanName === 'reference') {
@@ -327,9 +316,7 @@ export async function cmdPattern(args: string[], engineOptions: (v: Record<strin
   const given = ['region-rect', 'region-polygon', 'region-mask'].filter((k) => typeof v[k] === 'string');
   if (given.length !== 1) throw new InputError('pattern needs exactly one of --region-rect, --region-polygon or --region-mask');
   await withEngine(engineOptions(v as Record<string, unknown>), async (engine) => {
-    const insp = await engine.inspect(spec);
-    if (insp.kind !== 'dataset') throw new InputError(`${spec.path}: give --dataset; candidates: ${insp.datasets.filter((d) => d.candidate).map((d) => d.path).join(', ')}`);
-    const { detY, detX, scanY, scanX } = insp.descriptor.shape;
+    const { detY, detX, scanY, scanX } = (await engine.describe(spec)).shape;
     let shape: RegionShape;
     if (typeof v['region-rect'] === 'string') {
       const [x0, y0, x1, y1] = numbers('region-rect', v['region-rect'], 4);

@@ -6,6 +6,7 @@ import { isInputError, InputError, CancelledError } from '../../src-shared/model
 import { Engine, type EngineOptions } from '../engine/engine';
 import { parseBytes, fmtBytes } from '../engine/budget';
 import { writeFloat64Results } from '../io/write-results';
+import type { FirstPassSummary } from '../engine/first-pass';
 import { rejectExtraPositionals, resolveOut, SOURCE_HELP, SOURCE_OPTIONS, sourceSpecFromFlags } from './source-flags';
 import { runJobWithProgress } from './progress';
 import { writeSample, SAMPLE_SIZES } from '../../samples/write-sample';
@@ -97,12 +98,8 @@ async function runSummary(spec: ReturnType<typeof sourceSpecFromFlags>, values: 
   }
 }
 
-async function cmdSummary(args: string[]) {
-  const { values, positionals } = parse(args, { ...SOURCE_OPTIONS, ...ENGINE_OPTIONS, out: { type: 'string' } });
-  rejectExtraPositionals(positionals, 'summary');
-  const spec = sourceSpecFromFlags(positionals[0], values);
-  const out = resolveOut(values.out, spec.path, 'summary');
-  const r = await runSummary(spec, values, values.quiet === true);
+/** The first pass's results as float64 datasets, with where they came from. */
+async function writeSummary(out: string, r: FirstPassSummary, producer: string): Promise<void> {
   const { scanY, scanX, detY, detX } = r.descriptor.shape;
   await writeFloat64Results(out, {
     mean_pattern: { data: r.meanPattern, shape: [detY, detX] },
@@ -113,8 +110,17 @@ async function cmdSummary(args: string[]) {
     source_dataset: r.descriptor.datasetPath ?? '',
     source_fingerprint: r.descriptor.fingerprint,
     non_finite_values: r.nonFinite,
-    producer: 'scanfold summary',
+    producer,
   });
+}
+
+async function cmdSummary(args: string[]) {
+  const { values, positionals } = parse(args, { ...SOURCE_OPTIONS, ...ENGINE_OPTIONS, out: { type: 'string' } });
+  rejectExtraPositionals(positionals, 'summary');
+  const spec = sourceSpecFromFlags(positionals[0], values);
+  const out = resolveOut(values.out, spec.path, 'summary');
+  const r = await runSummary(spec, values, values.quiet === true);
+  await writeSummary(out, r, 'scanfold summary');
   if (r.nonFinite > 0) process.stderr.write(`note: ${r.nonFinite} NaN/Inf values were left out of the sums and maxima\n`);
   if (values.quiet !== true) {
     process.stderr.write(`wrote ${out} (${fmtBytes(r.descriptor.byteSize)} in ${r.seconds.toFixed(2)} s, ` +
@@ -155,11 +161,7 @@ async function cmdDemo(args: string[]) {
   const r = await runSummary(spec, values, values.quiet === true);
   const out = path.join(dir, 'demo-summary.h5');
   const { scanY, scanX, detY, detX } = r.descriptor.shape;
-  await writeFloat64Results(out, {
-    mean_pattern: { data: r.meanPattern, shape: [detY, detX] },
-    max_pattern: { data: r.maxPattern, shape: [detY, detX] },
-    total_intensity: { data: r.totalIntensity, shape: [scanY, scanX] },
-  }, { source_path: file, source_fingerprint: r.descriptor.fingerprint, producer: 'scanfold demo' });
+  await writeSummary(out, r, 'scanfold demo');
   let tmin = Infinity, tmax = -Infinity;
   for (const v of r.totalIntensity) { if (v < tmin) tmin = v; if (v > tmax) tmax = v; }
   const bad = findBadPixels(r.meanPattern, r.maxPattern, detY, detX, { patternCount: scanY * scanX });

@@ -23,14 +23,18 @@ export const SOURCE_HELP = `source flags:
   --byte-order little|big raw binary: byte order (default little)
   --offset BYTES          raw binary: header bytes to skip (default 0)`;
 
-function ints(flag: string, s: string, count: number): number[] {
+/** `count` comma-separated numbers of a flag: any finite numbers, or positive whole ones. */
+export function numberList(flag: string, s: string, count: number, kind: 'finite' | 'positive-integer' = 'finite'): number[] {
   const parts = s.split(',').map((p) => p.trim());
-  const nums = parts.map((p) => Number(p));
-  if (parts.length !== count || nums.some((n) => !Number.isInteger(n) || n <= 0)) {
-    throw new InputError(`--${flag} ${s}: expected ${count} positive whole numbers separated by commas`);
+  const nums = parts.map(Number);
+  const ok = kind === 'finite' ? Number.isFinite : (n: number) => Number.isInteger(n) && n > 0;
+  if (parts.length !== count || !nums.every(ok)) {
+    throw new InputError(`--${flag} ${s}: expected ${count} ${kind === 'finite' ? 'numbers' : 'positive whole numbers'} separated by commas`);
   }
   return nums;
 }
+
+const ints = (flag: string, s: string, count: number) => numberList(flag, s, count, 'positive-integer');
 
 export function sourceSpecFromFlags(file: string | undefined, v: Record<string, unknown>): SourceSpec {
   if (!file) throw new InputError('no input file given');

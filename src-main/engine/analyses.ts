@@ -8,6 +8,7 @@ import { InputError } from '../../src-shared/model/errors';
 import { planTiles, type EngineLimits, type TilesPlan } from './budget';
 import { Job } from './job';
 import { runTiles } from './tile-runner';
+import { foldSumMax } from '../../src-shared/compute/region-pattern';
 import type { WorkerPool } from './worker-pool';
 import type { ComTileReply, KernelKind, RegionTileReply, VirtualImagesTileReply } from '../workers/tile-worker';
 
@@ -77,22 +78,17 @@ export function startVirtualImages(pool: WorkerPool, spec: SourceSpec, detectors
     job.bytesTotal = d.byteSize;
     const n = d.shape.scanY * d.shape.scanX;
     const images = detectors.map(() => new Float64Array(n));
-    let nonFinite = 0, readMs = 0, computeMs = 0;
     const options = { kernel, maxTileBytes: plan.tileBytes };
-    await runTiles<VirtualImagesTileReply>({
-      pool, job, tiles: plan.tiles,
-      compute: async (w, tile) => {
-        await w.open(d.spec);
-        return w.virtualImagesTile(tile.row0, tile.nRows, detectors, options);
-      },
+    const totals = await runTiles<VirtualImagesTileReply>({
+      pool, job, spec: d.spec, tiles: plan.tiles,
+      compute: (w, tile) => w.virtualImagesTile(tile.row0, tile.nRows, detectors, options),
       merge: (r, tile) => {
         const m = tile.nRows * d.shape.scanX;
         const at = tile.row0 * d.shape.scanX;
         for (let k = 0; k < detectors.length; k++) images[k].set(r.images.subarray(k * m, (k + 1) * m), at);
-        nonFinite += r.nonFinite; readMs += r.readMs; computeMs += r.computeMs;
       },
     });
-    job.succeed({ descriptor: d, images, nonFinite, plan, seconds: (performance.now() - t0) / 1000, readMs, computeMs });
+    job.succeed({ descriptor: d, images, plan, seconds: (performance.now() - t0) / 1000, ...totals });
   })().catch((e) => job.fail(e));
   return job;
 }
@@ -108,21 +104,16 @@ export function startComSums(pool: WorkerPool, spec: SourceSpec, com: ComOptions
     job.bytesTotal = d.byteSize;
     const n = d.shape.scanY * d.shape.scanX;
     const total = new Float64Array(n), sumX = new Float64Array(n), sumY = new Float64Array(n);
-    let nonFinite = 0, readMs = 0, computeMs = 0;
     const options = { kernel, maxTileBytes: plan.tileBytes };
-    await runTiles<ComTileReply>({
-      pool, job, tiles: plan.tiles,
-      compute: async (w, tile) => {
-        await w.open(d.spec);
-        return w.comTile(tile.row0, tile.nRows, com, options);
-      },
+    const totals = await runTiles<ComTileReply>({
+      pool, job, spec: d.spec, tiles: plan.tiles,
+      compute: (w, tile) => w.comTile(tile.row0, tile.nRows, com, options),
       merge: (r, tile) => {
         const at = tile.row0 * d.shape.scanX;
         total.set(r.total, at); sumX.set(r.sumX, at); sumY.set(r.sumY, at);
-        nonFinite += r.nonFinite; readMs += r.readMs; computeMs += r.computeMs;
       },
     });
-    job.succeed({ descriptor: d, total, sumX, sumY, nonFinite, plan, seconds: (performance.now() - t0) / 1000, readMs, computeMs });
+    job.succeed({ descriptor: d, total, sumX, sumY, plan, seconds: (performance.now() - t0) / 1000, ...totals });
   })().catch((e) => job.fail(e));
   return job;
 }
@@ -144,17 +135,11 @@ export function startRegionPattern(pool: WorkerPool, spec: SourceSpec, region: U
     job.bytesTotal = tiles.reduce((s, t) => s + t.bytes, 0);
     const sum = new Float64Array(detY * detX);
     const max = new Float64Array(detY * detX).fill(-Infinity);
-    let count = 0, nonFinite = 0;
-    await runTiles<RegionTileReply>({
-      pool, job, tiles,
-      compute: async (w, tile) => {
-        await w.open(d.spec);
-        return w.regionPatternTile(tile.row0, tile.nRows, region.slice(tile.row0 * scanX, (tile.row0 + tile.nRows) * scanX));
-      },
-      merge: (r) => {
-        for (let i = 0; i < sum.length; i++) { sum[i] += r.sum[i]; if (r.max[i] > max[i]) max[i] = r.max[i]; }
-        count += r.count; nonFinite += r.nonFinite;
-      },
+    let count = 0;
+    const { nonFinite } = await runTiles<RegionTileReply>({
+      pool, job, spec: d.spec, tiles,
+      compute: (w, tile) => w.regionPatternTile(tile.row0, tile.nRows, region.slice(tile.row0 * scanX, (tile.row0 + tile.nRows) * scanX)),
+      merge: (r) => { foldSumMax(sum, max, r.sum, r.max); count += r.count; },
     });
     const mean = sum.map((v) => v / count);
     job.succeed({ descriptor: d, mean, max, count, nonFinite, seconds: (performance.now() - t0) / 1000 });

@@ -1,5 +1,5 @@
 import os from 'node:os';
-import type { SourceSpec } from '../../src-shared/model/dataset';
+import type { DatasetDescriptor, SourceSpec } from '../../src-shared/model/dataset';
 import type { JobInfo } from '../../src-shared/contract/jobs';
 import { DEFAULT_BUDGET, DEFAULT_PREVIEW_BUDGET, type EngineLimits } from './budget';
 import { PreviewPool, startFirstPass, type FirstPassSummary } from './first-pass';
@@ -47,6 +47,14 @@ export class Engine {
   /** Describe a source (or list an HDF5 file's datasets) without reading its data. */
   inspect(spec: SourceSpec): Promise<Inspection> {
     return inspectSource(spec);
+  }
+
+  /**
+   * Open a source on a worker and return its descriptor; the worker keeps it open for the
+   * jobs that follow (the main thread never loads a reader).
+   */
+  async describe(spec: SourceSpec): Promise<DatasetDescriptor> {
+    return (await this.pool.run((w) => w.open(spec))).descriptor;
   }
 
   /** The first streaming pass: mean/max pattern, total intensity, preview cube. */

@@ -3,6 +3,7 @@ import type { FirstPassGeometry } from '../../src-shared/compute/first-pass-type
 import { planFirstPass, type EngineLimits, type FirstPassPlan } from './budget';
 import { Job } from './job';
 import { runTiles } from './tile-runner';
+import { foldSumMax } from '../../src-shared/compute/region-pattern';
 import { createWasmPreviewImager, type PreviewImager } from '../../src-shared/compute/preview-image-wasm';
 import { loadWasmModule } from '../workers/wasm-loader';
 import type { WorkerPool } from './worker-pool';
@@ -94,26 +95,12 @@ export function startFirstPass(pool: WorkerPool, spec: SourceSpec, limits: Engin
     };
     const preview = imager ? imager.cube() : new Float32Array(shared.preview);
     const total = new Float64Array(shared.total);
-    let nonFinite = 0;
-    let readMs = 0;
-    let computeMs = 0;
     const options = { kernel, maxTileBytes: plan.tileBytes };
     // A cancelled pass's cube is dropped, not pooled: tiles still in flight may write into it.
-    await runTiles<FirstPassTileReply>({
-      pool, job, tiles: plan.tiles,
-      compute: async (w, tile) => {
-        await w.open(d.spec);
-        return w.firstPassTile(tile.row0, tile.nRows, geometry, options, shared);
-      },
-      merge: (r) => {
-        for (let i = 0; i < pixels; i++) {
-          sum[i] += r.sum[i];
-          if (r.max[i] > max[i]) max[i] = r.max[i];
-        }
-        nonFinite += r.nonFinite;
-        readMs += r.readMs;
-        computeMs += r.computeMs;
-      },
+    const totals = await runTiles<FirstPassTileReply>({
+      pool, job, spec: d.spec, tiles: plan.tiles,
+      compute: (w, tile) => w.firstPassTile(tile.row0, tile.nRows, geometry, options, shared),
+      merge: (r) => foldSumMax(sum, max, r.sum, r.max),
     });
     if (job.cancelled) return;
     const n = scanY * scanX;
@@ -122,7 +109,7 @@ export function startFirstPass(pool: WorkerPool, spec: SourceSpec, limits: Engin
     job.succeed({
       descriptor: d, meanPattern: mean, maxPattern: max, totalIntensity: total,
       preview: { data: preview, qY: pv.qY, qX: pv.qX, pY: pv.pY, pX: pv.pX, detBin: plan.detBin, scanBin: plan.scanBin, imager },
-      nonFinite, plan, seconds: (performance.now() - t0) / 1000, readMs, computeMs,
+      plan, seconds: (performance.now() - t0) / 1000, ...totals,
     });
   })().catch((e) => job.fail(e));
   return job;

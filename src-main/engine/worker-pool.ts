@@ -102,9 +102,6 @@ export class WorkerPool {
     await this.slots[index].worker.terminate();
   }
 
-  /** The worker currently in slot `index` (for tests and diagnostics). */
-  workerGeneration(index: number): number { return this.slots[index].generation; }
-
   async close(): Promise<void> {
     this.closed = true;
     await Promise.all(this.slots.map(async (s) => {

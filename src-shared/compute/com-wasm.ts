@@ -1,4 +1,5 @@
 import { DTYPE_BYTES, isFloatDType, typedView, type DType, type NumericArray } from '../model/dtype';
+import { ensureMemoryBytes, exportNames, kernelMemory, roundUp, TILE_OFFSET, PAGE_BYTES } from './wasm-memory';
 import type { ComKernel, ComOptions } from './tile-kernels-types';
 import { checkComOptions, type ComSums } from './com';
 import { prefersRuns, type SparseRule } from './virtual-image-wasm';
@@ -20,11 +21,7 @@ import { prefersRuns, type SparseRule } from './virtual-image-wasm';
 export function createWasmComKernel(wasmModule: WebAssembly.Module, maxTileBytes: number, tuning: ComTuning = {}, sharedMemory?: WebAssembly.Memory): ComKernel {
   if (!Number.isFinite(maxTileBytes) || maxTileBytes < 0) throw new RangeError(`centre of mass: maxTileBytes must be ≥ 0, got ${maxTileBytes}`);
   let tileCapacity = roundUp(Math.max(maxTileBytes, 1), PAGE_BYTES);
-  // A worker gives every kernel the same memory (the kernels have no static data), so one tile's
-  // worth of memory serves whichever analysis runs; alone, a kernel makes its own.
-  const wantedPages = pagesFor(TILE_OFFSET + tileCapacity + tileCapacity / 64 + 4 * 2 ** 20);
-  const memory = sharedMemory ?? new WebAssembly.Memory({ initial: wantedPages });
-  if (memory.buffer.byteLength < wantedPages * PAGE_BYTES) memory.grow(wantedPages - memory.buffer.byteLength / PAGE_BYTES);
+  const memory = kernelMemory(TILE_OFFSET + tileCapacity + tileCapacity / 64 + 4 * 2 ** 20, 'centre of mass', sharedMemory);
   const instance = new WebAssembly.Instance(wasmModule, {
     env: {
       memory,
@@ -42,13 +39,7 @@ export function createWasmComKernel(wasmModule: WebAssembly.Module, maxTileBytes
   let prepared: Prepared | null = null;
   let preparedFor: DType | null = null;
 
-  const ensureBytes = (bytes: number) => {
-    const have = memory.buffer.byteLength;
-    if (bytes <= have) return;
-    const pages = pagesFor(bytes);
-    if (pages > MAX_PAGES) throw new RangeError(`centre of mass: needs ${bytes} bytes of WebAssembly memory, more than the 4 GiB a 32-bit module can address; use smaller tiles`);
-    memory.grow(pages - have / PAGE_BYTES);
-  };
+  const ensureBytes = (bytes: number) => ensureMemoryBytes(memory, bytes, 'centre of mass');
 
   /** Worst-case room for the mask in every representation, after the tile. */
   const refreshLayout = () => {
@@ -216,15 +207,8 @@ interface Prepared {
 type ComExport = (tile: number, nPatterns: number, detY: number, detX: number, mode: number, a: number, d: number, n: number,
   useThreshold: number, thrInt: number, thrF: number, totalOut: number, sumXOut: number, sumYOut: number) => number;
 
-const EXPORT_NAMES: Record<DType, string> = {
-  uint8: 'comUint8', uint16: 'comUint16', uint32: 'comUint32',
-  int8: 'comInt8', int16: 'comInt16', int32: 'comInt32',
-  float32: 'comFloat32', float64: 'comFloat64',
-};
+const EXPORT_NAMES = exportNames('com');
 
-const PAGE_BYTES = 65536;
-const TILE_OFFSET = PAGE_BYTES;
-const MAX_PAGES = 65536;
 /** Whole-vector sweeps read up to one vector past the last pattern, and past the mask arrays. */
 const OVER_READ_SLACK = 256;
 
@@ -251,10 +235,3 @@ function nonzeroIndices(weights: Float64Array): Uint32Array {
   return out;
 }
 
-function roundUp(n: number, to: number): number {
-  return Math.ceil(n / to) * to;
-}
-
-function pagesFor(bytes: number): number {
-  return Math.ceil(bytes / PAGE_BYTES);
-}

@@ -1,4 +1,5 @@
 import { DTYPE_BYTES, typedView, type DType, type NumericArray } from '../model/dtype';
+import { ensureMemoryBytes, exportNames, kernelMemory, roundUp, TILE_OFFSET, PAGE_BYTES } from './wasm-memory';
 import { checkGeometry } from './first-pass';
 import { previewDims, type FirstPassGeometry, type FirstPassKernel, type FirstPassOutputs, type FirstPassTileResult } from './first-pass-types';
 
@@ -20,11 +21,7 @@ export function createWasmFirstPassKernel(wasmModule: WebAssembly.Module, maxTil
   if (!Number.isFinite(maxTileBytes) || maxTileBytes < 0) throw new RangeError(`first pass: maxTileBytes must be ≥ 0, got ${maxTileBytes}`);
   let tileCapacity = roundUp(Math.max(maxTileBytes, 1), PAGE_BYTES);
   // Room for the tile plus the scratch of a typical run, so most runs never grow the memory.
-  // A worker gives every kernel the same memory (the kernels have no static data), so one tile's
-  // worth of memory serves whichever analysis runs; alone, a kernel makes its own.
-  const wantedPages = pagesFor(TILE_OFFSET + tileCapacity + tileCapacity / 2 + PAGE_BYTES);
-  const memory = sharedMemory ?? new WebAssembly.Memory({ initial: wantedPages });
-  if (memory.buffer.byteLength < wantedPages * PAGE_BYTES) memory.grow(wantedPages - memory.buffer.byteLength / PAGE_BYTES);
+  const memory = kernelMemory(TILE_OFFSET + tileCapacity + tileCapacity / 2 + PAGE_BYTES, 'first pass', sharedMemory);
   const instance = new WebAssembly.Instance(wasmModule, {
     env: {
       memory,
@@ -33,13 +30,7 @@ export function createWasmFirstPassKernel(wasmModule: WebAssembly.Module, maxTil
   });
   const exports = instance.exports as unknown as Record<string, FirstPassExport>;
 
-  const ensureBytes = (bytes: number) => {
-    const have = memory.buffer.byteLength;
-    if (bytes <= have) return;
-    const pages = pagesFor(bytes);
-    if (pages > MAX_PAGES) throw new RangeError(`first pass: needs ${bytes} bytes of WebAssembly memory, more than the 4 GiB a 32-bit module can address; use smaller tiles`);
-    memory.grow(pages - have / PAGE_BYTES);
-  };
+  const ensureBytes = (bytes: number) => ensureMemoryBytes(memory, bytes, 'first pass');
 
   let tileDType: DType | null = null;
   let tileElements = 0;
@@ -115,21 +106,7 @@ type FirstPassExport = (tile: number, nRows: number, scanX: number, detY: number
   sumOut: number, maxOut: number, totalOut: number, previewOut: number,
   sumAcc: number, maxAcc: number, binAcc: number, binF64: number, columnAcc: number, previewAcc: number) => number;
 
-const EXPORT_NAMES: Record<DType, string> = {
-  uint8: 'firstPassUint8', uint16: 'firstPassUint16', uint32: 'firstPassUint32',
-  int8: 'firstPassInt8', int16: 'firstPassInt16', int32: 'firstPassInt32',
-  float32: 'firstPassFloat32', float64: 'firstPassFloat64',
-};
+const EXPORT_NAMES = exportNames('firstPass');
 
-const PAGE_BYTES = 65536;
-const TILE_OFFSET = PAGE_BYTES;
-const MAX_PAGES = 65536;
 const MAX_BIN_ROW_VALUES = 65536;
 
-function roundUp(n: number, to: number): number {
-  return Math.ceil(n / to) * to;
-}
-
-function pagesFor(bytes: number): number {
-  return Math.ceil(bytes / PAGE_BYTES);
-}

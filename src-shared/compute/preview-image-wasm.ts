@@ -1,4 +1,5 @@
 import { checkPreviewShape, previewImages } from './preview-image';
+import { MAX_PAGES, PAGE_BYTES, pagesFor, roundUp, TILE_OFFSET } from './wasm-memory';
 
 /**
  * Virtual images from the preview cube with WebAssembly SIMD (built from
@@ -120,17 +121,7 @@ function groupRuns(w: Float64Array, d: number): { runs: number[]; weights: numbe
   return { runs, weights };
 }
 
-const PAGE_BYTES = 65536;
-const TILE_OFFSET = PAGE_BYTES;
-const MAX_PAGES = 65536;
 /** The last group of the last position may reach 3 bins past the cube. */
 const OVER_READ_SLACK = 64;
 const RESERVED_DETECTORS = 16;
 
-function roundUp(n: number, to: number): number {
-  return Math.ceil(n / to) * to;
-}
-
-function pagesFor(bytes: number): number {
-  return Math.ceil(bytes / PAGE_BYTES);
-}

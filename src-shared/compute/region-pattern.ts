@@ -35,3 +35,11 @@ export function accumulateRegionPatterns(
   }
   return { count, nonFinite };
 }
+
+/** Fold a partial sum and max pattern into running ones (merging tiles' results). */
+export function foldSumMax(sum: Float64Array, max: Float64Array, partSum: Float64Array, partMax: Float64Array): void {
+  for (let i = 0; i < sum.length; i++) {
+    sum[i] += partSum[i];
+    if (partMax[i] > max[i]) max[i] = partMax[i];
+  }
+}

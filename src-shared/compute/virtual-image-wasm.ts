@@ -1,4 +1,5 @@
 import { DTYPE_BYTES, isFloatDType, typedView, type DType, type NumericArray } from '../model/dtype';
+import { ensureMemoryBytes, exportNames, kernelMemory, roundUp, TILE_OFFSET, PAGE_BYTES } from './wasm-memory';
 import type { CompiledDetector } from '../model/detectors';
 import type { VirtualImageKernel } from './tile-kernels-types';
 import { checkDetectors, supportUnion } from './virtual-image';
@@ -24,11 +25,7 @@ export function createWasmVirtualImageKernel(wasmModule: WebAssembly.Module, max
   if (!Number.isFinite(maxTileBytes) || maxTileBytes < 0) throw new RangeError(`virtual image: maxTileBytes must be ≥ 0, got ${maxTileBytes}`);
   let tileCapacity = roundUp(Math.max(maxTileBytes, 1), PAGE_BYTES);
   // Room for the tile plus detector data for a few large detectors, so most runs never grow the memory.
-  // A worker gives every kernel the same memory (the kernels have no static data), so one tile's
-  // worth of memory serves whichever analysis runs; alone, a kernel makes its own.
-  const wantedPages = pagesFor(TILE_OFFSET + tileCapacity + tileCapacity / 64 + 4 * 2 ** 20);
-  const memory = sharedMemory ?? new WebAssembly.Memory({ initial: wantedPages });
-  if (memory.buffer.byteLength < wantedPages * PAGE_BYTES) memory.grow(wantedPages - memory.buffer.byteLength / PAGE_BYTES);
+  const memory = kernelMemory(TILE_OFFSET + tileCapacity + tileCapacity / 64 + 4 * 2 ** 20, 'virtual image', sharedMemory);
   const instance = new WebAssembly.Instance(wasmModule, {
     env: {
       memory,
@@ -44,13 +41,7 @@ export function createWasmVirtualImageKernel(wasmModule: WebAssembly.Module, max
   let preparedFor: DType | null = null;
   let layout: Layout | null = null;
 
-  const ensureBytes = (bytes: number) => {
-    const have = memory.buffer.byteLength;
-    if (bytes <= have) return;
-    const pages = pagesFor(bytes);
-    if (pages > MAX_PAGES) throw new RangeError(`virtual image: needs ${bytes} bytes of WebAssembly memory, more than the 4 GiB a 32-bit module can address; use smaller tiles`);
-    memory.grow(pages - have / PAGE_BYTES);
-  };
+  const ensureBytes = (bytes: number) => ensureMemoryBytes(memory, bytes, 'virtual image');
 
   /** Worst-case room for every detector in every representation, after the tile. */
   const planLayout = (): Layout => {
@@ -251,11 +242,7 @@ interface Layout {
 type VirtualImageExport = (tile: number, nPatterns: number, nPix: number, table: number, nDet: number,
   union: number, unionCount: number, unionDense: number, scratch: number, acc: number, out: number) => number;
 
-const EXPORT_NAMES: Record<DType, string> = {
-  uint8: 'virtualImagesUint8', uint16: 'virtualImagesUint16', uint32: 'virtualImagesUint32',
-  int8: 'virtualImagesInt8', int16: 'virtualImagesInt16', int32: 'virtualImagesInt32',
-  float32: 'virtualImagesFloat32', float64: 'virtualImagesFloat64',
-};
+const EXPORT_NAMES = exportNames('virtualImages');
 
 /** Lane masks in the data's width: 0xFF for 8-bit, the multiplier 1 for 16-bit (dot product), all-ones for 32-bit and float32. */
 function writeLaneMask(buf: ArrayBuffer, at: number, elementBytes: number, padded: number, indices: Uint32Array) {
@@ -291,9 +278,6 @@ function countNonzero(a: Float64Array): number {
   return n;
 }
 
-const PAGE_BYTES = 65536;
-const TILE_OFFSET = PAGE_BYTES;
-const MAX_PAGES = 65536;
 /** Pixels per block of the kernel's dense sweeps (wasm-src/virtual-image.ts BLOCK). */
 const BLOCK = 1024;
 /** Dense masks and weights are zero-padded to whole blocks of this many pixels (the kernel's sweeps take 32 at a time). */
@@ -301,10 +285,3 @@ const DENSE_ALIGN = 32;
 /** Whole-vector sweeps read up to 31 elements (248 bytes) past the last pattern. */
 const OVER_READ_SLACK = 512;
 
-function roundUp(n: number, to: number): number {
-  return Math.ceil(n / to) * to;
-}
-
-function pagesFor(bytes: number): number {
-  return Math.ceil(bytes / PAGE_BYTES);
-}
