@@ -3,10 +3,9 @@
 //   /truth/...              the ground truth the frames were made from
 // The frames go through h5wasm in blocks of scan rows, because its heap is capped at 2 GiB
 // and never shrinks.
-import fs from 'node:fs';
-import path from 'node:path';
 import type h5wasm from 'h5wasm/node';
-import { writeHdf5Atomically } from '../src-main/io/write-results';
+import { writeHdf5 } from '../src-main/io/write-results';
+import { OutputFile } from '../src-main/io/output-file';
 import type { Shape4D } from '../src-shared/model/dataset';
 import { CancelledError, InputError } from '../src-shared/model/errors';
 import { DEFAULT_SEED, GENERATOR_NAME, GENERATOR_VERSION, SCENARIO_SIZES, Scenario, type SampleSizeName, type ScenarioAttributes } from './scenario';
@@ -58,13 +57,9 @@ const MIN_PROGRESS_STEPS = 32;
 export async function writeSample(opts: WriteSampleOptions): Promise<{ path: string; datasetPath: string; shape: Shape4D }> {
   const info = SAMPLE_SIZES[opts.size as SampleSizeName];
   if (!info) throw new InputError(`sample size "${opts.size}" is not known; expected one of ${Object.keys(SAMPLE_SIZES).join(', ')}`);
-  const file = path.resolve(opts.out);
-  const dir = path.dirname(file);
-  if (!fs.existsSync(dir) || !fs.statSync(dir).isDirectory()) throw new InputError(`cannot write the sample to ${file}: the folder ${dir} does not exist`);
-  if (fs.existsSync(file) && fs.statSync(file).isDirectory()) throw new InputError(`cannot write the sample to ${file}: it is a folder; expected a file name such as demo.h5`);
   const scenario = Scenario.create(opts.size, opts.seed ?? DEFAULT_SEED);
-
-  await writeHdf5Atomically(file, (f) => writeContents(f, scenario, info, opts));
+  const out = OutputFile.create(opts.out, { flag: '--out' });
+  const file = await writeHdf5(out, (f) => writeContents(f, scenario, info, opts));
   return { path: file, datasetPath: FRAMES_PATH, shape: { ...info.shape } };
 }
 

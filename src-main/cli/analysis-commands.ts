@@ -1,10 +1,9 @@
 // `scanfold image`, `scanfold com`, `scanfold calibrate`: virtual imaging, centre of mass and
 // calibration from the command line, through the same engine as the application.
 import path from 'node:path';
-import { parseArgs } from 'node:util';
 import type { SourceSpec } from '../../src-shared/model/dataset';
 import type { DetectorShape, DetectorSpec, RegionShape } from '../../src-shared/model/detectors';
-import { InputError } from '../../src-shared/model/errors';
+import { InputError, isInputError } from '../../src-shared/model/errors';
 import { compileDetector, describeDetector } from '../../src-shared/compute/detector-masks';
 import { findBadPixels, replaceBadPixels } from '../../src-shared/compute/bad-pixels';
 import { findBrightFieldDisk } from '../../src-shared/compute/bright-field-disk';
@@ -15,10 +14,11 @@ import { descan, rotateCom, divergence, curl, estimateRotation, integrateCom, ma
 import { compileRegion, describeRegion } from '../../src-shared/compute/region-masks';
 import { Engine, type EngineOptions } from '../engine/engine';
 import type { FirstPassSummary } from '../engine/first-pass';
-import { writeFloat64Results, type ResultArray } from '../io/write-results';
+import { writeFloat64Results, type ResultArray, type WrittenResults } from '../io/write-results';
+import type { OutputFile } from '../io/output-file';
 import { readNpy2D } from '../io/npy-array';
 import { runJobWithProgress } from './progress';
-import { numberList, rejectExtraPositionals, resolveOut, SOURCE_OPTIONS, sourceSpecFromFlags } from './source-flags';
+import { decimalNumber, numberList, outputFlag, parseFlags, rectangleFlag, rejectExtraPositionals, SOURCE_OPTIONS, sourceSpecFromFlags } from './source-flags';
 
 export const ANALYSIS_HELP = `  scanfold image FILE [source flags] --disk CX,CY,R --annulus CX,CY,R0,R1 --rect X0,Y0,X1,Y1
                  --polygon "X,Y X,Y X,Y" --mask MASK.npy [--weighted] [--bad-pixels auto|none] --out OUT.h5
@@ -43,13 +43,13 @@ const numbers = (flag: string, s: string, count: number) => numberList(flag, s, 
 
 function positive(flag: string, s: string | undefined): number | undefined {
   if (s === undefined) return undefined;
-  const v = Number(s);
-  if (!Number.isFinite(v) || v <= 0) throw new InputError(`--${flag} ${s}: expected a positive number`);
+  const v = decimalNumber(flag, s, 'a positive number');
+  if (v <= 0) throw new InputError(`--${flag} ${s}: expected a positive number`);
   return v;
 }
 
 /** Detector flags in the order the user gave them. */
-function detectorShapes(tokens: ReturnType<typeof parseArgs>['tokens'], detY: number, detX: number): DetectorShape[] {
+function detectorShapes(tokens: ReturnType<typeof parseFlags>['tokens'] | undefined, detY: number, detX: number): DetectorShape[] {
   const shapes: DetectorShape[] = [];
   for (const t of tokens ?? []) {
     if (t.kind !== 'option' || typeof t.value !== 'string') continue;
@@ -57,7 +57,7 @@ function detectorShapes(tokens: ReturnType<typeof parseArgs>['tokens'], detY: nu
     switch (t.name) {
       case 'disk': { const [cx, cy, r] = numbers('disk', v, 3); shapes.push({ kind: 'disk', cx, cy, r }); break; }
       case 'annulus': { const [cx, cy, rInner, rOuter] = numbers('annulus', v, 4); shapes.push({ kind: 'annulus', cx, cy, rInner, rOuter }); break; }
-      case 'rect': { const [x0, y0, x1, y1] = numbers('rect', v, 4); shapes.push({ kind: 'rectangle', x0, y0, x1, y1 }); break; }
+      case 'rect': shapes.push({ kind: 'rectangle', ...rectangleFlag('rect', v) }); break;
       case 'polygon': {
         const pts = v.trim().split(/\s+/).map((p) => numbers('polygon', p, 2) as [number, number]);
         shapes.push({ kind: 'polygon', points: pts });
@@ -76,9 +76,46 @@ function detectorShapes(tokens: ReturnType<typeof parseArgs>['tokens'], detY: nu
   return shapes;
 }
 
-async function withEngine<T>(options: EngineOptions, fn: (e: Engine) => Promise<T>): Promise<T> {
-  const engine = new Engine(options);
-  try { return await fn(engine); } finally { await engine.close(); }
+/**
+ * Run `fn` on a fresh engine. With an output, its temporary file is removed whatever happens
+ * unless `fn` wrote it.
+ */
+async function withEngine<T>(options: EngineOptions, fn: (e: Engine) => Promise<T>, out?: OutputFile): Promise<T> {
+  try {
+    const engine = new Engine(options);
+    for (const note of engine.notes) process.stderr.write(`note: ${note}\n`);
+    try { return await fn(engine); } finally { await engine.close(); }
+  } finally {
+    out?.discard();
+  }
+}
+
+/** Describe the source on a worker, and protect every file its data comes from against --out. */
+async function describeProtected(engine: Engine, spec: SourceSpec, out: OutputFile) {
+  const d = await engine.describe(spec);
+  out.protect(d.sourceFiles);
+  return d;
+}
+
+/** Say on stderr which results are NaN or ±Inf (overflowed sums, divisions by zero). */
+export function noteNonFiniteResults(w: WrittenResults, expected = ''): void {
+  const parts = Object.entries(w.nonFiniteResults).map(([k, n]) => `${k} ${n}`);
+  if (parts.length) process.stderr.write(`note: NaN or ±Inf result values (${parts.join(', ')})${expected}; their count is stored as non_finite_results\n`);
+}
+
+/** Input problems found by an analysis name the file they were found in. */
+function aboutFile<T>(file: string, fn: () => T): T {
+  try {
+    return fn();
+  } catch (e) {
+    if (isInputError(e) && !e.message.startsWith(file)) throw new InputError(`${file}: ${e.message}`, e.code);
+    throw e;
+  }
+}
+
+/** Paths given to a flag that takes a file, as absolute paths, to protect them from --out. */
+function flagFiles(v: Flags, ...names: string[]): string[] {
+  return names.flatMap((n) => [v[n]].flat().filter((x): x is string => typeof x === 'string').map((x) => path.resolve(x)));
 }
 
 const runJob = runJobWithProgress;
@@ -95,21 +132,18 @@ async function badPixelMask(engine: Engine, spec: SourceSpec, mode: string, quie
 
 
 export async function cmdImage(args: string[], engineOptions: (v: Record<string, unknown>) => EngineOptions, engineFlags: Record<string, { type: 'string' | 'boolean' }>): Promise<void> {
-  const parsed = parseArgs({
-    args, allowPositionals: true, strict: true, tokens: true,
-    options: {
+  const parsed = parseFlags(args, {
       ...SOURCE_OPTIONS, ...engineFlags, out: { type: 'string' }, weighted: { type: 'boolean' }, 'bad-pixels': { type: 'string' },
       disk: { type: 'string', multiple: true }, annulus: { type: 'string', multiple: true }, rect: { type: 'string', multiple: true },
       polygon: { type: 'string', multiple: true }, mask: { type: 'string', multiple: true },
-    },
-  });
+    });
   const v = parsed.values as Flags;
   rejectExtraPositionals(parsed.positionals, 'image');
   const spec = sourceSpecFromFlags(parsed.positionals[0], v as Record<string, unknown>);
-  const out = resolveOut(v.out, spec.path, 'image');
+  const out = outputFlag(v.out, 'image', [spec.path, ...flagFiles(v, 'mask')]);
   const quiet = v.quiet === true;
   await withEngine(engineOptions(v as Record<string, unknown>), async (engine) => {
-    const { detY, detX, scanY, scanX } = (await engine.describe(spec)).shape;
+    const { detY, detX, scanY, scanX } = (await describeProtected(engine, spec, out)).shape;
     const shapes = detectorShapes(parsed.tokens, detY, detX);
     if (shapes.length === 0) throw new InputError('image needs at least one detector: --disk, --annulus, --rect, --polygon or --mask');
     const specs: DetectorSpec[] = shapes.map((shape) => ({ shape, weighted: v.weighted === true }));
@@ -121,39 +155,35 @@ export async function cmdImage(args: string[], engineOptions: (v: Record<string,
     const n = scanY * scanX;
     const all = new Float64Array(specs.length * n);
     r.images.forEach((img, k) => all.set(img, k * n));
-    const attrs: Record<string, string | number> = { detectors: JSON.stringify(specs.map(describeDetector)), bad_pixels_left_out: bad.count, non_finite_values: r.nonFinite };
+    const attrs: Record<string, string | number> = { detectors: JSON.stringify(specs.map(describeDetector)), bad_pixels_left_out: bad.count, non_finite_inputs: r.nonFinite };
     specs.forEach((s, k) => { attrs[`detector_${k}`] = describeDetector(s); });
-    await writeFloat64Results(out, { images: { data: all, shape: [specs.length, scanY, scanX], attrs } }, {
+    const written = await writeFloat64Results(out, { images: { data: all, shape: [specs.length, scanY, scanX], attrs } }, {
       source_path: r.descriptor.path, source_dataset: r.descriptor.datasetPath ?? '', source_fingerprint: r.descriptor.fingerprint, producer: 'scanfold image',
     });
-    if (!quiet) process.stderr.write(`wrote ${out}: ${specs.length} image(s) ${scanY}×${scanX}${bad.count ? `, ${bad.count} bad detector pixel(s) left out` : ''}\n`);
-  });
+    noteNonFiniteResults(written);
+    if (!quiet) process.stderr.write(`wrote ${written.path}: ${specs.length} image(s) ${scanY}×${scanX}${bad.count ? `, ${bad.count} bad detector pixel(s) left out` : ''}\n`);
+  }, out);
 }
 
 export async function cmdCom(args: string[], engineOptions: (v: Record<string, unknown>) => EngineOptions, engineFlags: Record<string, { type: 'string' | 'boolean' }>): Promise<void> {
-  const parsed = parseArgs({
-    args, allowPositionals: true, strict: true,
-    options: {
+  const parsed = parseFlags(args, {
       ...SOURCE_OPTIONS, ...engineFlags, out: { type: 'string' }, 'mask-disk': { type: 'string' }, threshold: { type: 'string' },
       descan: { type: 'string' }, 'descan-region': { type: 'string' }, rotation: { type: 'string' }, flip: { type: 'string' }, 'bad-pixels': { type: 'string' },
       'mrad-per-pixel': { type: 'string' }, 'energy-kev': { type: 'string' }, 'scan-step-nm': { type: 'string' },
-    },
-  });
+    });
   const v = parsed.values as Flags;
   rejectExtraPositionals(parsed.positionals, 'com');
   const spec = sourceSpecFromFlags(parsed.positionals[0], v as Record<string, unknown>);
-  const out = resolveOut(v.out, spec.path, 'com');
+  const out = outputFlag(v.out, 'com', [spec.path]);
   const quiet = v.quiet === true;
-  const threshold = v.threshold === undefined ? 0 : Number(v.threshold);
-  if (!Number.isFinite(threshold)) throw new InputError(`--threshold ${v.threshold}: expected a number`);
+  const threshold = typeof v.threshold === 'string' ? decimalNumber('threshold', v.threshold) : 0;
   const descanName = typeof v.descan === 'string' ? v.descan : (typeof v['descan-region'] === 'string' ? 'reference' : 'none');
   if (!['none', 'mean', 'plane', 'reference'].includes(descanName)) throw new InputError(`--descan ${descanName}: expected none, mean, plane or reference`);
   if ((descanName === 'reference') !== (typeof v['descan-region'] === 'string')) {
     throw new InputError('--descan reference needs --descan-region X0,Y0,X1,Y1 (scan positions of a reference area such as vacuum), and that flag needs --descan reference');
   }
   const rotationArg = typeof v.rotation === 'string' ? v.rotation : 'auto';
-  const rotationGiven = rotationArg === 'auto' ? null : Number(rotationArg);
-  if (rotationGiven !== null && !Number.isFinite(rotationGiven)) throw new InputError(`--rotation ${rotationArg}: expected auto or a number of degrees`);
+  const rotationGiven = rotationArg === 'auto' ? null : decimalNumber('rotation', rotationArg, 'auto or a number of degrees');
   const flipArg = typeof v.flip === 'string' ? v.flip : 'auto';
   if (!['auto', 'yes', 'no'].includes(flipArg)) throw new InputError(`--flip ${flipArg}: expected auto, yes or no`);
   if ((rotationGiven === null) !== (flipArg === 'auto')) {
@@ -164,13 +194,13 @@ export async function cmdCom(args: string[], engineOptions: (v: Record<string, u
   if (cal.some((x) => x !== undefined) && cal.some((x) => x === undefined)) {
     throw new InputError('--mrad-per-pixel, --energy-kev and --scan-step-nm go together (they put the COM in mrad and the phase in radians)');
   }
+  const descanRect = typeof v['descan-region'] === 'string' ? rectangleFlag('descan-region', v['descan-region']) : null;
   await withEngine(engineOptions(v as Record<string, unknown>), async (engine) => {
-    const { detY, detX, scanY, scanX } = (await engine.describe(spec)).shape;
+    const { detY, detX, scanY, scanX } = (await describeProtected(engine, spec, out)).shape;
     // Everything the user typed is checked before any pass over the data.
     let mode: DescanMode;
-    if (descanName === 'reference') {
-      const [x0, y0, x1, y1] = numbers('descan-region', v['descan-region'] as string, 4);
-      mode = { kind: 'reference', mask: compileRegion({ kind: 'rectangle', x0, y0, x1, y1 }, scanY, scanX) };
+    if (descanRect) {
+      mode = { kind: 'reference', mask: compileRegion({ kind: 'rectangle', ...descanRect }, scanY, scanX) };
     } else {
       mode = { kind: descanName as 'none' | 'mean' | 'plane' };
     }
@@ -183,8 +213,12 @@ export async function cmdCom(args: string[], engineOptions: (v: Record<string, u
     const bad = await badPixelMask(engine, spec, typeof v['bad-pixels'] === 'string' ? v['bad-pixels'] : 'auto', quiet);
     // Bad pixels leave the COM through the mask; with no mask given the mask is the whole detector.
     const wantsMask = maskSpec !== null || bad.count > 0;
+    const file = bad.summary?.descriptor.path ?? spec.path;
+    if (maskSpec === null && bad.count >= detY * detX) {
+      throw new InputError(`${file}: every detector pixel was flagged as hot, dead or non-finite on the mean/max pattern, so no centre of mass can be computed; expected patterns with counts (or try --bad-pixels none)`);
+    }
     const mask = wantsMask
-      ? compileDetector(maskSpec ?? { shape: { kind: 'rectangle', x0: 0, y0: 0, x1: detX - 1, y1: detY - 1 } }, detY, detX, { excludePixels: bad.mask })
+      ? aboutFile(file, () => compileDetector(maskSpec ?? { shape: { kind: 'rectangle', x0: 0, y0: 0, x1: detX - 1, y1: detY - 1 } }, detY, detX, { excludePixels: bad.mask }))
       : null;
     const sums = await runJob(engine.comSums(spec, { mask, threshold }), 'centre of mass', quiet);
     const n = scanY * scanX;
@@ -196,11 +230,14 @@ export async function cmdCom(args: string[], engineOptions: (v: Record<string, u
       comX[i] = sums.sumX[i] / t;
       comY[i] = sums.sumY[i] / t;
     }
-    const d = descan(comX, comY, scanY, scanX, mode);
+    if (zeroTotal === n) {
+      throw new InputError(`${sums.descriptor.path}: every pattern has zero total intensity${maskSpec || threshold ? ' inside the COM mask above the threshold' : ''}, so no centre of mass can be computed; expected patterns with counts`);
+    }
+    const d = aboutFile(sums.descriptor.path, () => descan(comX, comY, scanY, scanX, mode));
     let degrees: number, flip: boolean, estimate: ReturnType<typeof estimateRotation> | null = null;
     if (rotationGiven === null) {
       // A reference region given for the descan is vacuum, which also settles the 180° ambiguity.
-      estimate = estimateRotation(d.comX, d.comY, scanY, scanX, mode.kind === 'reference' ? { vacuumMask: mode.mask } : {});
+      estimate = aboutFile(sums.descriptor.path, () => estimateRotation(d.comX, d.comY, scanY, scanX, mode.kind === 'reference' ? { vacuumMask: mode.mask } : {}));
       degrees = estimate.degrees; flip = estimate.flip;
       if (estimate.curlRelative > 0.5 && !quiet) {
         process.stderr.write(`note: the COM field has about as much curl at every angle (relative curl ${estimate.curlRelative.toFixed(2)}), ` +
@@ -225,7 +262,7 @@ export async function cmdCom(args: string[], engineOptions: (v: Record<string, u
     };
     const rootAttrs: Record<string, string | number> = {
       rotation_degrees: degrees, flip: flip ? 'yes' : 'no', rotation_source: estimate ? 'estimated (least curl)' : 'given',
-      descan: descanName, threshold, zero_total_patterns: zeroTotal, bad_pixels_left_out: bad.count, non_finite_values: sums.nonFinite,
+      descan: descanName, threshold, zero_total_patterns: zeroTotal, bad_pixels_left_out: bad.count, non_finite_inputs: sums.nonFinite,
       com_mask: maskSpec ? describeDetector(maskSpec) : 'whole pattern',
       source_path: sums.descriptor.path, source_dataset: sums.descriptor.datasetPath ?? '', source_fingerprint: sums.descriptor.fingerprint, producer: 'scanfold com',
     };
@@ -245,22 +282,20 @@ export async function cmdCom(args: string[], engineOptions: (v: Record<string, u
       arrays.phase_radians = { data: phase.phase.map((x) => x * toRad), shape, attrs: { units: 'radians (weak-phase approximation)', radians_per_phase_unit: toRad } };
       Object.assign(rootAttrs, { mrad_per_pixel: mradPerPx, energy_kev: kev, wavelength_pm: lambdaNm * 1000, scan_step_nm: stepNm });
     }
-    await writeFloat64Results(out, arrays, rootAttrs);
+    const written = await writeFloat64Results(out, arrays, rootAttrs);
+    noteNonFiniteResults(written, zeroTotal ? `; ${zeroTotal} pattern(s) with zero total have no centre of mass (NaN by design)` : '');
     if (!quiet) {
-      process.stderr.write(`wrote ${out}: rotation ${degrees.toFixed(2)}°, flip ${flip ? 'yes' : 'no'}${estimate ? ` (estimated; relative curl ${estimate.curlRelative.toFixed(3)}; 180° away: ${estimate.alternativeDegrees.toFixed(2)}°)` : ''}` +
+      process.stderr.write(`wrote ${written.path}: rotation ${degrees.toFixed(2)}°, flip ${flip ? 'yes' : 'no'}${estimate ? ` (estimated; relative curl ${estimate.curlRelative.toFixed(3)}; 180° away: ${estimate.alternativeDegrees.toFixed(2)}°)` : ''}` +
         `${zeroTotal ? `; ${zeroTotal} pattern(s) with zero total → NaN` : ''}\n`);
     }
-  });
+  }, out);
 }
 
 export async function cmdCalibrate(args: string[], engineOptions: (v: Record<string, unknown>) => EngineOptions, engineFlags: Record<string, { type: 'string' | 'boolean' }>): Promise<void> {
-  const parsed = parseArgs({
-    args, allowPositionals: true, strict: true,
-    options: {
+  const parsed = parseFlags(args, {
       ...SOURCE_OPTIONS, ...engineFlags, 'energy-kev': { type: 'string' }, 'convergence-mrad': { type: 'string' },
       'lattice-spacing-angstrom': { type: 'string' }, 'bragg-distance-px': { type: 'string' }, 'scan-step-nm': { type: 'string' },
-    },
-  });
+    });
   const v = parsed.values as Flags;
   const spec = sourceSpecFromFlags(parsed.positionals[0], v as Record<string, unknown>);
   const energy = positive('energy-kev', v['energy-kev'] as string | undefined);
@@ -275,11 +310,13 @@ export async function cmdCalibrate(args: string[], engineOptions: (v: Record<str
   await withEngine(engineOptions(v as Record<string, unknown>), async (engine) => {
     const s = await runJob(engine.firstPass(spec), 'first pass', v.quiet === true);
     const { detY, detX, scanY, scanX } = s.descriptor.shape;
-    const bad = findBadPixels(s.meanPattern, s.maxPattern, detY, detX, { patternCount: scanY * scanX });
-    const mean = replaceBadPixels(s.meanPattern, detY, detX, bad.mask);
-    const disk = findBrightFieldDisk(mean, detY, detX, { excludePixels: bad.mask });
-    let braggPx: number | undefined;
-    if (d !== undefined) braggPx = braggGiven ?? strongestRing(mean, detY, detX, disk.cx, disk.cy, disk.r * 1.5, bad.mask).radius;
+    const { bad, disk, braggPx } = aboutFile(s.descriptor.path, () => {
+      const bad = findBadPixels(s.meanPattern, s.maxPattern, detY, detX, { patternCount: scanY * scanX });
+      const mean = replaceBadPixels(s.meanPattern, detY, detX, bad.mask);
+      const disk = findBrightFieldDisk(mean, detY, detX, { excludePixels: bad.mask });
+      const braggPx = d === undefined ? undefined : braggGiven ?? strongestRing(mean, detY, detX, disk.cx, disk.cy, disk.r * 1.5, bad.mask).radius;
+      return { bad, mean, disk, braggPx };
+    });
     const cal = calibrate(alpha !== undefined
       ? { source: 'convergence-angle', energyKeV: energy, convergenceSemiAngleMrad: alpha, diskRadiusPx: disk.r, scanStepNm: scanStep }
       : { source: 'lattice-spacing', energyKeV: energy, latticeSpacingAngstrom: d!, braggDistancePx: braggPx!, scanStepNm: scanStep });
@@ -305,22 +342,19 @@ export const REGION_HELP = `  scanfold pattern FILE [source flags] (--region-rec
       the scan (scan positions; x column, y row)`;
 
 export async function cmdPattern(args: string[], engineOptions: (v: Record<string, unknown>) => EngineOptions, engineFlags: Record<string, { type: 'string' | 'boolean' }>): Promise<void> {
-  const parsed = parseArgs({
-    args, allowPositionals: true, strict: true,
-    options: { ...SOURCE_OPTIONS, ...engineFlags, out: { type: 'string' }, 'region-rect': { type: 'string' }, 'region-polygon': { type: 'string' }, 'region-mask': { type: 'string' } },
-  });
+  const parsed = parseFlags(args, { ...SOURCE_OPTIONS, ...engineFlags, out: { type: 'string' }, 'region-rect': { type: 'string' }, 'region-polygon': { type: 'string' }, 'region-mask': { type: 'string' } });
   const v = parsed.values as Flags;
   rejectExtraPositionals(parsed.positionals, 'pattern');
   const spec = sourceSpecFromFlags(parsed.positionals[0], v as Record<string, unknown>);
-  const out = resolveOut(v.out, spec.path, 'pattern');
   const given = ['region-rect', 'region-polygon', 'region-mask'].filter((k) => typeof v[k] === 'string');
   if (given.length !== 1) throw new InputError('pattern needs exactly one of --region-rect, --region-polygon or --region-mask');
+  const rect = typeof v['region-rect'] === 'string' ? rectangleFlag('region-rect', v['region-rect']) : null;
+  const out = outputFlag(v.out, 'pattern', [spec.path, ...flagFiles(v, 'region-mask')]);
   await withEngine(engineOptions(v as Record<string, unknown>), async (engine) => {
-    const { detY, detX, scanY, scanX } = (await engine.describe(spec)).shape;
+    const { detY, detX, scanY, scanX } = (await describeProtected(engine, spec, out)).shape;
     let shape: RegionShape;
-    if (typeof v['region-rect'] === 'string') {
-      const [x0, y0, x1, y1] = numbers('region-rect', v['region-rect'], 4);
-      shape = { kind: 'rectangle', x0, y0, x1, y1 };
+    if (rect) {
+      shape = { kind: 'rectangle', ...rect };
     } else if (typeof v['region-polygon'] === 'string') {
       shape = { kind: 'polygon', points: v['region-polygon'].trim().split(/\s+/).map((p) => numbers('region-polygon', p, 2) as [number, number]) };
     } else {
@@ -329,13 +363,14 @@ export async function cmdPattern(args: string[], engineOptions: (v: Record<strin
     }
     const region = compileRegion(shape, scanY, scanX);
     const r = await runJob(engine.regionPattern(spec, region), 'region pattern', v.quiet === true);
-    await writeFloat64Results(out, {
+    const written = await writeFloat64Results(out, {
       mean_pattern: { data: r.mean, shape: [detY, detX] },
       max_pattern: { data: r.max, shape: [detY, detX] },
     }, {
-      region: describeRegion(shape), positions: r.count, non_finite_values: r.nonFinite,
+      region: describeRegion(shape), positions: r.count, non_finite_inputs: r.nonFinite,
       source_path: r.descriptor.path, source_dataset: r.descriptor.datasetPath ?? '', source_fingerprint: r.descriptor.fingerprint, producer: 'scanfold pattern',
     });
-    if (v.quiet !== true) process.stderr.write(`wrote ${out}: mean and max pattern over ${r.count} probe position(s)\n`);
-  });
+    noteNonFiniteResults(written);
+    if (v.quiet !== true) process.stderr.write(`wrote ${written.path}: mean and max pattern over ${r.count} probe position(s)\n`);
+  }, out);
 }

@@ -1,20 +1,20 @@
 // `scanfold` command line: the same engine as the application, no window.
 import fs from 'node:fs';
 import path from 'node:path';
-import { parseArgs } from 'node:util';
-import { isInputError, InputError, CancelledError } from '../../src-shared/model/errors';
+import { isInputError, isOutputError, InputError, CancelledError } from '../../src-shared/model/errors';
 import { Engine, type EngineOptions } from '../engine/engine';
 import { parseBytes, fmtBytes } from '../engine/budget';
-import { writeFloat64Results } from '../io/write-results';
+import { writeFloat64Results, type WrittenResults } from '../io/write-results';
+import { OutputFile } from '../io/output-file';
 import type { FirstPassSummary } from '../engine/first-pass';
-import { rejectExtraPositionals, resolveOut, SOURCE_HELP, SOURCE_OPTIONS, sourceSpecFromFlags } from './source-flags';
+import { outputFlag, parseFlags, rejectExtraPositionals, SOURCE_HELP, SOURCE_OPTIONS, sourceSpecFromFlags, wholeNumber } from './source-flags';
 import { runJobWithProgress } from './progress';
 import { writeSample, SAMPLE_SIZES } from '../../samples/write-sample';
 import { runBenchmark } from '../engine/first-pass.bench';
 import { projectRoot } from '../engine/paths';
 import { findBadPixels, replaceBadPixels } from '../../src-shared/compute/bad-pixels';
 import { findBrightFieldDisk } from '../../src-shared/compute/bright-field-disk';
-import { ANALYSIS_HELP, REGION_HELP, cmdCalibrate, cmdCom, cmdImage, cmdPattern } from './analysis-commands';
+import { ANALYSIS_HELP, REGION_HELP, cmdCalibrate, cmdCom, cmdImage, cmdPattern, noteNonFiniteResults } from './analysis-commands';
 
 const HELP = `scanfold — exploratory analysis of 4D-STEM datasets far larger than memory
 
@@ -54,11 +54,7 @@ const ENGINE_OPTIONS = {
 
 function engineOptions(v: Record<string, unknown>): EngineOptions {
   const o: EngineOptions = {};
-  if (typeof v.workers === 'string') {
-    const n = Number(v.workers);
-    if (!Number.isInteger(n) || n < 1 || n > 256) throw new InputError(`--workers ${v.workers}: expected a whole number from 1 to 256`);
-    o.workers = n;
-  }
+  if (typeof v.workers === 'string') o.workers = wholeNumber('workers', v.workers, 1, 'a whole number ≥ 1');
   if (typeof v.budget === 'string') o.budgetBytes = parseBytes(v.budget);
   if (typeof v['preview-budget'] === 'string') o.previewBudgetBytes = parseBytes(v['preview-budget']);
   if (typeof v.kernel === 'string') {
@@ -71,12 +67,8 @@ function engineOptions(v: Record<string, unknown>): EngineOptions {
 type Flags = Record<string, string | boolean | undefined>;
 
 function parse(args: string[], options: Record<string, { type: 'string' | 'boolean' }>): { values: Flags; positionals: string[] } {
-  try {
-    const r = parseArgs({ args, options: { ...options, help: { type: 'boolean', short: 'h' } }, allowPositionals: true, strict: true });
-    return { values: r.values as Flags, positionals: r.positionals };
-  } catch (e) {
-    throw new InputError(`${(e as Error).message}\nrun \`scanfold --help\` for usage`);
-  }
+  const r = parseFlags(args, options);
+  return { values: r.values as Flags, positionals: r.positionals };
 }
 
 async function cmdInfo(args: string[]) {
@@ -89,9 +81,12 @@ async function cmdInfo(args: string[]) {
   process.stdout.write(JSON.stringify(out, null, 2) + '\n');
 }
 
-async function runSummary(spec: ReturnType<typeof sourceSpecFromFlags>, values: Record<string, unknown>, quiet: boolean) {
+async function runSummary(spec: ReturnType<typeof sourceSpecFromFlags>, values: Record<string, unknown>, quiet: boolean, out: OutputFile) {
   const engine = new Engine(engineOptions(values));
+  for (const note of engine.notes) process.stderr.write(`note: ${note}\n`);
   try {
+    // Every file the data comes from is known before the pass, and protected from --out.
+    out.protect((await engine.describe(spec)).sourceFiles);
     return await runJobWithProgress(engine.firstPass(spec), 'first pass', quiet);
   } finally {
     await engine.close();
@@ -99,9 +94,9 @@ async function runSummary(spec: ReturnType<typeof sourceSpecFromFlags>, values: 
 }
 
 /** The first pass's results as float64 datasets, with where they came from. */
-async function writeSummary(out: string, r: FirstPassSummary, producer: string): Promise<void> {
+async function writeSummary(out: OutputFile, r: FirstPassSummary, producer: string): Promise<WrittenResults> {
   const { scanY, scanX, detY, detX } = r.descriptor.shape;
-  await writeFloat64Results(out, {
+  return writeFloat64Results(out, {
     mean_pattern: { data: r.meanPattern, shape: [detY, detX] },
     max_pattern: { data: r.maxPattern, shape: [detY, detX] },
     total_intensity: { data: r.totalIntensity, shape: [scanY, scanX] },
@@ -109,7 +104,7 @@ async function writeSummary(out: string, r: FirstPassSummary, producer: string):
     source_path: r.descriptor.path,
     source_dataset: r.descriptor.datasetPath ?? '',
     source_fingerprint: r.descriptor.fingerprint,
-    non_finite_values: r.nonFinite,
+    non_finite_inputs: r.nonFinite,
     producer,
   });
 }
@@ -118,12 +113,18 @@ async function cmdSummary(args: string[]) {
   const { values, positionals } = parse(args, { ...SOURCE_OPTIONS, ...ENGINE_OPTIONS, out: { type: 'string' } });
   rejectExtraPositionals(positionals, 'summary');
   const spec = sourceSpecFromFlags(positionals[0], values);
-  const out = resolveOut(values.out, spec.path, 'summary');
-  const r = await runSummary(spec, values, values.quiet === true);
-  await writeSummary(out, r, 'scanfold summary');
-  if (r.nonFinite > 0) process.stderr.write(`note: ${r.nonFinite} NaN/Inf values were left out of the sums and maxima\n`);
+  const out = outputFlag(values.out, 'summary', [spec.path]);
+  let r: FirstPassSummary, written: WrittenResults;
+  try {
+    r = await runSummary(spec, values, values.quiet === true, out);
+    written = await writeSummary(out, r, 'scanfold summary');
+  } finally {
+    out.discard();
+  }
+  if (r.nonFinite > 0) process.stderr.write(`note: ${r.nonFinite} NaN/Inf input values were left out of the sums and maxima\n`);
+  noteNonFiniteResults(written);
   if (values.quiet !== true) {
-    process.stderr.write(`wrote ${out} (${fmtBytes(r.descriptor.byteSize)} in ${r.seconds.toFixed(2)} s, ` +
+    process.stderr.write(`wrote ${written.path} (${fmtBytes(r.descriptor.byteSize)} in ${r.seconds.toFixed(2)} s, ` +
       `${(r.descriptor.byteSize / r.seconds / 1e9).toFixed(2)} GB/s)\n`);
   }
 }
@@ -133,10 +134,8 @@ async function cmdSample(args: string[]) {
   const size = typeof values.size === 'string' ? values.size : 'demo';
   if (!(size in SAMPLE_SIZES)) throw new InputError(`--size ${size}: expected one of ${Object.keys(SAMPLE_SIZES).join(', ')}`);
   if (typeof values.out !== 'string') throw new InputError('sample needs --out FILE.h5');
-  const seed = values.seed === undefined ? undefined : Number(values.seed);
-  if (seed !== undefined && !Number.isSafeInteger(seed)) throw new InputError(`--seed ${values.seed}: expected a whole number`);
-  const out = path.resolve(values.out);
-  if (!fs.existsSync(path.dirname(out))) throw new InputError(`--out ${out}: the folder ${path.dirname(out)} does not exist`);
+  const seed = typeof values.seed === 'string' ? wholeNumber('seed', values.seed) : undefined;
+  const out = values.out;
   let lastDecile = -1;
   const r = await writeSample({
     size: size as keyof typeof SAMPLE_SIZES, out, seed,
@@ -158,10 +157,15 @@ async function cmdDemo(args: string[]) {
     await writeSample({ size: 'demo', out: file });
   }
   const spec = { path: file, datasetPath: '/scan/frames' };
-  const r = await runSummary(spec, values, values.quiet === true);
-  const out = path.join(dir, 'demo-summary.h5');
+  const out = OutputFile.create(path.join(dir, 'demo-summary.h5'), { flag: 'demo summary', protect: [file] });
+  let r: FirstPassSummary;
+  try {
+    r = await runSummary(spec, values, values.quiet === true, out);
+    await writeSummary(out, r, 'scanfold demo');
+  } finally {
+    out.discard();
+  }
   const { scanY, scanX, detY, detX } = r.descriptor.shape;
-  await writeSummary(out, r, 'scanfold demo');
   let tmin = Infinity, tmax = -Infinity;
   for (const v of r.totalIntensity) { if (v < tmin) tmin = v; if (v > tmax) tmax = v; }
   const bad = findBadPixels(r.meanPattern, r.maxPattern, detY, detX, { patternCount: scanY * scanX });
@@ -175,7 +179,7 @@ async function cmdDemo(args: string[]) {
     brightFieldDisk: { x: Number(disk.cx.toFixed(2)), y: Number(disk.cy.toFixed(2)), radiusPx: Number(disk.r.toFixed(2)) },
     badDetectorPixels: { hot: bad.hot, dead: bad.dead },
     previewCube: { shape: [r.preview.qY, r.preview.qX, r.preview.pY, r.preview.pX], detBin: r.preview.detBin, scanBin: r.preview.scanBin },
-    summaryFile: out,
+    summaryFile: out.path,
     next: `try: npx scanfold image ${file} --dataset /scan/frames --annulus ${disk.cx.toFixed(1)},${disk.cy.toFixed(1)},${Math.ceil(disk.r + 2)},40 --out ${path.join(dir, 'adf.h5')}`,
     note: 'results are exploratory; validate quantitative claims yourself',
   }, null, 2) + '\n');
@@ -224,6 +228,10 @@ export async function main(argv: string[]): Promise<number> {
       process.stderr.write(`scanfold: ${e.message}\n`);
       return 2;
     }
+    if (isOutputError(e)) {
+      process.stderr.write(`scanfold: ${e.message}\n`);
+      return 1;
+    }
     if (e instanceof CancelledError) {
       process.stderr.write(`scanfold: ${e.message}\n`);
       return 130;
@@ -231,6 +239,11 @@ export async function main(argv: string[]): Promise<number> {
     process.stderr.write(`scanfold: ${(e as Error)?.stack ?? String(e)}\n`);
     return 1;
   }
+}
+
+// A signal that ends the process still runs the 'exit' handlers, which remove temporary files.
+for (const [signal, code] of [['SIGTERM', 143], ['SIGHUP', 129]] as const) {
+  process.on(signal, () => process.exit(code));
 }
 
 main(process.argv.slice(2)).then((code) => {

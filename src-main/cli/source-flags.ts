@@ -1,5 +1,6 @@
-import fs from 'node:fs';
 import path from 'node:path';
+import { parseArgs } from 'node:util';
+import { OutputFile } from '../io/output-file';
 import type { SourceSpec } from '../../src-shared/model/dataset';
 import { isDType, DTYPES } from '../../src-shared/model/dtype';
 import { InputError } from '../../src-shared/model/errors';
@@ -23,18 +24,75 @@ export const SOURCE_HELP = `source flags:
   --byte-order little|big raw binary: byte order (default little)
   --offset BYTES          raw binary: header bytes to skip (default 0)`;
 
-/** `count` comma-separated numbers of a flag: any finite numbers, or positive whole ones. */
+const DECIMAL = /^[-+]?(\d+(\.\d*)?|\.\d+)([eE][-+]?\d+)?$/;
+const WHOLE = /^\d+$/;
+
+/** A number as people write one in decimal ("-1", "2.5", "1e-3"); hex, blanks and "Infinity" are refused. */
+export function decimalNumber(flag: string, s: string, what = 'a number'): number {
+  const t = s.trim();
+  const v = Number(t);
+  if (!DECIMAL.test(t) || !Number.isFinite(v)) throw new InputError(`--${flag} ${JSON.stringify(s)}: expected ${what}`);
+  return v;
+}
+
+/** A whole number written in plain digits, at least `min`. */
+export function wholeNumber(flag: string, s: string, min = 0, what = `a whole number ≥ ${min}`): number {
+  const t = s.trim();
+  const v = Number(t);
+  if (!WHOLE.test(t) || !Number.isSafeInteger(v) || v < min) throw new InputError(`--${flag} ${JSON.stringify(s)}: expected ${what}`);
+  return v;
+}
+
+/** `count` comma-separated numbers of a flag: any finite decimal numbers, or positive whole ones in plain digits. */
 export function numberList(flag: string, s: string, count: number, kind: 'finite' | 'positive-integer' = 'finite'): number[] {
   const parts = s.split(',').map((p) => p.trim());
-  const nums = parts.map(Number);
-  const ok = kind === 'finite' ? Number.isFinite : (n: number) => Number.isInteger(n) && n > 0;
-  if (parts.length !== count || !nums.every(ok)) {
-    throw new InputError(`--${flag} ${s}: expected ${count} ${kind === 'finite' ? 'numbers' : 'positive whole numbers'} separated by commas`);
+  const ok = kind === 'finite'
+    ? (p: string) => DECIMAL.test(p) && Number.isFinite(Number(p))
+    : (p: string) => WHOLE.test(p) && Number(p) > 0 && Number.isSafeInteger(Number(p));
+  if (parts.length !== count || !parts.every(ok)) {
+    throw new InputError(`--${flag} ${s}: expected ${count} ${kind === 'finite' ? 'decimal numbers' : 'positive whole numbers (plain digits)'} separated by commas`);
   }
-  return nums;
+  return parts.map(Number);
+}
+
+/**
+ * A rectangle flag X0,Y0,X1,Y1: the corner with the smaller coordinates first, so a typing
+ * slip (swapped corners) is caught rather than silently reordered.
+ */
+export function rectangleFlag(flag: string, s: string): { x0: number; y0: number; x1: number; y1: number } {
+  const [x0, y0, x1, y1] = numberList(flag, s, 4);
+  if (x1 < x0 || y1 < y0) {
+    throw new InputError(`--${flag} ${s}: the corners are swapped (${x1 < x0 ? `X1 ${x1} < X0 ${x0}` : `Y1 ${y1} < Y0 ${y0}`}); expected X0,Y0,X1,Y1 with X0 ≤ X1 and Y0 ≤ Y1`);
+  }
+  return { x0, y0, x1, y1 };
 }
 
 const ints = (flag: string, s: string, count: number) => numberList(flag, s, count, 'positive-integer');
+
+type OptionSpec = Record<string, { type: 'string' | 'boolean'; multiple?: boolean }>;
+
+/**
+ * Node's parseArgs with our rules: a value that starts with '-' followed by a digit or a point
+ * ("--threshold -1", "--rotation -90") is the flag's value, not a flag; malformed flags are
+ * bad input with a pointer to --help.
+ */
+export function parseFlags<O extends OptionSpec>(args: string[], options: O) {
+  const joined: string[] = [];
+  for (let i = 0; i < args.length; i++) {
+    const a = args[i];
+    const name = a.startsWith('--') && !a.includes('=') ? a.slice(2) : null;
+    const next = args[i + 1];
+    if (name !== null && options[name]?.type === 'string' && next !== undefined && /^-[\d.]/.test(next)) {
+      joined.push(`${a}=${next}`);
+      i++;
+    } else joined.push(a);
+  }
+  try {
+    return parseArgs({ args: joined, options: { ...options, help: { type: 'boolean', short: 'h' } }, allowPositionals: true, strict: true, tokens: true });
+  } catch (e) {
+    throw new InputError(`${(e as Error).message}\nrun \`scanfold --help\` for usage`);
+  }
+}
 
 export function sourceSpecFromFlags(file: string | undefined, v: Record<string, unknown>): SourceSpec {
   if (!file) throw new InputError('no input file given');
@@ -62,9 +120,7 @@ export function sourceSpecFromFlags(file: string | undefined, v: Record<string, 
     if (!isDType(dtype)) throw new InputError(`--dtype ${dtype}: unknown dtype; expected one of ${DTYPES.join(', ')}`, 'bad-dtype');
     const byteOrder = typeof v['byte-order'] === 'string' ? v['byte-order'] : 'little';
     if (byteOrder !== 'little' && byteOrder !== 'big') throw new InputError(`--byte-order ${byteOrder}: expected little or big`);
-    const offStr = typeof v.offset === 'string' ? v.offset : '0';
-    const offset = Number(offStr);
-    if (!Number.isSafeInteger(offset) || offset < 0) throw new InputError(`--offset ${offStr}: expected a whole number of bytes ≥ 0`);
+    const offset = typeof v.offset === 'string' ? wholeNumber('offset', v.offset, 0, 'a whole number of bytes ≥ 0 (plain digits)') : 0;
     spec.format = 'raw';
     spec.raw = { shape: { scanY, scanX, detY, detX }, dtype, byteOrder, offset };
   } else if (v.dtype !== undefined || v['byte-order'] !== undefined || v.offset !== undefined) {
@@ -73,24 +129,10 @@ export function sourceSpecFromFlags(file: string | undefined, v: Record<string, 
   return spec;
 }
 
-/**
- * The --out file of a command: its folder must exist, it must not be a folder, and it must not
- * be the input itself (writing the results would destroy the dataset).
- */
-export function resolveOut(out: unknown, input: string, usage: string): string {
+/** The --out file of a command, checked and with its temporary file created before any work. */
+export function outputFlag(out: unknown, usage: string, protect: readonly string[]): OutputFile {
   if (typeof out !== 'string') throw new InputError(`${usage} needs --out OUT.h5`);
-  const file = path.resolve(out);
-  const dir = path.dirname(file);
-  if (!fs.existsSync(dir) || !fs.statSync(dir).isDirectory()) throw new InputError(`--out ${file}: the folder ${dir} does not exist`);
-  if (fs.existsSync(file)) {
-    const st = fs.statSync(file);
-    if (st.isDirectory()) throw new InputError(`--out ${file}: is a folder; expected a file name such as results.h5`);
-    if (fs.existsSync(input)) {
-      const inp = fs.statSync(input);
-      if (inp.dev === st.dev && inp.ino === st.ino) throw new InputError(`--out ${file}: is the input file itself; writing results there would destroy the dataset`);
-    }
-  }
-  return file;
+  return OutputFile.create(out, { flag: '--out', protect });
 }
 
 /** Refuse what the command would otherwise ignore. */

@@ -53,8 +53,8 @@ function detectorBytes(detectors: CompiledDetector[]): number {
 
 /** Open the source on a worker, then plan tiles with `reserved` bytes set aside for results. */
 async function prepare(pool: WorkerPool, spec: SourceSpec, limits: EngineLimits, reserved: (d: DatasetDescriptor) => number) {
-  const { descriptor: d, rowAlignment } = await pool.run((w) => w.open(spec));
-  return { d, plan: planTiles(d, rowAlignment, limits, reserved(d)) };
+  const { descriptor: d, rowAlignment, memory } = await pool.run((w) => w.open(spec));
+  return { d, plan: planTiles(d, { rowAlignment, memory }, limits, reserved(d)) };
 }
 
 function checkDetectorGeometry(d: DatasetDescriptor, detectors: { detY: number; detX: number; label: string }[]) {

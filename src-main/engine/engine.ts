@@ -1,7 +1,6 @@
-import os from 'node:os';
 import type { DatasetDescriptor, SourceSpec } from '../../src-shared/model/dataset';
 import type { JobInfo } from '../../src-shared/contract/jobs';
-import { DEFAULT_BUDGET, DEFAULT_PREVIEW_BUDGET, type EngineLimits } from './budget';
+import { resolveEngineLimits, type EngineLimits } from './budget';
 import { PreviewPool, startFirstPass, type FirstPassSummary } from './first-pass';
 import { startComSums, startRegionPattern, startVirtualImages, type ComSumsResult, type RegionPatternResult, type VirtualImagesResult } from './analyses';
 import type { CompiledDetector } from '../../src-shared/model/detectors';
@@ -27,6 +26,8 @@ export class Engine {
   readonly pool: WorkerPool;
   readonly limits: EngineLimits;
   readonly kernel: KernelKind;
+  /** What the engine changed from what was asked (e.g. workers capped), for the user to see. */
+  readonly notes: string[];
   /** Running jobs; finished ones are kept only as their final JobInfo, not with their results. */
   // eslint-disable-next-line @typescript-eslint/no-explicit-any
   private readonly running = new Set<Job<any>>();
@@ -34,14 +35,11 @@ export class Engine {
   private readonly previews = new PreviewPool();
 
   constructor(options: EngineOptions = {}) {
-    const workers = options.workers ?? os.availableParallelism();
-    this.limits = {
-      workers,
-      budgetBytes: options.budgetBytes ?? DEFAULT_BUDGET,
-      previewBudgetBytes: options.previewBudgetBytes ?? DEFAULT_PREVIEW_BUDGET,
-    };
+    const { limits, notes } = resolveEngineLimits(options);
+    this.limits = limits;
+    this.notes = notes;
     this.kernel = options.kernel ?? 'wasm';
-    this.pool = new WorkerPool({ size: workers });
+    this.pool = new WorkerPool({ size: limits.workers });
   }
 
   /** Describe a source (or list an HDF5 file's datasets) without reading its data. */

@@ -74,9 +74,9 @@ export function startFirstPass(pool: WorkerPool, spec: SourceSpec, limits: Engin
   const job = new Job<FirstPassSummary>('first-pass', `first pass over ${spec.path}`, 0);
   (async () => {
     const t0 = performance.now();
-    const { descriptor: d, rowAlignment } = await pool.run((w) => w.open(spec));
+    const { descriptor: d, rowAlignment, memory } = await pool.run((w) => w.open(spec));
     if (job.cancelled) return;
-    const plan = planFirstPass(d, rowAlignment, limits);
+    const plan = planFirstPass(d, { rowAlignment, memory }, limits);
     job.bytesTotal = d.byteSize;
     const { scanY, scanX, detY, detX } = d.shape;
     const pixels = detY * detX;

@@ -1,72 +1,13 @@
 import * as fs from 'node:fs';
 import type { DatasetDescriptor, Shape4D, SourceFormat } from '../../src-shared/model/dataset';
 import { byteSwapInPlace, DTYPE_BYTES, type ByteOrder, type DType, type NumericArray } from '../../src-shared/model/dtype';
-import { InputError } from '../../src-shared/model/errors';
 import { fingerprint, sampleOffsets } from './fingerprint';
 import { checkRowRequest, type TileSource } from './tile-source';
 
-/** readSync takes at most ~2 GiB per call; 1 GiB pieces stay well inside that on every platform. */
-export const MAX_READ_PIECE = 2 ** 30;
+import { readFullyAt } from './input-file';
 
 const FINGERPRINT_BLOCK = 4096;
 const FINGERPRINT_BLOCKS = 16;
-
-export interface OpenedFile {
-  fd: number;
-  /** Absolute path. */
-  path: string;
-  size: number;
-}
-
-/**
- * Open a file for positional reads, turning the usual failures into InputErrors that name
- * the file; `expected` says what kind of file it should have been ("a .npy file").
- */
-export function openForReading(absolutePath: string, expected: string): OpenedFile {
-  let fd: number;
-  try {
-    fd = fs.openSync(absolutePath, 'r');
-  } catch (e) {
-    const code = (e as NodeJS.ErrnoException).code;
-    if (code === 'ENOENT' || code === 'ENOTDIR') {
-      throw new InputError(`${absolutePath}: file not found; expected ${expected} at this path`, 'missing-file');
-    }
-    if (code === 'EACCES' || code === 'EPERM') {
-      throw new InputError(`${absolutePath}: permission denied; expected a readable ${expected}`, 'bad-input');
-    }
-    throw new InputError(`${absolutePath}: cannot open (${code ?? String(e)}); expected ${expected}`, 'bad-input');
-  }
-  try {
-    const st = fs.fstatSync(fd);
-    if (!st.isFile()) {
-      throw new InputError(`${absolutePath}: is ${st.isDirectory() ? 'a directory' : 'not a regular file'}; expected ${expected}`, 'bad-input');
-    }
-    return { fd, path: absolutePath, size: st.size };
-  } catch (e) {
-    fs.closeSync(fd);
-    throw e;
-  }
-}
-
-/**
- * Read exactly `bytes.byteLength` bytes at `position`, in pieces of at most `maxPiece`
- * bytes, straight into `bytes` (no staging buffer). A file that ends early is an input
- * problem (it was truncated after we checked its size), so it raises a 'short-file' error.
- */
-export function readFullyAt(fd: number, bytes: Uint8Array, position: number, what: string, maxPiece = MAX_READ_PIECE): void {
-  const total = bytes.byteLength;
-  let done = 0;
-  while (done < total) {
-    const want = Math.min(maxPiece, total - done);
-    const got = fs.readSync(fd, bytes, done, want, position + done);
-    if (got === 0) {
-      throw new InputError(
-        `${what}: file ended at byte ${position + done}; expected ${total - done} more bytes there (was the file truncated while open?)`,
-        'short-file');
-    }
-    done += got;
-  }
-}
 
 /**
  * Big-endian storage → native little-endian, in place. Node's Buffer swaps are native
@@ -130,6 +71,8 @@ export function contiguousFingerprint(fd: number, input: ContiguousFingerprintIn
  */
 export class ContiguousTileSource implements TileSource {
   readonly rowAlignment = 1;
+  /** Tiles are read straight into kernel memory. */
+  readonly memory = { tileCopies: 1, fixedBytes: 0 };
   private fd: number | null;
   private readonly dataOffset: number;
   private readonly swap: boolean;

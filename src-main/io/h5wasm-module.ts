@@ -50,6 +50,54 @@ const FILTER_NAMES = new Map<number, string>([
 ]);
 
 let runtime: Promise<H5Runtime> | null = null;
+
+export interface FileOpen {
+  /** Absolute path HDF5 asked for. */
+  path: string;
+  /** The errno code when the open failed. */
+  failed?: string;
+}
+
+let openLog: FileOpen[] | null = null;
+
+/**
+ * h5wasm's Node build reads the real disk through Node's fs module, so wrapping fs.openSync
+ * shows every file HDF5 touches on our behalf: the external files that hold a dataset's raw
+ * data, the sources of a virtual dataset, and those it looked for and did not find.
+ * The wrapper only records while `withFileOpenLog` runs; otherwise it passes straight through.
+ */
+function installOpenLog(skipDir: string | null): void {
+  const original = fs.openSync;
+  const wrapped = function (this: unknown, ...args: Parameters<typeof fs.openSync>) {
+    const log = openLog;
+    const p = typeof args[0] === 'string' ? path.resolve(args[0]) : null;
+    const keep = log !== null && p !== null && !(skipDir && p.startsWith(skipDir + path.sep)) && !/\/tmpfile_\w+$/.test(p);
+    try {
+      const fd = original.apply(this, args);
+      if (keep) log.push({ path: p });
+      return fd;
+    } catch (e) {
+      if (keep) log.push({ path: p, failed: (e as NodeJS.ErrnoException).code ?? 'error' });
+      throw e;
+    }
+  };
+  (fs as { openSync: typeof fs.openSync }).openSync = wrapped as typeof fs.openSync;
+}
+
+/** Run `fn` and return, beside its result or error, every file HDF5 opened or failed to open meanwhile. */
+export function withFileOpenLog<T>(fn: () => T): { result?: T; error?: unknown; opens: FileOpen[] } {
+  const outer = openLog;
+  const log: FileOpen[] = [];
+  openLog = log;
+  try {
+    return { result: fn(), opens: log };
+  } catch (error) {
+    return { error, opens: log };
+  } finally {
+    openLog = outer;
+    outer?.push(...log);
+  }
+}
 let availableFilterIds: Set<number> | null = null;
 
 /**
@@ -85,6 +133,7 @@ async function initialise(): Promise<H5Runtime> {
     }
   }
   availableFilterIds = ids;
+  installOpenLog(pluginDir);
   return { h5wasm, Module, pluginDir };
 }
 

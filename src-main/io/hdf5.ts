@@ -4,9 +4,12 @@ import type { DatasetDescriptor, Hdf5DatasetInfo, Shape4D, SourceSpec } from '..
 import { DTYPE_BYTES, DTYPES, isDType, typedView, type ByteOrder, type DType, type NumericArray } from '../../src-shared/model/dtype';
 import { InputError } from '../../src-shared/model/errors';
 import { fingerprint } from './fingerprint';
-import { availableFilterNames, briefHdf5Error, filterName, getH5, isFilterAvailable, type H5Runtime } from './h5wasm-module';
-import { checkRowRequest, type TileSource } from './tile-source';
+import { availableFilterNames, briefHdf5Error, filterName, getH5, isFilterAvailable, withFileOpenLog, type H5Runtime } from './h5wasm-module';
+import { checkRowRequest, type ReaderMemory, type TileSource } from './tile-source';
+import { checkInputFile, errnoText } from './input-file';
+import { hdf5SignatureOffset } from './hdf5-signature';
 import { scanShapeFor3D, validateShape } from './validate';
+import { fmtBytes } from '../../src-shared/model/bytes';
 
 /**
  * Above this a tile is read in several hyperslabs: every byte of a slice passes through
@@ -16,8 +19,6 @@ export const DEFAULT_MAX_SLICE_BYTES = 512 * 2 ** 20;
 
 /** rowAlignment is capped so that one aligned group of rows still fits in one slice. */
 const MAX_ALIGNMENT_BYTES = DEFAULT_MAX_SLICE_BYTES;
-
-const HDF5_SIGNATURE = Buffer.from([0x89, 0x48, 0x44, 0x46, 0x0d, 0x0a, 0x1a, 0x0a]);
 
 export interface Hdf5ReadOptions {
   /** Largest hyperslab read in one call, in bytes; smaller values exist for tests of the splitting. */
@@ -37,6 +38,8 @@ interface DatasetFacts {
   byteOrder: ByteOrder;
   chunks: number[] | null;
   filters: H5Filter[];
+  /** For a virtual dataset: where each mapped block comes from. */
+  virtualSources: { file_name: string; dset_name: string }[];
 }
 
 /** Every numeric dataset in the file (soft and external links are not followed), with whether it can be opened. */
@@ -96,9 +99,16 @@ export async function openHdf5(spec: SourceSpec, options: Hdf5ReadOptions = {}):
       }
     }
     const byteSize = shape.scanY * shape.scanX * shape.detY * shape.detX * elementBytes;
+    const chunkWorkBytes = checkChunkSize(facts, elementBytes, what);
+    // HDF5 fills the blocks of a missing virtual source with zeros without a word: check the mapping first.
+    const sourceFiles = [file, ...checkVirtualSources(rt, file, facts.virtualSources, what, new Set([`${file}:${datasetPath}`]), 0)];
     const source = new Hdf5TileSource(rt, h5, {
       file, datasetPath, rank, shape, dtype, chunks: facts.chunks, maxSliceBytes: options.maxSliceBytes ?? DEFAULT_MAX_SLICE_BYTES,
-    });
+    }, chunkWorkBytes);
+    const sampled = withFileOpenLog(() => source.samplePatterns());
+    if (sampled.error !== undefined) throw sampled.error;
+    // Files HDF5 opened to read the samples: external raw-data files.
+    for (const o of sampled.opens) if (!o.failed && !sourceFiles.includes(o.path)) sourceFiles.push(o.path);
     const descriptor: DatasetDescriptor = {
       format: 'hdf5',
       path: file,
@@ -107,7 +117,7 @@ export async function openHdf5(spec: SourceSpec, options: Hdf5ReadOptions = {}):
       storedShape,
       dtype,
       byteSize,
-      fingerprint: fingerprint({ format: 'hdf5', datasetPath, shape: storedShape, dtype }, source.samplePatterns()),
+      fingerprint: fingerprint({ format: 'hdf5', datasetPath, shape: storedShape, dtype }, sampled.result!),
       layout: {
         kind: 'hdf5',
         rank,
@@ -122,6 +132,7 @@ export async function openHdf5(spec: SourceSpec, options: Hdf5ReadOptions = {}):
         datasetPath,
         ...(rank === 3 ? { scanShape: [shape.scanY, shape.scanX] as [number, number] } : {}),
       },
+      sourceFiles,
     };
     source.descriptor = descriptor;
     return source;
@@ -157,7 +168,11 @@ class Hdf5TileSource implements TileSource {
   private readonly patternElements: number;
   private readonly rowElements: number;
 
-  constructor(private readonly rt: H5Runtime, h5: H5File, private readonly g: SourceGeometry) {
+  /** Two copies of a tile (h5wasm's heap and kernel memory), plus h5wasm itself and room to inflate a chunk. */
+  readonly memory: ReaderMemory;
+
+  constructor(private readonly rt: H5Runtime, h5: H5File, private readonly g: SourceGeometry, chunkWorkBytes: number) {
+    this.memory = { tileCopies: 2, fixedBytes: H5WASM_BASE_BYTES + chunkWorkBytes };
     this.h5 = h5;
     this.elementBytes = DTYPE_BYTES[g.dtype];
     this.patternElements = g.shape.detY * g.shape.detX;
@@ -267,12 +282,25 @@ class Hdf5TileSource implements TileSource {
     const ptr = Module._malloc(nbytes);
     if (ptr === 0) throw new Error(`readPiece on ${this.g.file}: h5wasm could not allocate ${nbytes} bytes for a slice`);
     try {
-      try {
-        Module.get_dataset_data(h5.file_id, this.g.datasetPath, piece.count.map(BigInt), piece.offset.map(BigInt),
-          piece.count.map(() => 1n), BigInt(ptr));
-      } catch (e) {
+      const read = withFileOpenLog(() => Module.get_dataset_data(h5.file_id, this.g.datasetPath, piece.count.map(BigInt), piece.offset.map(BigInt),
+        piece.count.map(() => 1n), BigInt(ptr)));
+      if (read.error !== undefined) {
+        const what = `${this.g.file}:${this.g.datasetPath}`;
+        const missing = read.opens.find((o) => o.failed);
+        if (missing) {
+          throw new InputError(
+            `${what}: the dataset keeps its data in the external file ${missing.path}, which could not be opened (${errnoText(missing.failed)}); ` +
+            'expected that file to be present (HDF5 looks for external data files relative to the current folder)',
+            missing.failed === 'ENOENT' ? 'missing-file' : 'unreadable');
+        }
+        const text = read.error instanceof Error ? read.error.message : String(read.error);
+        if (/enlarge memory|out of memory|memory allocation failed|can't allocate|resource unavailable/i.test(text)) {
+          throw new InputError(
+            `${what}: HDF5 ran out of memory reading positions at offset (${piece.offset.join(', ')}) (${briefHdf5Error(read.error)}); ` +
+            `expected chunks that fit in the HDF5 library's ${fmtBytes(Module.MAXIMUM_MEMORY)} heap`, 'too-large');
+        }
         throw new InputError(
-          `${this.g.file}:${this.g.datasetPath}: reading positions at offset (${piece.offset.join(', ')}) failed: ${briefHdf5Error(e)}; ` +
+          `${what}: reading positions at offset (${piece.offset.join(', ')}) failed: ${briefHdf5Error(read.error)}; ` +
           'expected an intact HDF5 file (was it truncated or changed while open?)',
           'bad-input');
       }
@@ -282,6 +310,82 @@ class Hdf5TileSource implements TileSource {
       Module._free(ptr);
     }
   }
+}
+
+/**
+ * What a worker's h5wasm costs before any tile: the module and its initial heap (measured here:
+ * about 33 MiB per reading HDF5 worker against 9 MiB for a raw or .npy one).
+ */
+export const H5WASM_BASE_BYTES = 24 * 2 ** 20;
+
+/** Largest chunk HDF5 can inflate whole inside h5wasm's 2 GiB heap, with room for the tile and the compressed chunk. */
+export const MAX_FILTERED_CHUNK_BYTES = 768 * 2 ** 20;
+
+/**
+ * Memory HDF5 needs to decompress one chunk (the inflated chunk and the filter's growing output
+ * buffer), or 0 for unfiltered data, which HDF5 reads straight into the selection. A chunk that
+ * cannot fit in h5wasm's heap at all is refused here, before any read, rather than failing
+ * with an allocation error halfway through a pass.
+ */
+function checkChunkSize(facts: DatasetFacts, elementBytes: number, what: string): number {
+  if (!facts.chunks || facts.filters.length === 0) return 0;
+  const chunkBytes = facts.chunks.reduce((a, b) => a * b, 1) * elementBytes;
+  if (chunkBytes > MAX_FILTERED_CHUNK_BYTES) {
+    throw new InputError(
+      `${what}: each compressed chunk (${facts.chunks.join('×')} elements) inflates to ${fmtBytes(chunkBytes)}, which HDF5 must hold whole in memory, ` +
+      `more than the ${fmtBytes(MAX_FILTERED_CHUNK_BYTES)} this build's HDF5 library can decompress at once; ` +
+      'expected smaller chunks (rewrite the file with chunks of a few scan rows, e.g. with h5repack)', 'too-large');
+  }
+  return 2 * chunkBytes;
+}
+
+/**
+ * The files a virtual dataset maps its blocks from, each checked: present, a readable regular
+ * file, holding the named dataset (itself checked if it is virtual too). HDF5 would fill a
+ * missing source with zeros silently. Returns the absolute paths of every source file.
+ */
+function checkVirtualSources(rt: H5Runtime, vdsFile: string, sources: { file_name: string; dset_name: string }[], what: string, seen: Set<string>, depth: number): string[] {
+  const files: string[] = [];
+  for (const src of sources) {
+    if (/%b/.test(src.file_name)) {
+      throw new InputError(`${what}: is a virtual dataset whose source file names follow the pattern '${src.file_name}'; expected explicit source files (printf-style patterns are not supported)`, 'unsupported');
+    }
+    let file: string;
+    if (src.file_name === '.') {
+      file = vdsFile;
+    } else {
+      // HDF5 looks beside the virtual dataset's file first, then in the current folder.
+      const candidates = nodePath.isAbsolute(src.file_name)
+        ? [src.file_name]
+        : [nodePath.join(nodePath.dirname(vdsFile), src.file_name), nodePath.resolve(src.file_name)];
+      const found = candidates.find((c) => fs.existsSync(c));
+      if (!found) {
+        throw new InputError(
+          `${what}: is a virtual dataset whose source file ${src.file_name} (dataset ${src.dset_name}) is missing (looked for ${[...new Set(candidates)].join(' and ')}); ` +
+          'HDF5 would read that part as zeros. Expected every source file of the virtual dataset to be present', 'missing-file');
+      }
+      file = checkHdf5File(found);
+    }
+    if (!files.includes(file)) files.push(file);
+    const key = `${file}:${src.dset_name}`;
+    if (seen.has(key)) continue;
+    seen.add(key);
+    const h5 = file === vdsFile ? null : openH5File(rt, file);
+    try {
+      const fileId = h5 ? h5.file_id : null;
+      const kind = fileId === null ? 'dataset' : entityKindById(rt, fileId, src.dset_name);
+      if (kind !== 'dataset') {
+        throw new InputError(`${what}: is a virtual dataset whose source ${file}:${src.dset_name} is missing (found ${kind === 'missing' ? 'nothing' : `a ${kind}`}); HDF5 would read that part as zeros. Expected the source dataset to exist`, 'missing-file');
+      }
+      if (h5 && depth < 8) {
+        const inner = datasetFacts(rt, h5, src.dset_name).virtualSources;
+        for (const f of checkVirtualSources(rt, file, inner, `${file}:${src.dset_name}`, seen, depth + 1)) if (!files.includes(f)) files.push(f);
+      }
+    } finally {
+      h5?.close();
+    }
+  }
+  return files;
 }
 
 /**
@@ -319,35 +423,13 @@ function to4D(stored: number[], scanShape: [number, number] | undefined, what: s
   return { scanY, scanX, detY, detX };
 }
 
-/** The file as an absolute path, after checking it exists and carries the HDF5 signature. */
+/** The file as an absolute path, after checking it is a readable regular file with the HDF5 signature. */
 function checkHdf5File(path: string): string {
-  const file = nodePath.resolve(path);
-  let fd: number;
-  try {
-    fd = fs.openSync(file, 'r');
-  } catch (e) {
-    const code = (e as NodeJS.ErrnoException).code;
-    if (code === 'ENOENT' || code === 'ENOTDIR') {
-      throw new InputError(`${file}: file not found; expected an HDF5 file at this path`, 'missing-file');
+  return checkInputFile(path, 'an HDF5 file', (f) => {
+    if (hdf5SignatureOffset(f.fd, f.size) === null) {
+      throw new InputError(`${f.path}: not an HDF5 file (no HDF5 signature at byte 0 or after a user block); expected an HDF5 file`, 'bad-input');
     }
-    throw new InputError(`${file}: cannot open (${code ?? String(e)}); expected a readable HDF5 file`, 'bad-input');
-  }
-  try {
-    const st = fs.fstatSync(fd);
-    if (!st.isFile()) {
-      throw new InputError(`${file}: is ${st.isDirectory() ? 'a directory' : 'not a regular file'}; expected an HDF5 file`, 'bad-input');
-    }
-    // The superblock may follow a user block, at 512, 1024, 2048, … bytes.
-    const head = Buffer.alloc(8);
-    for (let off = 0; off + 8 <= st.size && off <= 2 ** 30; off = off === 0 ? 512 : off * 2) {
-      if (fs.readSync(fd, head, 0, 8, off) === 8 && head.equals(HDF5_SIGNATURE)) return file;
-    }
-    throw new InputError(
-      `${file}: not an HDF5 file (no HDF5 signature at byte 0 or after a user block); expected an HDF5 file`,
-      'bad-input');
-  } finally {
-    fs.closeSync(fd);
-  }
+  }).path;
 }
 
 function openH5File(rt: H5Runtime, file: string): H5File {
@@ -366,10 +448,14 @@ function normaliseDatasetPath(p: string): string {
 type EntityKind = 'dataset' | 'group' | 'soft link to nothing' | 'external link' | 'named datatype' | 'missing';
 
 function entityKind(rt: H5Runtime, h5: H5File, path: string): EntityKind {
+  return entityKindById(rt, h5.file_id, path);
+}
+
+function entityKindById(rt: H5Runtime, fileId: bigint, path: string): EntityKind {
   const { Module } = rt;
   let type: number;
   try {
-    type = Module.get_type(h5.file_id, path);
+    type = Module.get_type(fileId, path);
   } catch {
     return 'missing';
   }
@@ -395,17 +481,38 @@ function datasetFacts(rt: H5Runtime, h5: H5File, path: string): DatasetFacts {
     byteOrder: meta.littleEndian || meta.size === 1 ? 'little' : 'big',
     chunks: meta.chunks,
     filters,
+    virtualSources: meta.virtual_sources ?? [],
   };
 }
 
+/**
+ * NumPy-style name of a dataset's type for messages and listings. h5py stores complex
+ * numbers as a compound of two floats named 'r' and 'i' (complex64: two float32,
+ * complex128: two float64), and booleans as an integer enum {FALSE: 0, TRUE: 1}; those get
+ * h5py's names, other compounds list their fields.
+ */
 function typeName(rt: H5Runtime, meta: H5Metadata): string {
   const C = rt.Module.H5T_class_t;
   switch (meta.type) {
     case C.H5T_INTEGER.value: return `${meta.signed ? 'int' : 'uint'}${meta.size * 8}`;
     case C.H5T_FLOAT.value: return `float${meta.size * 8}`;
     case C.H5T_STRING.value: return 'string';
-    case C.H5T_COMPOUND.value: return 'compound';
-    case C.H5T_ENUM.value: return 'enum';
+    case C.H5T_COMPOUND.value: {
+      const members = meta.compound_type?.members ?? [];
+      const [r, i] = members;
+      if (members.length === 2 && r.name === 'r' && i.name === 'i' &&
+          r.type === C.H5T_FLOAT.value && i.type === C.H5T_FLOAT.value &&
+          r.size === i.size && (r.size === 4 || r.size === 8)) {
+        return `complex${r.size * 16}`;
+      }
+      return members.length ? `compound (fields ${members.map((m) => m.name).join(', ')})` : 'compound';
+    }
+    case C.H5T_ENUM.value: {
+      const e = meta.enum_type;
+      const names = e ? Object.keys(e.members) : [];
+      if (e && e.type === C.H5T_INTEGER.value && names.length === 2 && e.members.FALSE === 0 && e.members.TRUE === 1) return 'bool';
+      return 'enum';
+    }
     case C.H5T_VLEN.value: return 'variable-length';
     case C.H5T_ARRAY.value: return 'array';
     case C.H5T_REFERENCE.value: return 'reference';

@@ -1,5 +1,7 @@
 import fs from 'node:fs';
 import path from 'node:path';
+import { openInputFile } from './input-file';
+import { hdf5SignatureOffset } from './hdf5-signature';
 import type { DatasetDescriptor, Hdf5DatasetInfo, SourceFormat, SourceSpec } from '../../src-shared/model/dataset';
 import { InputError } from '../../src-shared/model/errors';
 import type { TileSource } from './tile-source';
@@ -9,36 +11,23 @@ import { listHdf5Datasets, openHdf5 } from './hdf5';
 
 export type { TileSource } from './tile-source';
 
-const HDF5_MAGIC = Buffer.from([0x89, 0x48, 0x44, 0x46, 0x0d, 0x0a, 0x1a, 0x0a]);
 const NPY_MAGIC = Buffer.from([0x93, 0x4e, 0x55, 0x4d, 0x50, 0x59]);
 
 /** Decide the format from the spec or, failing that, from the file's first bytes. */
 export function detectFormat(spec: SourceSpec): SourceFormat {
   if (spec.format) return spec.format;
   if (spec.raw) return 'raw';
-  const file = path.resolve(spec.path);
-  let fd: number;
+  const f = openInputFile(spec.path, 'an HDF5, NumPy .npy or described raw data file');
   try {
-    fd = fs.openSync(file, 'r');
-  } catch {
-    throw new InputError(`${file}: file not found or not readable`, 'missing-file');
-  }
-  try {
-    if (!fs.fstatSync(fd).isFile()) throw new InputError(`${file}: not a regular file (a folder?); expected an HDF5, .npy or raw data file`, 'bad-input');
-    const head = Buffer.alloc(8);
-    const n = fs.readSync(fd, head, 0, 8, 0);
-    if (n >= 6 && head.subarray(0, 6).equals(NPY_MAGIC)) return 'npy';
-    // The HDF5 superblock may sit after a user block, at 512, 1024, 2048, … bytes.
-    const size = fs.fstatSync(fd).size;
-    for (let off = 0; off + 8 <= size; off = off === 0 ? 512 : off * 2) {
-      if (fs.readSync(fd, head, 0, 8, off) === 8 && head.equals(HDF5_MAGIC)) return 'hdf5';
-      if (off > 1 << 24) break;
-    }
+    const head = Buffer.alloc(6);
+    const n = fs.readSync(f.fd, head, 0, 6, 0);
+    if (n === 6 && head.equals(NPY_MAGIC)) return 'npy';
+    if (hdf5SignatureOffset(f.fd, f.size) !== null) return 'hdf5';
   } finally {
-    fs.closeSync(fd);
+    fs.closeSync(f.fd);
   }
   throw new InputError(
-    `${file}: not an HDF5 or NumPy .npy file; for a raw binary stack describe it (shape, dtype, byte order, header offset)`,
+    `${f.path}: not an HDF5 or NumPy .npy file; for a raw binary stack describe it (shape, dtype, byte order, header offset)`,
     'unsupported');
 }
 

@@ -2,8 +2,9 @@ import fs from 'node:fs';
 import path from 'node:path';
 import { DTYPE_BYTES, typedView } from '../../src-shared/model/dtype';
 import { InputError } from '../../src-shared/model/errors';
-import { openForReading, readFullyAt, swapBytesInPlace } from './contiguous';
-import { npyDType, readNpyHeader } from './npy';
+import { swapBytesInPlace } from './contiguous';
+import { openInputFile, readFullyAt } from './input-file';
+import { npyDType, npyShape, readNpyHeader } from './npy';
 
 /** A small 2-D array read whole from a .npy file (masks, not datasets). */
 export interface SmallArray2D {
@@ -20,13 +21,14 @@ const MAX_SMALL_BYTES = 256 * 1024 * 1024;
  */
 export function readNpy2D(file: string, what: string): SmallArray2D {
   const abs = path.resolve(file);
-  const f = openForReading(abs, `a .npy ${what}`);
+  const f = openInputFile(abs, `a .npy ${what}`);
   try {
     const h = readNpyHeader(f.fd, f.size, abs);
     if (h.fortranOrder !== false) throw new InputError(`${abs}: Fortran-ordered arrays are not supported; save the ${what} with np.ascontiguousarray`, 'unsupported');
-    const shape = h.shape as number[];
-    if (!Array.isArray(shape) || shape.length !== 2) {
-      throw new InputError(`${abs}: the ${what} has shape (${Array.isArray(shape) ? shape.join(', ') : String(shape)}); expected a 2-D array`, 'bad-shape');
+    // Whole numbers only, as for datasets: a float such as 8.0 in the shape is refused.
+    const shape = npyShape(h.shape, abs);
+    if (shape.length !== 2) {
+      throw new InputError(`${abs}: the ${what} has shape (${shape.join(', ')}); expected a 2-D array`, 'bad-shape');
     }
     const [height, width] = shape;
     const isBool = h.descr === '|b1';

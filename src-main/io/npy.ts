@@ -3,13 +3,20 @@ import * as nodePath from 'node:path';
 import type { DatasetDescriptor, Shape4D, SourceSpec } from '../../src-shared/model/dataset';
 import { DTYPE_BYTES, type ByteOrder, type DType } from '../../src-shared/model/dtype';
 import { InputError } from '../../src-shared/model/errors';
-import { ContiguousTileSource, contiguousFingerprint, openForReading, readFullyAt } from './contiguous';
+import { ContiguousTileSource, contiguousFingerprint } from './contiguous';
+import { openInputFile, readFullyAt } from './input-file';
 import type { TileSource } from './tile-source';
 import { scanShapeFor3D, validateShape } from './validate';
 
 const MAGIC = [0x93, 0x4e, 0x55, 0x4d, 0x50, 0x59]; // \x93NUMPY
 /** NumPy itself refuses headers over 10 000 bytes by default; a far larger one is not an array we can use. */
 const MAX_HEADER_BYTES = 1 << 20;
+/**
+ * Deepest nesting of dicts, tuples and lists the header parser follows. NumPy's headers nest
+ * two levels (the dict, its shape tuple; a structured descr a few more); the bound keeps a
+ * hostile header from overflowing the parser's stack.
+ */
+export const MAX_HEADER_NESTING = 32;
 
 const KIND_TO_DTYPE: Record<string, DType> = {
   u1: 'uint8', u2: 'uint16', u4: 'uint32',
@@ -42,7 +49,7 @@ export async function describeNpy(spec: SourceSpec): Promise<DatasetDescriptor> 
 function openNpySync(spec: SourceSpec): TileSource {
   const path = nodePath.resolve(spec.path);
   if (spec.datasetPath !== undefined) throw new InputError(`${path}: a .npy file holds one array; --dataset (${spec.datasetPath}) applies to HDF5 files only`, 'bad-input');
-  const file = openForReading(path, 'a NumPy .npy file');
+  const file = openInputFile(path, 'a NumPy .npy file');
   try {
     const header = readNpyHeader(file.fd, file.size, path);
     const { dtype, byteOrder } = npyDType(header.descr, path);
@@ -79,6 +86,7 @@ function openNpySync(spec: SourceSpec): TileSource {
       fingerprint: fp,
       layout: { kind: 'contiguous', dataOffset: header.dataOffset, byteOrder },
       spec: { ...spec, format: 'npy', path },
+      sourceFiles: [path],
     };
     return new ContiguousTileSource(descriptor, file.fd);
   } catch (e) {
@@ -122,7 +130,7 @@ export function readNpyHeader(fd: number, fileSize: number, path: string): NpyHe
   // Versions 1 and 2 store the header as latin-1; version 3 was added for utf-8 headers.
   const text = raw.toString(major === 3 ? 'utf8' : 'latin1');
   const dict = parsePythonLiteral(text, path);
-  if (dict === null || typeof dict !== 'object' || Array.isArray(dict)) {
+  if (dict === null || typeof dict !== 'object' || Array.isArray(dict) || dict instanceof PyFloat) {
     throw new InputError(`${path}: the .npy header is not a Python dict; expected {'descr': ..., 'fortran_order': ..., 'shape': ...}`, 'bad-input');
   }
   for (const key of ['descr', 'fortran_order', 'shape']) {
@@ -170,7 +178,17 @@ function npyDTypeHint(descr: string): string {
   return '';
 }
 
-function npyShape(shape: unknown, path: string): number[] {
+/**
+ * The header's shape as whole numbers. NumPy writes it as a tuple of Python ints; a float
+ * literal such as 4.0 or 8e0 is refused even when its value is whole (NumPy refuses it too).
+ */
+export function npyShape(shape: unknown, path: string): number[] {
+  const float = Array.isArray(shape) ? shape.find((d): d is PyFloat => d instanceof PyFloat) : undefined;
+  if (float) {
+    throw new InputError(
+      `${path}: the .npy header's shape ${pythonRepr(shape)} holds a non-integer ${float.text}; expected whole numbers (Python ints) as NumPy writes them`,
+      'bad-shape');
+  }
   if (!Array.isArray(shape) || !shape.every((d) => typeof d === 'number')) {
     throw new InputError(`${path}: the .npy header's shape is ${pythonRepr(shape)}; expected a tuple of whole numbers`, 'bad-input');
   }
@@ -202,15 +220,23 @@ function shapeTo4D(stored: number[], scanShape: [number, number] | undefined, pa
     'bad-rank');
 }
 
-type PyValue = string | number | boolean | null | PyValue[] | { [key: string]: PyValue };
+/** A Python float literal (4.0, 8e0): kept apart from ints, which parse to plain numbers. */
+export class PyFloat {
+  constructor(readonly value: number, readonly text: string) {}
+}
+
+export type PyValue = string | number | PyFloat | boolean | null | PyValue[] | { [key: string]: PyValue };
 
 /**
  * Parse the Python literal NumPy writes as the header (a dict of strings, booleans,
  * integers, tuples and lists). Written by hand because the format is Python syntax, not
- * JSON: single or double quotes, tuples, True/False/None, trailing commas.
+ * JSON: single or double quotes, tuples, True/False/None, trailing commas. Ints (also
+ * Python 2's 4L) become numbers, floats become PyFloat; nesting deeper than
+ * MAX_HEADER_NESTING is refused.
  */
 export function parsePythonLiteral(text: string, path: string): PyValue {
   let i = 0;
+  let depth = 0;
   const fail = (why: string): never => {
     throw new InputError(
       `${path}: the .npy header is not a valid Python literal (${why} at character ${i}: ${JSON.stringify(text.slice(Math.max(0, i - 20), i + 20))}); expected a dict like {'descr': '<u2', 'fortran_order': False, 'shape': (4, 4, 8, 8), }`,
@@ -218,6 +244,14 @@ export function parsePythonLiteral(text: string, path: string): PyValue {
   };
   const skipSpace = () => {
     while (i < text.length && /\s/.test(text[i])) i++;
+  };
+  const enter = () => {
+    if (++depth > MAX_HEADER_NESTING) {
+      throw new InputError(
+        `${path}: the .npy header nests too deeply (more than ${MAX_HEADER_NESTING} levels of brackets at character ${i}); ` +
+        `expected a flat dict like {'descr': '<u2', 'fortran_order': False, 'shape': (4, 4, 8, 8), }`,
+        'bad-input');
+    }
   };
   const sequence = (close: string): PyValue[] => {
     const items: PyValue[] = [];
@@ -275,16 +309,22 @@ export function parsePythonLiteral(text: string, path: string): PyValue {
   const value = (): PyValue => {
     skipSpace();
     const c = text[i];
-    if (c === '{') { i++; return dict(); }
-    if (c === '(') { i++; return sequence(')'); }
-    if (c === '[') { i++; return sequence(']'); }
+    if (c === '{' || c === '(' || c === '[') {
+      enter();
+      i++;
+      const v = c === '{' ? dict() : sequence(c === '(' ? ')' : ']');
+      depth--;
+      return v;
+    }
     if (c === "'" || c === '"') return string();
     // Python 2 era writers may prefix strings with u or b.
     if ((c === 'u' || c === 'b' || c === 'U' || c === 'B') && (text[i + 1] === "'" || text[i + 1] === '"')) { i++; return string(); }
     const num = /^[-+]?\d+(\.\d*)?([eE][-+]?\d+)?[lL]?/.exec(text.slice(i, i + 64));
     if (num) {
       i += num[0].length;
-      return Number(num[0].replace(/[lL]$/, ''));
+      const n = Number(num[0].replace(/[lL]$/, ''));
+      // A fraction or an exponent makes a Python float, whatever its value.
+      return num[1] !== undefined || num[2] !== undefined ? new PyFloat(n, num[0]) : n;
     }
     const word = /^[A-Za-z_]\w*/.exec(text.slice(i, i + 64));
     if (word) {
@@ -304,6 +344,7 @@ export function parsePythonLiteral(text: string, path: string): PyValue {
 }
 
 function pythonRepr(v: unknown): string {
+  if (v instanceof PyFloat) return v.text;
   if (Array.isArray(v)) return '(' + v.map(pythonRepr).join(', ') + ')';
   if (typeof v === 'string') return `'${v}'`;
   if (v === true) return 'True';

@@ -3,7 +3,8 @@ import * as nodePath from 'node:path';
 import type { DatasetDescriptor, Shape4D, SourceSpec } from '../../src-shared/model/dataset';
 import { DTYPE_BYTES, DTYPES, isDType, type ByteOrder, type DType } from '../../src-shared/model/dtype';
 import { InputError } from '../../src-shared/model/errors';
-import { ContiguousTileSource, contiguousFingerprint, openForReading, shapeText } from './contiguous';
+import { ContiguousTileSource, contiguousFingerprint, shapeText } from './contiguous';
+import { openInputFile } from './input-file';
 import type { TileSource } from './tile-source';
 import { validateShape } from './validate';
 
@@ -33,7 +34,7 @@ function openRawSync(spec: SourceSpec): TileSource {
   if (!Number.isSafeInteger(needed)) {
     throw new InputError(`${path}: offset ${offset} + ${byteSize} data bytes overflows 2^53 bytes; expected a real file size`, 'bad-shape');
   }
-  const file = openForReading(path, 'a raw binary file');
+  const file = openInputFile(path, 'a raw binary file');
   try {
     if (file.size < needed) {
       throw new InputError(
@@ -54,6 +55,7 @@ function openRawSync(spec: SourceSpec): TileSource {
       fingerprint: fp,
       layout: { kind: 'contiguous', dataOffset: offset, byteOrder },
       spec: { ...spec, format: 'raw', path, raw: { shape, dtype, byteOrder, offset } },
+      sourceFiles: [path],
     };
     return new ContiguousTileSource(descriptor, file.fd);
   } catch (e) {

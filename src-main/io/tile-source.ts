@@ -5,8 +5,17 @@ import type { DType, NumericArray } from '../../src-shared/model/dtype';
  * One interface over every reader. A tile is a block of whole scan rows.
  * Reads are synchronous: they run inside worker threads, one tile at a time.
  */
+/** What reading costs a worker beyond the kernel's tile, so the planner needs no format checks. */
+export interface ReaderMemory {
+  /** Copies of a tile the reader holds while reading (HDF5: its own heap copy and ours). */
+  tileCopies: number;
+  /** Fixed bytes per worker whatever the tile (a library's heap, a chunk being inflated). */
+  fixedBytes: number;
+}
+
 export interface TileSource {
   readonly descriptor: DatasetDescriptor;
+  readonly memory: ReaderMemory;
   /**
    * Scan rows that storage groups together (HDF5 chunk extent along scan_y, or along the
    * position axis expressed in rows when whole rows fit in a chunk); 1 for raw and .npy.

@@ -1,31 +1,27 @@
-import fs from 'node:fs';
-import path from 'node:path';
 import { getH5, type H5Lib } from './h5wasm-module';
+import type { OutputFile } from './output-file';
 
 export type H5File = InstanceType<H5Lib['File']>;
 
 /**
- * Create a new HDF5 file through `fill`. Written to OUT.partial and renamed at the end, so a
- * failure (or a cancel) leaves nothing at `out`.
+ * Write a new HDF5 file through `fill` into the output's temporary file; the output renames it
+ * onto its target at the end, so a failure (or a cancel) leaves nothing behind.
  */
-export async function writeHdf5Atomically(out: string, fill: (f: H5File, h5wasm: H5Lib) => Promise<void> | void): Promise<string> {
+export async function writeHdf5(out: OutputFile, fill: (f: H5File, h5wasm: H5Lib) => Promise<void> | void): Promise<string> {
   const { h5wasm } = await getH5();
-  const file = path.resolve(out);
-  const partial = file + '.partial';
-  fs.rmSync(partial, { force: true });
-  const f = new h5wasm.File(partial, 'w');
-  let open = true;
-  try {
-    await fill(f, h5wasm);
-    f.close();
-    open = false;
-    fs.renameSync(partial, file);
-  } catch (e) {
-    if (open) f.close();
-    fs.rmSync(partial, { force: true });
-    throw e;
-  }
-  return file;
+  return out.write(async (tmp) => {
+    const f = new h5wasm.File(tmp, 'w');
+    let open = true;
+    try {
+      await fill(f, h5wasm);
+      open = false;
+      f.close();
+    } finally {
+      if (open) {
+        try { f.close(); } catch { /* the write already failed; report that failure */ }
+      }
+    }
+  });
 }
 
 export interface ResultArray {
@@ -34,16 +30,42 @@ export interface ResultArray {
   attrs?: Record<string, string | number>;
 }
 
-/** Write float64 result arrays (and attributes on the root group) to a new HDF5 file. */
-export async function writeFloat64Results(out: string, arrays: Record<string, ResultArray>, rootAttrs: Record<string, string | number> = {}): Promise<void> {
-  await writeHdf5Atomically(out, (f) => {
+export interface WrittenResults {
+  path: string;
+  /** NaN or ±Inf values in each written array (overflowed sums, empty divisions), by name; only non-zero counts. */
+  nonFiniteResults: Record<string, number>;
+}
+
+/**
+ * Write float64 result arrays (and attributes on the root group) to a new HDF5 file. Every
+ * array's count of NaN/±Inf values is stored as its `non_finite_results` attribute and summed
+ * in the root's `non_finite_results`, so an overflow never passes unnoticed.
+ */
+export async function writeFloat64Results(out: OutputFile, arrays: Record<string, ResultArray>, rootAttrs: Record<string, string | number> = {}): Promise<WrittenResults> {
+  const nonFiniteResults: Record<string, number> = {};
+  let total = 0;
+  for (const [name, a] of Object.entries(arrays)) {
+    const n = countNonFinite(a.data);
+    if (n > 0) nonFiniteResults[name] = n;
+    total += n;
+  }
+  const path = await writeHdf5(out, (f) => {
     for (const [k, v] of Object.entries(rootAttrs)) writeAttr(f, k, v);
+    writeAttr(f, 'non_finite_results', total);
     for (const [name, a] of Object.entries(arrays)) {
       // '<d' is h5wasm's spelling of float64; it reads '<f8' as float32.
       const ds = f.create_dataset({ name, data: a.data, shape: a.shape, dtype: '<d' });
       for (const [k, v] of Object.entries(a.attrs ?? {})) writeAttr(ds, k, v);
+      writeAttr(ds, 'non_finite_results', nonFiniteResults[name] ?? 0);
     }
   });
+  return { path, nonFiniteResults };
+}
+
+export function countNonFinite(a: ArrayLike<number>): number {
+  let n = 0;
+  for (let i = 0; i < a.length; i++) if (!Number.isFinite(a[i])) n++;
+  return n;
 }
 
 /**

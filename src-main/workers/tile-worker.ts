@@ -17,6 +17,7 @@ import { createReferenceComKernel } from '../../src-shared/compute/com';
 import { createWasmComKernel } from '../../src-shared/compute/com-wasm';
 import { accumulateRegionPatterns } from '../../src-shared/compute/region-pattern';
 import { openTileSource, type TileSource } from '../io/index';
+import type { ReaderMemory } from '../io/tile-source';
 import { loadWasmModule } from './wasm-loader';
 
 export type KernelKind = 'wasm' | 'reference';
@@ -24,6 +25,7 @@ export type KernelKind = 'wasm' | 'reference';
 export interface OpenReply {
   descriptor: DatasetDescriptor;
   rowAlignment: number;
+  memory: ReaderMemory;
 }
 
 export interface KernelOptions {
@@ -121,7 +123,7 @@ const api = {
       source = await openTileSource(spec);
       sourceKey = key;
     }
-    return { descriptor: source.descriptor, rowAlignment: source.rowAlignment };
+    return { descriptor: source.descriptor, rowAlignment: source.rowAlignment, memory: source.memory };
   },
 
   /**

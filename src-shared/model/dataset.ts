@@ -55,6 +55,12 @@ export interface DatasetDescriptor {
   layout: StorageLayout;
   /** The spec that reopens exactly this dataset. */
   spec: SourceSpec;
+  /**
+   * Every file the data is read from (absolute paths): the file itself and, for HDF5, the
+   * source files of a virtual dataset and the external files seen holding raw data. Nothing
+   * Scanfold writes may land on any of them.
+   */
+  sourceFiles: string[];
 }
 
 /** One numeric dataset found in an HDF5 file, whether or not it can be opened as 4D-STEM. */

@@ -13,6 +13,10 @@ export class InputError extends Error {
 export type InputErrorCode =
   | 'bad-input'
   | 'missing-file'
+  | 'unreadable'
+  | 'not-a-file'
+  | 'bad-output'
+  | 'too-large'
   | 'short-file'
   | 'bad-dtype'
   | 'bad-shape'
@@ -20,6 +24,21 @@ export type InputErrorCode =
   | 'missing-filter'
   | 'not-a-dataset'
   | 'unsupported';
+
+/**
+ * Writing a result failed after the work was done (no space, a disk error, permission taken
+ * away). The message is one line: what could not be written, why, and that nothing was left.
+ */
+export class OutputError extends Error {
+  override readonly name = 'OutputError';
+  constructor(message: string, readonly reason: string) {
+    super(message);
+  }
+}
+
+export function isOutputError(e: unknown): e is OutputError {
+  return e instanceof Error && e.name === 'OutputError';
+}
 
 /** A job stopped because somebody asked it to. */
 export class CancelledError extends Error {

@@ -68,7 +68,7 @@ describe('scanfold image', () => {
     const got = h5py(out).data.images;
     // reference: NumPy sum over the whole pattern with non-finite values set to 0
     expect(maxRelDiff(got.values as number[], readNpyF64(path.join(fx, 'b_image_full.npy')).data)).toBeLessThan(1e-6);
-    expect(got.attrs.non_finite_values).toBe(2);
+    expect(got.attrs.non_finite_inputs).toBe(2);
   });
 
   const bad: [string, string[], RegExp][] = [

@@ -8,6 +8,7 @@ import { Engine } from '../../src-main/engine/engine';
 import { CancelledError } from '../../src-shared/model/errors';
 import type { SourceSpec } from '../../src-shared/model/dataset';
 import type { JobProgress } from '../../src-shared/contract/jobs';
+import { tightBudget } from '../helpers/fixtures';
 
 const shape = { scanY: 64, scanX: 128, detY: 64, detX: 64 };
 let dir: string;
@@ -40,7 +41,7 @@ function checkResult(total: Float64Array) {
 
 describe('jobs', () => {
   it('reports progress with bytes and an ETA, and finishes at fraction 1', async () => {
-    const engine = new Engine({ workers: 2, budgetBytes: 16 << 20 });
+    const engine = new Engine({ workers: 2, budgetBytes: tightBudget(2, false, 16 << 20) });
     try {
       const job = engine.firstPass(spec);
       const seen: JobProgress[] = [];
@@ -58,7 +59,7 @@ describe('jobs', () => {
   });
 
   it('cancels mid-job, and the pool is usable right after', async () => {
-    const engine = new Engine({ workers: 2, budgetBytes: 16 << 20 });
+    const engine = new Engine({ workers: 2, budgetBytes: tightBudget(2, false, 16 << 20) });
     try {
       const job = engine.firstPass(spec);
       job.onProgress(() => job.cancel());
@@ -73,7 +74,7 @@ describe('jobs', () => {
   });
 
   it('fails with a message when a worker is killed mid-job; the worker is replaced', async () => {
-    const engine = new Engine({ workers: 2, budgetBytes: 16 << 20 });
+    const engine = new Engine({ workers: 2, budgetBytes: tightBudget(2, false, 16 << 20) });
     try {
       const job = engine.firstPass(spec);
       let killed = false;
@@ -91,7 +92,7 @@ describe('jobs', () => {
   it('fails with the reader\'s message when the file shrinks under a running job', async () => {
     const copy = path.join(dir, 'shrinking.u16');
     fs.copyFileSync(spec.path, copy);
-    const engine = new Engine({ workers: 2, budgetBytes: 16 << 20 });
+    const engine = new Engine({ workers: 2, budgetBytes: tightBudget(2, false, 16 << 20) });
     try {
       const job = engine.firstPass({ ...spec, path: copy });
       let cut = false;

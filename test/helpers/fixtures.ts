@@ -5,6 +5,8 @@ import { execFileSync, spawnSync } from 'node:child_process';
 import { expect } from 'vitest';
 import { DTYPE_BYTES, isDType, typedView, type DType, type NumericArray } from '../../src-shared/model/dtype';
 import type { CompiledDetector } from '../../src-shared/model/detectors';
+import { WORKER_THREAD_BYTES } from '../../src-main/engine/budget';
+import { H5WASM_BASE_BYTES } from '../../src-main/io/hdf5';
 
 /** Debian's interpreter, which has numpy, h5py and hdf5plugin (the pyenv python3 on PATH may not). */
 export const PYTHON = '/usr/bin/python3';
@@ -85,4 +87,12 @@ export function readFixtureDetectors(
     values.forEach((v, i) => { if (v === 1) indices.push(i); });
     return { mode: 'indices', indices: Uint32Array.from(indices), detY: c.detY, detX: c.detX, label: m.label };
   });
+}
+
+/**
+ * A budget that leaves about `extraBytes` for tiles and results once every worker's fixed cost
+ * (its thread, and h5wasm for HDF5) is counted: small budgets force many tiles per worker.
+ */
+export function tightBudget(workers: number, hdf5: boolean, extraBytes = 1 << 20): number {
+  return workers * (WORKER_THREAD_BYTES + (hdf5 ? H5WASM_BASE_BYTES : 0)) + extraBytes;
 }

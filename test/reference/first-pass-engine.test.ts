@@ -5,7 +5,7 @@ import fs from 'node:fs';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { Engine } from '../../src-main/engine/engine';
 import type { SourceSpec } from '../../src-shared/model/dataset';
-import { makeFixtures, maxRelDiff, readNpyF64 } from '../helpers/fixtures';
+import { makeFixtures, maxRelDiff, readNpyF64, tightBudget } from '../helpers/fixtures';
 
 let dir: string;
 let meta: Record<string, { nonfinite: number }>;
@@ -33,7 +33,7 @@ for (const kernel of ['wasm', 'reference'] as const) {
     for (const c of cases) {
       it(c.label, async () => {
         // A small budget forces several tiles per worker, so merging across tiles is exercised.
-        const engine = new Engine({ workers: 2, kernel, previewBudgetBytes: c.previewBudget, budgetBytes: 1 << 20 });
+        const engine = new Engine({ workers: 2, kernel, previewBudgetBytes: c.previewBudget, budgetBytes: tightBudget(2, c.spec().path.endsWith('.h5')) });
         try {
           const r = await engine.firstPass(c.spec()).result;
           expect(r.plan.tiles.length).toBeGreaterThan(1);

@@ -7,7 +7,8 @@ import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import type { RawLayoutSpec, SourceSpec } from '../../src-shared/model/dataset';
 import { allocTyped, type DType, type NumericArray } from '../../src-shared/model/dtype';
 import { isInputError, type InputErrorCode } from '../../src-shared/model/errors';
-import { readFullyAt, swapBytesInPlace } from '../../src-main/io/contiguous';
+import { swapBytesInPlace } from '../../src-main/io/contiguous';
+import { readFullyAt } from '../../src-main/io/input-file';
 import { sampleOffsets } from '../../src-main/io/fingerprint';
 import { describeNpy, openNpy, parsePythonLiteral } from '../../src-main/io/npy';
 import { describeRaw, openRaw } from '../../src-main/io/raw';
@@ -371,7 +372,7 @@ describe('bad input is refused with a message naming the file and what was expec
   });
 
   it('a directory instead of a file', async () => {
-    await expectInputError(openNpy({ path: dir }), 'bad-input', [dir, 'directory', 'expected']);
+    await expectInputError(openNpy({ path: dir }), 'not-a-file', [dir, 'a folder', 'expected']);
   });
 
   it('.npy shorter than header + shape × dtype', async () => {

@@ -6,11 +6,11 @@ import { afterAll, beforeAll, expect, it } from 'vitest';
 import { Engine } from '../../src-main/engine/engine';
 import { compileRegion } from '../../src-shared/compute/region-masks';
 import { readNpy2D } from '../../src-main/io/npy-array';
-import { makeFixtures, maxRelDiff, readNpyF64 } from '../helpers/fixtures';
+import { makeFixtures, maxRelDiff, readNpyF64, tightBudget } from '../helpers/fixtures';
 
 let fx: string;
 let engine: Engine;
-beforeAll(() => { fx = makeFixtures('make_analysis_fixtures.py'); engine = new Engine({ workers: 2, budgetBytes: 1 << 20 }); });
+beforeAll(() => { fx = makeFixtures('make_analysis_fixtures.py'); engine = new Engine({ workers: 2, budgetBytes: tightBudget(2, true) }); });
 afterAll(async () => { await engine.close(); fs.rmSync(fx, { recursive: true, force: true }); });
 
 for (const name of ['rect', 'mask'] as const) {
