@@ -8,7 +8,7 @@ import { writeFloat64Results, type WrittenResults } from '../io/write-results';
 import { OutputFile } from '../io/output-file';
 import type { FirstPassSummary } from '../engine/first-pass';
 import { outputFlag, parseFlags, rejectExtraPositionals, SOURCE_HELP, SOURCE_OPTIONS, sourceSpecFromFlags, wholeNumber } from './source-flags';
-import { runJobWithProgress } from './progress';
+import { interruptRunningJob, runJobWithProgress } from './progress';
 import { writeSample, SAMPLE_SIZES } from '../../samples/write-sample';
 import { runBenchmark } from '../engine/first-pass.bench';
 import { projectRoot } from '../engine/paths';
@@ -242,6 +242,8 @@ export async function main(argv: string[]): Promise<number> {
 }
 
 // A signal that ends the process still runs the 'exit' handlers, which remove temporary files.
+// Ctrl-C cancels a running job (which then cleans up and exits 130); between jobs it ends at once.
+process.on('SIGINT', () => { if (!interruptRunningJob()) process.exit(130); });
 for (const [signal, code] of [['SIGTERM', 143], ['SIGHUP', 129]] as const) {
   process.on(signal, () => process.exit(code));
 }

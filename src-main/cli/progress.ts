@@ -31,18 +31,29 @@ export function progressPrinter(label: string, enabled: boolean) {
   };
 }
 
+let cancelRunning: (() => void) | null = null;
+
+/**
+ * Ctrl-C: cancel the running job (it ends with exit 130 and cleans up), or, between jobs,
+ * return false so the caller ends the process at once.
+ */
+export function interruptRunningJob(): boolean {
+  if (!cancelRunning) return false;
+  cancelRunning();
+  return true;
+}
+
 /** Wait for a job with a progress bar on stderr; Ctrl-C cancels the job. */
 export async function runJobWithProgress<T>(job: Job<T>, label: string, quiet: boolean): Promise<T> {
   const bar = progressPrinter(label, !quiet);
   job.onProgress((p) => bar.update(p));
-  const onSigint = () => job.cancel('interrupted');
-  process.once('SIGINT', onSigint);
+  cancelRunning = () => job.cancel('interrupted');
   try {
     const r = await job.result;
     bar.update(job.progress);
     return r;
   } finally {
     bar.done();
-    process.off('SIGINT', onSigint);
+    cancelRunning = null;
   }
 }

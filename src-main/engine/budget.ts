@@ -135,6 +135,15 @@ export function planFirstPass(d: DatasetDescriptor, reader: ReaderFacts, limits:
   return { detBin, scanBin, preview: pv, ...planTiles(d, reader, limits, pv.bytes + accumulators, scanBin) };
 }
 
+/**
+ * The most one worker could hold for its reader and tiles: its even share of the budget. Readers
+ * use it at open to refuse, before reading anything, a source that cannot fit however the job
+ * is planned (the planner then checks the exact plan).
+ */
+export function memoryPerWorker(limits: EngineLimits): number {
+  return Math.floor(limits.budgetBytes / limits.workers);
+}
+
 export interface LimitOptions {
   workers?: number;
   budgetBytes?: number;

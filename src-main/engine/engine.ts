@@ -1,6 +1,6 @@
 import type { DatasetDescriptor, SourceSpec } from '../../src-shared/model/dataset';
 import type { JobInfo } from '../../src-shared/contract/jobs';
-import { resolveEngineLimits, type EngineLimits } from './budget';
+import { memoryPerWorker, resolveEngineLimits, type EngineLimits } from './budget';
 import { PreviewPool, startFirstPass, type FirstPassSummary } from './first-pass';
 import { startComSums, startRegionPattern, startVirtualImages, type ComSumsResult, type RegionPatternResult, type VirtualImagesResult } from './analyses';
 import type { CompiledDetector } from '../../src-shared/model/detectors';
@@ -39,7 +39,7 @@ export class Engine {
     this.limits = limits;
     this.notes = notes;
     this.kernel = options.kernel ?? 'wasm';
-    this.pool = new WorkerPool({ size: limits.workers });
+    this.pool = new WorkerPool({ size: limits.workers, memoryPerWorkerBytes: memoryPerWorker(limits) });
   }
 
   /** Describe a source (or list an HDF5 file's datasets) without reading its data. */

@@ -28,6 +28,8 @@ export interface PoolOptions {
   size?: number;
   /** Bundled worker entry; defaults to dist/tile-worker.mjs. */
   workerFile?: string;
+  /** What one worker may hold for a reader and its tiles; readers refuse sources that need more. */
+  memoryPerWorkerBytes?: number;
 }
 
 /**
@@ -38,6 +40,7 @@ export interface PoolOptions {
 export class WorkerPool {
   readonly size: number;
   private readonly workerFile: string;
+  private readonly memoryPerWorkerBytes: number | undefined;
   private readonly slots: Slot[] = [];
   private waiters: ((slot: Slot) => void)[] = [];
   private closed = false;
@@ -48,11 +51,12 @@ export class WorkerPool {
     if (!Number.isInteger(size) || size < 1) throw new RangeError(`worker pool: size must be a whole number ≥ 1, got ${size}`);
     this.size = size;
     this.workerFile = options.workerFile ?? distFile('tile-worker.mjs');
+    this.memoryPerWorkerBytes = options.memoryPerWorkerBytes;
     for (let i = 0; i < this.size; i++) this.slots.push(this.spawn(i, 0));
   }
 
   private spawn(index: number, generation: number): Slot {
-    const worker = new Worker(this.workerFile, { workerData: { index } });
+    const worker = new Worker(this.workerFile, { workerData: { index, memoryPerWorkerBytes: this.memoryPerWorkerBytes } });
     const remote = Comlink.wrap<TileWorkerApi>(nodeEndpoint(worker as never));
     let rejectDeath!: (e: Error) => void;
     const death = new Promise<never>((_, reject) => { rejectDeath = reject; });

@@ -23,6 +23,11 @@ const MAX_ALIGNMENT_BYTES = DEFAULT_MAX_SLICE_BYTES;
 export interface Hdf5ReadOptions {
   /** Largest hyperslab read in one call, in bytes; smaller values exist for tests of the splitting. */
   maxSliceBytes?: number;
+  /**
+   * What the reader may hold in this worker (the engine's budget share). A dataset whose
+   * chunks need more to decompress is refused at open, before any chunk is inflated.
+   */
+  memoryPerWorkerBytes?: number;
 }
 
 type H5File = InstanceType<H5Runtime['h5wasm']['File']>;
@@ -99,7 +104,7 @@ export async function openHdf5(spec: SourceSpec, options: Hdf5ReadOptions = {}):
       }
     }
     const byteSize = shape.scanY * shape.scanX * shape.detY * shape.detX * elementBytes;
-    const chunkWorkBytes = checkChunkSize(facts, elementBytes, what);
+    const chunkWorkBytes = checkChunkSize(facts, elementBytes, what, options.memoryPerWorkerBytes);
     // HDF5 fills the blocks of a missing virtual source with zeros without a word: check the mapping first.
     const sourceFiles = [file, ...checkVirtualSources(rt, file, facts.virtualSources, what, new Set([`${file}:${datasetPath}`]), 0)];
     const source = new Hdf5TileSource(rt, h5, {
@@ -327,16 +332,24 @@ export const MAX_FILTERED_CHUNK_BYTES = 768 * 2 ** 20;
  * cannot fit in h5wasm's heap at all is refused here, before any read, rather than failing
  * with an allocation error halfway through a pass.
  */
-function checkChunkSize(facts: DatasetFacts, elementBytes: number, what: string): number {
+function checkChunkSize(facts: DatasetFacts, elementBytes: number, what: string, allowance: number | undefined): number {
   if (!facts.chunks || facts.filters.length === 0) return 0;
   const chunkBytes = facts.chunks.reduce((a, b) => a * b, 1) * elementBytes;
+  const inflates = `each compressed chunk (${facts.chunks.join('×')} elements) inflates to ${fmtBytes(chunkBytes)}, which HDF5 must hold whole in memory`;
   if (chunkBytes > MAX_FILTERED_CHUNK_BYTES) {
     throw new InputError(
-      `${what}: each compressed chunk (${facts.chunks.join('×')} elements) inflates to ${fmtBytes(chunkBytes)}, which HDF5 must hold whole in memory, ` +
-      `more than the ${fmtBytes(MAX_FILTERED_CHUNK_BYTES)} this build's HDF5 library can decompress at once; ` +
+      `${what}: ${inflates}, more than the ${fmtBytes(MAX_FILTERED_CHUNK_BYTES)} this build's HDF5 library can decompress at once; ` +
       'expected smaller chunks (rewrite the file with chunks of a few scan rows, e.g. with h5repack)', 'too-large');
   }
-  return 2 * chunkBytes;
+  // Inflating needs the chunk and the filter's output buffer, and the tile read from it is copied twice.
+  const work = 2 * chunkBytes;
+  const need = H5WASM_BASE_BYTES + work + 2 * chunkBytes;
+  if (allowance !== undefined && need > allowance) {
+    throw new InputError(
+      `${what}: ${inflates}; reading it takes about ${fmtBytes(need)} per worker, but each worker's share of the memory budget is ${fmtBytes(allowance)}; ` +
+      `expected a budget that gives each worker at least ${fmtBytes(need)} (raise the budget, use fewer workers, or rewrite the file with smaller chunks)`, 'too-large');
+  }
+  return work;
 }
 
 /**

@@ -7,7 +7,7 @@ import { InputError } from '../../src-shared/model/errors';
 import type { TileSource } from './tile-source';
 import { openNpy } from './npy';
 import { openRaw } from './raw';
-import { listHdf5Datasets, openHdf5 } from './hdf5';
+import { listHdf5Datasets, openHdf5, type Hdf5ReadOptions } from './hdf5';
 
 export type { TileSource } from './tile-source';
 
@@ -32,14 +32,14 @@ export function detectFormat(spec: SourceSpec): SourceFormat {
 }
 
 /** Open any supported source as a TileSource. */
-export async function openTileSource(spec: SourceSpec): Promise<TileSource> {
+export async function openTileSource(spec: SourceSpec, options: Hdf5ReadOptions = {}): Promise<TileSource> {
   const resolved: SourceSpec = { ...spec, path: path.resolve(spec.path) };
   const format = detectFormat(resolved);
   resolved.format = format;
   switch (format) {
     case 'npy': return openNpy(resolved);
     case 'raw': return openRaw(resolved);
-    case 'hdf5': return openHdf5(resolved);
+    case 'hdf5': return openHdf5(resolved, options);
   }
 }
 

@@ -120,7 +120,7 @@ const api = {
     if (!source || (key !== sourceKey && key !== JSON.stringify(source.descriptor.spec))) {
       source?.close();
       source = null;
-      source = await openTileSource(spec);
+      source = await openTileSource(spec, { memoryPerWorkerBytes: workerData?.memoryPerWorkerBytes });
       sourceKey = key;
     }
     return { descriptor: source.descriptor, rowAlignment: source.rowAlignment, memory: source.memory };

@@ -59,7 +59,7 @@ export function findBadPixels(
   detX: number,
   options: BadPixelOptions = {},
 ): BadPixelResult {
-  validateDetector(detY, detX, 'findBadPixels');
+  validateDetector(detY, detX, 'bad-pixel search');
   validatePatternLength(mean, detY, detX, 'findBadPixels: mean pattern');
   validatePatternLength(max, detY, detX, 'findBadPixels: max pattern');
   const hotFactor = positiveOption(options.hotFactor, DEFAULTS.hotFactor, 'hotFactor');
@@ -154,7 +154,7 @@ export function findBadPixels(
  * values are used, so the result does not depend on the order pixels are visited.
  */
 export function replaceBadPixels(pattern: Float64Array, detY: number, detX: number, mask: Uint8Array): Float64Array {
-  validateDetector(detY, detX, 'replaceBadPixels');
+  validateDetector(detY, detX, 'bad-pixel repair');
   validatePatternLength(pattern, detY, detX, 'replaceBadPixels: pattern');
   if (mask.length !== detY * detX) {
     throw new InputError(`replaceBadPixels: mask has ${mask.length} elements, expected detY × detX = ${detY * detX}`);
@@ -178,7 +178,7 @@ export function replaceBadPixels(pattern: Float64Array, detY: number, detX: numb
         }
       }
       if (found === 0) {
-        throw new InputError('replaceBadPixels: every detector pixel is flagged or non-finite; expected at least one valid pixel');
+        throw new InputError('bad-pixel repair: every detector pixel is flagged as bad or is not a finite number, so there is nothing to fill them from; expected at least one valid pixel');
       }
       out[i] = medianOfFirst(scratch, found);
     }
@@ -246,7 +246,7 @@ export function medianOfFirst(values: Float64Array, n: number): number {
 
 function validateDetector(detY: number, detX: number, where: string): void {
   if (!Number.isInteger(detY) || !Number.isInteger(detX) || detY < 1 || detX < 1) {
-    throw new InputError(`${where}: detector shape ${detY} × ${detX}; expected positive integers`, 'bad-shape');
+    throw new InputError(`${where}: the detector is ${detY} × ${detX} pixels; expected whole numbers ≥ 1`, 'bad-shape');
   }
 }
 
@@ -259,7 +259,7 @@ function validatePatternLength(a: Float64Array, detY: number, detX: number, what
 function positiveOption(value: number | undefined, fallback: number, name: string): number {
   if (value === undefined) return fallback;
   if (!Number.isFinite(value) || value <= 0) {
-    throw new InputError(`findBadPixels: option ${name} = ${String(value)}; expected a finite number > 0`);
+    throw new InputError(`bad-pixel search: setting ${name} = ${String(value)}; expected a finite number > 0`);
   }
   return value;
 }

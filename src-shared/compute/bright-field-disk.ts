@@ -92,14 +92,14 @@ export function findBrightFieldDisk(
   options: BrightFieldDiskOptions = {},
 ): BrightFieldDisk {
   if (!Number.isInteger(detY) || !Number.isInteger(detX) || detY < 3 || detX < 3) {
-    throw new InputError(`findBrightFieldDisk: detector shape ${detY} × ${detX}; expected integers ≥ 3`, 'bad-shape');
+    throw new InputError(`bright-field disk: the detector is ${detY} × ${detX} pixels; expected whole numbers ≥ 3`, 'bad-shape');
   }
   const n = detY * detX;
   if (!(pattern instanceof Float64Array) || pattern.length !== n) {
     throw new InputError(`findBrightFieldDisk: pattern has ${pattern?.length} elements, expected a Float64Array of detY × detX = ${n}`, 'bad-shape');
   }
   if (options.refine !== undefined && !['auto', 'edge-fit', 'moments'].includes(options.refine)) {
-    throw new InputError(`findBrightFieldDisk: refine = ${String(options.refine)}; expected 'auto', 'edge-fit' or 'moments'`);
+    throw new InputError(`bright-field disk: unknown refinement method ${String(options.refine)}; expected 'auto', 'edge-fit' or 'moments'`);
   }
   const exclude = options.excludePixels;
   if (exclude !== undefined && exclude.length !== n) {
@@ -112,14 +112,14 @@ export function findBrightFieldDisk(
   for (let i = 0; i < n; i++) {
     if ((exclude !== undefined && exclude[i]) || !Number.isFinite(pattern[i])) { flagged[i] = 1; nFlagged++; }
   }
-  if (nFlagged === n) throw noDisk('every pixel is excluded or non-finite');
+  if (nFlagged === n) throw noDisk('every pixel is marked bad or is not a finite number');
   const image = nFlagged > 0 ? replaceBadPixels(pattern, detY, detX, flagged) : Float64Array.from(pattern);
   const smooth = median3x3(image, detY, detX);
   let high = -Infinity;
   for (let i = 0; i < n; i++) if (smooth[i] > high) high = smooth[i];
   const low = quantile(smooth, PERCENTILE_LOW);
   const contrast = high - low;
-  if (!(contrast > 0)) throw noDisk('the pattern is flat');
+  if (!(contrast > 0)) throw noDisk('the mean pattern is flat (every pixel about the same)');
   const outlierStep = OUTLIER_FRACTION_OF_CONTRAST * contrast;
   for (let i = 0; i < n; i++) {
     if (Math.abs(image[i] - smooth[i]) > outlierStep) { image[i] = smooth[i]; flagged[i] = 1; }
@@ -139,7 +139,7 @@ export function findBrightFieldDisk(
     const rOuter = r + w;
     if (cx - rOuter < -0.5 || cy - rOuter < -0.5 || cx + rOuter > detX - 0.5 || cy + rOuter > detY - 0.5) {
       throw new InputError(
-        `findBrightFieldDisk: the bright-field disk (centre ${cx.toFixed(1)}, ${cy.toFixed(1)}, radius ${r.toFixed(1)} px) ` +
+        `bright-field disk: the disk (centre ${cx.toFixed(1)}, ${cy.toFixed(1)}, radius ${r.toFixed(1)} px) ` +
         `reaches the detector edge; expected the whole disk and a ${w} px margin inside the ${detY} × ${detX} detector`,
       );
     }
@@ -188,7 +188,7 @@ export function findBrightFieldDisk(
 }
 
 function noDisk(why: string): InputError {
-  return new InputError(`findBrightFieldDisk: no bright-field disk found (${why}); expected a mean pattern with a bright central disk`);
+  return new InputError(`bright-field disk: no disk found — ${why}; expected a mean pattern with a bright central disk`);
 }
 
 /**

@@ -61,9 +61,9 @@ export type CalibrationInput =
  */
 export function calibrate(input: CalibrationInput): Calibration {
   if (input === null || typeof input !== 'object') {
-    throw new InputError(`calibration: expected an object with a source, got ${String(input)}`);
+    throw new InputError(`calibration settings: got ${String(input)}; expected an object naming the calibration source`);
   }
-  validateAcceleratingVoltageKV(input.energyKeV, 'calibration: energyKeV (beam energy)');
+  validateAcceleratingVoltageKV(input.energyKeV, 'beam energy (energyKeV)');
   const wavelengthPm = electronWavelengthPm(input.energyKeV);
   const scanStepNm = input.scanStepNm === undefined ? undefined : positive(input.scanStepNm, 'scanStepNm', 'nm');
   let mradPerPixel: number;
@@ -85,7 +85,7 @@ export function calibrate(input: CalibrationInput): Calibration {
     }
     default:
       throw new InputError(
-        `calibration: source ${JSON.stringify((input as { source?: unknown }).source)}; expected 'convergence-angle' or 'lattice-spacing'`,
+        `calibration source ${JSON.stringify((input as { source?: unknown }).source)} is not known; expected 'convergence-angle' or 'lattice-spacing'`,
       );
   }
   const calibration: Calibration = { energyKeV: input.energyKeV, wavelengthPm, mradPerPixel, inverseAngstromPerPixel, source: input.source };
@@ -127,14 +127,23 @@ export function latticeSpacingAngstromAtPixels(px: number, cal: Calibration): nu
 /** A distance of `positions` scan steps, in nm. Throws InputError when the scan step is not calibrated. */
 export function scanPositionsToNm(positions: number, cal: Calibration): number {
   if (cal.scanStepNm === undefined) {
-    throw new InputError('calibration: no scan step (scanStepNm) is set; expected the distance between probe positions in nm');
+    throw new InputError('scan step: not calibrated (scanStepNm is not set); expected the distance between probe positions in nm');
   }
   return positions * cal.scanStepNm;
 }
 
+/** Plain names for the calibration fields, for messages. */
+const FIELD_LABELS: Record<string, string> = {
+  scanStepNm: 'scan step',
+  convergenceSemiAngleMrad: 'convergence semi-angle',
+  diskRadiusPx: 'bright-field disk radius',
+  latticeSpacingAngstrom: 'lattice spacing',
+  braggDistancePx: 'Bragg disk distance',
+};
+
 function positive(value: number, name: string, unit: string): number {
   if (typeof value !== 'number' || !Number.isFinite(value) || value <= 0) {
-    throw new InputError(`calibration: ${name} = ${String(value)}; expected a finite number > 0 (${unit})`);
+    throw new InputError(`${FIELD_LABELS[name] ?? name} (${name}) = ${String(value)}; expected a finite number > 0 (${unit})`);
   }
   return value;
 }

@@ -81,21 +81,21 @@ export function descan(
       removedY = { a: 0, b: 0, c: 0 };
       break;
     case 'mean':
-      removedX = { a: finiteMean(comX, null, 'comX', 'the scan'), b: 0, c: 0 };
-      removedY = { a: finiteMean(comY, null, 'comY', 'the scan'), b: 0, c: 0 };
+      removedX = { a: finiteMean(comX, null, 'centre-of-mass x', 'the scan'), b: 0, c: 0 };
+      removedY = { a: finiteMean(comY, null, 'centre-of-mass y', 'the scan'), b: 0, c: 0 };
       break;
     case 'reference':
       checkMap('reference mask', mode.mask, scanY, scanX);
-      removedX = { a: finiteMean(comX, mode.mask, 'comX', 'the reference region'), b: 0, c: 0 };
-      removedY = { a: finiteMean(comY, mode.mask, 'comY', 'the reference region'), b: 0, c: 0 };
+      removedX = { a: finiteMean(comX, mode.mask, 'centre-of-mass x', 'the reference region'), b: 0, c: 0 };
+      removedY = { a: finiteMean(comY, mode.mask, 'centre-of-mass y', 'the reference region'), b: 0, c: 0 };
       break;
     case 'plane':
-      removedX = fitPlane(comX, scanY, scanX, 'comX');
-      removedY = fitPlane(comY, scanY, scanX, 'comY');
+      removedX = fitPlane(comX, scanY, scanX, 'centre-of-mass x');
+      removedY = fitPlane(comY, scanY, scanX, 'centre-of-mass y');
       break;
     default: {
       const unknown: never = mode;
-      throw new InputError(`descan: unknown mode ${JSON.stringify(unknown)}; expected none, mean, reference or plane`);
+      throw new InputError(`descan correction: unknown mode ${JSON.stringify(unknown)}; expected none, mean, reference or plane`);
     }
   }
   return {
@@ -116,7 +116,7 @@ function finiteMean(values: Float64Array, mask: Uint8Array | null, name: string,
     }
   }
   if (count === 0) {
-    throw new InputError(`descan: ${where} has no scan position with a finite ${name}; expected at least one`);
+    throw new InputError(`descan correction: ${where} has no scan position with a finite ${name}; expected at least one`);
   }
   return sum / count;
 }
@@ -137,7 +137,7 @@ function fitPlane(values: Float64Array, scanY: number, scanX: number, name: stri
       sz += v;
     }
   }
-  if (n === 0) throw new InputError(`descan: no scan position has a finite ${name}; expected at least one to fit a plane`);
+  if (n === 0) throw new InputError(`descan correction: no scan position has a finite ${name}; expected at least one to fit a plane`);
   const mx = sx / n;
   const my = sy / n;
   const mz = sz / n;
@@ -166,7 +166,7 @@ function fitPlane(values: Float64Array, scanY: number, scanX: number, name: stri
   if (sxx > 0 && syy > 0) {
     const det = sxx * syy - sxy * sxy;
     if (!(det > 1e-12 * sxx * syy)) {
-      throw new InputError(`descan: the finite ${name} values lie on one line of the scan; a plane needs positions off that line`);
+      throw new InputError(`descan correction: the finite ${name} values lie on one line of the scan; expected positions off that line to fit a plane`);
     }
     b = (sxz * syy - syz * sxy) / det;
     c = (syz * sxx - sxz * sxy) / det;
@@ -356,8 +356,8 @@ export function integrateCom(
   if (!(cutoff >= 0) || !Number.isFinite(cutoff)) {
     throw new InputError(`integrated COM: high-pass cutoff must be a finite number ≥ 0 cycles per scan step, got ${cutoff}`);
   }
-  const fx = fillNonFinite(gx, scanY, scanX, 'COM x');
-  const fy = fillNonFinite(gy, scanY, scanX, 'COM y');
+  const fx = fillNonFinite(gx, scanY, scanX, 'centre-of-mass x');
+  const fy = fillNonFinite(gy, scanY, scanX, 'centre-of-mass y');
   let nonFiniteCount = 0;
   for (let i = 0; i < gx.length; i++) if (!Number.isFinite(gx[i]) || !Number.isFinite(gy[i])) nonFiniteCount++;
 
@@ -569,7 +569,11 @@ export function estimateRotation(
   const plain = curlDivSums(comX, comY, scanY, scanX);
   const flipped = curlDivSums(comY, comX, scanY, scanX);
   if (plain.count === 0) {
-    throw new InputError(`rotation estimate: no ${scanY}×${scanX} scan position has a finite COM and finite neighbours; expected some`);
+    throw new InputError(
+      `rotation estimate: too few scan positions have a centre of mass (none of the ${scanY}×${scanX} positions has a finite one ` +
+      'with finite neighbours; patterns with zero total intensity have none), so the rotation cannot be estimated; ' +
+      'expected neighbouring scan positions with a centre of mass, or give the rotation and flip by hand',
+    );
   }
   const bestPlain = minimiseCurl(plain);
   const bestFlipped = minimiseCurl(flipped);

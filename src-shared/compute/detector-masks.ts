@@ -287,7 +287,9 @@ export function emptyError(shape: DetectorShape, h: number, w: number, ctx: Shap
   const where = `${describeShape(shape)}${weighted ? ' (weighted)' : ''}`;
   const grid = `the ${h}×${w} ${ctx.grid} (${ctx.cell} centres x 0..${w - 1}, y 0..${h - 1})`;
   if (coveredBeforeExclusion > 0) {
-    return new InputError(`empty ${ctx.noun}: every one of the ${coveredBeforeExclusion} ${ctx.cell}s that ${where} covers on ${grid} is marked bad`);
+    const covered = coveredBeforeExclusion === 1 ? `1 ${ctx.cell}` : `${coveredBeforeExclusion} ${ctx.cell}s`;
+    const all = coveredBeforeExclusion === 1 ? 'it is' : 'every one of them is';
+    return new InputError(`empty ${ctx.noun}: ${where} covers ${covered} of ${grid}, and ${all} marked bad; expected at least one good ${ctx.cell} under it`);
   }
   const e = extentOf(shape);
   const outside = e !== null && (e.xMax < -0.5 || e.xMin > w - 0.5 || e.yMax < -0.5 || e.yMin > h - 0.5);

@@ -150,7 +150,7 @@ describe('findBrightFieldDisk', () => {
 
   it('throws InputError when there is no disk: all zeros, flat, pure noise, or non-finite', () => {
     const n = 64 * 64;
-    expect(() => findBrightFieldDisk(new Float64Array(n), 64, 64)).toThrow(/no bright-field disk/);
+    expect(() => findBrightFieldDisk(new Float64Array(n), 64, 64)).toThrow(/bright-field disk: no disk found/);
     expect(() => findBrightFieldDisk(new Float64Array(n).fill(7.5), 64, 64)).toThrow(InputError);
     expect(() => findBrightFieldDisk(new Float64Array(n).fill(NaN), 64, 64)).toThrow(InputError);
     for (const [lambda, seed] of [[0.5, 1], [5, 2], [50, 3], [50, 4], [1000, 5]]) {

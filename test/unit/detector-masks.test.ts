@@ -371,7 +371,7 @@ describe('bad input', () => {
   it('bad pixels covering the whole detector make it empty', () => {
     const exclude = new Uint8Array(H * W).fill(1);
     // reference: 13 lattice points lie within distance 2 of a lattice point: itself, (±1,0), (0,±1), (±2,0), (0,±2), (±1,±1)
-    bad({ kind: 'disk', cx: 10, cy: 10, r: 2 }, /empty detector: every one of the 13 pixels that disk cx=10 cy=10 r=2 covers .* is marked bad/, false, { excludePixels: exclude });
+    bad({ kind: 'disk', cx: 10, cy: 10, r: 2 }, /empty detector: disk cx=10 cy=10 r=2 covers 13 pixels of the 37×41 detector .*, and every one of them is marked bad/, false, { excludePixels: exclude });
     bad({ kind: 'disk', cx: 10, cy: 10, r: 2 }, /marked bad/, true, { excludePixels: exclude });
     bad({ kind: 'disk', cx: 10, cy: 10, r: 2 }, /bad-pixel map holds 5 values, expected detY × detX = 37 × 41/, false, { excludePixels: new Uint8Array(5) });
   });
