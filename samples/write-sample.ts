@@ -59,6 +59,9 @@ export async function writeSample(opts: WriteSampleOptions): Promise<{ path: str
   if (!info) throw new InputError(`sample size "${opts.size}" is not known; expected one of ${Object.keys(SAMPLE_SIZES).join(', ')}`);
   const scenario = Scenario.create(opts.size, opts.seed ?? DEFAULT_SEED);
   const out = OutputFile.create(opts.out, { flag: '--out' });
+  const { scanY, scanX, detY, detX } = info.shape;
+  // Frames are uint16; gzip at least halves this scenario's frames (noise and empty detector areas).
+  out.reserve((scanY * scanX * detY * detX * 2) / (info.gzipLevel === null ? 1 : 2));
   const file = await writeHdf5(out, (f) => writeContents(f, scenario, info, opts));
   return { path: file, datasetPath: FRAMES_PATH, shape: { ...info.shape } };
 }

@@ -90,10 +90,14 @@ async function withEngine<T>(options: EngineOptions, fn: (e: Engine) => Promise<
   }
 }
 
-/** Describe the source on a worker, and protect every file its data comes from against --out. */
-async function describeProtected(engine: Engine, spec: SourceSpec, out: OutputFile) {
+/**
+ * Describe the source on a worker, protect every file its data comes from against --out, and
+ * check there is room for the results (float64 values per scan position and per detector pixel).
+ */
+export async function describeProtected(engine: Engine, spec: SourceSpec, out: OutputFile, valuesPer: { scan: number; pattern: number }) {
   const d = await engine.describe(spec);
   out.protect(d.sourceFiles);
+  out.reserve(8 * (valuesPer.scan * d.shape.scanY * d.shape.scanX + valuesPer.pattern * d.shape.detY * d.shape.detX));
   return d;
 }
 
@@ -143,7 +147,8 @@ export async function cmdImage(args: string[], engineOptions: (v: Record<string,
   const out = outputFlag(v.out, 'image', [spec.path, ...flagFiles(v, 'mask')]);
   const quiet = v.quiet === true;
   await withEngine(engineOptions(v as Record<string, unknown>), async (engine) => {
-    const { detY, detX, scanY, scanX } = (await describeProtected(engine, spec, out)).shape;
+    const nDetectors = (parsed.tokens ?? []).filter((t) => t.kind === 'option' && ['disk', 'annulus', 'rect', 'polygon', 'mask'].includes(t.name)).length;
+    const { detY, detX, scanY, scanX } = (await describeProtected(engine, spec, out, { scan: nDetectors, pattern: 0 })).shape;
     const shapes = detectorShapes(parsed.tokens, detY, detX);
     if (shapes.length === 0) throw new InputError('image needs at least one detector: --disk, --annulus, --rect, --polygon or --mask');
     const specs: DetectorSpec[] = shapes.map((shape) => ({ shape, weighted: v.weighted === true }));
@@ -196,7 +201,8 @@ export async function cmdCom(args: string[], engineOptions: (v: Record<string, u
   }
   const descanRect = typeof v['descan-region'] === 'string' ? rectangleFlag('descan-region', v['descan-region']) : null;
   await withEngine(engineOptions(v as Record<string, unknown>), async (engine) => {
-    const { detY, detX, scanY, scanX } = (await describeProtected(engine, spec, out)).shape;
+    // Up to 11 maps of the scan: COM x/y, total, magnitude, direction, divergence, curl, phase and three calibrated ones.
+    const { detY, detX, scanY, scanX } = (await describeProtected(engine, spec, out, { scan: 11, pattern: 0 })).shape;
     // Everything the user typed is checked before any pass over the data.
     let mode: DescanMode;
     if (descanRect) {
@@ -351,7 +357,7 @@ export async function cmdPattern(args: string[], engineOptions: (v: Record<strin
   const rect = typeof v['region-rect'] === 'string' ? rectangleFlag('region-rect', v['region-rect']) : null;
   const out = outputFlag(v.out, 'pattern', [spec.path, ...flagFiles(v, 'region-mask')]);
   await withEngine(engineOptions(v as Record<string, unknown>), async (engine) => {
-    const { detY, detX, scanY, scanX } = (await describeProtected(engine, spec, out)).shape;
+    const { detY, detX, scanY, scanX } = (await describeProtected(engine, spec, out, { scan: 0, pattern: 2 })).shape;
     let shape: RegionShape;
     if (rect) {
       shape = { kind: 'rectangle', ...rect };

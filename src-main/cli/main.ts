@@ -14,7 +14,7 @@ import { runBenchmark } from '../engine/first-pass.bench';
 import { projectRoot } from '../engine/paths';
 import { findBadPixels, replaceBadPixels } from '../../src-shared/compute/bad-pixels';
 import { findBrightFieldDisk } from '../../src-shared/compute/bright-field-disk';
-import { ANALYSIS_HELP, REGION_HELP, cmdCalibrate, cmdCom, cmdImage, cmdPattern, noteNonFiniteResults } from './analysis-commands';
+import { ANALYSIS_HELP, REGION_HELP, cmdCalibrate, cmdCom, cmdImage, cmdPattern, describeProtected, noteNonFiniteResults } from './analysis-commands';
 
 const HELP = `scanfold — exploratory analysis of 4D-STEM datasets far larger than memory
 
@@ -41,8 +41,12 @@ engine flags:
   --kernel wasm|reference kernels: WebAssembly SIMD (default) or the plain TypeScript reference
   --quiet                 no progress bar
 
+--out: written to a temporary file beside it and renamed when complete; never a file the command
+reads, a folder, a device or a FIFO; a symlink is written through to its target.
+
 Results are exploratory: check quantitative claims against your own validation.
-Exit status: 0 success, 2 bad input (nothing is written to --out), 1 other failure.`;
+Exit status: 0 success, 2 bad input or --out (nothing is written), 1 write failure or other error,
+130 interrupted.`;
 
 const ENGINE_OPTIONS = {
   workers: { type: 'string' },
@@ -86,7 +90,7 @@ async function runSummary(spec: ReturnType<typeof sourceSpecFromFlags>, values: 
   for (const note of engine.notes) process.stderr.write(`note: ${note}\n`);
   try {
     // Every file the data comes from is known before the pass, and protected from --out.
-    out.protect((await engine.describe(spec)).sourceFiles);
+    await describeProtected(engine, spec, out, { scan: 1, pattern: 2 });
     return await runJobWithProgress(engine.firstPass(spec), 'first pass', quiet);
   } finally {
     await engine.close();

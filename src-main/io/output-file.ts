@@ -8,6 +8,7 @@ import * as nodePath from 'node:path';
 import { randomBytes } from 'node:crypto';
 import { InputError, OutputError } from '../../src-shared/model/errors';
 import { errnoText, fileKindText, sameFile, type FileIdentity } from './input-file';
+import { fmtBytes } from '../../src-shared/model/bytes';
 
 export interface OutputOptions {
   /** How the user named it, for messages ("--out"). */
@@ -15,6 +16,9 @@ export interface OutputOptions {
   /** Files the command reads; the output may not be any of them. */
   protect?: readonly string[];
 }
+
+/** HDF5's metadata and attributes beside the result arrays, generously. */
+const RESULT_OVERHEAD_BYTES = 256 * 1024;
 
 /** Temporary files of this process not yet renamed or removed, removed at exit. */
 const pending = new Map<string, FileIdentity>();
@@ -107,6 +111,25 @@ export class OutputFile {
       if (!this.protectedPaths.includes(abs)) this.protectedPaths.push(abs);
     }
     this.checkNotAnInput();
+  }
+
+  /**
+   * Refuse now, before any pass, when the folder lacks room for about `bytes` of results (plus
+   * HDF5's own overhead). The disk can still fill up during the pass; `write` reports that.
+   */
+  reserve(bytes: number): void {
+    const dir = nodePath.dirname(this.path);
+    let free: number;
+    try {
+      const st = fs.statfsSync(dir);
+      free = st.bavail * st.bsize;
+    } catch {
+      return; // not knowable here; the write itself will tell
+    }
+    const need = Math.ceil(bytes * 1.1) + RESULT_OVERHEAD_BYTES;
+    if (free < need) {
+      throw new InputError(`${this.flag} ${this.requested}: the results need about ${fmtBytes(need)}, but the folder ${dir} has only ${fmtBytes(free)} free; nothing was written`, 'bad-output');
+    }
   }
 
   /**

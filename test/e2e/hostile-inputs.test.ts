@@ -163,7 +163,7 @@ describe.skipIf(!isRoot)('write failures and signals (staged as root: another us
     const p = spawnSync(PYTHON, ['-c', `import numpy as np, sys
 np.save(sys.argv[1] + '/wide.npy', np.ones((1, 2, 512, 512), dtype='<u2'))
 np.save(sys.argv[1] + '/small.npy', np.ones((3, 4, 16, 16), dtype='<u2'))
-np.ones((160, 64, 64, 64), dtype='<u2').tofile(sys.argv[1] + '/long.raw')`, work], { encoding: 'utf8' });
+np.ones((320, 64, 64, 64), dtype='<u2').tofile(sys.argv[1] + '/long.raw')`, work], { encoding: 'utf8' });
     if (p.status !== 0) throw new Error(p.stderr);
     for (const f of fs.readdirSync(work)) fs.chmodSync(path.join(work, f), 0o644);
   });
@@ -197,22 +197,46 @@ np.ones((160, 64, 64, 64), dtype='<u2').tofile(sys.argv[1] + '/long.raw')`, work
     expect(fs.readdirSync(open)).toEqual([]);
   });
 
-  it('a full disk ends in one line naming the file and the cause, leaving nothing behind', (ctx) => {
+  it('too little free space is refused before any pass; a disk filled during the pass ends in one line, leaving nothing', async (ctx) => {
     const full = path.join(work, 'full');
     fs.mkdirSync(full);
-    const m = spawnSync('mount', ['-t', 'tmpfs', '-o', 'size=1m', 'tmpfs', full], { encoding: 'utf8' });
+    const m = spawnSync('mount', ['-t', 'tmpfs', '-o', 'size=8m', 'tmpfs', full], { encoding: 'utf8' });
     if (m.status !== 0) ctx.skip(`cannot mount a tmpfs here: ${m.stderr.trim()}`);
-    // 512×512 float64 mean and max patterns are 4 MiB: they cannot fit in 1 MiB.
-    const r = scanfold(['summary', path.join(work, 'wide.npy'), '--out', path.join(full, 'o.h5'), '--quiet']);
-    expect(r.code).toBe(1);
-    expect(r.err.trim()).toMatch(/^scanfold: could not write .*full\/o\.h5: no space left on the device; nothing was left behind$/);
+    // Before the pass: 512×512 float64 mean and max patterns (4 MiB) with only ~1 MiB free.
+    fs.writeFileSync(path.join(full, 'filler'), Buffer.alloc(7 << 20));
+    const early = scanfold(['summary', path.join(work, 'wide.npy'), '--out', path.join(full, 'o.h5')]);
+    expect(early.code).toBe(2);
+    expect(early.err.trim()).toMatch(/^scanfold: --out .*full\/o\.h5: the results need about .* but the folder .*full has only .* free; nothing was written$/);
+    expect(early.err).not.toMatch(/first pass/);
+    fs.rmSync(path.join(full, 'filler'));
+    expect(fs.readdirSync(full)).toEqual([]);
+
+    // During the pass: another program fills the disk after the temporary file was created.
+    const out = path.join(full, 'o.h5');
+    const child = spawn(process.execPath, [BIN, 'summary', path.join(work, 'long.raw'), '--raw-shape', '320,64,64,64', '--dtype', 'uint16',
+      '--kernel', 'reference', '--workers', '1', '--budget', '48MiB', '--out', out], { stdio: ['ignore', 'ignore', 'pipe'] });
+    let err = '';
+    child.stderr.on('data', (b) => { err += b; });
+    // The progress bar's first line says the pass is under way.
+    const t0 = Date.now();
+    while (!/first pass \[/.test(err) && Date.now() - t0 < 20_000) await new Promise((r) => setTimeout(r, 2));
+    expect(fs.readdirSync(full)).toHaveLength(1);
+    const fd = fs.openSync(path.join(full, 'filler'), 'w');
+    try { for (;;) fs.writeSync(fd, Buffer.alloc(64 << 10)); } catch (e) { expect((e as NodeJS.ErrnoException).code).toBe('ENOSPC'); }
+    fs.closeSync(fd);
+    const code = await new Promise<number | null>((resolve) => child.on('exit', (c) => resolve(c)));
+    fs.rmSync(path.join(full, 'filler'));
+    expect(code, err).toBe(1);
+    const messages = err.split('\n').filter((l) => l && !/^first pass \[/.test(l));
+    expect(messages).toHaveLength(1);
+    expect(messages[0]).toMatch(/^scanfold: could not write .*full\/o\.h5: no space left on the device; nothing was left behind$/);
     expect(fs.readdirSync(full)).toEqual([]);
   });
 
   for (const [signal, code] of [['SIGINT', 130], ['SIGTERM', 143]] as const) {
     it(`${signal} during a pass leaves no temporary file`, async () => {
       const out = path.join(work, `sig-${signal}.h5`);
-      const child = spawn(process.execPath, [BIN, 'summary', path.join(work, 'long.raw'), '--raw-shape', '160,64,64,64', '--dtype', 'uint16',
+      const child = spawn(process.execPath, [BIN, 'summary', path.join(work, 'long.raw'), '--raw-shape', '320,64,64,64', '--dtype', 'uint16',
         '--kernel', 'reference', '--workers', '1', '--budget', '48MiB', '--out', out, '--quiet'], { stdio: ['ignore', 'ignore', 'pipe'] });
       let err = '';
       child.stderr.on('data', (b) => { err += b; });
