@@ -7,6 +7,7 @@ import { spawnSync } from 'node:child_process';
 import { Engine } from './engine';
 import { openTileSource } from '../io/index';
 import { writeSample } from '../../samples/write-sample';
+import { OutputFile } from '../io/output-file';
 import { projectRoot } from './paths';
 import { fmtBytes } from './budget';
 import { allocTyped } from '../../src-shared/model/dtype';
@@ -50,19 +51,25 @@ async function ensureLarge(dir: string): Promise<{ h5: string; raw: string; shap
   const { scanY, scanX, detY, detX } = src.descriptor.shape;
   if (!fs.existsSync(raw) || fs.statSync(raw).size !== src.descriptor.byteSize) {
     console.error(`writing a raw copy ${raw} for the memmap comparison …`);
-    const fd = fs.openSync(raw + '.partial', 'w');
-    const rows = 8;
-    const tile = allocTyped(src.descriptor.dtype, rows * scanX * detY * detX);
-    let pos = 0;
-    for (let r = 0; r < scanY; r += rows) {
-      const n = Math.min(rows, scanY - r);
-      const view = tile.subarray(0, n * scanX * detY * detX);
-      src.readRows(r, n, view);
-      fs.writeSync(fd, new Uint8Array(view.buffer, view.byteOffset, view.byteLength), 0, view.byteLength, pos);
-      pos += view.byteLength;
-    }
-    fs.closeSync(fd);
-    fs.renameSync(raw + '.partial', raw);
+    const out = OutputFile.create(raw, { flag: 'benchmark raw copy', protect: [h5] });
+    out.reserve(src.descriptor.byteSize);
+    await out.write((tmp) => {
+      const fd = fs.openSync(tmp, 'r+');
+      try {
+        const rows = 8;
+        const tile = allocTyped(src.descriptor.dtype, rows * scanX * detY * detX);
+        let pos = 0;
+        for (let r = 0; r < scanY; r += rows) {
+          const n = Math.min(rows, scanY - r);
+          const view = tile.subarray(0, n * scanX * detY * detX);
+          src.readRows(r, n, view);
+          fs.writeSync(fd, new Uint8Array(view.buffer, view.byteOffset, view.byteLength), 0, view.byteLength, pos);
+          pos += view.byteLength;
+        }
+      } finally {
+        fs.closeSync(fd);
+      }
+    });
   }
   src.close();
   return { h5, raw, shape: [scanY, scanX, detY, detX] };
