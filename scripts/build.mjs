@@ -39,6 +39,8 @@ function newestMtime(dir) {
 const entries = {
   'cli': 'src-main/cli/main.ts',
   'tile-worker': 'src-main/workers/tile-worker.ts',
+  // Not shipped (electron-builder.yml leaves it out): `npm run bench`.
+  'bench': 'bench/main.ts',
 };
 const existing = Object.fromEntries(Object.entries(entries).filter(([, p]) => fs.existsSync(path.join(root, p))));
 if (Object.keys(existing).length) {

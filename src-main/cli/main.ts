@@ -10,7 +10,6 @@ import type { FirstPassSummary } from '../engine/first-pass';
 import { outputFlag, parseFlags, rejectExtraPositionals, SOURCE_HELP, SOURCE_OPTIONS, sourceSpecFromFlags, wholeNumber } from './source-flags';
 import { interruptRunningJob, runJobWithProgress } from './progress';
 import { writeSample, SAMPLE_SIZES } from '../../samples/write-sample';
-import { runBenchmark } from '../engine/first-pass.bench';
 import { projectRoot } from '../engine/paths';
 import { findBadPixels, replaceBadPixels } from '../../src-shared/compute/bad-pixels';
 import { findBrightFieldDisk } from '../../src-shared/compute/bright-field-disk';
@@ -29,8 +28,6 @@ ${REGION_HELP}
       write a demo dataset of our own synthetic scenario (with its ground truth under /truth)
   scanfold demo [--dir DIR]
       make the demo dataset (once) and run the first pass over it, printing what it found
-  scanfold bench [--dir DIR] [--workers N]
-      benchmark the first pass on the 2 GiB 'large' sample (generated once into DIR)
 
 ${SOURCE_HELP}
 
@@ -189,13 +186,6 @@ async function cmdDemo(args: string[]) {
   }, null, 2) + '\n');
 }
 
-async function cmdBench(args: string[]) {
-  const { values } = parse(args, { dir: { type: 'string' }, workers: { type: 'string' } });
-  const dir = path.resolve(typeof values.dir === 'string' ? values.dir : path.join(projectRoot(), 'bench-data'));
-  const workers = values.workers === undefined ? 2 : engineOptions(values).workers!;
-  await runBenchmark({ dir, workers });
-}
-
 /** parseArgs throws TypeErrors with codes for unknown or malformed flags: those are bad input. */
 async function wrapParse(fn: () => Promise<void>): Promise<void> {
   try {
@@ -223,8 +213,7 @@ export async function main(argv: string[]): Promise<number> {
       case 'com': await wrapParse(() => cmdCom(rest, engineOptions, ENGINE_OPTIONS)); break;
       case 'calibrate': await wrapParse(() => cmdCalibrate(rest, engineOptions, ENGINE_OPTIONS)); break;
       case 'pattern': await wrapParse(() => cmdPattern(rest, engineOptions, ENGINE_OPTIONS)); break;
-      case 'bench': await cmdBench(rest); break;
-      default: throw new InputError(`unknown command "${cmd}"; expected info, summary, image, com, calibrate, pattern, sample, demo or bench (see scanfold --help)`);
+      default: throw new InputError(`unknown command "${cmd}"; expected info, summary, image, com, calibrate, pattern, sample or demo (see scanfold --help; benchmarks: npm run bench)`);
     }
     return 0;
   } catch (e) {

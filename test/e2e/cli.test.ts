@@ -136,10 +136,12 @@ describe('scanfold CLI', () => {
     expect(r.err).not.toMatch(/\n\s+at /);
   });
 
-  it('bench --workers must be a number (it would otherwise wait forever)', () => {
-    const r = scanfold('bench', '--workers', 'abc');
+  it('benchmarks are not in the CLI or its bundle (npm run bench has its own entry)', () => {
+    const r = scanfold('bench');
     expect(r.code).toBe(2);
-    expect(r.err).toMatch(/--workers/);
+    expect(r.err).toMatch(/npm run bench/);
+    const bundle = fs.readFileSync(path.join(root, 'dist/cli.mjs'), 'utf8');
+    expect(bundle).not.toMatch(/runBenchmark|numpy_first_pass/);
   });
 
   it('numeric attributes are float64 whatever their value (h5py reads the type)', () => {

@@ -4,13 +4,13 @@
 import fs from 'node:fs';
 import path from 'node:path';
 import { spawnSync } from 'node:child_process';
-import { Engine } from './engine';
-import { openTileSource } from '../io/index';
-import { writeSample } from '../../samples/write-sample';
-import { OutputFile } from '../io/output-file';
-import { projectRoot } from './paths';
-import { fmtBytes } from './budget';
-import { allocTyped } from '../../src-shared/model/dtype';
+import { Engine } from '../src-main/engine/engine';
+import { openTileSource } from '../src-main/io/index';
+import { writeSample } from '../samples/write-sample';
+import { OutputFile } from '../src-main/io/output-file';
+import { projectRoot } from '../src-main/engine/paths';
+import { fmtBytes } from '../src-main/engine/budget';
+import { allocTyped } from '../src-shared/model/dtype';
 import { runAnalysesBenchmark } from './analyses.bench';
 
 const PY = '/usr/bin/python3';
@@ -116,7 +116,7 @@ export async function runBenchmark(opts: { dir: string; workers: number }): Prom
   const bytes = fpRaw.descriptor.byteSize;
   let numpy: Record<string, number | string> | null = null;
   if (fs.existsSync(PY)) {
-    const p = spawnSync(PY, [path.join(projectRoot(), 'src-main/engine/numpy_first_pass.py'), raw, String(sy), String(sx), String(ky), String(kx)], { encoding: 'utf8' });
+    const p = spawnSync(PY, [path.join(projectRoot(), 'bench/numpy_first_pass.py'), raw, String(sy), String(sx), String(ky), String(kx)], { encoding: 'utf8' });
     if (p.status === 0) numpy = JSON.parse(p.stdout.trim().split('\n').pop()!);
     else console.error('NumPy comparison skipped: ' + (p.stderr || p.error?.message));
   }

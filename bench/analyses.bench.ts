@@ -4,12 +4,12 @@
 import fs from 'node:fs';
 import path from 'node:path';
 import { spawnSync } from 'node:child_process';
-import type { SourceSpec } from '../../src-shared/model/dataset';
-import type { DetectorSpec } from '../../src-shared/model/detectors';
-import { compileDetector } from '../../src-shared/compute/detector-masks';
-import { Engine } from './engine';
-import { previewDetectorImages } from './preview';
-import { projectRoot } from './paths';
+import type { SourceSpec } from '../src-shared/model/dataset';
+import type { DetectorSpec } from '../src-shared/model/detectors';
+import { compileDetector } from '../src-shared/compute/detector-masks';
+import { Engine } from '../src-main/engine/engine';
+import { previewDetectorImages } from '../src-main/engine/preview';
+import { projectRoot } from '../src-main/engine/paths';
 
 const PY = '/usr/bin/python3';
 
@@ -53,7 +53,7 @@ export async function runAnalysesBenchmark(opts: { raw: string; shape: number[];
       // current one; unset both for the NumPy side alone, as a user's NumPy runs.
       const env = { ...process.env };
       delete env.OPENBLAS_CORETYPE; delete env.OPENBLAS_L2_SIZE;
-      const p = spawnSync(PY, [path.join(projectRoot(), 'src-main/engine/numpy_detectors.py'), opts.raw, String(sy), String(sx), String(ky), String(kx)], { encoding: 'utf8', env });
+      const p = spawnSync(PY, [path.join(projectRoot(), 'bench/numpy_detectors.py'), opts.raw, String(sy), String(sx), String(ky), String(kx)], { encoding: 'utf8', env });
       if (p.status === 0) numpy = JSON.parse(p.stdout.trim().split('\n').pop()!);
       else console.error('NumPy comparison skipped: ' + (p.stderr || p.error?.message));
     }

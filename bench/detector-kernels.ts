@@ -3,7 +3,7 @@
 // once, centre of mass unmasked and masked — next to a plain read of the same bytes from the
 // page cache, NumPy doing the same sums, and the preview-cube images.
 // From the project root, after `npm run build`:
-//   npx esbuild scripts/bench-detector-kernels.ts --bundle --platform=node --format=esm --outfile=/tmp/bd.mjs && node /tmp/bd.mjs
+//   npx esbuild bench/detector-kernels.ts --bundle --platform=node --format=esm --outfile=/tmp/bd.mjs && node /tmp/bd.mjs
 // Options: --patterns N (4096), --repeats N (5), --dtype D (uint16), --skip-numpy, --sweep
 //          (runs over a detector's own pixels vs the dense sweep, for annuli, disks and scattered
 //          pixels: where SPARSE_RULE in virtual-image-wasm.ts and com-wasm.ts comes from).

@@ -2,7 +2,7 @@
 // 16 scan rows × 256 × 128×128 (128 MiB of uint16), detBin 4, scanBin 1, all four outputs,
 // next to plain memory reads of the same tile and the TypeScript reference.
 // From the project root, after `npm run build`:
-//   npx esbuild scripts/bench-first-pass-kernel.ts --bundle --platform=node --format=esm --outfile=/tmp/bench-first-pass.mjs && node /tmp/bench-first-pass.mjs
+//   npx esbuild bench/first-pass-kernel.ts --bundle --platform=node --format=esm --outfile=/tmp/bench-first-pass.mjs && node /tmp/bench-first-pass.mjs
 // Options: --dtype D (uint16), --det-bin N (4), --scan-bin N (1), --rows N (16), --repeats N (5),
 //          --skip-reference, --wasm FILE (another build of wasm-src/first-pass.ts).
 import fs from 'node:fs';
