@@ -1,23 +1,17 @@
-// `scanfold image`, `scanfold com`, `scanfold calibrate`: virtual imaging, centre of mass and
-// calibration from the command line, through the same engine as the application.
+// `scanfold image`, `com`, `calibrate`, `pattern`: flags → one request to the engine service →
+// files. The analysis itself (bad pixels, detectors, the COM field, calibration) is the
+// service's; this file only parses, asks and writes.
 import path from 'node:path';
 import type { SourceSpec } from '../../src-shared/model/dataset';
-import type { DetectorShape, DetectorSpec, RegionShape } from '../../src-shared/model/detectors';
-import { InputError, isInputError } from '../../src-shared/model/errors';
-import { compileDetector, describeDetector } from '../../src-shared/compute/detector-masks';
-import { findBadPixels, replaceBadPixels } from '../../src-shared/compute/bad-pixels';
-import { findBrightFieldDisk } from '../../src-shared/compute/bright-field-disk';
-import { calibrate } from '../../src-shared/compute/calibration';
-import { electronWavelengthPm } from '../../src-shared/compute/wavelength';
-import { strongestRing } from '../../src-shared/compute/radial-profile';
-import { descan, rotateCom, divergence, curl, estimateRotation, integrateCom, magnitudeDirection, type DescanMode } from '../../src-shared/compute/com-field';
-import { compileRegion, describeRegion } from '../../src-shared/compute/region-masks';
-import { Engine, type EngineOptions } from '../engine/engine';
-import type { FirstPassSummary } from '../engine/first-pass';
+import type { DetectorShape, RegionShape } from '../../src-shared/model/detectors';
+import { InputError } from '../../src-shared/model/errors';
+import type { BadPixelsMode, DescanRequest } from '../../src-shared/contract/service';
+import type { EngineOptions } from '../engine/engine';
+import { EngineService } from '../engine/service';
 import { writeFloat64Results, type ResultArray, type WrittenResults } from '../io/write-results';
 import type { OutputFile } from '../io/output-file';
 import { readNpy2D } from '../io/npy-array';
-import { runJobWithProgress } from './progress';
+import { followJobs } from './progress';
 import { decimalNumber, numberList, outputFlag, parseFlags, rectangleFlag, rejectExtraPositionals, SOURCE_OPTIONS, sourceSpecFromFlags } from './source-flags';
 
 export const ANALYSIS_HELP = `  scanfold image FILE [source flags] --disk CX,CY,R --annulus CX,CY,R0,R1 --rect X0,Y0,X1,Y1
@@ -38,6 +32,8 @@ export const ANALYSIS_HELP = `  scanfold image FILE [source flags] --disk CX,CY,
       extra pass) and leaves them out of every detector and of the COM; none keeps every pixel.`;
 
 type Flags = Record<string, string | boolean | (string | boolean)[] | undefined>;
+type EngineFlags = Record<string, { type: 'string' | 'boolean' }>;
+type EngineOptionsOf = (v: Record<string, unknown>) => EngineOptions;
 
 const numbers = (flag: string, s: string, count: number) => numberList(flag, s, count);
 
@@ -46,6 +42,12 @@ function positive(flag: string, s: string | undefined): number | undefined {
   const v = decimalNumber(flag, s, 'a positive number');
   if (v <= 0) throw new InputError(`--${flag} ${s}: expected a positive number`);
   return v;
+}
+
+function badPixelsFlag(v: Flags): BadPixelsMode {
+  const mode = typeof v['bad-pixels'] === 'string' ? v['bad-pixels'] : 'auto';
+  if (mode !== 'auto' && mode !== 'none') throw new InputError(`--bad-pixels ${mode}: expected auto or none`);
+  return mode;
 }
 
 /** Detector flags in the order the user gave them. */
@@ -77,28 +79,30 @@ function detectorShapes(tokens: ReturnType<typeof parseFlags>['tokens'] | undefi
 }
 
 /**
- * Run `fn` on a fresh engine. With an output, its temporary file is removed whatever happens
- * unless `fn` wrote it.
+ * Run `fn` on a fresh engine service with progress on stderr (Ctrl-C cancels). With an output,
+ * its temporary file is removed whatever happens unless `fn` wrote it.
  */
-async function withEngine<T>(options: EngineOptions, fn: (e: Engine) => Promise<T>, out?: OutputFile): Promise<T> {
+export async function withService<T>(options: EngineOptions, quiet: boolean, fn: (s: EngineService) => Promise<T>, out?: OutputFile): Promise<T> {
   try {
-    const engine = new Engine(options);
-    for (const note of engine.notes) process.stderr.write(`note: ${note}\n`);
-    try { return await fn(engine); } finally { await engine.close(); }
+    const service = new EngineService(options);
+    for (const note of service.notes) process.stderr.write(`note: ${note}\n`);
+    const stop = followJobs(service, quiet);
+    try { return await fn(service); } finally { stop(); await service.shutdown(); }
   } finally {
     out?.discard();
   }
 }
 
 /**
- * Describe the source on a worker, protect every file its data comes from against --out, and
- * check there is room for the results (float64 values per scan position and per detector pixel).
+ * Open the source, protect every file its data comes from against --out, and check there is
+ * room for the results (float64 values per scan position and per detector pixel).
  */
-export async function describeProtected(engine: Engine, spec: SourceSpec, out: OutputFile, valuesPer: { scan: number; pattern: number }) {
-  const d = await engine.describe(spec);
+export async function openProtected(service: EngineService, spec: SourceSpec, out: OutputFile, valuesPer: { scan: number; pattern: number }) {
+  const opened = await service.open(spec);
+  const d = opened.descriptor;
   out.protect(d.sourceFiles);
   out.reserve(8 * (valuesPer.scan * d.shape.scanY * d.shape.scanX + valuesPer.pattern * d.shape.detY * d.shape.detX));
-  return d;
+  return opened;
 }
 
 /** Say on stderr which results are NaN or ±Inf (overflowed sums, divisions by zero). */
@@ -107,79 +111,54 @@ export function noteNonFiniteResults(w: WrittenResults, expected = ''): void {
   if (parts.length) process.stderr.write(`note: NaN or ±Inf result values (${parts.join(', ')})${expected}; their count is stored as non_finite_results\n`);
 }
 
-/** Input problems found by an analysis name the file they were found in. */
-function aboutFile<T>(file: string, fn: () => T): T {
-  try {
-    return fn();
-  } catch (e) {
-    if (isInputError(e) && !e.message.startsWith(file)) throw new InputError(`${file}: ${e.message}`, e.code);
-    throw e;
-  }
-}
-
 /** Paths given to a flag that takes a file, as absolute paths, to protect them from --out. */
 function flagFiles(v: Flags, ...names: string[]): string[] {
   return names.flatMap((n) => [v[n]].flat().filter((x): x is string => typeof x === 'string').map((x) => path.resolve(x)));
 }
 
-const runJob = runJobWithProgress;
-
-/** The bad-pixel mask from a first pass, or none. */
-async function badPixelMask(engine: Engine, spec: SourceSpec, mode: string, quiet: boolean): Promise<{ mask: Uint8Array | undefined; count: number; summary?: FirstPassSummary }> {
-  if (mode === 'none') return { mask: undefined, count: 0 };
-  if (mode !== 'auto') throw new InputError(`--bad-pixels ${mode}: expected auto or none`);
-  const s = await runJob(engine.firstPass(spec), 'first pass (bad pixels)', quiet);
-  const { detY, detX, scanY, scanX } = s.descriptor.shape;
-  const bad = findBadPixels(s.meanPattern, s.maxPattern, detY, detX, { patternCount: scanY * scanX });
-  return { mask: bad.mask, count: bad.hot.length + bad.dead.length, summary: s };
+function provenance(d: { path: string; datasetPath: string | null; fingerprint: string }, producer: string): Record<string, string> {
+  return { source_path: d.path, source_dataset: d.datasetPath ?? '', source_fingerprint: d.fingerprint, producer };
 }
 
-
-export async function cmdImage(args: string[], engineOptions: (v: Record<string, unknown>) => EngineOptions, engineFlags: Record<string, { type: 'string' | 'boolean' }>): Promise<void> {
+export async function cmdImage(args: string[], engineOptions: EngineOptionsOf, engineFlags: EngineFlags): Promise<void> {
   const parsed = parseFlags(args, {
-      ...SOURCE_OPTIONS, ...engineFlags, out: { type: 'string' }, weighted: { type: 'boolean' }, 'bad-pixels': { type: 'string' },
-      disk: { type: 'string', multiple: true }, annulus: { type: 'string', multiple: true }, rect: { type: 'string', multiple: true },
-      polygon: { type: 'string', multiple: true }, mask: { type: 'string', multiple: true },
-    });
+    ...SOURCE_OPTIONS, ...engineFlags, out: { type: 'string' }, weighted: { type: 'boolean' }, 'bad-pixels': { type: 'string' },
+    disk: { type: 'string', multiple: true }, annulus: { type: 'string', multiple: true }, rect: { type: 'string', multiple: true },
+    polygon: { type: 'string', multiple: true }, mask: { type: 'string', multiple: true },
+  });
   const v = parsed.values as Flags;
   rejectExtraPositionals(parsed.positionals, 'image');
   const spec = sourceSpecFromFlags(parsed.positionals[0], v as Record<string, unknown>);
+  const badPixels = badPixelsFlag(v);
   const out = outputFlag(v.out, 'image', [spec.path, ...flagFiles(v, 'mask')]);
   const quiet = v.quiet === true;
-  await withEngine(engineOptions(v as Record<string, unknown>), async (engine) => {
+  await withService(engineOptions(v as Record<string, unknown>), quiet, async (service) => {
     const nDetectors = (parsed.tokens ?? []).filter((t) => t.kind === 'option' && ['disk', 'annulus', 'rect', 'polygon', 'mask'].includes(t.name)).length;
-    const { detY, detX, scanY, scanX } = (await describeProtected(engine, spec, out, { scan: nDetectors, pattern: 0 })).shape;
+    const opened = await openProtected(service, spec, out, { scan: nDetectors, pattern: 0 });
+    const { detY, detX, scanY, scanX } = opened.descriptor.shape;
     const shapes = detectorShapes(parsed.tokens, detY, detX);
     if (shapes.length === 0) throw new InputError('image needs at least one detector: --disk, --annulus, --rect, --polygon or --mask');
-    const specs: DetectorSpec[] = shapes.map((shape) => ({ shape, weighted: v.weighted === true }));
-    // Check every detector before any pass over the data.
-    for (const s of specs) compileDetector(s, detY, detX);
-    const bad = await badPixelMask(engine, spec, typeof v['bad-pixels'] === 'string' ? v['bad-pixels'] : 'auto', quiet);
-    const compiled = specs.map((s) => ({ ...compileDetector(s, detY, detX, { excludePixels: bad.mask }), label: describeDetector(s) }));
-    const r = await runJob(engine.virtualImages(spec, compiled), 'virtual images', quiet);
+    const r = await service.virtualImages({ dataset: opened.id, detectors: shapes.map((shape) => ({ shape, weighted: v.weighted === true })), badPixels });
     const n = scanY * scanX;
-    const all = new Float64Array(specs.length * n);
+    const all = new Float64Array(r.images.length * n);
     r.images.forEach((img, k) => all.set(img, k * n));
-    const attrs: Record<string, string | number> = { detectors: JSON.stringify(specs.map(describeDetector)), bad_pixels_left_out: bad.count, non_finite_inputs: r.nonFinite };
-    specs.forEach((s, k) => { attrs[`detector_${k}`] = describeDetector(s); });
-    const written = await writeFloat64Results(out, { images: { data: all, shape: [specs.length, scanY, scanX], attrs } }, {
-      source_path: r.descriptor.path, source_dataset: r.descriptor.datasetPath ?? '', source_fingerprint: r.descriptor.fingerprint, producer: 'scanfold image',
-    });
+    const attrs: Record<string, string | number> = { detectors: JSON.stringify(r.labels), bad_pixels_left_out: r.badPixelsLeftOut, non_finite_inputs: r.nonFiniteInputs };
+    r.labels.forEach((label, k) => { attrs[`detector_${k}`] = label; });
+    const written = await writeFloat64Results(out, { images: { data: all, shape: [r.images.length, scanY, scanX], attrs } }, provenance(r.descriptor, 'scanfold image'));
     noteNonFiniteResults(written);
-    if (!quiet) process.stderr.write(`wrote ${written.path}: ${specs.length} image(s) ${scanY}×${scanX}${bad.count ? `, ${bad.count} bad detector pixel(s) left out` : ''}\n`);
+    if (!quiet) process.stderr.write(`wrote ${written.path}: ${r.images.length} image(s) ${scanY}×${scanX}${r.badPixelsLeftOut ? `, ${r.badPixelsLeftOut} bad detector pixel(s) left out` : ''}\n`);
   }, out);
 }
 
-export async function cmdCom(args: string[], engineOptions: (v: Record<string, unknown>) => EngineOptions, engineFlags: Record<string, { type: 'string' | 'boolean' }>): Promise<void> {
+export async function cmdCom(args: string[], engineOptions: EngineOptionsOf, engineFlags: EngineFlags): Promise<void> {
   const parsed = parseFlags(args, {
-      ...SOURCE_OPTIONS, ...engineFlags, out: { type: 'string' }, 'mask-disk': { type: 'string' }, threshold: { type: 'string' },
-      descan: { type: 'string' }, 'descan-region': { type: 'string' }, rotation: { type: 'string' }, flip: { type: 'string' }, 'bad-pixels': { type: 'string' },
-      'mrad-per-pixel': { type: 'string' }, 'energy-kev': { type: 'string' }, 'scan-step-nm': { type: 'string' },
-    });
+    ...SOURCE_OPTIONS, ...engineFlags, out: { type: 'string' }, 'mask-disk': { type: 'string' }, threshold: { type: 'string' },
+    descan: { type: 'string' }, 'descan-region': { type: 'string' }, rotation: { type: 'string' }, flip: { type: 'string' }, 'bad-pixels': { type: 'string' },
+    'mrad-per-pixel': { type: 'string' }, 'energy-kev': { type: 'string' }, 'scan-step-nm': { type: 'string' },
+  });
   const v = parsed.values as Flags;
   rejectExtraPositionals(parsed.positionals, 'com');
   const spec = sourceSpecFromFlags(parsed.positionals[0], v as Record<string, unknown>);
-  const out = outputFlag(v.out, 'com', [spec.path]);
   const quiet = v.quiet === true;
   const threshold = typeof v.threshold === 'string' ? decimalNumber('threshold', v.threshold) : 0;
   const descanName = typeof v.descan === 'string' ? v.descan : (typeof v['descan-region'] === 'string' ? 'reference' : 'none');
@@ -187,6 +166,9 @@ export async function cmdCom(args: string[], engineOptions: (v: Record<string, u
   if ((descanName === 'reference') !== (typeof v['descan-region'] === 'string')) {
     throw new InputError('--descan reference needs --descan-region X0,Y0,X1,Y1 (scan positions of a reference area such as vacuum), and that flag needs --descan reference');
   }
+  const descan: DescanRequest = typeof v['descan-region'] === 'string'
+    ? { kind: 'reference', region: rectangleFlag('descan-region', v['descan-region']) }
+    : { kind: descanName as 'none' | 'mean' | 'plane' };
   const rotationArg = typeof v.rotation === 'string' ? v.rotation : 'auto';
   const rotationGiven = rotationArg === 'auto' ? null : decimalNumber('rotation', rotationArg, 'auto or a number of degrees');
   const flipArg = typeof v.flip === 'string' ? v.flip : 'auto';
@@ -199,109 +181,53 @@ export async function cmdCom(args: string[], engineOptions: (v: Record<string, u
   if (cal.some((x) => x !== undefined) && cal.some((x) => x === undefined)) {
     throw new InputError('--mrad-per-pixel, --energy-kev and --scan-step-nm go together (they put the COM in mrad and the phase in radians)');
   }
-  const descanRect = typeof v['descan-region'] === 'string' ? rectangleFlag('descan-region', v['descan-region']) : null;
-  await withEngine(engineOptions(v as Record<string, unknown>), async (engine) => {
+  const maskDisk = typeof v['mask-disk'] === 'string' ? (([cx, cy, r]) => ({ cx, cy, r }))(numbers('mask-disk', v['mask-disk'], 3)) : undefined;
+  const badPixels = badPixelsFlag(v);
+  const out = outputFlag(v.out, 'com', [spec.path]);
+  await withService(engineOptions(v as Record<string, unknown>), quiet, async (service) => {
     // Up to 11 maps of the scan: COM x/y, total, magnitude, direction, divergence, curl, phase and three calibrated ones.
-    const { detY, detX, scanY, scanX } = (await describeProtected(engine, spec, out, { scan: 11, pattern: 0 })).shape;
-    // Everything the user typed is checked before any pass over the data.
-    let mode: DescanMode;
-    if (descanRect) {
-      mode = { kind: 'reference', mask: compileRegion({ kind: 'rectangle', ...descanRect }, scanY, scanX) };
-    } else {
-      mode = { kind: descanName as 'none' | 'mean' | 'plane' };
+    const opened = await openProtected(service, spec, out, { scan: 11, pattern: 0 });
+    const f = await service.comField({
+      dataset: opened.id, maskDisk, threshold, descan, badPixels,
+      rotation: rotationGiven === null ? 'auto' : { degrees: rotationGiven, flip: flipArg === 'yes' },
+      ...(cal[0] !== undefined ? { calibration: { mradPerPixel: cal[0], energyKeV: cal[1]!, scanStepNm: cal[2]! } } : {}),
+    });
+    if (!quiet) for (const note of f.notes) process.stderr.write(`note: ${note}\n`);
+    const shape = [f.scanY, f.scanX];
+    const arrays: Record<string, ResultArray> = {};
+    for (const [name, m] of Object.entries(f.maps)) {
+      arrays[name] = { data: m.data, shape, attrs: { units: m.units, ...(m.note ? { method: m.note } : {}) } };
     }
-    let maskSpec: DetectorSpec | null = null;
-    if (typeof v['mask-disk'] === 'string') {
-      const [cx, cy, r] = numbers('mask-disk', v['mask-disk'], 3);
-      maskSpec = { shape: { kind: 'disk', cx, cy, r } };
-      compileDetector(maskSpec, detY, detX);
-    }
-    const bad = await badPixelMask(engine, spec, typeof v['bad-pixels'] === 'string' ? v['bad-pixels'] : 'auto', quiet);
-    // Bad pixels leave the COM through the mask; with no mask given the mask is the whole detector.
-    const wantsMask = maskSpec !== null || bad.count > 0;
-    const file = bad.summary?.descriptor.path ?? spec.path;
-    if (maskSpec === null && bad.count >= detY * detX) {
-      throw new InputError(`${file}: every detector pixel was flagged as hot, dead or non-finite on the mean/max pattern, so no centre of mass can be computed; expected patterns with counts (or try --bad-pixels none)`);
-    }
-    const mask = wantsMask
-      ? aboutFile(file, () => compileDetector(maskSpec ?? { shape: { kind: 'rectangle', x0: 0, y0: 0, x1: detX - 1, y1: detY - 1 } }, detY, detX, { excludePixels: bad.mask }))
-      : null;
-    const sums = await runJob(engine.comSums(spec, { mask, threshold }), 'centre of mass', quiet);
-    const n = scanY * scanX;
-    const comX = new Float64Array(n), comY = new Float64Array(n);
-    let zeroTotal = 0;
-    for (let i = 0; i < n; i++) {
-      const t = sums.total[i];
-      if (t === 0) { comX[i] = NaN; comY[i] = NaN; zeroTotal++; continue; }
-      comX[i] = sums.sumX[i] / t;
-      comY[i] = sums.sumY[i] / t;
-    }
-    if (zeroTotal === n) {
-      throw new InputError(`${sums.descriptor.path}: every pattern has zero total intensity${maskSpec || threshold ? ' inside the COM mask above the threshold' : ''}, so no centre of mass can be computed; expected patterns with counts`);
-    }
-    const d = aboutFile(sums.descriptor.path, () => descan(comX, comY, scanY, scanX, mode));
-    let degrees: number, flip: boolean, estimate: ReturnType<typeof estimateRotation> | null = null;
-    if (rotationGiven === null) {
-      // A reference region given for the descan is vacuum, which also settles the 180° ambiguity.
-      estimate = aboutFile(sums.descriptor.path, () => estimateRotation(d.comX, d.comY, scanY, scanX, mode.kind === 'reference' ? { vacuumMask: mode.mask } : {}));
-      degrees = estimate.degrees; flip = estimate.flip;
-      if (estimate.curlRelative > 0.5 && !quiet) {
-        process.stderr.write(`note: the COM field has about as much curl at every angle (relative curl ${estimate.curlRelative.toFixed(2)}), ` +
-          'so the rotation estimate is weak; set --rotation and --flip by hand if you know them\n');
-      }
-    } else { degrees = rotationGiven; flip = flipArg === 'yes'; }
-    const rotated = rotateCom(d.comX, d.comY, degrees, flip);
-    const div = divergence(rotated.comX, rotated.comY, scanY, scanX);
-    const cu = curl(rotated.comX, rotated.comY, scanY, scanX);
-    const phase = integrateCom(rotated.comX, rotated.comY, scanY, scanX);
-    const md = magnitudeDirection(rotated.comX, rotated.comY);
-    const shape = [scanY, scanX];
-    const arrays: Record<string, ResultArray> = {
-      com_x: { data: rotated.comX, shape, attrs: { units: 'detector pixels' } },
-      com_y: { data: rotated.comY, shape, attrs: { units: 'detector pixels' } },
-      total_intensity: { data: sums.total, shape },
-      magnitude: { data: md.magnitude, shape, attrs: { units: 'detector pixels' } },
-      direction: { data: md.directionRadians, shape, attrs: { units: 'radians, atan2(com_y, com_x)' } },
-      divergence: { data: div, shape, attrs: { units: 'detector pixels per scan step' } },
-      curl: { data: cu, shape, attrs: { units: 'detector pixels per scan step' } },
-      phase: { data: phase.phase, shape, attrs: { units: 'detector pixels × scan steps (integrated COM)', method: 'Fourier integration, mirrored edges' } },
-    };
+    const rot = f.rotation;
     const rootAttrs: Record<string, string | number> = {
-      rotation_degrees: degrees, flip: flip ? 'yes' : 'no', rotation_source: estimate ? 'estimated (least curl)' : 'given',
-      descan: descanName, threshold, zero_total_patterns: zeroTotal, bad_pixels_left_out: bad.count, non_finite_inputs: sums.nonFinite,
-      com_mask: maskSpec ? describeDetector(maskSpec) : 'whole pattern',
-      source_path: sums.descriptor.path, source_dataset: sums.descriptor.datasetPath ?? '', source_fingerprint: sums.descriptor.fingerprint, producer: 'scanfold com',
+      rotation_degrees: rot.degrees, flip: rot.flip ? 'yes' : 'no', rotation_source: rot.source,
+      descan: f.descan, threshold: f.threshold, zero_total_patterns: f.zeroTotalPatterns, bad_pixels_left_out: f.badPixelsLeftOut,
+      non_finite_inputs: f.nonFiniteInputs, com_mask: f.comMask, ...provenance(f.descriptor, 'scanfold com'),
     };
-    if (estimate) {
-      rootAttrs.rotation_alternative_degrees = estimate.alternativeDegrees;
-      rootAttrs.rotation_curl_relative = estimate.curlRelative;
-      rootAttrs.rotation_half_turn_rule = estimate.halfTurnRule;
+    if (rot.alternativeDegrees !== undefined) {
+      rootAttrs.rotation_alternative_degrees = rot.alternativeDegrees;
+      rootAttrs.rotation_curl_relative = rot.curlRelative!;
+      rootAttrs.rotation_half_turn_rule = rot.halfTurnRule!;
     }
-    if (cal[0] !== undefined) {
-      const [mradPerPx, kev, stepNm] = cal as number[];
-      // For a weak phase object the beam is deflected by θ = (λ / 2π)·∇φ (common practice), so
-      // φ[rad] = (2π / λ) ∫ θ dx: with θ = COM·mrad/px·1e-3 and dx in scan steps of stepNm.
-      const lambdaNm = electronWavelengthPm(kev) / 1000;
-      const toRad = (2 * Math.PI / lambdaNm) * mradPerPx * 1e-3 * stepNm;
-      arrays.com_x_mrad = { data: rotated.comX.map((x) => x * mradPerPx), shape, attrs: { units: 'mrad' } };
-      arrays.com_y_mrad = { data: rotated.comY.map((x) => x * mradPerPx), shape, attrs: { units: 'mrad' } };
-      arrays.phase_radians = { data: phase.phase.map((x) => x * toRad), shape, attrs: { units: 'radians (weak-phase approximation)', radians_per_phase_unit: toRad } };
-      Object.assign(rootAttrs, { mrad_per_pixel: mradPerPx, energy_kev: kev, wavelength_pm: lambdaNm * 1000, scan_step_nm: stepNm });
+    if (f.calibration) {
+      const c = f.calibration;
+      Object.assign(rootAttrs, { mrad_per_pixel: c.mradPerPixel, energy_kev: c.energyKeV, wavelength_pm: c.wavelengthPm, scan_step_nm: c.scanStepNm });
+      arrays.phase_radians.attrs!.radians_per_phase_unit = c.radiansPerPhaseUnit;
     }
     const written = await writeFloat64Results(out, arrays, rootAttrs);
-    noteNonFiniteResults(written, zeroTotal ? `; ${zeroTotal} pattern(s) with zero total have no centre of mass (NaN by design)` : '');
+    noteNonFiniteResults(written, f.zeroTotalPatterns ? `; ${f.zeroTotalPatterns} pattern(s) with zero total have no centre of mass (NaN by design)` : '');
     if (!quiet) {
-      process.stderr.write(`wrote ${written.path}: rotation ${degrees.toFixed(2)}°, flip ${flip ? 'yes' : 'no'}${estimate ? ` (estimated; relative curl ${estimate.curlRelative.toFixed(3)}; 180° away: ${estimate.alternativeDegrees.toFixed(2)}°)` : ''}` +
-        `${zeroTotal ? `; ${zeroTotal} pattern(s) with zero total → NaN` : ''}\n`);
+      process.stderr.write(`wrote ${written.path}: rotation ${rot.degrees.toFixed(2)}°, flip ${rot.flip ? 'yes' : 'no'}${rot.alternativeDegrees !== undefined ? ` (estimated; relative curl ${rot.curlRelative!.toFixed(3)}; 180° away: ${rot.alternativeDegrees.toFixed(2)}°)` : ''}` +
+        `${f.zeroTotalPatterns ? `; ${f.zeroTotalPatterns} pattern(s) with zero total → NaN` : ''}\n`);
     }
   }, out);
 }
 
-export async function cmdCalibrate(args: string[], engineOptions: (v: Record<string, unknown>) => EngineOptions, engineFlags: Record<string, { type: 'string' | 'boolean' }>): Promise<void> {
+export async function cmdCalibrate(args: string[], engineOptions: EngineOptionsOf, engineFlags: EngineFlags): Promise<void> {
   const parsed = parseFlags(args, {
-      ...SOURCE_OPTIONS, ...engineFlags, 'energy-kev': { type: 'string' }, 'convergence-mrad': { type: 'string' },
-      'lattice-spacing-angstrom': { type: 'string' }, 'bragg-distance-px': { type: 'string' }, 'scan-step-nm': { type: 'string' },
-    });
+    ...SOURCE_OPTIONS, ...engineFlags, 'energy-kev': { type: 'string' }, 'convergence-mrad': { type: 'string' },
+    'lattice-spacing-angstrom': { type: 'string' }, 'bragg-distance-px': { type: 'string' }, 'scan-step-nm': { type: 'string' },
+  });
   const v = parsed.values as Flags;
   const spec = sourceSpecFromFlags(parsed.positionals[0], v as Record<string, unknown>);
   const energy = positive('energy-kev', v['energy-kev'] as string | undefined);
@@ -313,30 +239,24 @@ export async function cmdCalibrate(args: string[], engineOptions: (v: Record<str
   if ((alpha === undefined) === (d === undefined)) throw new InputError('calibrate needs exactly one of --convergence-mrad A or --lattice-spacing-angstrom D');
   if (braggGiven !== undefined && d === undefined) throw new InputError('--bragg-distance-px goes with --lattice-spacing-angstrom (the distance of that Bragg disk from the centre)');
   rejectExtraPositionals(parsed.positionals, 'calibrate');
-  await withEngine(engineOptions(v as Record<string, unknown>), async (engine) => {
-    const s = await runJob(engine.firstPass(spec), 'first pass', v.quiet === true);
-    const { detY, detX, scanY, scanX } = s.descriptor.shape;
-    const { bad, disk, braggPx } = aboutFile(s.descriptor.path, () => {
-      const bad = findBadPixels(s.meanPattern, s.maxPattern, detY, detX, { patternCount: scanY * scanX });
-      const mean = replaceBadPixels(s.meanPattern, detY, detX, bad.mask);
-      const disk = findBrightFieldDisk(mean, detY, detX, { excludePixels: bad.mask });
-      const braggPx = d === undefined ? undefined : braggGiven ?? strongestRing(mean, detY, detX, disk.cx, disk.cy, disk.r * 1.5, bad.mask).radius;
-      return { bad, mean, disk, braggPx };
+  await withService(engineOptions(v as Record<string, unknown>), v.quiet === true, async (service) => {
+    const opened = await service.open(spec);
+    const c = await service.calibrate({
+      dataset: opened.id, energyKeV: energy,
+      ...(alpha !== undefined ? { convergenceMrad: alpha } : {}), ...(d !== undefined ? { latticeSpacingAngstrom: d } : {}),
+      ...(braggGiven !== undefined ? { braggDistancePx: braggGiven } : {}), ...(scanStep !== undefined ? { scanStepNm: scanStep } : {}),
     });
-    const cal = calibrate(alpha !== undefined
-      ? { source: 'convergence-angle', energyKeV: energy, convergenceSemiAngleMrad: alpha, diskRadiusPx: disk.r, scanStepNm: scanStep }
-      : { source: 'lattice-spacing', energyKeV: energy, latticeSpacingAngstrom: d!, braggDistancePx: braggPx!, scanStepNm: scanStep });
     process.stdout.write(JSON.stringify({
-      wavelength_pm: cal.wavelengthPm,
-      disk_center_px: { x: disk.cx, y: disk.cy },
-      disk_radius_px: disk.r,
-      disk_edge_consistency: disk.edgeConsistency,
-      mrad_per_pixel: cal.mradPerPixel,
-      inverse_angstrom_per_pixel: cal.inverseAngstromPerPixel,
-      ...(braggPx !== undefined ? { bragg_distance_px: braggPx, bragg_distance_source: braggGiven !== undefined ? 'given' : 'strongest ring of the mean pattern' } : {}),
-      ...(scanStep !== undefined ? { scan_step_nm: scanStep } : {}),
-      calibration_source: alpha !== undefined ? 'convergence-angle' : 'lattice-spacing',
-      bad_pixels: { hot: bad.hot.length, dead: bad.dead.length },
+      wavelength_pm: c.wavelengthPm,
+      disk_center_px: { x: c.disk.cx, y: c.disk.cy },
+      disk_radius_px: c.disk.r,
+      disk_edge_consistency: c.disk.edgeConsistency,
+      mrad_per_pixel: c.mradPerPixel,
+      inverse_angstrom_per_pixel: c.inverseAngstromPerPixel,
+      ...(c.braggDistancePx !== undefined ? { bragg_distance_px: c.braggDistancePx, bragg_distance_source: c.braggDistanceSource } : {}),
+      ...(c.scanStepNm !== undefined ? { scan_step_nm: c.scanStepNm } : {}),
+      calibration_source: c.source,
+      bad_pixels: c.badPixels,
       note: 'exploratory: check against a reference specimen before quoting numbers',
     }, null, 2) + '\n');
   });
@@ -347,7 +267,7 @@ export const REGION_HELP = `  scanfold pattern FILE [source flags] (--region-rec
       virtual diffraction: /mean_pattern and /max_pattern (det_y, det_x) float64 over a region of
       the scan (scan positions; x column, y row)`;
 
-export async function cmdPattern(args: string[], engineOptions: (v: Record<string, unknown>) => EngineOptions, engineFlags: Record<string, { type: 'string' | 'boolean' }>): Promise<void> {
+export async function cmdPattern(args: string[], engineOptions: EngineOptionsOf, engineFlags: EngineFlags): Promise<void> {
   const parsed = parseFlags(args, { ...SOURCE_OPTIONS, ...engineFlags, out: { type: 'string' }, 'region-rect': { type: 'string' }, 'region-polygon': { type: 'string' }, 'region-mask': { type: 'string' } });
   const v = parsed.values as Flags;
   rejectExtraPositionals(parsed.positionals, 'pattern');
@@ -356,27 +276,25 @@ export async function cmdPattern(args: string[], engineOptions: (v: Record<strin
   if (given.length !== 1) throw new InputError('pattern needs exactly one of --region-rect, --region-polygon or --region-mask');
   const rect = typeof v['region-rect'] === 'string' ? rectangleFlag('region-rect', v['region-rect']) : null;
   const out = outputFlag(v.out, 'pattern', [spec.path, ...flagFiles(v, 'region-mask')]);
-  await withEngine(engineOptions(v as Record<string, unknown>), async (engine) => {
-    const { detY, detX, scanY, scanX } = (await describeProtected(engine, spec, out, { scan: 0, pattern: 2 })).shape;
-    let shape: RegionShape;
+  await withService(engineOptions(v as Record<string, unknown>), v.quiet === true, async (service) => {
+    const opened = await openProtected(service, spec, out, { scan: 0, pattern: 2 });
+    const { detY, detX } = opened.descriptor.shape;
+    let region: RegionShape;
     if (rect) {
-      shape = { kind: 'rectangle', ...rect };
+      region = { kind: 'rectangle', ...rect };
     } else if (typeof v['region-polygon'] === 'string') {
-      shape = { kind: 'polygon', points: v['region-polygon'].trim().split(/\s+/).map((p) => numbers('region-polygon', p, 2) as [number, number]) };
+      region = { kind: 'polygon', points: v['region-polygon'].trim().split(/\s+/).map((p) => numbers('region-polygon', p, 2) as [number, number]) };
     } else {
       const m = readNpy2D(v['region-mask'] as string, 'region mask');
-      shape = { kind: 'mask', width: m.width, height: m.height, values: m.values };
+      region = { kind: 'mask', width: m.width, height: m.height, values: m.values };
     }
-    const region = compileRegion(shape, scanY, scanX);
-    const r = await runJob(engine.regionPattern(spec, region), 'region pattern', v.quiet === true);
+    const r = await service.regionPattern({ dataset: opened.id, region });
     const written = await writeFloat64Results(out, {
       mean_pattern: { data: r.mean, shape: [detY, detX] },
       max_pattern: { data: r.max, shape: [detY, detX] },
-    }, {
-      region: describeRegion(shape), positions: r.count, non_finite_inputs: r.nonFinite,
-      source_path: r.descriptor.path, source_dataset: r.descriptor.datasetPath ?? '', source_fingerprint: r.descriptor.fingerprint, producer: 'scanfold pattern',
-    });
+    }, { region: r.region, positions: r.count, non_finite_inputs: r.nonFiniteInputs, ...provenance(r.descriptor, 'scanfold pattern') });
     noteNonFiniteResults(written);
     if (v.quiet !== true) process.stderr.write(`wrote ${written.path}: mean and max pattern over ${r.count} probe position(s)\n`);
   }, out);
 }
+

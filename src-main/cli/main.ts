@@ -2,18 +2,17 @@
 import fs from 'node:fs';
 import path from 'node:path';
 import { isInputError, isOutputError, InputError, CancelledError } from '../../src-shared/model/errors';
-import { Engine, type EngineOptions } from '../engine/engine';
+import type { EngineOptions } from '../engine/engine';
+import type { FirstPassResult } from '../../src-shared/contract/service';
+import type { SourceSpec } from '../../src-shared/model/dataset';
 import { parseBytes, fmtBytes } from '../engine/budget';
 import { writeFloat64Results, type WrittenResults } from '../io/write-results';
 import { OutputFile } from '../io/output-file';
-import type { FirstPassSummary } from '../engine/first-pass';
 import { outputFlag, parseFlags, rejectExtraPositionals, SOURCE_HELP, SOURCE_OPTIONS, sourceSpecFromFlags, wholeNumber } from './source-flags';
-import { interruptRunningJob, runJobWithProgress } from './progress';
+import { interruptRunningJob } from './progress';
 import { writeSample, SAMPLE_SIZES } from '../../samples/write-sample';
 import { projectRoot } from '../engine/paths';
-import { findBadPixels, replaceBadPixels } from '../../src-shared/compute/bad-pixels';
-import { findBrightFieldDisk } from '../../src-shared/compute/bright-field-disk';
-import { ANALYSIS_HELP, REGION_HELP, cmdCalibrate, cmdCom, cmdImage, cmdPattern, describeProtected, noteNonFiniteResults } from './analysis-commands';
+import { ANALYSIS_HELP, REGION_HELP, cmdCalibrate, cmdCom, cmdImage, cmdPattern, noteNonFiniteResults, openProtected, withService } from './analysis-commands';
 
 const HELP = `scanfold — exploratory analysis of 4D-STEM datasets far larger than memory
 
@@ -82,20 +81,8 @@ async function cmdInfo(args: string[]) {
   process.stdout.write(JSON.stringify(out, null, 2) + '\n');
 }
 
-async function runSummary(spec: ReturnType<typeof sourceSpecFromFlags>, values: Record<string, unknown>, quiet: boolean, out: OutputFile) {
-  const engine = new Engine(engineOptions(values));
-  for (const note of engine.notes) process.stderr.write(`note: ${note}\n`);
-  try {
-    // Every file the data comes from is known before the pass, and protected from --out.
-    await describeProtected(engine, spec, out, { scan: 1, pattern: 2 });
-    return await runJobWithProgress(engine.firstPass(spec), 'first pass', quiet);
-  } finally {
-    await engine.close();
-  }
-}
-
 /** The first pass's results as float64 datasets, with where they came from. */
-async function writeSummary(out: OutputFile, r: FirstPassSummary, producer: string): Promise<WrittenResults> {
+async function writeSummary(out: OutputFile, r: FirstPassResult, producer: string): Promise<WrittenResults> {
   const { scanY, scanX, detY, detX } = r.descriptor.shape;
   return writeFloat64Results(out, {
     mean_pattern: { data: r.meanPattern, shape: [detY, detX] },
@@ -105,9 +92,19 @@ async function writeSummary(out: OutputFile, r: FirstPassSummary, producer: stri
     source_path: r.descriptor.path,
     source_dataset: r.descriptor.datasetPath ?? '',
     source_fingerprint: r.descriptor.fingerprint,
-    non_finite_inputs: r.nonFinite,
+    non_finite_inputs: r.nonFiniteInputs,
     producer,
   });
+}
+
+/** Open, run the first pass and write the summary; the result stays for the caller to report. */
+async function summarise(spec: SourceSpec, values: Record<string, unknown>, out: OutputFile, producer: string): Promise<{ r: FirstPassResult; written: WrittenResults }> {
+  return withService(engineOptions(values), values.quiet === true, async (service) => {
+    // Every file the data comes from is known before the pass, and protected from --out.
+    const opened = await openProtected(service, spec, out, { scan: 1, pattern: 2 });
+    const r = await service.firstPass({ dataset: opened.id });
+    return { r, written: await writeSummary(out, r, producer) };
+  }, out);
 }
 
 async function cmdSummary(args: string[]) {
@@ -115,14 +112,8 @@ async function cmdSummary(args: string[]) {
   rejectExtraPositionals(positionals, 'summary');
   const spec = sourceSpecFromFlags(positionals[0], values);
   const out = outputFlag(values.out, 'summary', [spec.path]);
-  let r: FirstPassSummary, written: WrittenResults;
-  try {
-    r = await runSummary(spec, values, values.quiet === true, out);
-    written = await writeSummary(out, r, 'scanfold summary');
-  } finally {
-    out.discard();
-  }
-  if (r.nonFinite > 0) process.stderr.write(`note: ${r.nonFinite} NaN/Inf input values were left out of the sums and maxima\n`);
+  const { r, written } = await summarise(spec, values, out, 'scanfold summary');
+  if (r.nonFiniteInputs > 0) process.stderr.write(`note: ${r.nonFiniteInputs} NaN/Inf input values were left out of the sums and maxima\n`);
   noteNonFiniteResults(written);
   if (values.quiet !== true) {
     process.stderr.write(`wrote ${written.path} (${fmtBytes(r.descriptor.byteSize)} in ${r.seconds.toFixed(2)} s, ` +
@@ -159,29 +150,21 @@ async function cmdDemo(args: string[]) {
   }
   const spec = { path: file, datasetPath: '/scan/frames' };
   const out = OutputFile.create(path.join(dir, 'demo-summary.h5'), { flag: 'demo summary', protect: [file] });
-  let r: FirstPassSummary;
-  try {
-    r = await runSummary(spec, values, values.quiet === true, out);
-    await writeSummary(out, r, 'scanfold demo');
-  } finally {
-    out.discard();
-  }
-  const { scanY, scanX, detY, detX } = r.descriptor.shape;
+  const { r } = await summarise(spec, values, out, 'scanfold demo');
   let tmin = Infinity, tmax = -Infinity;
   for (const v of r.totalIntensity) { if (v < tmin) tmin = v; if (v > tmax) tmax = v; }
-  const bad = findBadPixels(r.meanPattern, r.maxPattern, detY, detX, { patternCount: scanY * scanX });
-  const disk = findBrightFieldDisk(replaceBadPixels(r.meanPattern, detY, detX, bad.mask), detY, detX, { excludePixels: bad.mask });
+  const disk = r.brightFieldDisk;
   process.stdout.write(JSON.stringify({
     dataset: r.descriptor.path + ':' + r.descriptor.datasetPath,
     shape: r.descriptor.shape,
     dtype: r.descriptor.dtype,
     seconds: Number(r.seconds.toFixed(3)),
     totalIntensity: { min: tmin, max: tmax },
-    brightFieldDisk: { x: Number(disk.cx.toFixed(2)), y: Number(disk.cy.toFixed(2)), radiusPx: Number(disk.r.toFixed(2)) },
-    badDetectorPixels: { hot: bad.hot, dead: bad.dead },
+    brightFieldDisk: 'notFound' in disk ? disk.notFound : { x: Number(disk.cx.toFixed(2)), y: Number(disk.cy.toFixed(2)), radiusPx: Number(disk.r.toFixed(2)) },
+    badDetectorPixels: { hot: r.badPixels.hot, dead: r.badPixels.dead },
     previewCube: { shape: [r.preview.qY, r.preview.qX, r.preview.pY, r.preview.pX], detBin: r.preview.detBin, scanBin: r.preview.scanBin },
     summaryFile: out.path,
-    next: `try: npx scanfold image ${file} --dataset /scan/frames --annulus ${disk.cx.toFixed(1)},${disk.cy.toFixed(1)},${Math.ceil(disk.r + 2)},40 --out ${path.join(dir, 'adf.h5')}`,
+    ...('notFound' in disk ? {} : { next: `try: npx scanfold image ${file} --dataset /scan/frames --annulus ${disk.cx.toFixed(1)},${disk.cy.toFixed(1)},${Math.ceil(disk.r + 2)},40 --out ${path.join(dir, 'adf.h5')}` }),
     note: 'results are exploratory; validate quantitative claims yourself',
   }, null, 2) + '\n');
 }

@@ -1,5 +1,5 @@
 import type { JobProgress } from '../../src-shared/contract/jobs';
-import type { Job } from '../engine/job';
+import type { ScanfoldService } from '../../src-shared/contract/service';
 import { fmtBytes } from '../engine/budget';
 
 /** A progress bar on stderr: redrawn in place on a terminal, a line per 10 % otherwise. */
@@ -34,8 +34,8 @@ export function progressPrinter(label: string, enabled: boolean) {
 let cancelRunning: (() => void) | null = null;
 
 /**
- * Ctrl-C: cancel the running job (it ends with exit 130 and cleans up), or, between jobs,
- * return false so the caller ends the process at once.
+ * Ctrl-C: cancel the running jobs (they end with exit 130 and clean up), or, with none
+ * running, return false so the caller ends the process at once.
  */
 export function interruptRunningJob(): boolean {
   if (!cancelRunning) return false;
@@ -43,17 +43,24 @@ export function interruptRunningJob(): boolean {
   return true;
 }
 
-/** Wait for a job with a progress bar on stderr; Ctrl-C cancels the job. */
-export async function runJobWithProgress<T>(job: Job<T>, label: string, quiet: boolean): Promise<T> {
-  const bar = progressPrinter(label, !quiet);
-  job.onProgress((p) => bar.update(p));
-  cancelRunning = () => job.cancel('interrupted');
-  try {
-    const r = await job.result;
-    bar.update(job.progress);
-    return r;
-  } finally {
-    bar.done();
+/**
+ * Progress bars on stderr for every job of the service, one per job, until the returned
+ * function is called; meanwhile Ctrl-C cancels whatever runs.
+ */
+export function followJobs(service: Pick<ScanfoldService, 'onEvent' | 'cancel'> & { cancelAll(reason?: string): number }, quiet: boolean): () => void {
+  const bars = new Map<string, ReturnType<typeof progressPrinter>>();
+  const off = service.onEvent((e) => {
+    if (e.kind !== 'job') return;
+    const { jobId, label, state, progress } = e.job;
+    let bar = bars.get(jobId);
+    if (!bar) { bar = progressPrinter(label, !quiet); bars.set(jobId, bar); }
+    bar.update(progress);
+    if (state !== 'running') { bar.done(); bars.delete(jobId); }
+  });
+  cancelRunning = () => { if (service.cancelAll('interrupted') === 0) process.exit(130); };
+  return () => {
+    off();
+    for (const b of bars.values()) b.done();
     cancelRunning = null;
-  }
+  };
 }

@@ -81,7 +81,7 @@ export function startVirtualImages(pool: WorkerPool, spec: SourceSpec, detectors
     const options = { kernel, maxTileBytes: plan.tileBytes };
     const totals = await runTiles<VirtualImagesTileReply>({
       pool, job, spec: d.spec, tiles: plan.tiles,
-      compute: (w, tile) => w.virtualImagesTile(tile.row0, tile.nRows, detectors, options),
+      compute: (w, tile) => w.virtualImagesTile(d.spec, tile.row0, tile.nRows, detectors, options),
       merge: (r, tile) => {
         const m = tile.nRows * d.shape.scanX;
         const at = tile.row0 * d.shape.scanX;
@@ -107,7 +107,7 @@ export function startComSums(pool: WorkerPool, spec: SourceSpec, com: ComOptions
     const options = { kernel, maxTileBytes: plan.tileBytes };
     const totals = await runTiles<ComTileReply>({
       pool, job, spec: d.spec, tiles: plan.tiles,
-      compute: (w, tile) => w.comTile(tile.row0, tile.nRows, com, options),
+      compute: (w, tile) => w.comTile(d.spec, tile.row0, tile.nRows, com, options),
       merge: (r, tile) => {
         const at = tile.row0 * d.shape.scanX;
         total.set(r.total, at); sumX.set(r.sumX, at); sumY.set(r.sumY, at);
@@ -138,7 +138,7 @@ export function startRegionPattern(pool: WorkerPool, spec: SourceSpec, region: U
     let count = 0;
     const { nonFinite } = await runTiles<RegionTileReply>({
       pool, job, spec: d.spec, tiles,
-      compute: (w, tile) => w.regionPatternTile(tile.row0, tile.nRows, region.slice(tile.row0 * scanX, (tile.row0 + tile.nRows) * scanX)),
+      compute: (w, tile) => w.regionPatternTile(d.spec, tile.row0, tile.nRows, region.slice(tile.row0 * scanX, (tile.row0 + tile.nRows) * scanX)),
       merge: (r) => { foldSumMax(sum, max, r.sum, r.max); count += r.count; },
     });
     const mean = sum.map((v) => v / count);

@@ -99,7 +99,7 @@ export function startFirstPass(pool: WorkerPool, spec: SourceSpec, limits: Engin
     // A cancelled pass's cube is dropped, not pooled: tiles still in flight may write into it.
     const totals = await runTiles<FirstPassTileReply>({
       pool, job, spec: d.spec, tiles: plan.tiles,
-      compute: (w, tile) => w.firstPassTile(tile.row0, tile.nRows, geometry, options, shared),
+      compute: (w, tile) => w.firstPassTile(d.spec, tile.row0, tile.nRows, geometry, options, shared),
       merge: (r) => foldSumMax(sum, max, r.sum, r.max),
     });
     if (job.cancelled) return;

@@ -18,9 +18,9 @@ export interface TileTotals {
 }
 
 /**
- * Stream `tiles` of `spec` through the pool: each free worker takes the next tile, reads it
- * itself and returns a small partial, which `merge` folds in on this thread. A worker is asked
- * to open the source once (again only if it was replaced). Stops taking tiles as soon as the
+ * Stream `tiles` through the pool: each free worker takes the next tile, reads it itself (every
+ * tile request names its source; a worker keeps recent sources open) and returns a small
+ * partial, which `merge` folds in on this thread. Stops taking tiles as soon as the
  * job is cancelled or one tile fails; the first failure fails the job. Returns the non-finite
  * count and time split summed over the tiles.
  */
@@ -33,8 +33,7 @@ export async function runTiles<P extends TimedPartial>(opts: {
   compute: (worker: TileWorker, tile: TilePlan) => Promise<P>;
   merge: (partial: P, tile: TilePlan) => void;
 }): Promise<TileTotals> {
-  const { pool, job, spec, tiles, compute, merge } = opts;
-  const opened = new WeakSet<TileWorker>();
+  const { pool, job, tiles, compute, merge } = opts;
   const totals: TileTotals = { nonFinite: 0, readMs: 0, computeMs: 0 };
   let next = 0;
   let failure: unknown = null;
@@ -42,10 +41,7 @@ export async function runTiles<P extends TimedPartial>(opts: {
     while (failure === null && !job.cancelled && next < tiles.length) {
       const tile = tiles[next++];
       try {
-        const partial = await pool.run(async (w) => {
-          if (!opened.has(w)) { await w.open(spec); opened.add(w); }
-          return compute(w, tile);
-        });
+        const partial = await pool.run((w) => compute(w, tile));
         if (job.cancelled) return;
         merge(partial, tile);
         totals.nonFinite += partial.nonFinite;

@@ -2,7 +2,7 @@ import * as fs from 'node:fs';
 import type { DatasetDescriptor, Shape4D, SourceFormat } from '../../src-shared/model/dataset';
 import { byteSwapInPlace, DTYPE_BYTES, type ByteOrder, type DType, type NumericArray } from '../../src-shared/model/dtype';
 import { fingerprint, sampleOffsets } from './fingerprint';
-import { checkRowRequest, type TileSource } from './tile-source';
+import { checkPatternRequest, checkRowRequest, type TileSource } from './tile-source';
 
 import { readFullyAt } from './input-file';
 
@@ -98,6 +98,15 @@ export class ContiguousTileSource implements TileSource {
     checkRowRequest(path, shape.scanY, this.rowElements, dtype, row0, nRows, dest);
     const bytes = new Uint8Array(dest.buffer, dest.byteOffset, dest.byteLength);
     readFullyAt(this.fd, bytes, this.dataOffset + row0 * this.rowBytes, path);
+    if (this.swap) swapBytesInPlace(bytes, this.elementBytes);
+  }
+
+  readPattern(y: number, x: number, dest: NumericArray): void {
+    const { path, shape, dtype } = this.descriptor;
+    if (this.fd === null) throw new Error(`readPattern on ${path}: the source is closed`);
+    checkPatternRequest(path, shape, dtype, y, x, dest);
+    const bytes = new Uint8Array(dest.buffer, dest.byteOffset, dest.byteLength);
+    readFullyAt(this.fd, bytes, this.dataOffset + y * this.rowBytes + x * shape.detY * shape.detX * this.elementBytes, path);
     if (this.swap) swapBytesInPlace(bytes, this.elementBytes);
   }
 

@@ -5,7 +5,7 @@ import { DTYPE_BYTES, DTYPES, isDType, typedView, type ByteOrder, type DType, ty
 import { InputError } from '../../src-shared/model/errors';
 import { fingerprint } from './fingerprint';
 import { availableFilterNames, briefHdf5Error, filterName, getH5, isFilterAvailable, withFileOpenLog, type H5Runtime } from './h5wasm-module';
-import { checkRowRequest, type ReaderMemory, type TileSource } from './tile-source';
+import { checkPatternRequest, checkRowRequest, type ReaderMemory, type TileSource } from './tile-source';
 import { checkInputFile, errnoText } from './input-file';
 import { hdf5SignatureOffset } from './hdf5-signature';
 import { scanShapeFor3D, validateShape } from './validate';
@@ -190,6 +190,14 @@ class Hdf5TileSource implements TileSource {
     if (this.h5 === null) throw new Error(`readRows on ${file}: the source is closed`);
     checkRowRequest(file, shape.scanY, this.rowElements, dtype, row0, nRows, dest);
     for (const piece of this.plan(row0, nRows)) this.readPiece(piece, dest);
+  }
+
+  readPattern(y: number, x: number, dest: NumericArray): void {
+    const { file, shape, dtype } = this.g;
+    if (this.h5 === null) throw new Error(`readPattern on ${file}: the source is closed`);
+    checkPatternRequest(file, shape, dtype, y, x, dest);
+    const p = y * shape.scanX + x;
+    this.readPiece(this.pieceForPositions(p, p + 1, p), dest);
   }
 
   /** Patterns at the first, middle and last position, for the fingerprint. */

@@ -28,6 +28,8 @@ export interface TileSource {
    * (little-endian) order. `dest` may be a view on WebAssembly memory.
    */
   readRows(row0: number, nRows: number, dest: NumericArray): void;
+  /** Read the one pattern at scan row y, column x into `dest` (detY × detX elements, native order). */
+  readPattern(y: number, x: number, dest: NumericArray): void;
   close(): void;
 }
 
@@ -36,6 +38,17 @@ const TYPED_ARRAY_TAG: Record<DType, string> = {
   int8: 'Int8Array', int16: 'Int16Array', int32: 'Int32Array',
   float32: 'Float32Array', float64: 'Float64Array',
 };
+
+/** Every reader's readPattern checks its request with this: a position inside the scan, a destination of one pattern. */
+export function checkPatternRequest(file: string, shape: { scanY: number; scanX: number; detY: number; detX: number }, dtype: DType, y: number, x: number, dest: NumericArray): void {
+  if (!Number.isInteger(y) || !Number.isInteger(x) || y < 0 || x < 0 || y >= shape.scanY || x >= shape.scanX) {
+    throw new Error(`readPattern on ${file}: position (${y}, ${x}) is outside the ${shape.scanY}×${shape.scanX} scan`);
+  }
+  const tag = Object.prototype.toString.call(dest).slice(8, -1);
+  if (tag !== TYPED_ARRAY_TAG[dtype] || dest.length !== shape.detY * shape.detX) {
+    throw new Error(`readPattern on ${file}: dest is a ${tag} of ${dest.length}, expected a ${TYPED_ARRAY_TAG[dtype]} of ${shape.detY * shape.detX}`);
+  }
+}
 
 /**
  * Every reader's readRows checks its request with this before touching the file: rows inside

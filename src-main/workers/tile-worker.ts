@@ -19,6 +19,9 @@ import { accumulateRegionPatterns } from '../../src-shared/compute/region-patter
 import { openTileSource, type TileSource } from '../io/index';
 import type { ReaderMemory } from '../io/tile-source';
 import { loadWasmModule } from './wasm-loader';
+import { keepErrorCodesAcrossThreads } from './error-transfer';
+
+keepErrorCodesAcrossThreads();
 
 export type KernelKind = 'wasm' | 'reference';
 
@@ -66,8 +69,46 @@ export type VirtualImagesTileReply = { images: Float64Array; nonFinite: number }
 export type ComTileReply = { total: Float64Array; sumX: Float64Array; sumY: Float64Array; nonFinite: number } & TileTiming;
 export type RegionTileReply = { sum: Float64Array; max: Float64Array; count: number; nonFinite: number } & TileTiming;
 
-let source: TileSource | null = null;
-let sourceKey = '';
+/**
+ * Open sources, most recently used last; several datasets can be open at once. Every request
+ * names its source by spec, so jobs on different datasets never read each other's data.
+ */
+const sources = new Map<string, TileSource>();
+const MAX_OPEN_SOURCES = 4;
+
+async function sourceFor(spec: SourceSpec): Promise<TileSource> {
+  const key = JSON.stringify(spec);
+  const hit = sources.get(key);
+  if (hit) {
+    sources.delete(key);
+    sources.set(key, hit);
+    return hit;
+  }
+  const src = await openTileSource(spec, { memoryPerWorkerBytes: workerData?.memoryPerWorkerBytes });
+  // The user's spec and the descriptor's resolved spec name the same source.
+  const resolvedKey = JSON.stringify(src.descriptor.spec);
+  const same = sources.get(resolvedKey);
+  if (same) {
+    src.close();
+    sources.set(key, same);
+    return same;
+  }
+  sources.set(key, src);
+  if (resolvedKey !== key) sources.set(resolvedKey, src);
+  while (new Set(sources.values()).size > MAX_OPEN_SOURCES) {
+    const oldest = sources.values().next().value!;
+    for (const [k, v] of sources) if (v === oldest) sources.delete(k);
+    oldest.close();
+  }
+  return src;
+}
+
+function closeSource(spec: SourceSpec): void {
+  const src = sources.get(JSON.stringify(spec));
+  if (!src) return;
+  for (const [k, v] of sources) if (v === src) sources.delete(k);
+  src.close();
+}
 
 /**
  * One WebAssembly memory per worker, shared by every kernel (they have no static data and only
@@ -97,10 +138,6 @@ function kernelFor<K extends AnyKernel>(kind: 'first-pass' | 'virtual-image' | '
   return kernel as K;
 }
 
-function openSource(): TileSource {
-  if (!source) throw new Error('worker: open() must be called before reading tiles');
-  return source;
-}
 
 /** Read rows straight into `buffer` (kernel memory) and time it. */
 function readInto(src: TileSource, row0: number, nRows: number, buffer: (n: number) => NumericArray) {
@@ -115,23 +152,31 @@ function readInto(src: TileSource, row0: number, nRows: number, buffer: (n: numb
 const api = {
   /** Open (or keep open) the source; returns its descriptor and storage row alignment. */
   async open(spec: SourceSpec): Promise<OpenReply> {
-    const key = JSON.stringify(spec);
-    // The user's spec and the descriptor's resolved spec name the same source: keep it open.
-    if (!source || (key !== sourceKey && key !== JSON.stringify(source.descriptor.spec))) {
-      source?.close();
-      source = null;
-      source = await openTileSource(spec, { memoryPerWorkerBytes: workerData?.memoryPerWorkerBytes });
-      sourceKey = key;
-    }
+    const source = await sourceFor(spec);
     return { descriptor: source.descriptor, rowAlignment: source.rowAlignment, memory: source.memory };
+  },
+
+  /** Forget a dataset (closed by the user). */
+  closeSource(spec: SourceSpec): void {
+    closeSource(spec);
+  },
+
+  /** The pattern at one probe position, as float64 (hover). */
+  async readPattern(spec: SourceSpec, y: number, x: number): Promise<Float64Array> {
+    const src = await sourceFor(spec);
+    const { detY, detX } = src.descriptor.shape;
+    const pattern = allocTyped(src.descriptor.dtype, detY * detX);
+    src.readPattern(y, x, pattern);
+    const out = Float64Array.from(pattern as ArrayLike<number>);
+    return Comlink.transfer(out, [out.buffer]);
   },
 
   /**
    * One tile of the first pass. The preview rows and the totals go straight into the shared
    * arrays that hold the whole preview cube and total-intensity image; sum and max come back.
    */
-  firstPassTile(row0: number, nRows: number, geometry: FirstPassGeometry, options: KernelOptions, shared: FirstPassShared): FirstPassTileReply {
-    const src = openSource();
+  async firstPassTile(spec: SourceSpec, row0: number, nRows: number, geometry: FirstPassGeometry, options: KernelOptions, shared: FirstPassShared): Promise<FirstPassTileReply> {
+    const src = await sourceFor(spec);
     const k = kernelFor<FirstPassKernel>('first-pass', options);
     const dtype = src.descriptor.dtype;
     const { bytes, readMs } = readInto(src, row0, nRows, (n) => k.tileBuffer(dtype, n));
@@ -144,8 +189,8 @@ const api = {
     return Comlink.transfer(reply, [r.sum.buffer, r.max.buffer] as ArrayBuffer[]);
   },
 
-  virtualImagesTile(row0: number, nRows: number, detectors: CompiledDetector[], options: KernelOptions): VirtualImagesTileReply {
-    const src = openSource();
+  async virtualImagesTile(spec: SourceSpec, row0: number, nRows: number, detectors: CompiledDetector[], options: KernelOptions): Promise<VirtualImagesTileReply> {
+    const src = await sourceFor(spec);
     const k = kernelFor<VirtualImageKernel>('virtual-image', options);
     const dtype = src.descriptor.dtype;
     const { n, bytes, readMs } = readInto(src, row0, nRows, (n) => k.tileBuffer(dtype, n));
@@ -157,8 +202,8 @@ const api = {
     return Comlink.transfer(reply, [r.images.buffer as ArrayBuffer]);
   },
 
-  comTile(row0: number, nRows: number, com: ComOptions, options: KernelOptions): ComTileReply {
-    const src = openSource();
+  async comTile(spec: SourceSpec, row0: number, nRows: number, com: ComOptions, options: KernelOptions): Promise<ComTileReply> {
+    const src = await sourceFor(spec);
     const k = kernelFor<ComKernel>('com', options);
     const { dtype, shape } = src.descriptor;
     const { bytes, readMs } = readInto(src, row0, nRows, (n) => k.tileBuffer(dtype, n));
@@ -170,8 +215,8 @@ const api = {
   },
 
   /** Sum and max pattern over the selected positions of rows [row0, row0+nRows). */
-  regionPatternTile(row0: number, nRows: number, select: Uint8Array): RegionTileReply {
-    const src = openSource();
+  async regionPatternTile(spec: SourceSpec, row0: number, nRows: number, select: Uint8Array): Promise<RegionTileReply> {
+    const src = await sourceFor(spec);
     const { dtype, shape } = src.descriptor;
     const pixels = shape.detY * shape.detX;
     // Rows are read one at a time: a region usually touches few positions per row.
@@ -196,9 +241,8 @@ const api = {
   },
 
   close(): void {
-    source?.close();
-    source = null;
-    sourceKey = '';
+    for (const src of new Set(sources.values())) src.close();
+    sources.clear();
     active = null;
   },
 

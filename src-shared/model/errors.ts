@@ -17,6 +17,7 @@ export type InputErrorCode =
   | 'not-a-file'
   | 'bad-output'
   | 'too-large'
+  | 'bad-request'
   | 'short-file'
   | 'bad-dtype'
   | 'bad-shape'

@@ -48,7 +48,8 @@ describe('layering (DESIGN.md)', () => {
       }
       const text = fs.readFileSync(path.join(root, f), 'utf8');
       for (const g of ['document.', 'window.', 'process.', 'Buffer.', '__dirname', 'require(']) {
-        if (text.includes(g)) bad.push(`${f}: uses ${g}`);
+        // A whole name: ArrayBuffer.isView is not Node's Buffer.
+        if (new RegExp(`(^|[^\\w$])${g.replace(/[.(]/g, '\\$&')}`).test(text)) bad.push(`${f}: uses ${g}`);
       }
     }
     expect(bad).toEqual([]);
@@ -75,6 +76,27 @@ describe('layering (DESIGN.md)', () => {
           if ((s === 'electron' || s.startsWith('electron/')) && !f.startsWith(path.join('src-main', 'electron'))) bad.push(`${f}: ${s}`);
           const t = target(f, s);
           if (f.startsWith('src-main') && t && t.startsWith('src-renderer')) bad.push(`${f}: ${s}`);
+        }
+      }
+    }
+    expect(bad).toEqual([]);
+  });
+
+  it('inner folders: the CLI imports no kernel or worker; the engine no samples; readers no engine', () => {
+    const rules: [from: string, forbidden: string, why: string][] = [
+      ['src-main/cli', 'src-shared/compute', 'the CLI parses flags, calls the service and writes files'],
+      ['src-main/cli', 'src-main/workers', 'the CLI parses flags, calls the service and writes files'],
+      ['src-main/engine', 'samples', 'the engine ships without the demo generator'],
+      ['src-main/engine', 'bench', 'the engine ships without the benchmarks'],
+      ['src-main/io', 'src-main/engine', 'readers stand alone under the engine'],
+      ['src-shared/contract', 'src-shared/compute', 'the contract is types and validation only'],
+    ];
+    const bad: string[] = [];
+    for (const [from, forbidden, why] of rules) {
+      for (const f of sourceFiles(from)) {
+        for (const s of importsOf(f)) {
+          const t = target(f, s);
+          if (t && (t === forbidden || t.startsWith(forbidden + path.sep))) bad.push(`${f}: ${s} (${why})`);
         }
       }
     }

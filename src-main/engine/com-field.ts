@@ -1,0 +1,99 @@
+// The centre-of-mass field from the per-pattern sums: COM = Σ I·x / Σ I → descan → rotation
+// and flip (given, or by least curl) → magnitude, direction, divergence, curl → integrated
+// phase → calibrated units. One result object, whatever asks for it (CLI, app, session).
+import type { ComCalibration, ComFieldRequest, ComFieldResult, ComMap } from '../../src-shared/contract/service';
+import type { DatasetDescriptor } from '../../src-shared/model/dataset';
+import { InputError } from '../../src-shared/model/errors';
+import { compileRegion } from '../../src-shared/compute/region-masks';
+import { curl, descan, divergence, estimateRotation, integrateCom, magnitudeDirection, rotateCom, type DescanMode } from '../../src-shared/compute/com-field';
+import { electronWavelengthPm } from '../../src-shared/compute/wavelength';
+import type { ComSumsResult } from './analyses';
+
+export function descanMode(req: ComFieldRequest, scanY: number, scanX: number): DescanMode {
+  const d = req.descan ?? { kind: 'none' };
+  if (d.kind === 'reference') return { kind: 'reference', mask: compileRegion({ kind: 'rectangle', ...d.region }, scanY, scanX) };
+  return { kind: d.kind };
+}
+
+export function comFieldFromSums(
+  sums: ComSumsResult,
+  req: ComFieldRequest,
+  context: { dataset: string; mode: DescanMode; comMask: string; badPixelsLeftOut: number; seconds: number },
+): Omit<ComFieldResult, 'dataset'> {
+  const d: DatasetDescriptor = sums.descriptor;
+  const { scanY, scanX } = d.shape;
+  const n = scanY * scanX;
+  const threshold = req.threshold ?? 0;
+  const comX = new Float64Array(n), comY = new Float64Array(n);
+  let zeroTotal = 0;
+  for (let i = 0; i < n; i++) {
+    const t = sums.total[i];
+    if (t === 0) { comX[i] = NaN; comY[i] = NaN; zeroTotal++; continue; }
+    comX[i] = sums.sumX[i] / t;
+    comY[i] = sums.sumY[i] / t;
+  }
+  if (zeroTotal === n) {
+    throw new InputError(`${d.path}: every pattern has zero total intensity${req.maskDisk || threshold ? ' inside the COM mask above the threshold' : ''}, so no centre of mass can be computed; expected patterns with counts`);
+  }
+  const notes: string[] = [];
+  const mode = context.mode;
+  const ds = descan(comX, comY, scanY, scanX, mode);
+  let degrees: number, flip: boolean, estimate: ReturnType<typeof estimateRotation> | null = null;
+  const rotation = req.rotation ?? 'auto';
+  if (rotation === 'auto') {
+    // A reference region given for the descan is vacuum, which also settles the 180° ambiguity.
+    estimate = estimateRotation(ds.comX, ds.comY, scanY, scanX, mode.kind === 'reference' ? { vacuumMask: mode.mask } : {});
+    degrees = estimate.degrees;
+    flip = estimate.flip;
+    if (estimate.curlRelative > 0.5) {
+      notes.push(`the COM field has about as much curl at every angle (relative curl ${estimate.curlRelative.toFixed(2)}), so the rotation estimate is weak; give the rotation and flip by hand if you know them`);
+    }
+  } else {
+    degrees = rotation.degrees;
+    flip = rotation.flip;
+  }
+  const rotated = rotateCom(ds.comX, ds.comY, degrees, flip);
+  const md = magnitudeDirection(rotated.comX, rotated.comY);
+  const phase = integrateCom(rotated.comX, rotated.comY, scanY, scanX);
+  const maps: Record<string, ComMap> = {
+    com_x: { data: rotated.comX, units: 'detector pixels' },
+    com_y: { data: rotated.comY, units: 'detector pixels' },
+    total_intensity: { data: sums.total, units: 'counts (sum of the pattern inside the COM mask)' },
+    magnitude: { data: md.magnitude, units: 'detector pixels' },
+    direction: { data: md.directionRadians, units: 'radians, atan2(com_y, com_x)' },
+    divergence: { data: divergence(rotated.comX, rotated.comY, scanY, scanX), units: 'detector pixels per scan step' },
+    curl: { data: curl(rotated.comX, rotated.comY, scanY, scanX), units: 'detector pixels per scan step' },
+    phase: { data: phase.phase, units: 'detector pixels × scan steps (integrated COM)', note: 'Fourier integration, mirrored edges' },
+  };
+  let calibration: ComFieldResult['calibration'];
+  if (req.calibration) {
+    const c: ComCalibration = req.calibration;
+    // For a weak phase object the beam is deflected by θ = (λ / 2π)·∇φ (common practice), so
+    // φ[rad] = (2π / λ) ∫ θ dx: with θ = COM·mrad/px·1e-3 and dx in scan steps of scanStepNm.
+    const lambdaNm = electronWavelengthPm(c.energyKeV) / 1000;
+    const toRad = (2 * Math.PI / lambdaNm) * c.mradPerPixel * 1e-3 * c.scanStepNm;
+    maps.com_x_mrad = { data: rotated.comX.map((x) => x * c.mradPerPixel), units: 'mrad' };
+    maps.com_y_mrad = { data: rotated.comY.map((x) => x * c.mradPerPixel), units: 'mrad' };
+    maps.phase_radians = { data: phase.phase.map((x) => x * toRad), units: 'radians (weak-phase approximation)' };
+    calibration = { ...c, wavelengthPm: lambdaNm * 1000, radiansPerPhaseUnit: toRad };
+  }
+  return {
+    descriptor: d,
+    scanY,
+    scanX,
+    maps,
+    rotation: {
+      degrees, flip, source: estimate ? 'estimated (least curl)' : 'given',
+      ...(estimate ? { alternativeDegrees: estimate.alternativeDegrees, curlRelative: estimate.curlRelative, halfTurnRule: estimate.halfTurnRule } : {}),
+    },
+    descan: (req.descan ?? { kind: 'none' }).kind,
+    threshold,
+    comMask: context.comMask,
+    zeroTotalPatterns: zeroTotal,
+    badPixelsLeftOut: context.badPixelsLeftOut,
+    nonFiniteInputs: sums.nonFinite,
+    ...(calibration ? { calibration } : {}),
+    notes,
+    seconds: context.seconds,
+  };
+}

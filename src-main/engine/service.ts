@@ -1,0 +1,304 @@
+// The engine behind the service contract (src-shared/contract/service.ts): datasets opened
+// once and named by id, every request validated where it comes in, long requests run as jobs
+// with events, and the pipelines (bad pixels → bright-field disk, the COM field, calibration)
+// done here so that no front end repeats them.
+import type { SourceSpec } from '../../src-shared/model/dataset';
+import type { CompiledDetector, DetectorSpec } from '../../src-shared/model/detectors';
+import { InputError, isInputError } from '../../src-shared/model/errors';
+import type { JobInfo } from '../../src-shared/contract/jobs';
+import type {
+  BadPixels, BadPixelsMode, BrightFieldDisk, CalibrationRequest, CalibrationResult, ComFieldRequest, ComFieldResult,
+  DatasetId, FirstPassRequest, FirstPassResult, Inspection, OpenedDataset, PatternAtRequest, PatternAtResult,
+  PreviewImagesRequest, PreviewImagesResult, RegionPatternRequest, RegionPatternResult, ScanfoldService, ServiceEvent,
+  VirtualImagesRequest, VirtualImagesResult,
+} from '../../src-shared/contract/service';
+import { validateRequest } from '../../src-shared/contract/validate';
+import { compileDetector, describeDetector } from '../../src-shared/compute/detector-masks';
+import { compileRegion, describeRegion } from '../../src-shared/compute/region-masks';
+import { findBadPixels, replaceBadPixels } from '../../src-shared/compute/bad-pixels';
+import { findBrightFieldDisk } from '../../src-shared/compute/bright-field-disk';
+import { calibrate } from '../../src-shared/compute/calibration';
+import { strongestRing } from '../../src-shared/compute/radial-profile';
+import { Engine, type EngineOptions } from './engine';
+import type { FirstPassSummary } from './first-pass';
+import type { Job } from './job';
+import { previewDetectorImages } from './preview';
+import { comFieldFromSums, descanMode } from './com-field';
+
+interface DatasetRecord {
+  id: DatasetId;
+  spec: SourceSpec;
+  opened: OpenedDataset;
+  /** The last first pass, with its preview cube, bad pixels and disk. */
+  first: { summary: FirstPassSummary; badPixels: BadPixels; disk: BrightFieldDisk | { notFound: string } } | null;
+}
+
+type ServiceJobInfo = JobInfo & { jobId: string };
+
+/** Input problems found by an analysis name the file they were found in. */
+function aboutFile<T>(file: string, fn: () => T): T {
+  try {
+    return fn();
+  } catch (e) {
+    if (isInputError(e) && !e.message.startsWith(file)) throw new InputError(`${file}: ${e.message}`, e.code);
+    throw e;
+  }
+}
+
+export class EngineService implements ScanfoldService {
+  readonly engine: Engine;
+  private readonly records = new Map<DatasetId, DatasetRecord>();
+  private readonly listeners = new Set<(e: ServiceEvent) => void>();
+  private readonly running = new Map<string, Job<unknown>>();
+  private readonly finished: ServiceJobInfo[] = [];
+  private nextDataset = 1;
+  private nextJob = 1;
+
+  constructor(options: EngineOptions = {}) {
+    this.engine = new Engine(options);
+  }
+
+  /** What the engine changed from what was asked (workers capped…), one line each. */
+  get notes(): string[] {
+    return this.engine.notes;
+  }
+
+  onEvent(listener: (e: ServiceEvent) => void): () => void {
+    this.listeners.add(listener);
+    return () => this.listeners.delete(listener);
+  }
+
+  private emit(e: ServiceEvent): void {
+    for (const l of this.listeners) l(e);
+  }
+
+  async inspect(spec: SourceSpec): Promise<Inspection> {
+    validateRequest('inspect', spec);
+    return this.engine.inspect(spec);
+  }
+
+  async open(spec: SourceSpec): Promise<OpenedDataset> {
+    validateRequest('open', spec);
+    const descriptor = await this.engine.describe(spec);
+    const id = `dataset-${this.nextDataset++}`;
+    const opened: OpenedDataset = { id, descriptor, version: 1 };
+    this.records.set(id, { id, spec: descriptor.spec, opened, first: null });
+    this.emit({ kind: 'dataset', dataset: id, version: 1, change: 'opened' });
+    return opened;
+  }
+
+  async close(dataset: DatasetId): Promise<void> {
+    validateRequest('close', dataset);
+    const r = this.record(dataset);
+    if (r.first) this.engine.release(r.first.summary);
+    this.records.delete(dataset);
+    await Promise.all(Array.from({ length: this.engine.pool.size }, () => this.engine.pool.run((w) => w.closeSource(r.spec)).catch(() => undefined)));
+    this.emit({ kind: 'dataset', dataset, version: r.opened.version + 1, change: 'closed' });
+  }
+
+  async datasets(): Promise<OpenedDataset[]> {
+    return [...this.records.values()].map((r) => r.opened);
+  }
+
+  private record(dataset: DatasetId): DatasetRecord {
+    const r = this.records.get(dataset);
+    if (!r) throw new InputError(`dataset ${JSON.stringify(dataset)} is not open; expected an id returned by open`, 'bad-request');
+    return r;
+  }
+
+  /** Follow an engine job: events, the Activity list, cancel by the client's id. */
+  private async track<T>(job: Job<T>, jobId: string | undefined, label: string): Promise<T> {
+    const id = jobId ?? `job-${this.nextJob++}`;
+    if (this.running.has(id)) {
+      job.cancel('duplicate job id');
+      throw new InputError(`job id ${JSON.stringify(id)} is already running; expected a new id`, 'bad-request');
+    }
+    this.running.set(id, job as Job<unknown>);
+    const info = (): ServiceJobInfo => ({ ...job.info(), label, jobId: id });
+    this.emit({ kind: 'job', job: info() });
+    const off = job.onProgress(() => this.emit({ kind: 'job', job: info() }));
+    try {
+      return await job.result;
+    } finally {
+      off();
+      this.running.delete(id);
+      const last = info();
+      this.finished.push(last);
+      if (this.finished.length > 200) this.finished.shift();
+      this.emit({ kind: 'job', job: last });
+    }
+  }
+
+  /** The first pass of a dataset, run now or the one already done. */
+  private async ensureFirstPass(r: DatasetRecord, jobId: string | undefined, label: string): Promise<NonNullable<DatasetRecord['first']>> {
+    if (r.first) return r.first;
+    const summary = await this.track(this.engine.firstPass(r.spec), jobId, label);
+    const { detY, detX, scanY, scanX } = summary.descriptor.shape;
+    const found = aboutFile(summary.descriptor.path, () => findBadPixels(summary.meanPattern, summary.maxPattern, detY, detX, { patternCount: scanY * scanX }));
+    const badPixels: BadPixels = { mask: found.mask, hot: found.hot.map(([y, x]) => [y, x]), dead: found.dead.map(([y, x]) => [y, x]) };
+    let disk: BrightFieldDisk | { notFound: string };
+    try {
+      const mean = replaceBadPixels(summary.meanPattern, detY, detX, found.mask);
+      const d = findBrightFieldDisk(mean, detY, detX, { excludePixels: found.mask });
+      disk = { cx: d.cx, cy: d.cy, r: d.r, edgeConsistency: d.edgeConsistency };
+    } catch (e) {
+      if (!isInputError(e)) throw e;
+      disk = { notFound: e.message };
+    }
+    // Another request may have finished a first pass meanwhile: keep one.
+    const previous = r.first as DatasetRecord['first'];
+    if (previous) this.engine.release(previous.summary);
+    r.first = { summary, badPixels, disk };
+    r.opened = { ...r.opened, version: r.opened.version + 1 };
+    this.emit({ kind: 'dataset', dataset: r.id, version: r.opened.version, change: 'first-pass' });
+    return r.first;
+  }
+
+  private async badPixelMask(r: DatasetRecord, mode: BadPixelsMode | undefined, jobId: string | undefined): Promise<{ mask: Uint8Array | undefined; count: number }> {
+    if (mode === 'none') return { mask: undefined, count: 0 };
+    const f = await this.ensureFirstPass(r, jobId ? `${jobId}/first-pass` : undefined, 'first pass (bad pixels)');
+    return { mask: f.badPixels.mask, count: f.badPixels.hot.length + f.badPixels.dead.length };
+  }
+
+  async firstPass(req: FirstPassRequest): Promise<FirstPassResult> {
+    validateRequest('firstPass', req);
+    const r = this.record(req.dataset);
+    if (r.first) { this.engine.release(r.first.summary); r.first = null; }
+    const f = await this.ensureFirstPass(r, req.jobId, 'first pass');
+    const s = f.summary;
+    return {
+      dataset: r.id, descriptor: s.descriptor, meanPattern: s.meanPattern, maxPattern: s.maxPattern, totalIntensity: s.totalIntensity,
+      nonFiniteInputs: s.nonFinite, seconds: s.seconds, badPixels: f.badPixels, brightFieldDisk: f.disk,
+      preview: { qY: s.preview.qY, qX: s.preview.qX, pY: s.preview.pY, pX: s.preview.pX, detBin: s.preview.detBin, scanBin: s.preview.scanBin },
+    };
+  }
+
+  private compileDetectors(r: DatasetRecord, detectors: DetectorSpec[], exclude?: Uint8Array): CompiledDetector[] {
+    const { detY, detX } = r.opened.descriptor.shape;
+    return aboutFile(r.opened.descriptor.path, () =>
+      detectors.map((s) => ({ ...compileDetector(s, detY, detX, exclude ? { excludePixels: exclude } : {}), label: s.label ?? describeDetector(s) })));
+  }
+
+  async virtualImages(req: VirtualImagesRequest): Promise<VirtualImagesResult> {
+    validateRequest('virtualImages', req);
+    const r = this.record(req.dataset);
+    // Every detector is checked before any pass over the data.
+    this.compileDetectors(r, req.detectors);
+    const bad = await this.badPixelMask(r, req.badPixels, req.jobId);
+    const compiled = this.compileDetectors(r, req.detectors, bad.mask);
+    const v = await this.track(this.engine.virtualImages(r.spec, compiled), req.jobId, 'virtual images');
+    return {
+      dataset: r.id, descriptor: v.descriptor, images: v.images, labels: req.detectors.map((s) => s.label ?? describeDetector(s)),
+      badPixelsLeftOut: bad.count, nonFiniteInputs: v.nonFinite, seconds: v.seconds,
+    };
+  }
+
+  async comField(req: ComFieldRequest): Promise<ComFieldResult> {
+    validateRequest('comField', req);
+    const r = this.record(req.dataset);
+    const { detY, detX, scanY, scanX } = r.opened.descriptor.shape;
+    const file = r.opened.descriptor.path;
+    // Everything asked for is checked before any pass over the data.
+    const mode = aboutFile(file, () => descanMode(req, scanY, scanX));
+    const maskSpec: DetectorSpec | null = req.maskDisk ? { shape: { kind: 'disk', ...req.maskDisk } } : null;
+    if (maskSpec) this.compileDetectors(r, [maskSpec]);
+    const bad = await this.badPixelMask(r, req.badPixels, req.jobId);
+    if (!maskSpec && bad.count >= detY * detX) {
+      throw new InputError(`${file}: every detector pixel was flagged as hot, dead or non-finite on the mean/max pattern, so no centre of mass can be computed; expected patterns with counts (or leave bad pixels in)`);
+    }
+    // Bad pixels leave the COM through the mask; with no mask given the mask is the whole detector.
+    const mask = maskSpec || bad.count > 0
+      ? this.compileDetectors(r, [maskSpec ?? { shape: { kind: 'rectangle', x0: 0, y0: 0, x1: detX - 1, y1: detY - 1 } }], bad.mask)[0]
+      : null;
+    const sums = await this.track(this.engine.comSums(r.spec, { mask, threshold: req.threshold ?? 0 }), req.jobId, 'centre of mass');
+    const field = aboutFile(file, () => comFieldFromSums(sums, req, {
+      dataset: r.id, mode, comMask: maskSpec ? describeDetector(maskSpec) : 'whole pattern', badPixelsLeftOut: bad.count, seconds: sums.seconds,
+    }));
+    return { dataset: r.id, ...field };
+  }
+
+  async calibrate(req: CalibrationRequest): Promise<CalibrationResult> {
+    validateRequest('calibrate', req);
+    const r = this.record(req.dataset);
+    const f = await this.ensureFirstPass(r, req.jobId, 'first pass');
+    const s = f.summary;
+    const file = s.descriptor.path;
+    const { detY, detX } = s.descriptor.shape;
+    if ('notFound' in f.disk) throw new InputError(`${file}: ${f.disk.notFound}`);
+    const disk = f.disk;
+    return aboutFile(file, () => {
+      const mean = replaceBadPixels(s.meanPattern, detY, detX, f.badPixels.mask);
+      const braggPx = req.latticeSpacingAngstrom === undefined ? undefined
+        : req.braggDistancePx ?? strongestRing(mean, detY, detX, disk.cx, disk.cy, disk.r * 1.5, f.badPixels.mask).radius;
+      const cal = calibrate(req.convergenceMrad !== undefined
+        ? { source: 'convergence-angle', energyKeV: req.energyKeV, convergenceSemiAngleMrad: req.convergenceMrad, diskRadiusPx: disk.r, scanStepNm: req.scanStepNm }
+        : { source: 'lattice-spacing', energyKeV: req.energyKeV, latticeSpacingAngstrom: req.latticeSpacingAngstrom!, braggDistancePx: braggPx!, scanStepNm: req.scanStepNm });
+      return {
+        dataset: r.id,
+        wavelengthPm: cal.wavelengthPm,
+        disk,
+        mradPerPixel: cal.mradPerPixel,
+        inverseAngstromPerPixel: cal.inverseAngstromPerPixel,
+        ...(braggPx !== undefined ? { braggDistancePx: braggPx, braggDistanceSource: req.braggDistancePx !== undefined ? 'given' as const : 'strongest ring of the mean pattern' as const } : {}),
+        ...(req.scanStepNm !== undefined ? { scanStepNm: req.scanStepNm } : {}),
+        source: req.convergenceMrad !== undefined ? 'convergence-angle' as const : 'lattice-spacing' as const,
+        badPixels: { hot: f.badPixels.hot.length, dead: f.badPixels.dead.length },
+      };
+    });
+  }
+
+  async regionPattern(req: RegionPatternRequest): Promise<RegionPatternResult> {
+    validateRequest('regionPattern', req);
+    const r = this.record(req.dataset);
+    const { scanY, scanX } = r.opened.descriptor.shape;
+    const region = aboutFile(r.opened.descriptor.path, () => compileRegion(req.region, scanY, scanX));
+    const p = await this.track(this.engine.regionPattern(r.spec, region), req.jobId, 'region pattern');
+    return {
+      dataset: r.id, descriptor: p.descriptor, mean: p.mean, max: p.max, count: p.count,
+      region: describeRegion(req.region), nonFiniteInputs: p.nonFinite, seconds: p.seconds,
+    };
+  }
+
+  async patternAt(req: PatternAtRequest): Promise<PatternAtResult> {
+    validateRequest('patternAt', req);
+    const r = this.record(req.dataset);
+    const { scanY, scanX, detY, detX } = r.opened.descriptor.shape;
+    if (req.y >= scanY || req.x >= scanX) {
+      throw new InputError(`patternAt: position (y ${req.y}, x ${req.x}) is outside the ${scanY}×${scanX} scan of ${r.opened.descriptor.path}`, 'bad-request');
+    }
+    const pattern = await this.engine.pool.run((w) => w.readPattern(r.spec, req.y, req.x));
+    return { detY, detX, pattern };
+  }
+
+  async previewImages(req: PreviewImagesRequest): Promise<PreviewImagesResult> {
+    validateRequest('previewImages', req);
+    const r = this.record(req.dataset);
+    if (!r.first) throw new InputError(`previewImages: ${r.opened.descriptor.path} has no preview yet; expected a first pass first`, 'bad-request');
+    const compiled = this.compileDetectors(r, req.detectors, r.first.badPixels.mask);
+    return previewDetectorImages(r.first.summary.preview, compiled);
+  }
+
+  async jobs(): Promise<ServiceJobInfo[]> {
+    const running = [...this.running.entries()].map(([jobId, j]) => ({ ...j.info(), jobId }));
+    return [...this.finished, ...running];
+  }
+
+  async cancel(jobId: string): Promise<boolean> {
+    validateRequest('cancel', jobId);
+    const j = this.running.get(jobId);
+    if (!j) return false;
+    j.cancel();
+    return true;
+  }
+
+  /** Cancel whatever runs (Ctrl-C in the CLI). */
+  cancelAll(reason = 'interrupted'): number {
+    for (const j of this.running.values()) j.cancel(reason);
+    return this.running.size;
+  }
+
+  async shutdown(): Promise<void> {
+    this.records.clear();
+    await this.engine.close();
+  }
+}

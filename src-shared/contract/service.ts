@@ -1,0 +1,253 @@
+// The engine service: the one interface the command line, the desktop application (over
+// Electron IPC), a browser in served mode (over a loopback WebSocket) and session files use.
+// Requests and results are plain data (typed arrays allowed); every request is checked by
+// validateRequest (./validate.ts) where it enters the engine, whatever the transport.
+import type { DatasetDescriptor, Hdf5DatasetInfo, SourceSpec } from '../model/dataset';
+import type { DetectorSpec, RegionShape } from '../model/detectors';
+import type { JobInfo } from './jobs';
+
+/** An open dataset, named by the service. */
+export type DatasetId = string;
+
+export interface OpenedDataset {
+  id: DatasetId;
+  descriptor: DatasetDescriptor;
+  /** Goes up whenever something about the dataset changes (first pass done, calibration set). */
+  version: number;
+}
+
+export type Inspection =
+  | { kind: 'dataset'; descriptor: DatasetDescriptor }
+  | { kind: 'hdf5-listing'; path: string; datasets: Hdf5DatasetInfo[] };
+
+/** Every long request may name its job, so a client can follow and cancel it over any transport. */
+export interface JobOptions {
+  /** A client-chosen id for the job (unique among running jobs); one is made up when omitted. */
+  jobId?: string;
+}
+
+/** Hot and dead detector pixels: found on the mean and max pattern, or none. */
+export type BadPixelsMode = 'auto' | 'none';
+
+export interface BadPixels {
+  /** detY × detX, 1 where a pixel is left out. */
+  mask: Uint8Array;
+  /** [y, x] of each pixel. */
+  hot: [number, number][];
+  dead: [number, number][];
+}
+
+export interface BrightFieldDisk {
+  cx: number;
+  cy: number;
+  r: number;
+  edgeConsistency: number;
+}
+
+export interface FirstPassRequest extends JobOptions {
+  dataset: DatasetId;
+}
+
+export interface FirstPassResult {
+  dataset: DatasetId;
+  descriptor: DatasetDescriptor;
+  meanPattern: Float64Array;
+  maxPattern: Float64Array;
+  totalIntensity: Float64Array;
+  /** NaN/±Inf input values left out of the sums and maxima. */
+  nonFiniteInputs: number;
+  seconds: number;
+  badPixels: BadPixels;
+  /** The bright-field disk found on the mean pattern, or why none was found. */
+  brightFieldDisk: BrightFieldDisk | { notFound: string };
+  /** The preview cube stays in the engine; detector drags are answered from it (previewImages). */
+  preview: { qY: number; qX: number; pY: number; pX: number; detBin: number; scanBin: number };
+}
+
+export interface VirtualImagesRequest extends JobOptions {
+  dataset: DatasetId;
+  detectors: DetectorSpec[];
+  badPixels?: BadPixelsMode;
+}
+
+export interface VirtualImagesResult {
+  dataset: DatasetId;
+  descriptor: DatasetDescriptor;
+  /** One image per detector, scanY × scanX, in the order asked. */
+  images: Float64Array[];
+  labels: string[];
+  badPixelsLeftOut: number;
+  nonFiniteInputs: number;
+  seconds: number;
+}
+
+export type DescanRequest =
+  | { kind: 'none' | 'mean' | 'plane' }
+  /** A reference area of the scan (e.g. vacuum), scan positions, corners inclusive. */
+  | { kind: 'reference'; region: { x0: number; y0: number; x1: number; y1: number } };
+
+export interface ComCalibration {
+  mradPerPixel: number;
+  energyKeV: number;
+  scanStepNm: number;
+}
+
+export interface ComFieldRequest extends JobOptions {
+  dataset: DatasetId;
+  /** Only pixels inside this disk count (detector px); default the whole pattern. */
+  maskDisk?: { cx: number; cy: number; r: number };
+  /** Pixels at or below this value are left out. */
+  threshold?: number;
+  descan?: DescanRequest;
+  /** Estimated by least curl (auto), or given. */
+  rotation?: 'auto' | { degrees: number; flip: boolean };
+  badPixels?: BadPixelsMode;
+  /** With it, COM is also given in mrad and the phase in radians. */
+  calibration?: ComCalibration;
+}
+
+export interface ComMap {
+  data: Float64Array;
+  units: string;
+  note?: string;
+}
+
+export interface ComFieldResult {
+  dataset: DatasetId;
+  descriptor: DatasetDescriptor;
+  scanY: number;
+  scanX: number;
+  /** com_x, com_y, total_intensity, magnitude, direction, divergence, curl, phase, and with a calibration com_x_mrad, com_y_mrad, phase_radians. */
+  maps: Record<string, ComMap>;
+  rotation: {
+    degrees: number;
+    flip: boolean;
+    source: 'estimated (least curl)' | 'given';
+    alternativeDegrees?: number;
+    curlRelative?: number;
+    halfTurnRule?: string;
+  };
+  descan: string;
+  threshold: number;
+  comMask: string;
+  zeroTotalPatterns: number;
+  badPixelsLeftOut: number;
+  nonFiniteInputs: number;
+  calibration?: ComCalibration & { wavelengthPm: number; radiansPerPhaseUnit: number };
+  /** Things the user should know (a weak rotation estimate…), one line each. */
+  notes: string[];
+  seconds: number;
+}
+
+export interface CalibrationRequest extends JobOptions {
+  dataset: DatasetId;
+  energyKeV: number;
+  /** Exactly one of the convergence semi-angle or a lattice spacing. */
+  convergenceMrad?: number;
+  latticeSpacingAngstrom?: number;
+  /** With a lattice spacing: the distance of that Bragg disk from the centre, when known. */
+  braggDistancePx?: number;
+  scanStepNm?: number;
+}
+
+export interface CalibrationResult {
+  dataset: DatasetId;
+  wavelengthPm: number;
+  disk: BrightFieldDisk;
+  mradPerPixel: number;
+  inverseAngstromPerPixel: number;
+  braggDistancePx?: number;
+  braggDistanceSource?: 'given' | 'strongest ring of the mean pattern';
+  scanStepNm?: number;
+  source: 'convergence-angle' | 'lattice-spacing';
+  badPixels: { hot: number; dead: number };
+}
+
+export interface RegionPatternRequest extends JobOptions {
+  dataset: DatasetId;
+  region: RegionShape;
+}
+
+export interface RegionPatternResult {
+  dataset: DatasetId;
+  descriptor: DatasetDescriptor;
+  mean: Float64Array;
+  max: Float64Array;
+  /** Probe positions in the region. */
+  count: number;
+  region: string;
+  nonFiniteInputs: number;
+  seconds: number;
+}
+
+/** Hover: the pattern at one probe position, read from the data (not the preview). */
+export interface PatternAtRequest {
+  dataset: DatasetId;
+  /** Scan row and column. */
+  y: number;
+  x: number;
+}
+
+export interface PatternAtResult {
+  detY: number;
+  detX: number;
+  /** As float64, whatever the stored type. */
+  pattern: Float64Array;
+}
+
+/** Drag: detector images from the preview cube, at once, in the units of the exact images. */
+export interface PreviewImagesRequest {
+  dataset: DatasetId;
+  detectors: DetectorSpec[];
+}
+
+export interface PreviewImagesResult {
+  images: Float64Array[];
+  qY: number;
+  qX: number;
+  scanBin: number;
+}
+
+export type ServiceEvent =
+  /** A job started, progressed, finished, failed or was cancelled. */
+  | { kind: 'job'; job: JobInfo & { jobId: string } }
+  | { kind: 'dataset'; dataset: DatasetId; version: number; change: 'opened' | 'first-pass' | 'closed' };
+
+/** The engine service. Long requests run as jobs (events of kind 'job'); the promise settles with the result. */
+export interface ScanfoldService {
+  /** Describe a source, or list an HDF5 file's datasets, without opening it for analysis. */
+  inspect(spec: SourceSpec): Promise<Inspection>;
+  /** Open a dataset: validated, kept open in the workers until closed. */
+  open(spec: SourceSpec): Promise<OpenedDataset>;
+  /** Release everything the dataset holds (preview cube included). */
+  close(dataset: DatasetId): Promise<void>;
+  datasets(): Promise<OpenedDataset[]>;
+
+  firstPass(req: FirstPassRequest): Promise<FirstPassResult>;
+  virtualImages(req: VirtualImagesRequest): Promise<VirtualImagesResult>;
+  comField(req: ComFieldRequest): Promise<ComFieldResult>;
+  calibrate(req: CalibrationRequest): Promise<CalibrationResult>;
+  regionPattern(req: RegionPatternRequest): Promise<RegionPatternResult>;
+
+  /** Fast requests, outside the job queue. */
+  patternAt(req: PatternAtRequest): Promise<PatternAtResult>;
+  previewImages(req: PreviewImagesRequest): Promise<PreviewImagesResult>;
+
+  /** The Activity list. */
+  jobs(): Promise<(JobInfo & { jobId: string })[]>;
+  /** Cancel a running job; false when there is none by that id. */
+  cancel(jobId: string): Promise<boolean>;
+
+  /** Subscribe to events; returns the function that unsubscribes. */
+  onEvent(listener: (e: ServiceEvent) => void): () => void;
+  /** Stop every job and worker. */
+  shutdown(): Promise<void>;
+}
+
+/** The request methods, for generic transports and the validator. */
+export const SERVICE_METHODS = [
+  'inspect', 'open', 'close', 'datasets', 'firstPass', 'virtualImages', 'comField', 'calibrate',
+  'regionPattern', 'patternAt', 'previewImages', 'jobs', 'cancel', 'shutdown',
+] as const satisfies readonly (keyof ScanfoldService)[];
+
+export type ServiceMethod = (typeof SERVICE_METHODS)[number];

@@ -1,0 +1,141 @@
+// The one validator of the service's requests. The CLI's flags, IPC and WebSocket messages and
+// (later) session files all arrive here, so a bad request gets the same message whatever its
+// way in: "<method>: <field>: <what was wrong>; expected <what>".
+import { z } from 'zod';
+import { DTYPES } from '../model/dtype';
+import { InputError } from '../model/errors';
+import type { ServiceMethod } from './service';
+
+const finite = z.number().finite();
+const positive = finite.positive();
+const whole = z.number().int().nonnegative();
+const positiveWhole = z.number().int().positive();
+const numbers = z.custom<ArrayLike<number>>((v) => Array.isArray(v) || (ArrayBuffer.isView(v) && !(v instanceof DataView)), { message: 'expected an array of numbers' });
+const point = z.tuple([finite, finite]);
+
+/** Axis-aligned rectangle, corners inclusive, the smaller corner first. */
+const rectangle = z.object({ x0: finite, y0: finite, x1: finite, y1: finite }).refine((r) => r.x0 <= r.x1 && r.y0 <= r.y1, {
+  message: 'the corners are swapped; expected x0 ≤ x1 and y0 ≤ y1',
+});
+
+const sourceSpec = z.object({
+  path: z.string().min(1, 'expected a file path'),
+  format: z.enum(['hdf5', 'npy', 'raw']).optional(),
+  datasetPath: z.string().min(1).optional(),
+  scanShape: z.tuple([positiveWhole, positiveWhole]).optional(),
+  raw: z.object({
+    shape: z.object({ scanY: positiveWhole, scanX: positiveWhole, detY: positiveWhole, detX: positiveWhole }),
+    dtype: z.enum(DTYPES as unknown as [string, ...string[]]),
+    byteOrder: z.enum(['little', 'big']),
+    offset: whole,
+  }).optional(),
+}).strict();
+
+const maskShape = z.object({ kind: z.literal('mask'), width: positiveWhole, height: positiveWhole, values: numbers })
+  .refine((m) => m.values.length === m.width * m.height, { message: 'values must hold width × height numbers' });
+
+const detectorShape = z.discriminatedUnion('kind', [
+  z.object({ kind: z.literal('disk'), cx: finite, cy: finite, r: positive }),
+  z.object({ kind: z.literal('annulus'), cx: finite, cy: finite, rInner: finite.nonnegative(), rOuter: positive }),
+  z.object({ kind: z.literal('rectangle'), x0: finite, y0: finite, x1: finite, y1: finite }),
+  z.object({ kind: z.literal('polygon'), points: z.array(point).min(3, 'a polygon needs at least 3 points') }),
+  z.object({ kind: z.literal('mask'), width: positiveWhole, height: positiveWhole, values: numbers }),
+]);
+
+const detectorSpec = z.object({ shape: detectorShape, weighted: z.boolean().optional(), label: z.string().optional() }).strict();
+
+const regionShape = z.union([
+  z.object({ kind: z.literal('rectangle'), x0: finite, y0: finite, x1: finite, y1: finite }),
+  z.object({ kind: z.literal('polygon'), points: z.array(point).min(3, 'a polygon needs at least 3 points') }),
+  maskShape,
+]);
+
+const dataset = z.string().min(1, 'expected a dataset id from open');
+const job = { jobId: z.string().min(1).max(200).optional() };
+const badPixels = z.enum(['auto', 'none']).optional();
+
+const SCHEMAS: Record<ServiceMethod, z.ZodType> = {
+  inspect: sourceSpec,
+  open: sourceSpec,
+  close: dataset,
+  datasets: z.undefined(),
+  firstPass: z.object({ dataset, ...job }).strict(),
+  virtualImages: z.object({ dataset, detectors: z.array(detectorSpec).min(1, 'expected at least one detector'), badPixels, ...job }).strict(),
+  comField: z.object({
+    dataset,
+    maskDisk: z.object({ cx: finite, cy: finite, r: positive }).strict().optional(),
+    threshold: finite.optional(),
+    descan: z.union([
+      z.object({ kind: z.enum(['none', 'mean', 'plane']) }).strict(),
+      z.object({ kind: z.literal('reference'), region: rectangle }).strict(),
+    ]).optional(),
+    rotation: z.union([z.literal('auto'), z.object({ degrees: finite, flip: z.boolean() }).strict()]).optional(),
+    badPixels,
+    calibration: z.object({ mradPerPixel: positive, energyKeV: positive, scanStepNm: positive }).strict().optional(),
+    ...job,
+  }).strict(),
+  calibrate: z.object({
+    dataset,
+    energyKeV: positive,
+    convergenceMrad: positive.optional(),
+    latticeSpacingAngstrom: positive.optional(),
+    braggDistancePx: positive.optional(),
+    scanStepNm: positive.optional(),
+    ...job,
+  }).strict()
+    .refine((r) => (r.convergenceMrad === undefined) !== (r.latticeSpacingAngstrom === undefined), { message: 'give exactly one of convergenceMrad or latticeSpacingAngstrom' })
+    .refine((r) => r.braggDistancePx === undefined || r.latticeSpacingAngstrom !== undefined, { message: 'braggDistancePx goes with latticeSpacingAngstrom' }),
+  regionPattern: z.object({ dataset, region: regionShape, ...job }).strict(),
+  patternAt: z.object({ dataset, y: whole, x: whole }).strict(),
+  previewImages: z.object({ dataset, detectors: z.array(detectorSpec).min(1, 'expected at least one detector') }).strict(),
+  jobs: z.undefined(),
+  cancel: z.string().min(1),
+  shutdown: z.undefined(),
+};
+
+/** Check a request's argument; throws an InputError in the one message style. Returns it typed as given. */
+export function validateRequest<T>(method: ServiceMethod, arg: T): T {
+  const schema = SCHEMAS[method];
+  if (!schema) throw new InputError(`${String(method)}: not a request this service knows`, 'bad-request');
+  const r = schema.safeParse(arg);
+  if (r.success) return arg;
+  const issue = r.error.issues[0];
+  const where = issue.path.length ? issue.path.map(String).join('.') : 'request';
+  const more = r.error.issues.length > 1 ? ` (and ${r.error.issues.length - 1} more problem${r.error.issues.length > 2 ? 's' : ''})` : '';
+  throw new InputError(`${method}: ${where}: ${describeIssue(issue, valueAt(arg, issue.path))}${more}`, 'bad-request');
+}
+
+function valueAt(v: unknown, path: PropertyKey[]): unknown {
+  for (const k of path) v = v !== null && typeof v === 'object' ? (v as Record<PropertyKey, unknown>)[k] : undefined;
+  return v;
+}
+
+function shown(v: unknown): string {
+  if (v === undefined) return 'nothing';
+  if (typeof v === 'number' || typeof v === 'boolean' || v === null) return String(v);
+  if (typeof v === 'string') return JSON.stringify(v.length > 60 ? v.slice(0, 60) + '…' : v);
+  return Array.isArray(v) ? `a list of ${v.length}` : `a ${typeof v}`;
+}
+
+/** One issue in our words: what was found; what was expected. */
+function describeIssue(issue: z.core.$ZodIssue, value: unknown): string {
+  switch (issue.code) {
+    case 'invalid_type':
+      if (issue.expected === 'int') return `got ${shown(value)}; expected a whole number`;
+      return `got ${shown(value)}; expected ${issue.expected === 'undefined' ? 'no argument' : `a ${issue.expected}`}`;
+    case 'too_small':
+      if (issue.origin === 'array') return `got ${shown(value)}; expected at least ${issue.minimum}`;
+      if (issue.origin === 'string') return `got ${shown(value)}; expected a non-empty text`;
+      return `got ${shown(value)}; expected a number ${issue.inclusive ? '≥' : '>'} ${issue.minimum}`;
+    case 'too_big':
+      return `got ${shown(value)}; expected at most ${issue.maximum}`;
+    case 'unrecognized_keys':
+      return `unknown field${issue.keys.length > 1 ? 's' : ''} ${issue.keys.map((k) => JSON.stringify(k)).join(', ')}; expected only the fields this request takes`;
+    case 'invalid_value':
+      return `got ${shown(value)}; expected one of ${issue.values.map((x) => JSON.stringify(x)).join(', ')}`;
+    case 'invalid_union':
+      return `got ${shown(value)}; expected one of the forms this field takes${value && typeof value === 'object' && 'kind' in value ? ` (kind ${shown((value as { kind: unknown }).kind)} is not known or its fields are wrong)` : ''}`;
+    default:
+      return issue.message;
+  }
+}

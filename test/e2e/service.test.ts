@@ -1,0 +1,135 @@
+// The engine service through its contract: datasets opened once and named by id (several at
+// once), results checked against NumPy on files NumPy and h5py wrote (make_engine_fixtures.py),
+// the one validator's messages, error codes that survive the crossing from a worker, job
+// events and cancel by the client's job id.
+import fs from 'node:fs';
+import path from 'node:path';
+import { spawnSync } from 'node:child_process';
+import { afterAll, beforeAll, describe, expect, it } from 'vitest';
+import { EngineService } from '../../src-main/engine/service';
+import type { ServiceEvent } from '../../src-shared/contract/service';
+import { validateRequest } from '../../src-shared/contract/validate';
+import { CancelledError, isInputError } from '../../src-shared/model/errors';
+import { makeFixtures, maxRelDiff, PYTHON, readNpyF64, tightBudget } from '../helpers/fixtures';
+
+let fx: string;
+let service: EngineService;
+
+beforeAll(() => {
+  fx = makeFixtures('make_engine_fixtures.py');
+  service = new EngineService({ workers: 2, budgetBytes: tightBudget(2, true) });
+});
+afterAll(async () => {
+  await service?.shutdown();
+  if (fx) fs.rmSync(fx, { recursive: true, force: true });
+});
+
+async function inputError(p: Promise<unknown>): Promise<{ message: string; code?: string }> {
+  try {
+    await p;
+  } catch (e) {
+    expect(isInputError(e), String(e)).toBe(true);
+    return e as { message: string; code?: string };
+  }
+  throw new Error('expected an InputError');
+}
+
+describe('engine service', () => {
+  it('two datasets open at once, first passes run together, each equal to NumPy', async () => {
+    const npy = await service.open({ path: path.join(fx, 'a.npy') });
+    const h5 = await service.open({ path: path.join(fx, 'b.h5'), datasetPath: '/frames', scanShape: [6, 7] });
+    expect(npy.id).not.toBe(h5.id);
+    expect((await service.datasets()).map((d) => d.id)).toEqual([npy.id, h5.id]);
+    // Interleaved on the same two workers: each tile names its source, so neither reads the other's data.
+    const [ra, rb] = await Promise.all([service.firstPass({ dataset: npy.id }), service.firstPass({ dataset: h5.id })]);
+    for (const [name, r] of [['a', ra], ['b', rb]] as const) {
+      // reference: NumPy's sums and maxima on the same arrays (make_engine_fixtures.py)
+      expect(maxRelDiff(r.meanPattern, readNpyF64(path.join(fx, `${name}.mean.npy`)).data)).toBeLessThan(1e-9);
+      expect(Array.from(r.maxPattern)).toEqual(Array.from(readNpyF64(path.join(fx, `${name}.max.npy`)).data));
+      expect(maxRelDiff(r.totalIntensity, readNpyF64(path.join(fx, `${name}.total.npy`)).data)).toBeLessThan(1e-9);
+    }
+    // The saturated column of a.npy (pixel y 3, x 5 is 65535 in every pattern) is found hot.
+    expect(ra.badPixels.hot).toContainEqual([3, 5]);
+    expect((await service.datasets()).find((d) => d.id === npy.id)!.version).toBe(2);
+    await service.close(npy.id);
+    await service.close(h5.id);
+    expect(await service.datasets()).toEqual([]);
+  });
+
+  it('the pattern at one probe position equals NumPy\'s a[y, x]', async () => {
+    const d = await service.open({ path: path.join(fx, 'a.h5'), datasetPath: '/entry/frames' });
+    const r = await service.patternAt({ dataset: d.id, y: 2, x: 3 });
+    const p = spawnSync(PYTHON, ['-c', 'import numpy as np,sys,json; print(json.dumps(np.load(sys.argv[1])[2, 3].astype(float).ravel().tolist()))', path.join(fx, 'a.npy')], { encoding: 'utf8' });
+    // reference: NumPy indexing of the same array h5py stored
+    expect(Array.from(r.pattern)).toEqual(JSON.parse(p.stdout));
+    expect([r.detY, r.detX]).toEqual([41, 37]);
+    const err = await inputError(service.patternAt({ dataset: d.id, y: 6, x: 0 }));
+    expect(err.message).toMatch(/outside the 6×7 scan/);
+    await service.close(d.id);
+  });
+
+  it('preview images answer a detector drag after the first pass, in the units of the exact image', async () => {
+    const d = await service.open({ path: path.join(fx, 'a.npy') });
+    await expect(service.previewImages({ dataset: d.id, detectors: [{ shape: { kind: 'disk', cx: 18, cy: 20, r: 6 } }] })).rejects.toThrow(/no preview yet/);
+    const f = await service.firstPass({ dataset: d.id });
+    const det = { shape: { kind: 'rectangle' as const, x0: 0, y0: 0, x1: 36, y1: 40 } };
+    const pv = await service.previewImages({ dataset: d.id, detectors: [det] });
+    expect([pv.qY, pv.qX]).toEqual([f.preview.qY, f.preview.qX]);
+    const exact = await service.virtualImages({ dataset: d.id, detectors: [det] });
+    // Analytic: a detector over the whole pattern, bad pixels left out of both, gives the same
+    // total in the preview (per scan bin, averaged) as the mean of the exact image over that bin.
+    const { scanBin } = f.preview;
+    const { scanX } = f.descriptor.shape;
+    let sum = 0;
+    for (let y = 0; y < scanBin; y++) for (let x = 0; x < scanBin; x++) sum += exact.images[0][y * scanX + x];
+    expect(pv.images[0][0]).toBeCloseTo(sum / (scanBin * scanBin), 6);
+    await service.close(d.id);
+  });
+
+  it('job events carry the client\'s job id; cancel by that id', async () => {
+    const d = await service.open({ path: path.join(fx, 'a.npy') });
+    const events: ServiceEvent[] = [];
+    const off = service.onEvent((e) => events.push(e));
+    await service.firstPass({ dataset: d.id, jobId: 'mine-1' });
+    const mine = events.filter((e) => e.kind === 'job' && e.job.jobId === 'mine-1');
+    expect(mine.length).toBeGreaterThan(1);
+    const last = mine.at(-1)!;
+    expect(last.kind === 'job' ? last.job.state : null).toBe('done');
+    expect(events.some((e) => e.kind === 'dataset' && e.change === 'first-pass' && e.dataset === d.id)).toBe(true);
+    const p = service.comField({ dataset: d.id, jobId: 'mine-2' });
+    await new Promise((r) => setTimeout(r, 0));
+    await service.cancel('mine-2');
+    await expect(p).rejects.toBeInstanceOf(CancelledError);
+    expect(await service.cancel('no-such-job')).toBe(false);
+    off();
+    await service.close(d.id);
+  });
+
+  it('error codes survive the crossing from a worker', async () => {
+    const err = await inputError(service.open({ path: path.join(fx, 'missing.npy') }));
+    expect(err.code).toBe('missing-file');
+    expect(err.message).toMatch(/missing\.npy: file not found/);
+  });
+
+  it('one validator: bad requests get one message style, whatever their way in', async () => {
+    const cases: [Promise<unknown>, RegExp][] = [
+      [service.open({ path: '' }), /^open: path: got ""; expected a non-empty text$/],
+      [service.firstPass({ dataset: 'dataset-999' }), /dataset "dataset-999" is not open; expected an id returned by open/],
+      // eslint-disable-next-line @typescript-eslint/no-explicit-any
+      [service.virtualImages({ dataset: 'x', detectors: [{ shape: { kind: 'disk', cx: 1, cy: 1, r: -2 } }] } as any), /^virtualImages: detectors\.0\.shape\.r: got -2; expected a number > 0$/],
+      // eslint-disable-next-line @typescript-eslint/no-explicit-any
+      [service.comField({ dataset: 'x', descan: { kind: 'reference', region: { x0: 5, y0: 0, x1: 1, y1: 1 } } } as any), /^comField: descan\.region: the corners are swapped; expected x0 ≤ x1 and y0 ≤ y1$/],
+      // eslint-disable-next-line @typescript-eslint/no-explicit-any
+      [service.calibrate({ dataset: 'x', energyKeV: 200 } as any), /^calibrate: request: give exactly one of convergenceMrad or latticeSpacingAngstrom$/],
+      // eslint-disable-next-line @typescript-eslint/no-explicit-any
+      [service.firstPass({ dataset: 'x', extra: true } as any), /^firstPass: request: unknown field "extra"; expected only the fields this request takes$/],
+    ];
+    for (const [p, re] of cases) {
+      const e = await inputError(p);
+      expect(e.message).toMatch(re);
+      if (!/is not open/.test(e.message)) expect(e.code).toBe('bad-request');
+    }
+    // The same validator, called directly (as IPC and session files will).
+    expect(() => validateRequest('patternAt', { dataset: 'a', y: 1.5, x: 0 })).toThrow(/^patternAt: y: got 1\.5; expected a whole number$/);
+  });
+});
