@@ -18,11 +18,13 @@ export const ANALYSIS_HELP = `  scanfold image FILE [source flags] --disk CX,CY,
                  --polygon "X,Y X,Y X,Y" --mask MASK.npy [--weighted] [--bad-pixels auto|none] --out OUT.h5
       virtual images of any number of detectors (detector px; x column, y row), in the order
       given, in one pass: /images (n_detectors, scan_y, scan_x) float64
-  scanfold com FILE [source flags] [--mask-disk CX,CY,R] [--threshold T] [--descan none|mean|plane|reference
+  scanfold com FILE [source flags] [--mask-disk CX,CY,R] [--threshold T] [--descan auto|none|mean|plane|reference
                  [--descan-region X0,Y0,X1,Y1]]
                  [--rotation auto|DEGREES] [--flip auto|yes|no] [--bad-pixels auto|none]
                  [--mrad-per-pixel M --energy-kev E --scan-step-nm S] --out OUT.h5
-      centre of mass per pattern: /com_x, /com_y (detector px, after descan and rotation),
+      centre of mass per pattern: /com_x, /com_y (detector px shifts, after descan and rotation),
+      by default the descan reference and the half-turn come from vacuum found in the scan
+      (else the mean COM is removed and the half-turn is chosen by the phase's skewness, with a note);
       /total_intensity, /magnitude, /direction, /divergence, /curl, /phase (integrated COM),
       attributes rotation_degrees, flip; with the calibration also /com_x_mrad, /com_y_mrad, /phase_radians
   scanfold calibrate FILE [source flags] --energy-kev E [--convergence-mrad A | --lattice-spacing-angstrom D
@@ -161,14 +163,15 @@ export async function cmdCom(args: string[], engineOptions: EngineOptionsOf, eng
   const spec = sourceSpecFromFlags(parsed.positionals[0], v as Record<string, unknown>);
   const quiet = v.quiet === true;
   const threshold = typeof v.threshold === 'string' ? decimalNumber('threshold', v.threshold) : 0;
-  const descanName = typeof v.descan === 'string' ? v.descan : (typeof v['descan-region'] === 'string' ? 'reference' : 'none');
-  if (!['none', 'mean', 'plane', 'reference'].includes(descanName)) throw new InputError(`--descan ${descanName}: expected none, mean, plane or reference`);
+  const descanName = typeof v.descan === 'string' ? v.descan : (typeof v['descan-region'] === 'string' ? 'reference' : 'auto');
+  if (!['auto', 'none', 'mean', 'plane', 'reference'].includes(descanName)) throw new InputError(`--descan ${descanName}: expected auto, none, mean, plane or reference`);
   if ((descanName === 'reference') !== (typeof v['descan-region'] === 'string')) {
     throw new InputError('--descan reference needs --descan-region X0,Y0,X1,Y1 (scan positions of a reference area such as vacuum), and that flag needs --descan reference');
   }
-  const descan: DescanRequest = typeof v['descan-region'] === 'string'
+  // auto: vacuum found in the scan is the reference; without vacuum the mean COM is removed.
+  const descan: DescanRequest | undefined = typeof v['descan-region'] === 'string'
     ? { kind: 'reference', region: rectangleFlag('descan-region', v['descan-region']) }
-    : { kind: descanName as 'none' | 'mean' | 'plane' };
+    : descanName === 'auto' ? undefined : { kind: descanName as 'none' | 'mean' | 'plane' };
   const rotationArg = typeof v.rotation === 'string' ? v.rotation : 'auto';
   const rotationGiven = rotationArg === 'auto' ? null : decimalNumber('rotation', rotationArg, 'auto or a number of degrees');
   const flipArg = typeof v.flip === 'string' ? v.flip : 'auto';
@@ -188,7 +191,7 @@ export async function cmdCom(args: string[], engineOptions: EngineOptionsOf, eng
     // Up to 11 maps of the scan: COM x/y, total, magnitude, direction, divergence, curl, phase and three calibrated ones.
     const opened = await openProtected(service, spec, out, { scan: 11, pattern: 0 });
     const f = await service.comField({
-      dataset: opened.id, maskDisk, threshold, descan, badPixels,
+      dataset: opened.id, maskDisk, threshold, ...(descan ? { descan } : {}), badPixels,
       rotation: rotationGiven === null ? 'auto' : { degrees: rotationGiven, flip: flipArg === 'yes' },
       ...(cal[0] !== undefined ? { calibration: { mradPerPixel: cal[0], energyKeV: cal[1]!, scanStepNm: cal[2]! } } : {}),
     });
@@ -201,13 +204,15 @@ export async function cmdCom(args: string[], engineOptions: EngineOptionsOf, eng
     const rot = f.rotation;
     const rootAttrs: Record<string, string | number> = {
       rotation_degrees: rot.degrees, flip: rot.flip ? 'yes' : 'no', rotation_source: rot.source,
-      descan: f.descan, threshold: f.threshold, zero_total_patterns: f.zeroTotalPatterns, bad_pixels_left_out: f.badPixelsLeftOut,
+      descan: f.descan, vacuum_source: f.vacuum.source, vacuum_positions: f.vacuum.positions, threshold: f.threshold, zero_total_patterns: f.zeroTotalPatterns, bad_pixels_left_out: f.badPixelsLeftOut,
       non_finite_inputs: f.nonFiniteInputs, com_mask: f.comMask, ...provenance(f.descriptor, 'scanfold com'),
     };
     if (rot.alternativeDegrees !== undefined) {
       rootAttrs.rotation_alternative_degrees = rot.alternativeDegrees;
       rootAttrs.rotation_curl_relative = rot.curlRelative!;
       rootAttrs.rotation_half_turn_rule = rot.halfTurnRule!;
+      rootAttrs.rotation_half_turn_score = rot.halfTurnScore!;
+      rootAttrs.rotation_half_turn = rot.halfTurnDetermined ? 'settled by vacuum' : 'undetermined (no vacuum): chosen by the phase skewness';
     }
     if (f.calibration) {
       const c = f.calibration;

@@ -52,6 +52,8 @@ export function followJobs(service: Pick<ScanfoldService, 'onEvent' | 'cancel'> 
   const off = service.onEvent((e) => {
     if (e.kind !== 'job') return;
     const { jobId, label, state, progress } = e.job;
+    // A job's first event comes before it knows its size; its first tile says more.
+    if (state === 'running' && progress.bytesTotal === 0) return;
     let bar = bars.get(jobId);
     if (!bar) { bar = progressPrinter(label, !quiet); bars.set(jobId, bar); }
     bar.update(progress);

@@ -8,17 +8,47 @@ import { compileRegion } from '../../src-shared/compute/region-masks';
 import { curl, descan, divergence, estimateRotation, integrateCom, magnitudeDirection, rotateCom, type DescanMode } from '../../src-shared/compute/com-field';
 import { electronWavelengthPm } from '../../src-shared/compute/wavelength';
 import type { ComSumsResult } from './analyses';
+import type { VacuumFinding } from '../../src-shared/compute/vacuum';
 
-export function descanMode(req: ComFieldRequest, scanY: number, scanX: number): DescanMode {
-  const d = req.descan ?? { kind: 'none' };
-  if (d.kind === 'reference') return { kind: 'reference', mask: compileRegion({ kind: 'rectangle', ...d.region }, scanY, scanX) };
-  return { kind: d.kind };
+export interface ComDefaults {
+  mode: DescanMode;
+  /** How the descan came about, for the result. */
+  descan: string;
+  vacuum: ComFieldResult['vacuum'];
+  /** Vacuum positions that settle the half-turn, when any. */
+  vacuumMask: Uint8Array | null;
+}
+
+/**
+ * The descan and vacuum a request gets. Unless the request says otherwise, vacuum found in the
+ * scan is the descan reference (and settles the half-turn); without vacuum the mean COM is
+ * removed. Rotation always acts on shifts: with 'none', shifts are taken from the bright-field
+ * disk centre (`origin`).
+ */
+export function comDefaults(req: ComFieldRequest, scanY: number, scanX: number, found: VacuumFinding | null): ComDefaults {
+  const vacuumFound = found?.mask ? found : null;
+  if (req.descan?.kind === 'reference') {
+    const mask = compileRegion({ kind: 'rectangle', ...req.descan.region }, scanY, scanX);
+    let positions = 0;
+    for (const b of mask) positions += b ? 1 : 0;
+    return { mode: { kind: 'reference', mask }, descan: 'reference (region given)', vacuum: { source: 'given', positions }, vacuumMask: mask };
+  }
+  const vacuum: ComFieldResult['vacuum'] = vacuumFound
+    ? { source: 'found', positions: vacuumFound.positions, gapSigmas: vacuumFound.gapSigmas }
+    : { source: 'none', positions: 0, ...(found ? { gapSigmas: found.gapSigmas } : {}) };
+  const vacuumMask = vacuumFound?.mask ?? null;
+  if (req.descan === undefined) {
+    if (vacuumMask) return { mode: { kind: 'reference', mask: vacuumMask }, descan: 'reference (vacuum found)', vacuum, vacuumMask };
+    return { mode: { kind: 'mean' }, descan: 'mean (no vacuum found)', vacuum, vacuumMask };
+  }
+  const kind = req.descan.kind;
+  return { mode: { kind }, descan: kind === 'none' ? 'none (positions on the detector, turned about the bright-field disk centre)' : kind, vacuum, vacuumMask };
 }
 
 export function comFieldFromSums(
   sums: ComSumsResult,
   req: ComFieldRequest,
-  context: { dataset: string; mode: DescanMode; comMask: string; badPixelsLeftOut: number; seconds: number },
+  context: { defaults: ComDefaults; origin: { x: number; y: number }; comMask: string; badPixelsLeftOut: number; seconds: number },
 ): Omit<ComFieldResult, 'dataset'> {
   const d: DatasetDescriptor = sums.descriptor;
   const { scanY, scanX } = d.shape;
@@ -36,15 +66,24 @@ export function comFieldFromSums(
     throw new InputError(`${d.path}: every pattern has zero total intensity${req.maskDisk || threshold ? ' inside the COM mask above the threshold' : ''}, so no centre of mass can be computed; expected patterns with counts`);
   }
   const notes: string[] = [];
-  const mode = context.mode;
+  const { mode, vacuumMask } = context.defaults;
+  if (mode.kind === 'none') {
+    // Rotation turns shifts, never absolute positions: measure them from the disk centre.
+    for (let i = 0; i < n; i++) { comX[i] -= context.origin.x; comY[i] -= context.origin.y; }
+  }
   const ds = descan(comX, comY, scanY, scanX, mode);
   let degrees: number, flip: boolean, estimate: ReturnType<typeof estimateRotation> | null = null;
   const rotation = req.rotation ?? 'auto';
   if (rotation === 'auto') {
-    // A reference region given for the descan is vacuum, which also settles the 180° ambiguity.
-    estimate = estimateRotation(ds.comX, ds.comY, scanY, scanX, mode.kind === 'reference' ? { vacuumMask: mode.mask } : {});
+    // Vacuum (found, or the reference region given) settles the 180° ambiguity: a specimen's
+    // phase lies above vacuum's, its mean inner potential being positive (common practice).
+    estimate = estimateRotation(ds.comX, ds.comY, scanY, scanX, vacuumMask ? { vacuumMask } : {});
     degrees = estimate.degrees;
     flip = estimate.flip;
+    if (!vacuumMask) {
+      notes.push(`no vacuum in the scan, so the half-turn is undetermined by curl: ${degrees.toFixed(1)}° was chosen over ${estimate.alternativeDegrees.toFixed(1)}° ` +
+        `because the integrated phase is then skewed positive (score ${estimate.halfTurnScore.toFixed(2)}; near 0 is a guess); give a vacuum region or the rotation by hand to be sure`);
+    }
     if (estimate.curlRelative > 0.5) {
       notes.push(`the COM field has about as much curl at every angle (relative curl ${estimate.curlRelative.toFixed(2)}), so the rotation estimate is weak; give the rotation and flip by hand if you know them`);
     }
@@ -53,6 +92,11 @@ export function comFieldFromSums(
     flip = rotation.flip;
   }
   const rotated = rotateCom(ds.comX, ds.comY, degrees, flip);
+  if (mode.kind === 'none') {
+    // No descan asked for: positions on the detector, turned about the disk centre (with no
+    // rotation, exactly the plain Σ I·x / Σ I).
+    for (let i = 0; i < n; i++) { rotated.comX[i] += context.origin.x; rotated.comY[i] += context.origin.y; }
+  }
   const md = magnitudeDirection(rotated.comX, rotated.comY);
   const phase = integrateCom(rotated.comX, rotated.comY, scanY, scanX);
   const maps: Record<string, ComMap> = {
@@ -84,9 +128,13 @@ export function comFieldFromSums(
     maps,
     rotation: {
       degrees, flip, source: estimate ? 'estimated (least curl)' : 'given',
-      ...(estimate ? { alternativeDegrees: estimate.alternativeDegrees, curlRelative: estimate.curlRelative, halfTurnRule: estimate.halfTurnRule } : {}),
+      ...(estimate ? {
+        alternativeDegrees: estimate.alternativeDegrees, curlRelative: estimate.curlRelative, halfTurnRule: estimate.halfTurnRule,
+        halfTurnScore: estimate.halfTurnScore, halfTurnDetermined: vacuumMask !== null,
+      } : {}),
     },
-    descan: (req.descan ?? { kind: 'none' }).kind,
+    descan: context.defaults.descan,
+    vacuum: context.defaults.vacuum,
     threshold,
     comMask: context.comMask,
     zeroTotalPatterns: zeroTotal,

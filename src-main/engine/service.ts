@@ -23,7 +23,8 @@ import { Engine, type EngineOptions } from './engine';
 import type { FirstPassSummary } from './first-pass';
 import type { Job } from './job';
 import { previewDetectorImages } from './preview';
-import { comFieldFromSums, descanMode } from './com-field';
+import { comDefaults, comFieldFromSums } from './com-field';
+import { findVacuum, type VacuumFinding } from '../../src-shared/compute/vacuum';
 
 interface DatasetRecord {
   id: DatasetId;
@@ -199,10 +200,14 @@ export class EngineService implements ScanfoldService {
     const { detY, detX, scanY, scanX } = r.opened.descriptor.shape;
     const file = r.opened.descriptor.path;
     // Everything asked for is checked before any pass over the data.
-    const mode = aboutFile(file, () => descanMode(req, scanY, scanX));
+    if (req.descan?.kind === 'reference') aboutFile(file, () => comDefaults(req, scanY, scanX, null));
     const maskSpec: DetectorSpec | null = req.maskDisk ? { shape: { kind: 'disk', ...req.maskDisk } } : null;
     if (maskSpec) this.compileDetectors(r, [maskSpec]);
+    // The first pass gives the bad pixels, the disk centre and, from its preview, the vacuum.
+    const first = await this.ensureFirstPass(r, req.jobId ? `${req.jobId}/first-pass` : undefined, 'first pass');
     const bad = await this.badPixelMask(r, req.badPixels, req.jobId);
+    const disk = 'notFound' in first.disk ? null : first.disk;
+    const defaults = aboutFile(file, () => comDefaults(req, scanY, scanX, disk ? this.findVacuum(first, disk) : null));
     if (!maskSpec && bad.count >= detY * detX) {
       throw new InputError(`${file}: every detector pixel was flagged as hot, dead or non-finite on the mean/max pattern, so no centre of mass can be computed; expected patterns with counts (or leave bad pixels in)`);
     }
@@ -211,10 +216,39 @@ export class EngineService implements ScanfoldService {
       ? this.compileDetectors(r, [maskSpec ?? { shape: { kind: 'rectangle', x0: 0, y0: 0, x1: detX - 1, y1: detY - 1 } }], bad.mask)[0]
       : null;
     const sums = await this.track(this.engine.comSums(r.spec, { mask, threshold: req.threshold ?? 0 }), req.jobId, 'centre of mass');
+    const origin = disk ? { x: disk.cx, y: disk.cy } : { x: (detX - 1) / 2, y: (detY - 1) / 2 };
     const field = aboutFile(file, () => comFieldFromSums(sums, req, {
-      dataset: r.id, mode, comMask: maskSpec ? describeDetector(maskSpec) : 'whole pattern', badPixelsLeftOut: bad.count, seconds: sums.seconds,
+      defaults, origin, comMask: maskSpec ? describeDetector(maskSpec) : 'whole pattern', badPixelsLeftOut: bad.count, seconds: sums.seconds,
     }));
     return { dataset: r.id, ...field };
+  }
+
+  /**
+   * Vacuum from the preview cube, with no pass over the data: the fraction of each position's
+   * counts outside the bright-field disk (2 px margin), at the preview's scan binning.
+   */
+  private findVacuum(first: NonNullable<DatasetRecord['first']>, disk: BrightFieldDisk): VacuumFinding {
+    const s = first.summary;
+    const { detY, detX, scanY, scanX } = s.descriptor.shape;
+    const dets = [
+      { shape: { kind: 'disk' as const, cx: disk.cx, cy: disk.cy, r: disk.r + 2 } },
+      { shape: { kind: 'rectangle' as const, x0: 0, y0: 0, x1: detX - 1, y1: detY - 1 } },
+    ].map((d) => ({ ...compileDetector(d, detY, detX, { excludePixels: first.badPixels.mask }), label: '' }));
+    const pv = previewDetectorImages(s.preview, dets);
+    const [inside, total] = pv.images;
+    const scattered = total.map((t, i) => t - inside[i]);
+    const coarse = findVacuum(scattered, total);
+    if (!coarse.mask || pv.scanBin === 1) return coarse;
+    const mask = new Uint8Array(scanY * scanX);
+    let positions = 0;
+    for (let y = 0; y < scanY; y++) {
+      for (let x = 0; x < scanX; x++) {
+        const v = coarse.mask[Math.floor(y / pv.scanBin) * pv.qX + Math.floor(x / pv.scanBin)];
+        mask[y * scanX + x] = v;
+        positions += v;
+      }
+    }
+    return { ...coarse, mask, positions };
   }
 
   async calibrate(req: CalibrationRequest): Promise<CalibrationResult> {

@@ -126,8 +126,15 @@ export interface ComFieldResult {
     alternativeDegrees?: number;
     curlRelative?: number;
     halfTurnRule?: string;
+    /** How clearly the rule told θ from θ + 180° (its score; near 0 is a guess). */
+    halfTurnScore?: number;
+    /** False when no vacuum settled the half-turn: the choice then rests on the phase's skewness alone. */
+    halfTurnDetermined?: boolean;
   };
+  /** The descan applied: 'reference (vacuum found)', 'reference (region given)', 'mean (no vacuum found)', 'mean', 'plane', or 'none (positions on the detector, …)'. */
   descan: string;
+  /** Vacuum in the scan: found from the first pass (no request needed), given as the descan region, or none. */
+  vacuum: { source: 'found' | 'given' | 'none'; positions: number; gapSigmas?: number };
   threshold: number;
   comMask: string;
   zeroTotalPatterns: number;

@@ -1,0 +1,86 @@
+/**
+ * Vacuum in a scan: probe positions where the beam met no specimen. There the whole pattern is
+ * the bright-field disk plus the detector's background, so the fraction of the counts outside
+ * the disk is at its lowest, the same at every such position, and clearly below any position
+ * over matter, which scatters some of the beam out of the disk (common practice).
+ *
+ * The rule: sort the scattered fractions; the vacuum group is the lowest run of values that is
+ * separated from the next value by a gap of at least GAP_SIGMAS standard deviations of the
+ * group (robust, and at least its Poisson noise), and holds at least MIN_FRACTION of the
+ * positions (and MIN_POSITIONS). A specimen
+ * that covers the whole scan has no such gap, and then no vacuum is reported.
+ */
+export const GAP_SIGMAS = 5;
+export const MIN_FRACTION = 0.01;
+export const MIN_POSITIONS = 8;
+
+export interface VacuumFinding {
+  /** One byte per position, 1 over vacuum; null when none was found. */
+  mask: Uint8Array | null;
+  positions: number;
+  /** Scattered fraction at or below which a position counts as vacuum (NaN when none). */
+  threshold: number;
+  /** The gap above the vacuum group, in robust standard deviations of the group (0 when none). */
+  gapSigmas: number;
+}
+
+/**
+ * @param scattered counts outside the bright-field disk, per position
+ * @param total all counts, per position (same length)
+ */
+export function findVacuum(scattered: ArrayLike<number>, total: ArrayLike<number>): VacuumFinding {
+  if (scattered.length !== total.length) throw new RangeError(`findVacuum: ${scattered.length} scattered values but ${total.length} totals`);
+  const n = total.length;
+  const fraction = new Float64Array(n).fill(NaN);
+  const order: number[] = [];
+  for (let i = 0; i < n; i++) {
+    if (total[i] > 0 && Number.isFinite(total[i]) && Number.isFinite(scattered[i])) {
+      fraction[i] = Math.max(0, scattered[i]) / total[i];
+      order.push(i);
+    }
+  }
+  const none: VacuumFinding = { mask: null, positions: 0, threshold: NaN, gapSigmas: 0 };
+  const m = order.length;
+  const minCount = Math.max(MIN_POSITIONS, Math.ceil(MIN_FRACTION * m));
+  if (m < 2 * minCount) return none;
+  order.sort((a, b) => fraction[a] - fraction[b]);
+  const v = Float64Array.from(order, (i) => fraction[i]);
+  let best = { k: 0, score: 0 };
+  // Candidate groups: the lowest k values, k up to half the positions.
+  for (let k = minCount; k <= Math.floor(m / 2); k++) {
+    const gap = v[k] - v[k - 1];
+    if (gap <= 0) continue;
+    const score = gap / groupSigma(v, k, order, scattered, total);
+    if (score > best.score) best = { k, score };
+  }
+  if (best.score < GAP_SIGMAS) return { ...none, gapSigmas: best.score };
+  const threshold = v[best.k - 1];
+  const mask = new Uint8Array(n);
+  let positions = 0;
+  for (let i = 0; i < n; i++) if (fraction[i] <= threshold) { mask[i] = 1; positions++; }
+  return { mask, positions, threshold, gapSigmas: best.score };
+}
+
+/**
+ * The spread of the group's scattered fraction: 1.4826 × the median absolute deviation (a
+ * normal distribution's σ), but never below the Poisson noise of its counts, √(s + 1) / t with
+ * the group's median scattered counts s and total t. Over clean vacuum nearly every value is
+ * exactly 0, where the deviation alone would be 0 and any step would look infinitely clear.
+ */
+function groupSigma(v: Float64Array, k: number, order: number[], scattered: ArrayLike<number>, total: ArrayLike<number>): number {
+  const med = median(v, 0, k);
+  const dev = new Float64Array(k);
+  for (let i = 0; i < k; i++) dev[i] = Math.abs(v[i] - med);
+  dev.sort();
+  const s = new Float64Array(k), t = new Float64Array(k);
+  for (let i = 0; i < k; i++) { s[i] = Math.max(0, scattered[order[i]]); t[i] = total[order[i]]; }
+  s.sort();
+  t.sort();
+  return Math.max(1.4826 * median(dev, 0, k), Math.sqrt(median(s, 0, k) + 1) / median(t, 0, k));
+}
+
+function median(sorted: Float64Array, start: number, end: number): number {
+  const n = end - start;
+  const mid = start + (n >> 1);
+  return n % 2 ? sorted[mid] : (sorted[mid - 1] + sorted[mid]) / 2;
+}
