@@ -11,6 +11,7 @@ import { EngineService } from '../engine/service';
 import { writeFloat64Results, type ResultArray, type WrittenResults } from '../io/write-results';
 import type { OutputFile } from '../io/output-file';
 import { readNpy2D } from '../io/npy-array';
+import { canonicalPath, physicalPath } from '../io/input-file';
 import { followJobs } from './progress';
 import { decimalNumber, numberList, outputFlag, parseFlags, rectangleFlag, rejectExtraPositionals, SOURCE_OPTIONS, sourceSpecFromFlags } from './source-flags';
 
@@ -59,25 +60,49 @@ function detectorShapes(tokens: ReturnType<typeof parseFlags>['tokens'] | undefi
     if (t.kind !== 'option' || typeof t.value !== 'string') continue;
     const v = t.value;
     switch (t.name) {
-      case 'disk': { const [cx, cy, r] = numbers('disk', v, 3); shapes.push({ kind: 'disk', cx, cy, r }); break; }
-      case 'annulus': { const [cx, cy, rInner, rOuter] = numbers('annulus', v, 4); shapes.push({ kind: 'annulus', cx, cy, rInner, rOuter }); break; }
-      case 'rect': shapes.push({ kind: 'rectangle', ...rectangleFlag('rect', v) }); break;
-      case 'polygon': {
-        const pts = v.trim().split(/\s+/).map((p) => numbers('polygon', p, 2) as [number, number]);
-        shapes.push({ kind: 'polygon', points: pts });
+      case 'disk': {
+        const [cx, cy, r] = numbers('disk', v, 3);
+        if (r <= 0) throw new InputError(`--disk ${v}: the radius is ${r}; expected a radius > 0`);
+        shapes.push({ kind: 'disk', cx, cy, r });
         break;
       }
+      case 'annulus': {
+        const [cx, cy, rInner, rOuter] = numbers('annulus', v, 4);
+        if (rInner < 0 || rOuter <= rInner) throw new InputError(`--annulus ${v}: inner radius ${rInner}, outer radius ${rOuter}; expected 0 ≤ inner < outer`);
+        shapes.push({ kind: 'annulus', cx, cy, rInner, rOuter });
+        break;
+      }
+      case 'rect': shapes.push({ kind: 'rectangle', ...rectangleFlag('rect', v) }); break;
+      case 'polygon': shapes.push({ kind: 'polygon', points: polygonFlag('polygon', v) }); break;
       case 'mask': {
         const m = readNpy2D(v, 'detector mask');
         if (m.height !== detY || m.width !== detX) {
-          throw new InputError(`${path.resolve(v)}: the mask is ${m.height}×${m.width}, but the patterns are ${detY}×${detX}; expected a mask of the detector's shape`);
+          throw new InputError(`${canonicalPath(v)}: the mask is ${m.height}×${m.width}, but the patterns are ${detY}×${detX}; expected a mask of the detector's shape`);
         }
+        checkMaskValues(v, m.values, m.width);
         shapes.push({ kind: 'mask', width: m.width, height: m.height, values: m.values });
         break;
       }
     }
   }
   return shapes;
+}
+
+/** Points "X,Y X,Y X,Y …" of a polygon flag, at least three. */
+function polygonFlag(flag: string, v: string): [number, number][] {
+  const pts = v.trim().split(/\s+/).map((p) => numbers(flag, p, 2) as [number, number]);
+  if (pts.length < 3) throw new InputError(`--${flag} "${v}": ${pts.length} point(s); expected at least 3, as "X,Y X,Y X,Y"`);
+  return pts;
+}
+
+/** A painted mask holds 0/1 or weights in [0, 1]; say where it does not, naming the file. */
+function checkMaskValues(file: string, values: ArrayLike<number>, width: number): void {
+  for (let i = 0; i < values.length; i++) {
+    const x = values[i];
+    if (!(x >= 0 && x <= 1)) {
+      throw new InputError(`${canonicalPath(file)}: the mask holds ${x} at row ${Math.floor(i / width)}, column ${i % width}; expected 0/1 or weights in [0, 1]`);
+    }
+  }
 }
 
 /**
@@ -107,6 +132,15 @@ export async function openProtected(service: EngineService, spec: SourceSpec, ou
   return opened;
 }
 
+/**
+ * Write the results, after protecting every file the engine's readers opened (external raw
+ * data, virtual sources), by identity, whatever name they were opened under.
+ */
+export async function writeResults(service: EngineService, out: OutputFile, arrays: Record<string, ResultArray>, attrs: Record<string, string | number>): Promise<WrittenResults> {
+  out.protectIdentities(await service.filesRead());
+  return writeFloat64Results(out, arrays, attrs);
+}
+
 /** Say on stderr which results are NaN or ±Inf (overflowed sums, divisions by zero). */
 export function noteNonFiniteResults(w: WrittenResults, expected = ''): void {
   const parts = Object.entries(w.nonFiniteResults).map(([k, n]) => `${k} ${n}`);
@@ -115,7 +149,7 @@ export function noteNonFiniteResults(w: WrittenResults, expected = ''): void {
 
 /** Paths given to a flag that takes a file, as absolute paths, to protect them from --out. */
 function flagFiles(v: Flags, ...names: string[]): string[] {
-  return names.flatMap((n) => [v[n]].flat().filter((x): x is string => typeof x === 'string').map((x) => path.resolve(x)));
+  return names.flatMap((n) => [v[n]].flat().filter((x): x is string => typeof x === 'string').map((x) => physicalPath(x)));
 }
 
 function provenance(d: { path: string; datasetPath: string | null; fingerprint: string }, producer: string): Record<string, string> {
@@ -146,7 +180,7 @@ export async function cmdImage(args: string[], engineOptions: EngineOptionsOf, e
     r.images.forEach((img, k) => all.set(img, k * n));
     const attrs: Record<string, string | number> = { detectors: JSON.stringify(r.labels), bad_pixels_left_out: r.badPixelsLeftOut, non_finite_inputs: r.nonFiniteInputs };
     r.labels.forEach((label, k) => { attrs[`detector_${k}`] = label; });
-    const written = await writeFloat64Results(out, { images: { data: all, shape: [r.images.length, scanY, scanX], attrs } }, provenance(r.descriptor, 'scanfold image'));
+    const written = await writeResults(service, out, { images: { data: all, shape: [r.images.length, scanY, scanX], attrs } }, provenance(r.descriptor, 'scanfold image'));
     noteNonFiniteResults(written);
     if (!quiet) process.stderr.write(`wrote ${written.path}: ${r.images.length} image(s) ${scanY}×${scanX}${r.badPixelsLeftOut ? `, ${r.badPixelsLeftOut} bad detector pixel(s) left out` : ''}\n`);
   }, out);
@@ -219,7 +253,7 @@ export async function cmdCom(args: string[], engineOptions: EngineOptionsOf, eng
       Object.assign(rootAttrs, { mrad_per_pixel: c.mradPerPixel, energy_kev: c.energyKeV, wavelength_pm: c.wavelengthPm, scan_step_nm: c.scanStepNm });
       arrays.phase_radians.attrs!.radians_per_phase_unit = c.radiansPerPhaseUnit;
     }
-    const written = await writeFloat64Results(out, arrays, rootAttrs);
+    const written = await writeResults(service, out, arrays, rootAttrs);
     noteNonFiniteResults(written, f.zeroTotalPatterns ? `; ${f.zeroTotalPatterns} pattern(s) with zero total have no centre of mass (NaN by design)` : '');
     if (!quiet) {
       process.stderr.write(`wrote ${written.path}: rotation ${rot.degrees.toFixed(2)}°, flip ${rot.flip ? 'yes' : 'no'}${rot.alternativeDegrees !== undefined ? ` (estimated; relative curl ${rot.curlRelative!.toFixed(3)}; 180° away: ${rot.alternativeDegrees.toFixed(2)}°)` : ''}` +
@@ -288,13 +322,19 @@ export async function cmdPattern(args: string[], engineOptions: EngineOptionsOf,
     if (rect) {
       region = { kind: 'rectangle', ...rect };
     } else if (typeof v['region-polygon'] === 'string') {
-      region = { kind: 'polygon', points: v['region-polygon'].trim().split(/\s+/).map((p) => numbers('region-polygon', p, 2) as [number, number]) };
+      region = { kind: 'polygon', points: polygonFlag('region-polygon', v['region-polygon']) };
     } else {
-      const m = readNpy2D(v['region-mask'] as string, 'region mask');
+      const file = v['region-mask'] as string;
+      const m = readNpy2D(file, 'region mask');
+      const { scanY, scanX } = opened.descriptor.shape;
+      if (m.height !== scanY || m.width !== scanX) {
+        throw new InputError(`${canonicalPath(file)}: the region mask is ${m.height}×${m.width}, but the scan is ${scanY}×${scanX}; expected a mask of the scan's shape`);
+      }
+      checkMaskValues(file, m.values, m.width);
       region = { kind: 'mask', width: m.width, height: m.height, values: m.values };
     }
     const r = await service.regionPattern({ dataset: opened.id, region });
-    const written = await writeFloat64Results(out, {
+    const written = await writeResults(service, out, {
       mean_pattern: { data: r.mean, shape: [detY, detX] },
       max_pattern: { data: r.max, shape: [detY, detX] },
     }, { region: r.region, positions: r.count, non_finite_inputs: r.nonFiniteInputs, ...provenance(r.descriptor, 'scanfold pattern') });

@@ -6,13 +6,16 @@ import type { EngineOptions } from '../engine/engine';
 import type { FirstPassResult } from '../../src-shared/contract/service';
 import type { SourceSpec } from '../../src-shared/model/dataset';
 import { parseBytes, fmtBytes } from '../engine/budget';
-import { writeFloat64Results, type WrittenResults } from '../io/write-results';
+import type { WrittenResults } from '../io/write-results';
 import { OutputFile } from '../io/output-file';
+import { canonicalPath, checkInputFile, errnoText } from '../io/input-file';
+import { getH5 } from '../io/h5wasm-module';
 import { outputFlag, parseFlags, rejectExtraPositionals, SOURCE_HELP, SOURCE_OPTIONS, sourceSpecFromFlags, wholeNumber } from './source-flags';
 import { interruptRunningJob } from './progress';
 import { writeSample, SAMPLE_SIZES } from '../../samples/write-sample';
 import { projectRoot } from '../engine/paths';
-import { ANALYSIS_HELP, REGION_HELP, cmdCalibrate, cmdCom, cmdImage, cmdPattern, noteNonFiniteResults, openProtected, withService } from './analysis-commands';
+import { ANALYSIS_HELP, REGION_HELP, cmdCalibrate, cmdCom, cmdImage, cmdPattern, noteNonFiniteResults, openProtected, withService, writeResults } from './analysis-commands';
+import type { EngineService } from '../engine/service';
 
 const HELP = `scanfold — exploratory analysis of 4D-STEM datasets far larger than memory
 
@@ -82,9 +85,9 @@ async function cmdInfo(args: string[]) {
 }
 
 /** The first pass's results as float64 datasets, with where they came from. */
-async function writeSummary(out: OutputFile, r: FirstPassResult, producer: string): Promise<WrittenResults> {
+async function writeSummary(service: EngineService, out: OutputFile, r: FirstPassResult, producer: string): Promise<WrittenResults> {
   const { scanY, scanX, detY, detX } = r.descriptor.shape;
-  return writeFloat64Results(out, {
+  return writeResults(service, out, {
     mean_pattern: { data: r.meanPattern, shape: [detY, detX] },
     max_pattern: { data: r.maxPattern, shape: [detY, detX] },
     total_intensity: { data: r.totalIntensity, shape: [scanY, scanX] },
@@ -103,7 +106,7 @@ async function summarise(spec: SourceSpec, values: Record<string, unknown>, out:
     // Every file the data comes from is known before the pass, and protected from --out.
     const opened = await openProtected(service, spec, out, { scan: 1, pattern: 2 });
     const r = await service.firstPass({ dataset: opened.id });
-    return { r, written: await writeSummary(out, r, producer) };
+    return { r, written: await writeSummary(service, out, r, producer) };
   }, out);
 }
 
@@ -139,17 +142,43 @@ async function cmdSample(args: string[]) {
   process.stdout.write(JSON.stringify(r) + '\n');
 }
 
+/** A root attribute of an HDF5 file as text, or null when the file or attribute is not there or not HDF5. */
+async function rootAttribute(file: string, name: string): Promise<string | null> {
+  try {
+    checkInputFile(file, 'an HDF5 file');
+    const { h5wasm } = await getH5();
+    const f = new h5wasm.File(file, 'r');
+    try {
+      const v = f.attrs[name]?.value;
+      return typeof v === 'string' ? v : null;
+    } finally {
+      f.close();
+    }
+  } catch {
+    return null;
+  }
+}
+
 async function cmdDemo(args: string[]) {
   const { values } = parse(args, { dir: { type: 'string' }, ...ENGINE_OPTIONS });
-  const dir = path.resolve(typeof values.dir === 'string' ? values.dir : path.join(projectRoot(), 'demo-data'));
-  fs.mkdirSync(dir, { recursive: true });
+  const dir = typeof values.dir === 'string' ? canonicalPath(values.dir) : path.join(projectRoot(), 'demo-data');
+  try {
+    fs.mkdirSync(dir, { recursive: true });
+  } catch (e) {
+    throw new InputError(`--dir ${dir}: cannot make this folder (${errnoText((e as NodeJS.ErrnoException).code)}); expected a folder for the demo files`);
+  }
   const file = path.join(dir, 'demo.h5');
+  const summaryFile = path.join(dir, 'demo-summary.h5');
+  // The demo writes its summary by a fixed name: never over a file of the user's that happens to bear it.
+  if (fs.existsSync(summaryFile) && (await rootAttribute(summaryFile, 'producer')) !== 'scanfold demo') {
+    throw new InputError(`${summaryFile}: exists and is not a summary the demo wrote; move it away or give another --dir`);
+  }
   if (!fs.existsSync(file)) {
     process.stderr.write(`making the demo dataset ${file} …\n`);
     await writeSample({ size: 'demo', out: file });
   }
   const spec = { path: file, datasetPath: '/scan/frames' };
-  const out = OutputFile.create(path.join(dir, 'demo-summary.h5'), { flag: 'demo summary', protect: [file] });
+  const out = OutputFile.create(summaryFile, { flag: 'demo summary', protect: [file] });
   const { r } = await summarise(spec, values, out, 'scanfold demo');
   let tmin = Infinity, tmax = -Infinity;
   for (const v of r.totalIntensity) { if (v < tmin) tmin = v; if (v > tmax) tmax = v; }

@@ -1,6 +1,7 @@
 import path from 'node:path';
 import { parseArgs } from 'node:util';
 import { OutputFile } from '../io/output-file';
+import { physicalPath } from '../io/input-file';
 import type { SourceSpec } from '../../src-shared/model/dataset';
 import { isDType, DTYPES } from '../../src-shared/model/dtype';
 import { InputError } from '../../src-shared/model/errors';
@@ -96,7 +97,7 @@ export function parseFlags<O extends OptionSpec>(args: string[], options: O) {
 
 export function sourceSpecFromFlags(file: string | undefined, v: Record<string, unknown>): SourceSpec {
   if (!file) throw new InputError('no input file given');
-  const spec: SourceSpec = { path: path.resolve(file) };
+  const spec: SourceSpec = { path: physicalPath(file) };
   if (typeof v.dataset === 'string') spec.datasetPath = v.dataset;
   if (typeof v['scan-shape'] === 'string') {
     const [sy, sx] = ints('scan-shape', v['scan-shape'], 2);

@@ -20,6 +20,7 @@ import { findBrightFieldDisk } from '../../src-shared/compute/bright-field-disk'
 import { calibrate } from '../../src-shared/compute/calibration';
 import { strongestRing } from '../../src-shared/compute/radial-profile';
 import { Engine, type EngineOptions } from './engine';
+import { fmtBytes } from '../../src-shared/model/bytes';
 import type { FirstPassSummary } from './first-pass';
 import type { Job } from './job';
 import { previewDetectorImages } from './preview';
@@ -35,6 +36,12 @@ interface DatasetRecord {
 }
 
 type ServiceJobInfo = JobInfo & { jobId: string };
+
+/**
+ * Memory of the COM field per scan position: about 14 float64 maps (sums, COM, descan, rotated,
+ * derived, calibrated) and the integration's complex spectra on the 2× mirrored scan.
+ */
+const COM_BYTES_PER_POSITION = 14 * 8 + 3 * 4 * 16;
 
 /** Input problems found by an analysis name the file they were found in. */
 function aboutFile<T>(file: string, fn: () => T): T {
@@ -201,6 +208,13 @@ export class EngineService implements ScanfoldService {
     const file = r.opened.descriptor.path;
     // Everything asked for is checked before any pass over the data.
     if (req.descan?.kind === 'reference') aboutFile(file, () => comDefaults(req, scanY, scanX, null));
+    // The field's maps and the Fourier integration (on the scan mirrored to twice its size) live
+    // in memory at once: about COM_BYTES_PER_POSITION per scan position. Refuse before any pass.
+    const fieldBytes = COM_BYTES_PER_POSITION * scanY * scanX;
+    if (fieldBytes > this.engine.limits.budgetBytes) {
+      throw new InputError(`${file}: the centre-of-mass maps of a ${scanY}×${scanX} scan and their Fourier integration need about ${fmtBytes(fieldBytes)}, ` +
+        `more than the memory budget of ${fmtBytes(this.engine.limits.budgetBytes)}; expected a larger budget (or a smaller scan region)`, 'too-large');
+    }
     const maskSpec: DetectorSpec | null = req.maskDisk ? { shape: { kind: 'disk', ...req.maskDisk } } : null;
     if (maskSpec) this.compileDetectors(r, [maskSpec]);
     // The first pass gives the bad pixels, the disk centre and, from its preview, the vacuum.
@@ -310,6 +324,14 @@ export class EngineService implements ScanfoldService {
     if (!r.first) throw new InputError(`previewImages: ${r.opened.descriptor.path} has no preview yet; expected a first pass first`, 'bad-request');
     const compiled = this.compileDetectors(r, req.detectors, r.first.badPixels.mask);
     return previewDetectorImages(r.first.summary.preview, compiled);
+  }
+
+  async filesRead(): Promise<{ path: string; dev: number; ino: number }[]> {
+    const seen = new Map<string, { path: string; dev: number; ino: number }>();
+    for (const list of await this.engine.pool.each((w) => w.filesRead())) {
+      for (const f of list) seen.set(`${f.dev}:${f.ino}`, f);
+    }
+    return [...seen.values()];
   }
 
   async jobs(): Promise<ServiceJobInfo[]> {

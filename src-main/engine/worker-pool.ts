@@ -101,6 +101,11 @@ export class WorkerPool {
     }
   }
 
+  /** Run `task` on every worker now, busy or not (for small queries such as the files they read). */
+  async each<T>(task: (worker: TileWorker, index: number) => Promise<T>): Promise<T[]> {
+    return Promise.all(this.slots.map((s) => Promise.race([task(s.remote, s.index), s.death])));
+  }
+
   /** For tests: end one worker thread abruptly, as a crash would. */
   async kill(index: number): Promise<void> {
     await this.slots[index].worker.terminate();

@@ -2,6 +2,7 @@ import fs from 'node:fs';
 import { createRequire } from 'node:module';
 import path from 'node:path';
 import { pathToFileURL } from 'node:url';
+import { fileKindText, physicalPath } from './input-file';
 // Loaded on first use: readers of raw and .npy data, and their worker threads, never pay for it.
 import type h5wasmDefault from 'h5wasm/node';
 
@@ -52,34 +53,55 @@ const FILTER_NAMES = new Map<number, string>([
 let runtime: Promise<H5Runtime> | null = null;
 
 export interface FileOpen {
-  /** Absolute path HDF5 asked for. */
+  /** The path HDF5 asked for, made absolute without folding ".." (the system resolves it). */
   path: string;
-  /** The errno code when the open failed. */
+  /** Device and inode of what was opened. */
+  dev?: number;
+  ino?: number;
+  /** Why the open failed: an errno code, or what the file was when not a regular file. */
   failed?: string;
 }
 
 let openLog: FileOpen[] | null = null;
+/** Every regular file HDF5 opened in this thread, by device:inode. */
+const opened = new Map<string, { path: string; dev: number; ino: number }>();
+
+/** Every regular file HDF5 has opened in this thread: inputs, their external data, virtual sources. */
+export function filesOpenedByHdf5(): { path: string; dev: number; ino: number }[] {
+  return [...opened.values()];
+}
 
 /**
  * h5wasm's Node build reads the real disk through Node's fs module, so wrapping fs.openSync
- * shows every file HDF5 touches on our behalf: the external files that hold a dataset's raw
- * data, the sources of a virtual dataset, and those it looked for and did not find.
- * The wrapper only records while `withFileOpenLog` runs; otherwise it passes straight through.
+ * sees every file HDF5 touches on our behalf: the external files that hold a dataset's raw
+ * data, the sources of a virtual dataset, and those it looked for and did not find. Each is
+ * opened without blocking and must be a regular file (a FIFO named as external data would
+ * otherwise hang the read forever); its identity is kept so no output can replace it.
  */
 function installOpenLog(skipDir: string | null): void {
   const original = fs.openSync;
   const wrapped = function (this: unknown, ...args: Parameters<typeof fs.openSync>) {
     const log = openLog;
-    const p = typeof args[0] === 'string' ? path.resolve(args[0]) : null;
-    const keep = log !== null && p !== null && !(skipDir && p.startsWith(skipDir + path.sep)) && !/\/tmpfile_\w+$/.test(p);
+    const p = typeof args[0] === 'string' ? physicalPath(args[0]) : null;
+    const own = p !== null && skipDir !== null && (p === skipDir || p.startsWith(skipDir + path.sep));
+    if (p === null || own) return original.apply(this, args);
+    if (typeof args[1] === 'number') args[1] |= fs.constants.O_NONBLOCK ?? 0;
+    let fd: number;
     try {
-      const fd = original.apply(this, args);
-      if (keep) log.push({ path: p });
-      return fd;
+      fd = original.apply(this, args);
     } catch (e) {
-      if (keep) log.push({ path: p, failed: (e as NodeJS.ErrnoException).code ?? 'error' });
+      log?.push({ path: p, failed: (e as NodeJS.ErrnoException).code ?? 'error' });
       throw e;
     }
+    const st = fs.fstatSync(fd);
+    if (!st.isFile()) {
+      fs.closeSync(fd);
+      log?.push({ path: p, failed: fileKindText(st) });
+      throw Object.assign(new Error(`${p} is ${fileKindText(st)}, not a regular file`), { code: 'EINVAL' });
+    }
+    opened.set(`${st.dev}:${st.ino}`, { path: p, dev: st.dev, ino: st.ino });
+    log?.push({ path: p, dev: st.dev, ino: st.ino });
+    return fd;
   };
   (fs as { openSync: typeof fs.openSync }).openSync = wrapped as typeof fs.openSync;
 }

@@ -2,11 +2,11 @@ import * as fs from 'node:fs';
 import * as nodePath from 'node:path';
 import type { DatasetDescriptor, Hdf5DatasetInfo, Shape4D, SourceSpec } from '../../src-shared/model/dataset';
 import { DTYPE_BYTES, DTYPES, isDType, typedView, type ByteOrder, type DType, type NumericArray } from '../../src-shared/model/dtype';
-import { InputError } from '../../src-shared/model/errors';
+import { InputError, isInputError } from '../../src-shared/model/errors';
 import { fingerprint } from './fingerprint';
 import { availableFilterNames, briefHdf5Error, filterName, getH5, isFilterAvailable, withFileOpenLog, type H5Runtime } from './h5wasm-module';
 import { checkPatternRequest, checkRowRequest, type ReaderMemory, type TileSource } from './tile-source';
-import { checkInputFile, errnoText } from './input-file';
+import { checkInputFile, errnoText, physicalPath } from './input-file';
 import { hdf5SignatureOffset } from './hdf5-signature';
 import { scanShapeFor3D, validateShape } from './validate';
 import { fmtBytes } from '../../src-shared/model/bytes';
@@ -111,7 +111,16 @@ export async function openHdf5(spec: SourceSpec, options: Hdf5ReadOptions = {}):
       file, datasetPath, rank, shape, dtype, chunks: facts.chunks, maxSliceBytes: options.maxSliceBytes ?? DEFAULT_MAX_SLICE_BYTES,
     }, chunkWorkBytes);
     const sampled = withFileOpenLog(() => source.samplePatterns());
-    if (sampled.error !== undefined) throw sampled.error;
+    if (sampled.error !== undefined) {
+      if (isInputError(sampled.error)) throw sampled.error;
+      const bad = sampled.opens.find((o) => o.failed);
+      if (bad) {
+        const why = /^E[A-Z]+$/.test(bad.failed!) ? errnoText(bad.failed) : `it is ${bad.failed}, not a regular file`;
+        throw new InputError(`${what}: the dataset's data lives in ${bad.path}, which could not be opened (${why}); expected a present, regular file`,
+          bad.failed === 'ENOENT' ? 'missing-file' : 'unreadable');
+      }
+      throw sampled.error;
+    }
     // Files HDF5 opened to read the samples: external raw-data files.
     for (const o of sampled.opens) if (!o.failed && !sourceFiles.includes(o.path)) sourceFiles.push(o.path);
     const descriptor: DatasetDescriptor = {
@@ -301,9 +310,10 @@ class Hdf5TileSource implements TileSource {
         const what = `${this.g.file}:${this.g.datasetPath}`;
         const missing = read.opens.find((o) => o.failed);
         if (missing) {
+          const why = /^E[A-Z]+$/.test(missing.failed!) ? errnoText(missing.failed) : `it is ${missing.failed}, not a regular file`;
           throw new InputError(
-            `${what}: the dataset keeps its data in the external file ${missing.path}, which could not be opened (${errnoText(missing.failed)}); ` +
-            'expected that file to be present (HDF5 looks for external data files relative to the current folder)',
+            `${what}: the dataset keeps its data in the external file ${missing.path}, which could not be opened (${why}); ` +
+            'expected that file to be present and regular (HDF5 looks for external data files relative to the current folder)',
             missing.failed === 'ENOENT' ? 'missing-file' : 'unreadable');
         }
         const text = read.error instanceof Error ? read.error.message : String(read.error);
@@ -376,9 +386,10 @@ function checkVirtualSources(rt: H5Runtime, vdsFile: string, sources: { file_nam
       file = vdsFile;
     } else {
       // HDF5 looks beside the virtual dataset's file first, then in the current folder.
+      // Joined as text without folding "..": the system resolves it through symlinks, as HDF5 does.
       const candidates = nodePath.isAbsolute(src.file_name)
         ? [src.file_name]
-        : [nodePath.join(nodePath.dirname(vdsFile), src.file_name), nodePath.resolve(src.file_name)];
+        : [nodePath.dirname(vdsFile) + nodePath.sep + src.file_name, physicalPath(src.file_name)];
       const found = candidates.find((c) => fs.existsSync(c));
       if (!found) {
         throw new InputError(

@@ -1,6 +1,6 @@
 import fs from 'node:fs';
 import path from 'node:path';
-import { openInputFile } from './input-file';
+import { canonicalPath, openInputFile, physicalPath } from './input-file';
 import { hdf5SignatureOffset } from './hdf5-signature';
 import type { DatasetDescriptor, Hdf5DatasetInfo, SourceFormat, SourceSpec } from '../../src-shared/model/dataset';
 import { InputError } from '../../src-shared/model/errors';
@@ -33,7 +33,7 @@ export function detectFormat(spec: SourceSpec): SourceFormat {
 
 /** Open any supported source as a TileSource. */
 export async function openTileSource(spec: SourceSpec, options: Hdf5ReadOptions = {}): Promise<TileSource> {
-  const resolved: SourceSpec = { ...spec, path: path.resolve(spec.path) };
+  const resolved: SourceSpec = { ...spec, path: physicalPath(spec.path) };
   const format = detectFormat(resolved);
   resolved.format = format;
   switch (format) {
@@ -52,10 +52,10 @@ export type Inspection =
  * dataset path, the list of datasets the user may pick from.
  */
 export async function inspectSource(spec: SourceSpec): Promise<Inspection> {
-  const resolved: SourceSpec = { ...spec, path: path.resolve(spec.path) };
+  const resolved: SourceSpec = { ...spec, path: physicalPath(spec.path) };
   const format = detectFormat(resolved);
   if (format === 'hdf5' && !resolved.datasetPath) {
-    return { kind: 'hdf5-listing', path: resolved.path, datasets: await listHdf5Datasets(resolved.path) };
+    return { kind: 'hdf5-listing', path: canonicalPath(resolved.path), datasets: await listHdf5Datasets(resolved.path) };
   }
   const src = await openTileSource({ ...resolved, format });
   try {

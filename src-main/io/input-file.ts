@@ -43,6 +43,7 @@ export function errnoText(code: string | undefined): string {
     case 'ELOOP': return 'too many levels of symbolic links';
     case 'ENAMETOOLONG': return 'the name is too long';
     case 'EISDIR': return 'is a folder';
+    case 'EEXIST': return 'a file of that name is in the way';
     case 'ENOSPC': return 'no space left on the device';
     case 'EDQUOT': return 'disk quota exceeded';
     case 'EROFS': return 'read-only file system';
@@ -54,6 +55,24 @@ export function errnoText(code: string | undefined): string {
   }
 }
 
+/**
+ * An absolute path that names the file the system would open for `p`: relative paths are put
+ * under the working folder without folding "..", which the system resolves through symlinks
+ * (so "link/../x" is the "x" beside the link's target, as in a shell), not as text.
+ */
+export function physicalPath(p: string): string {
+  return nodePath.isAbsolute(p) ? p : nodePath.join(process.cwd(), '.') + nodePath.sep + p;
+}
+
+/** The canonical absolute name of an existing file (symlinks and ".." resolved by the system), or its physical path. */
+export function canonicalPath(p: string): string {
+  try {
+    return fs.realpathSync.native(physicalPath(p));
+  } catch {
+    return physicalPath(p);
+  }
+}
+
 // O_NONBLOCK keeps open() of a FIFO from waiting for a writer; it changes nothing for regular files.
 const OPEN_FLAGS = fs.constants.O_RDONLY | (fs.constants.O_NONBLOCK ?? 0);
 
@@ -62,10 +81,11 @@ const OPEN_FLAGS = fs.constants.O_RDONLY | (fs.constants.O_NONBLOCK ?? 0);
  * file"); every failure is an InputError that names the file and says why.
  */
 export function openInputFile(path: string, expected: string): OpenedFile {
-  const file = nodePath.resolve(path);
+  const given = physicalPath(path);
+  let file = given;
   let fd: number;
   try {
-    fd = fs.openSync(file, OPEN_FLAGS);
+    fd = fs.openSync(given, OPEN_FLAGS);
   } catch (e) {
     const code = (e as NodeJS.ErrnoException).code;
     if (code === 'ENOENT' || code === 'ENOTDIR') {
@@ -81,6 +101,7 @@ export function openInputFile(path: string, expected: string): OpenedFile {
     if (!st.isFile()) {
       throw new InputError(`${file}: is ${fileKindText(st)}, not a regular file; expected ${expected}`, 'not-a-file');
     }
+    file = canonicalPath(given);
     return { fd, path: file, size: st.size, identity: { dev: st.dev, ino: st.ino } };
   } catch (e) {
     fs.closeSync(fd);

@@ -20,8 +20,8 @@ const MAX_SMALL_BYTES = 256 * 1024 * 1024;
  * NumPy's boolean dtype '|b1' besides the numeric ones; C order only.
  */
 export function readNpy2D(file: string, what: string): SmallArray2D {
-  const abs = path.resolve(file);
-  const f = openInputFile(abs, `a .npy ${what}`);
+  const f = openInputFile(file, `a .npy ${what}`);
+  const abs = f.path;
   try {
     const h = readNpyHeader(f.fd, f.size, abs);
     if (h.fortranOrder !== false) throw new InputError(`${abs}: Fortran-ordered arrays are not supported; save the ${what} with np.ascontiguousarray`, 'unsupported');

@@ -4,7 +4,7 @@ import type { DatasetDescriptor, Shape4D, SourceSpec } from '../../src-shared/mo
 import { DTYPE_BYTES, type ByteOrder, type DType } from '../../src-shared/model/dtype';
 import { InputError } from '../../src-shared/model/errors';
 import { ContiguousTileSource, contiguousFingerprint } from './contiguous';
-import { openInputFile, readFullyAt } from './input-file';
+import { openInputFile, physicalPath, readFullyAt } from './input-file';
 import type { TileSource } from './tile-source';
 import { scanShapeFor3D, validateShape } from './validate';
 
@@ -47,9 +47,9 @@ export async function describeNpy(spec: SourceSpec): Promise<DatasetDescriptor> 
 }
 
 function openNpySync(spec: SourceSpec): TileSource {
-  const path = nodePath.resolve(spec.path);
-  if (spec.datasetPath !== undefined) throw new InputError(`${path}: a .npy file holds one array; --dataset (${spec.datasetPath}) applies to HDF5 files only`, 'bad-input');
-  const file = openInputFile(path, 'a NumPy .npy file');
+  if (spec.datasetPath !== undefined) throw new InputError(`${physicalPath(spec.path)}: a .npy file holds one array; --dataset (${spec.datasetPath}) applies to HDF5 files only`, 'bad-input');
+  const file = openInputFile(spec.path, 'a NumPy .npy file');
+  const path = file.path;
   try {
     const header = readNpyHeader(file.fd, file.size, path);
     const { dtype, byteOrder } = npyDType(header.descr, path);

@@ -1,14 +1,15 @@
-// The one way Scanfold writes a file the user named. A result is written to a temporary file
-// of our own, created exclusively in the target's folder before any work starts, then synced
-// and renamed onto the target. Scanfold never removes or replaces a file it did not create,
-// never writes over a file it reads (compared by device and inode, so symlinks and hard links
-// are seen through), and never replaces anything but a regular file.
+// The one way Scanfold writes a file the user named. The target's folder is resolved once
+// (through symlinks and "..", as the system does); a private folder of our own (mode 0700,
+// created with mkdtemp beside the target) holds the result while it is written, so nobody can
+// plant a link on its name; the finished file is synced and renamed onto the target. Scanfold
+// never removes a file it did not create, never writes over a file it reads (compared by
+// device and inode, so links are seen through), never replaces a file the user may not write,
+// and never replaces anything but a regular file.
 import * as fs from 'node:fs';
 import * as nodePath from 'node:path';
-import { randomBytes } from 'node:crypto';
 import { InputError, OutputError } from '../../src-shared/model/errors';
-import { errnoText, fileKindText, sameFile, type FileIdentity } from './input-file';
 import { fmtBytes } from '../../src-shared/model/bytes';
+import { errnoText, fileKindText, physicalPath, sameFile, type FileIdentity } from './input-file';
 
 export interface OutputOptions {
   /** How the user named it, for messages ("--out"). */
@@ -20,27 +21,43 @@ export interface OutputOptions {
 /** HDF5's metadata and attributes beside the result arrays, generously. */
 const RESULT_OVERHEAD_BYTES = 256 * 1024;
 
-/** Temporary files of this process not yet renamed or removed, removed at exit. */
-const pending = new Map<string, FileIdentity>();
+/** A name part of at most this many UTF-8 bytes keeps temporary names under the usual 255-byte limit. */
+const NAME_PART_BYTES = 120;
+
+interface Pending {
+  dir: string;
+  dirId: FileIdentity;
+  file: string;
+  fileId: FileIdentity | null;
+}
+
+/** Temporary folders of this process not yet removed, removed at exit (only if still ours). */
+const pending = new Set<Pending>();
 let exitHookInstalled = false;
 
 function installExitHook(): void {
   if (exitHookInstalled) return;
   exitHookInstalled = true;
   process.on('exit', () => {
-    for (const [tmp, id] of pending) removeIfOurs(tmp, id);
+    for (const p of pending) removeOurs(p);
   });
 }
 
-/** Remove `tmp` only if it is still the file we created. */
-function removeIfOurs(tmp: string, id: FileIdentity): void {
+/** Remove our temporary file and folder, each only if it is still the one we created. */
+function removeOurs(p: Pending): void {
   try {
-    const st = fs.lstatSync(tmp);
-    if (st.isFile() && sameFile(st, id)) fs.unlinkSync(tmp);
+    const st = fs.lstatSync(p.file);
+    if (p.fileId && st.isFile() && sameFile(st, p.fileId)) fs.unlinkSync(p.file);
   } catch {
     // already gone
   }
-  pending.delete(tmp);
+  try {
+    const st = fs.lstatSync(p.dir);
+    if (st.isDirectory() && sameFile(st, p.dirId)) fs.rmdirSync(p.dir);
+  } catch {
+    // already gone, or not empty (then someone else put a file there: leave it)
+  }
+  pending.delete(p);
 }
 
 /**
@@ -49,15 +66,16 @@ function removeIfOurs(tmp: string, id: FileIdentity): void {
  * finished result is ever left behind.
  */
 export class OutputFile {
-  /** Where the result lands: the path given, or the final target of a symlink given. */
+  /** Where the result lands: the canonical path of the target (a symlink's final target). */
   readonly path: string;
-  /** The path as the user gave it (absolute), for messages. */
+  /** The path as the user gave it, for messages. */
   readonly requested: string;
-  /** The temporary file, in the same folder as `path`. */
+  /** The temporary file, in a private folder beside `path`. */
   readonly tmpPath: string;
-  private readonly tmpIdentity: FileIdentity;
+  private readonly tmp: Pending;
   private readonly flag: string;
   private readonly protectedPaths: string[] = [];
+  private readonly protectedIds: (FileIdentity & { path: string })[] = [];
   private done = false;
 
   private constructor(requested: string, target: string, flag: string, protect: readonly string[]) {
@@ -66,40 +84,39 @@ export class OutputFile {
     this.flag = flag;
     this.protect(protect);
     const dir = nodePath.dirname(target);
-    const base = nodePath.basename(target);
-    // A name nobody else uses: hidden, random, and created with O_EXCL so an existing file is never touched.
-    for (let attempt = 0; ; attempt++) {
-      const tmp = nodePath.join(dir, `.${base.slice(0, 180)}.${randomBytes(6).toString('hex')}.scanfold-partial`);
-      let fd: number;
-      try {
-        fd = fs.openSync(tmp, fs.constants.O_CREAT | fs.constants.O_EXCL | fs.constants.O_WRONLY, 0o666);
-      } catch (e) {
-        const code = (e as NodeJS.ErrnoException).code;
-        if (code === 'EEXIST' && attempt < 8) continue;
-        throw new InputError(`${flag} ${requested}: cannot create a file in the folder ${dir} (${errnoText(code)}); nothing was written`, 'bad-output');
-      }
-      try {
-        const st = fs.fstatSync(fd);
-        this.tmpPath = tmp;
-        this.tmpIdentity = { dev: st.dev, ino: st.ino };
-      } finally {
-        fs.closeSync(fd);
-      }
-      installExitHook();
-      pending.set(this.tmpPath, this.tmpIdentity);
-      return;
+    const base = truncateUtf8(nodePath.basename(target), NAME_PART_BYTES);
+    let tmpDir: string;
+    try {
+      tmpDir = fs.mkdtempSync(nodePath.join(dir, `.${base}.scanfold-`));
+    } catch (e) {
+      throw new InputError(`${flag} ${requested}: cannot create a file in the folder ${dir} (${errnoText((e as NodeJS.ErrnoException).code)}); nothing was written`, 'bad-output');
     }
+    const dirId = identity(fs.lstatSync(tmpDir));
+    this.tmp = { dir: tmpDir, dirId, file: nodePath.join(tmpDir, base || 'result'), fileId: null };
+    installExitHook();
+    pending.add(this.tmp);
+    try {
+      const fd = fs.openSync(this.tmp.file, fs.constants.O_CREAT | fs.constants.O_EXCL | fs.constants.O_WRONLY, 0o666);
+      try { this.tmp.fileId = identity(fs.fstatSync(fd)); } finally { fs.closeSync(fd); }
+    } catch (e) {
+      removeOurs(this.tmp);
+      throw new InputError(`${flag} ${requested}: cannot create a file in the folder ${dir} (${errnoText((e as NodeJS.ErrnoException).code)}); nothing was written`, 'bad-output');
+    }
+    this.tmpPath = this.tmp.file;
   }
 
   /**
    * Check `out` and create its temporary file. Refuses a folder, a device, a FIFO, a socket, a
-   * dangling symlink, a missing folder and any file in `protect`; a symlink to a regular file is
-   * written through (the link stays and its target receives the result, as a shell's `>` does).
+   * dangling symlink, a missing folder, a file the user may not write, and any file in
+   * `protect`; a symlink to a regular file is written through (the link stays and its target
+   * receives the result, as a shell's `>` does).
    */
   static create(out: unknown, options: OutputOptions = {}): OutputFile {
     const flag = options.flag ?? '--out';
     if (typeof out !== 'string' || out.trim() === '') throw new InputError(`${flag} needs a file name, such as results.h5`, 'bad-output');
-    const requested = nodePath.resolve(out);
+    // eslint-disable-next-line no-control-regex
+    if (/[\x00-\x1f\x7f]/.test(out)) throw new InputError(`${flag} ${JSON.stringify(out)}: the name holds control characters (a newline?); expected a plain file name`, 'bad-output');
+    const requested = physicalPath(out);
     const target = resolveTarget(requested, flag);
     return new OutputFile(requested, target, flag, options.protect ?? []);
   }
@@ -107,9 +124,15 @@ export class OutputFile {
   /** Add files the command reads (known only after opening the input); checked now and again before the rename. */
   protect(paths: readonly string[]): void {
     for (const p of paths) {
-      const abs = nodePath.resolve(p);
+      const abs = physicalPath(p);
       if (!this.protectedPaths.includes(abs)) this.protectedPaths.push(abs);
     }
+    this.checkNotAnInput();
+  }
+
+  /** Add files by identity (what the engine's readers opened, under whatever name). */
+  protectIdentities(files: readonly (FileIdentity & { path: string })[]): void {
+    this.protectedIds.push(...files);
     this.checkNotAnInput();
   }
 
@@ -140,17 +163,20 @@ export class OutputFile {
     if (this.done) throw new Error(`OutputFile ${this.path}: already written or discarded`);
     try {
       await fill(this.tmpPath);
-      this.assertTmpIsOurs();
+      const st = statOrNull(this.tmpPath, true);
+      if (!st || !st.isFile() || !this.tmp.fileId || !sameFile(st, this.tmp.fileId)) {
+        throw new OutputError(`could not write ${this.requested}: the temporary file ${this.tmpPath} was removed or replaced while writing`, 'temporary file replaced');
+      }
       syncFile(this.tmpPath);
       // The target may have changed during a long pass: check it again just before the rename.
       const target = resolveTarget(this.requested, this.flag);
-      if (target !== this.path) throw new InputError(`${this.flag} ${this.requested}: changed to point at ${target} while the command ran; nothing was written`, 'bad-output');
+      if (target !== this.path) throw new InputError(`${this.flag} ${this.requested}: now names ${target}, not ${this.path} as when the command started; nothing was written`, 'bad-output');
       this.checkNotAnInput();
       const existing = statOrNull(this.path);
       if (existing) fs.chmodSync(this.tmpPath, existing.mode & 0o7777);
       fs.renameSync(this.tmpPath, this.path);
-      pending.delete(this.tmpPath);
       this.done = true;
+      removeOurs(this.tmp);
       syncFolder(nodePath.dirname(this.path));
       return this.path;
     } catch (e) {
@@ -159,29 +185,23 @@ export class OutputFile {
     }
   }
 
-  /** Give up: remove the temporary file (only if it is still ours). */
+  /** Give up: remove the temporary file and folder (only if still ours). */
   discard(): void {
     if (this.done) return;
     this.done = true;
-    removeIfOurs(this.tmpPath, this.tmpIdentity);
-  }
-
-  private assertTmpIsOurs(): void {
-    const st = statOrNull(this.tmpPath, true);
-    if (!st || !st.isFile() || !sameFile(st, this.tmpIdentity)) {
-      throw new OutputError(`could not write ${this.requested}: the temporary file ${this.tmpPath} was removed or replaced while writing; nothing was written`, 'temporary file replaced');
-    }
+    removeOurs(this.tmp);
   }
 
   private checkNotAnInput(): void {
     const out = statOrNull(this.path);
     if (!out) return;
+    const hit = (p: string, how: string) => new InputError(`${this.flag} ${this.requested}: is a file this command reads${how}; writing results there would destroy it. Choose another name`, 'bad-output');
     for (const p of this.protectedPaths) {
       const st = statOrNull(p);
-      if (st && sameFile(st, out)) {
-        const how = p === this.path ? '' : ` (the same file as ${p}, through a link)`;
-        throw new InputError(`${this.flag} ${this.requested}: is a file this command reads${how}; writing results there would destroy it. Choose another name`, 'bad-output');
-      }
+      if (st && sameFile(st, out)) throw hit(p, p === this.path || p === this.requested ? '' : ` (the same file as ${p}, through a link)`);
+    }
+    for (const f of this.protectedIds) {
+      if (sameFile(f, out)) throw hit(f.path, f.path === this.path ? '' : ` (read as ${f.path})`);
     }
   }
 
@@ -194,31 +214,63 @@ export class OutputFile {
   }
 }
 
+function identity(st: fs.Stats): FileIdentity {
+  return { dev: st.dev, ino: st.ino };
+}
+
+/** The first bytes of a name, whole characters only, at most `max` bytes of UTF-8. */
+function truncateUtf8(name: string, max: number): string {
+  let out = '';
+  let bytes = 0;
+  for (const ch of name) {
+    const b = Buffer.byteLength(ch);
+    if (bytes + b > max) break;
+    out += ch;
+    bytes += b;
+  }
+  return out;
+}
+
 /**
- * The regular file (or new name) that `requested` stands for: a symlink is followed to its
- * final target; anything but a regular file or a new name in an existing folder is refused.
+ * The regular file (or new name) that `requested` stands for, canonical: a symlink is followed
+ * to its final target, the folder is resolved by the system (links and ".." included); anything
+ * but a regular file the user may write, or a new name in an existing folder, is refused.
  */
 function resolveTarget(requested: string, flag: string): string {
-  let target = requested;
   const lst = statOrNull(requested, true);
   if (lst?.isSymbolicLink()) {
+    let target: string;
     try {
-      target = fs.realpathSync(requested);
+      target = fs.realpathSync.native(requested);
     } catch (e) {
       const code = (e as NodeJS.ErrnoException).code;
       throw new InputError(`${flag} ${requested}: is a symbolic link to ${readLinkText(requested)}, which ${code === 'ENOENT' ? 'does not exist' : `cannot be followed (${errnoText(code)})`}; give the name of a regular file or a new name`, 'bad-output');
     }
+    return checkExisting(target, requested, flag);
   }
-  const st = statOrNull(target);
-  if (st) {
-    if (st.isDirectory()) throw new InputError(`${flag} ${requested}: is a folder; expected a file name such as results.h5`, 'bad-output');
-    if (!st.isFile()) throw new InputError(`${flag} ${requested}: is ${fileKindText(st)}, not a regular file; Scanfold only writes regular files, so give a file name such as results.h5`, 'bad-output');
-    return target;
+  if (lst) return checkExisting(fs.realpathSync.native(requested), requested, flag);
+  let dir: string;
+  try {
+    dir = fs.realpathSync.native(nodePath.dirname(requested));
+  } catch {
+    throw new InputError(`${flag} ${requested}: the folder ${nodePath.dirname(requested)} does not exist`, 'bad-output');
   }
-  const dir = nodePath.dirname(target);
   const dst = statOrNull(dir);
-  if (!dst) throw new InputError(`${flag} ${requested}: the folder ${dir} does not exist`, 'bad-output');
-  if (!dst.isDirectory()) throw new InputError(`${flag} ${requested}: ${dir} is ${fileKindText(dst)}, not a folder`, 'bad-output');
+  if (!dst?.isDirectory()) throw new InputError(`${flag} ${requested}: ${dir} is ${dst ? fileKindText(dst) : 'missing'}, not a folder`, 'bad-output');
+  return nodePath.join(dir, nodePath.basename(requested));
+}
+
+function checkExisting(target: string, requested: string, flag: string): string {
+  const st = statOrNull(target);
+  if (!st) throw new InputError(`${flag} ${requested}: cannot be examined; expected a file name such as results.h5`, 'bad-output');
+  if (st.isDirectory()) throw new InputError(`${flag} ${requested}: is a folder; expected a file name such as results.h5`, 'bad-output');
+  if (!st.isFile()) throw new InputError(`${flag} ${requested}: is ${fileKindText(st)}, not a regular file; Scanfold only writes regular files, so give a file name such as results.h5`, 'bad-output');
+  // Replacing by rename would get round the file's own permissions: honour them.
+  try {
+    fs.accessSync(target, fs.constants.W_OK);
+  } catch {
+    throw new InputError(`${flag} ${requested}: exists and this user may not write it (read-only, or someone else's); Scanfold replaces only files you may write. Choose another name`, 'bad-output');
+  }
   return target;
 }
 

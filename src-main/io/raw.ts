@@ -4,7 +4,7 @@ import type { DatasetDescriptor, Shape4D, SourceSpec } from '../../src-shared/mo
 import { DTYPE_BYTES, DTYPES, isDType, type ByteOrder, type DType } from '../../src-shared/model/dtype';
 import { InputError } from '../../src-shared/model/errors';
 import { ContiguousTileSource, contiguousFingerprint, shapeText } from './contiguous';
-import { openInputFile } from './input-file';
+import { openInputFile, physicalPath } from './input-file';
 import type { TileSource } from './tile-source';
 import { validateShape } from './validate';
 
@@ -25,7 +25,7 @@ export async function describeRaw(spec: SourceSpec): Promise<DatasetDescriptor> 
 }
 
 function openRawSync(spec: SourceSpec): TileSource {
-  const path = nodePath.resolve(spec.path);
+  let path = physicalPath(spec.path);
   const { shape, dtype, byteOrder, offset } = checkRawLayout(spec.raw, path);
   const elementBytes = DTYPE_BYTES[dtype];
   validateShape(shape, elementBytes, path);
@@ -34,7 +34,8 @@ function openRawSync(spec: SourceSpec): TileSource {
   if (!Number.isSafeInteger(needed)) {
     throw new InputError(`${path}: offset ${offset} + ${byteSize} data bytes overflows 2^53 bytes; expected a real file size`, 'bad-shape');
   }
-  const file = openInputFile(path, 'a raw binary file');
+  const file = openInputFile(spec.path, 'a raw binary file');
+  path = file.path;
   try {
     if (file.size < needed) {
       throw new InputError(

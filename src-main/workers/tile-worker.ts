@@ -20,6 +20,8 @@ import { openTileSource, type TileSource } from '../io/index';
 import type { ReaderMemory } from '../io/tile-source';
 import { loadWasmModule } from './wasm-loader';
 import { keepErrorCodesAcrossThreads } from './error-transfer';
+import fs from 'node:fs';
+import { filesOpenedByHdf5 } from '../io/h5wasm-module';
 
 keepErrorCodesAcrossThreads();
 
@@ -154,6 +156,22 @@ const api = {
   async open(spec: SourceSpec): Promise<OpenReply> {
     const source = await sourceFor(spec);
     return { descriptor: source.descriptor, rowAlignment: source.rowAlignment, memory: source.memory };
+  },
+
+  /** Every file this worker has read data from (its sources, and what HDF5 opened for them). */
+  filesRead(): { path: string; dev: number; ino: number }[] {
+    const files = filesOpenedByHdf5();
+    for (const src of new Set(sources.values())) {
+      for (const f of src.descriptor.sourceFiles) {
+        try {
+          const st = fs.statSync(f);
+          files.push({ path: f, dev: st.dev, ino: st.ino });
+        } catch {
+          // gone since it was opened; nothing to protect under that name
+        }
+      }
+    }
+    return files;
   },
 
   /** Forget a dataset (closed by the user). */

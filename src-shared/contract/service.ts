@@ -240,6 +240,12 @@ export interface ScanfoldService {
   patternAt(req: PatternAtRequest): Promise<PatternAtResult>;
   previewImages(req: PreviewImagesRequest): Promise<PreviewImagesResult>;
 
+  /**
+   * Every file the engine has read data from (datasets, external raw data, virtual sources),
+   * with its device and inode: nothing a front end writes may replace one of them.
+   */
+  filesRead(): Promise<{ path: string; dev: number; ino: number }[]>;
+
   /** The Activity list. */
   jobs(): Promise<(JobInfo & { jobId: string })[]>;
   /** Cancel a running job; false when there is none by that id. */
@@ -254,7 +260,7 @@ export interface ScanfoldService {
 /** The request methods, for generic transports and the validator. */
 export const SERVICE_METHODS = [
   'inspect', 'open', 'close', 'datasets', 'firstPass', 'virtualImages', 'comField', 'calibrate',
-  'regionPattern', 'patternAt', 'previewImages', 'jobs', 'cancel', 'shutdown',
+  'regionPattern', 'patternAt', 'previewImages', 'filesRead', 'jobs', 'cancel', 'shutdown',
 ] as const satisfies readonly (keyof ScanfoldService)[];
 
 export type ServiceMethod = (typeof SERVICE_METHODS)[number];

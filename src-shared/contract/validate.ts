@@ -88,6 +88,7 @@ const SCHEMAS: Record<ServiceMethod, z.ZodType> = {
   regionPattern: z.object({ dataset, region: regionShape, ...job }).strict(),
   patternAt: z.object({ dataset, y: whole, x: whole }).strict(),
   previewImages: z.object({ dataset, detectors: z.array(detectorSpec).min(1, 'expected at least one detector') }).strict(),
+  filesRead: z.undefined(),
   jobs: z.undefined(),
   cancel: z.string().min(1),
   shutdown: z.undefined(),

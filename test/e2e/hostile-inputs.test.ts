@@ -182,6 +182,20 @@ np.ones((320, 64, 64, 64), dtype='<u2').tofile(sys.argv[1] + '/long.raw')`, work
     expect(fs.readdirSync(locked)).toEqual([]);
   });
 
+  it('a file the user may not write is never replaced, even in a folder anyone may write to', () => {
+    const pub = path.join(work, 'pub');
+    fs.mkdirSync(pub);
+    fs.chmodSync(pub, 0o777);
+    const victim = path.join(pub, 'victim.h5');
+    fs.writeFileSync(victim, 'root\'s file');
+    fs.chmodSync(victim, 0o644);
+    const r = scanfold(['summary', path.join(work, 'small.npy'), '--out', victim], { uid: NOBODY, gid: NOBODY });
+    expect(r.code).toBe(2);
+    expect(r.err).toMatch(/victim\.h5: exists and this user may not write it/);
+    expect(fs.readFileSync(victim, 'utf8')).toBe('root\'s file');
+    expect(fs.readdirSync(pub)).toEqual(['victim.h5']);
+  });
+
   it('inputs the user may not read say "permission denied"', () => {
     const secret = path.join(work, 'secret.npy');
     fs.copyFileSync(path.join(work, 'small.npy'), secret);
@@ -250,7 +264,7 @@ np.ones((320, 64, 64, 64), dtype='<u2').tofile(sys.argv[1] + '/long.raw')`, work
       child.kill(signal);
       const exit = await new Promise<number | null>((resolve) => child.on('exit', (c) => resolve(c)));
       expect(exit, err).toBe(code);
-      expect(fs.readdirSync(work).filter((f) => f.includes('sig-') || f.includes('scanfold-partial'))).toEqual([]);
+      expect(fs.readdirSync(work).filter((f) => f.includes('sig-') || f.includes('.scanfold-'))).toEqual([]);
     });
   }
 });
