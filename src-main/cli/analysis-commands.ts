@@ -28,9 +28,12 @@ export const ANALYSIS_HELP = `  scanfold image FILE [source flags] --disk CX,CY,
       (else the mean COM is removed and the half-turn is chosen by the phase's skewness, with a note);
       /total_intensity, /magnitude, /direction, /divergence, /curl, /phase (integrated COM),
       attributes rotation_degrees, flip; with the calibration also /com_x_mrad, /com_y_mrad, /phase_radians
-  scanfold calibrate FILE [source flags] --energy-kev E [--convergence-mrad A | --lattice-spacing-angstrom D
-                 [--bragg-distance-px G]]
-      wavelength, bright-field disk, mrad and Å⁻¹ per detector pixel, as JSON
+  scanfold calibrate FILE [source flags] [--energy-kev E] [--convergence-mrad A | --lattice-spacing-angstrom D
+                 [--bragg-distance-px G]] [--scan-step-nm S]
+      wavelength, bright-field disk, mrad and Å⁻¹ per detector pixel, as JSON; values not given
+      are read from the dataset's attributes (beam_energy_kev, convergence_semiangle_mrad,
+      scan_step_nm, …) and the output says where each came from; with a lattice spacing and
+      several rings in the mean pattern, it lists them and asks for --bragg-distance-px
   --bad-pixels auto (default) finds hot and dead detector pixels on the mean/max pattern (one
       extra pass) and leaves them out of every detector and of the COM; none keeps every pixel.`;
 
@@ -270,18 +273,17 @@ export async function cmdCalibrate(args: string[], engineOptions: EngineOptionsO
   const v = parsed.values as Flags;
   const spec = sourceSpecFromFlags(parsed.positionals[0], v as Record<string, unknown>);
   const energy = positive('energy-kev', v['energy-kev'] as string | undefined);
-  if (energy === undefined) throw new InputError('calibrate needs --energy-kev E (the beam energy)');
   const alpha = positive('convergence-mrad', v['convergence-mrad'] as string | undefined);
   const d = positive('lattice-spacing-angstrom', v['lattice-spacing-angstrom'] as string | undefined);
   const braggGiven = positive('bragg-distance-px', v['bragg-distance-px'] as string | undefined);
   const scanStep = positive('scan-step-nm', v['scan-step-nm'] as string | undefined);
-  if ((alpha === undefined) === (d === undefined)) throw new InputError('calibrate needs exactly one of --convergence-mrad A or --lattice-spacing-angstrom D');
+  if (alpha !== undefined && d !== undefined) throw new InputError('calibrate takes one of --convergence-mrad A or --lattice-spacing-angstrom D, not both');
   if (braggGiven !== undefined && d === undefined) throw new InputError('--bragg-distance-px goes with --lattice-spacing-angstrom (the distance of that Bragg disk from the centre)');
   rejectExtraPositionals(parsed.positionals, 'calibrate');
   await withService(engineOptions(v as Record<string, unknown>), v.quiet === true, async (service) => {
     const opened = await service.open(spec);
     const c = await service.calibrate({
-      dataset: opened.id, energyKeV: energy,
+      dataset: opened.id, ...(energy !== undefined ? { energyKeV: energy } : {}),
       ...(alpha !== undefined ? { convergenceMrad: alpha } : {}), ...(d !== undefined ? { latticeSpacingAngstrom: d } : {}),
       ...(braggGiven !== undefined ? { braggDistancePx: braggGiven } : {}), ...(scanStep !== undefined ? { scanStepNm: scanStep } : {}),
     });
@@ -295,6 +297,8 @@ export async function cmdCalibrate(args: string[], engineOptions: EngineOptionsO
       ...(c.braggDistancePx !== undefined ? { bragg_distance_px: c.braggDistancePx, bragg_distance_source: c.braggDistanceSource } : {}),
       ...(c.scanStepNm !== undefined ? { scan_step_nm: c.scanStepNm } : {}),
       calibration_source: c.source,
+      value_sources: c.valueSources,
+      ...(c.rings ? { rings_found: c.rings } : {}),
       bad_pixels: c.badPixels,
       note: 'exploratory: check against a reference specimen before quoting numbers',
     }, null, 2) + '\n');

@@ -18,7 +18,7 @@ import { compileRegion, describeRegion } from '../../src-shared/compute/region-m
 import { findBadPixels, replaceBadPixels } from '../../src-shared/compute/bad-pixels';
 import { findBrightFieldDisk } from '../../src-shared/compute/bright-field-disk';
 import { calibrate } from '../../src-shared/compute/calibration';
-import { strongestRing } from '../../src-shared/compute/radial-profile';
+import { ringCandidates } from '../../src-shared/compute/radial-profile';
 import { Engine, type EngineOptions } from './engine';
 import { fmtBytes } from '../../src-shared/model/bytes';
 import type { FirstPassSummary } from './first-pass';
@@ -36,6 +36,27 @@ interface DatasetRecord {
 }
 
 type ServiceJobInfo = JobInfo & { jobId: string };
+
+/**
+ * Attribute names read for calibration values when the request leaves them out: only names that
+ * carry their unit, so a value is never taken in the wrong unit (kV and keV agree for electrons).
+ */
+const ENERGY_ATTRIBUTES = ['beam_energy_kev', 'energy_kev', 'accelerating_voltage_kv', 'high_tension_kv'] as const;
+const CONVERGENCE_ATTRIBUTES = ['convergence_semiangle_mrad', 'convergence_semi_angle_mrad', 'convergence_angle_mrad', 'semiangle_mrad'] as const;
+const SCAN_STEP_ATTRIBUTES = ['scan_step_nm', 'step_size_nm', 'pixel_size_nm'] as const;
+
+/** The first attribute found among `names` (case-insensitive) as one positive number; a pair (y, x) counts when both agree. */
+function attributeValue(attrs: Record<string, number | number[] | string> | undefined, names: readonly string[]): { name: string; value: number } | null {
+  if (!attrs) return null;
+  for (const want of names) {
+    const name = Object.keys(attrs).find((k) => k.toLowerCase() === want);
+    if (!name) continue;
+    const v = attrs[name];
+    const value = typeof v === 'number' ? v : Array.isArray(v) && v.length > 0 && v.every((x) => x === v[0]) ? v[0] : NaN;
+    if (Number.isFinite(value) && value > 0) return { name, value };
+  }
+  return null;
+}
 
 /**
  * Memory of the COM field per scan position: about 14 float64 maps (sums, COM, descan, rotated,
@@ -268,29 +289,73 @@ export class EngineService implements ScanfoldService {
   async calibrate(req: CalibrationRequest): Promise<CalibrationResult> {
     validateRequest('calibrate', req);
     const r = this.record(req.dataset);
+    const d = r.opened.descriptor;
+    const file = d.path;
+    // Values not given are read from the dataset's attributes, and the result says which.
+    const sources: Record<string, string> = {};
+    const pick = (key: string, given: number | undefined, names: readonly string[]): number | undefined => {
+      if (given !== undefined) { sources[key] = 'given'; return given; }
+      const found = attributeValue(d.attributes, names);
+      if (found) sources[key] = `attribute ${found.name} of the dataset`;
+      return found?.value;
+    };
+    const energyKeV = pick('energyKeV', req.energyKeV, ENERGY_ATTRIBUTES);
+    if (energyKeV === undefined) {
+      throw new InputError(`${file}: no beam energy was given and the dataset stores none (looked for ${ENERGY_ATTRIBUTES.join(', ')}); expected the beam energy in keV`, 'bad-request');
+    }
+    const lattice = req.latticeSpacingAngstrom;
+    const alpha = lattice === undefined ? pick('convergenceMrad', req.convergenceMrad, CONVERGENCE_ATTRIBUTES) : undefined;
+    if (lattice === undefined && alpha === undefined) {
+      throw new InputError(`${file}: neither a convergence semi-angle nor a lattice spacing was given, and the dataset stores no semi-angle (looked for ${CONVERGENCE_ATTRIBUTES.join(', ')}); expected one of them`, 'bad-request');
+    }
+    const scanStepNm = pick('scanStepNm', req.scanStepNm, SCAN_STEP_ATTRIBUTES);
     const f = await this.ensureFirstPass(r, req.jobId, 'first pass');
     const s = f.summary;
-    const file = s.descriptor.path;
     const { detY, detX } = s.descriptor.shape;
     if ('notFound' in f.disk) throw new InputError(`${file}: ${f.disk.notFound}`);
     const disk = f.disk;
     return aboutFile(file, () => {
-      const mean = replaceBadPixels(s.meanPattern, detY, detX, f.badPixels.mask);
-      const braggPx = req.latticeSpacingAngstrom === undefined ? undefined
-        : req.braggDistancePx ?? strongestRing(mean, detY, detX, disk.cx, disk.cy, disk.r * 1.5, f.badPixels.mask).radius;
-      const cal = calibrate(req.convergenceMrad !== undefined
-        ? { source: 'convergence-angle', energyKeV: req.energyKeV, convergenceSemiAngleMrad: req.convergenceMrad, diskRadiusPx: disk.r, scanStepNm: req.scanStepNm }
-        : { source: 'lattice-spacing', energyKeV: req.energyKeV, latticeSpacingAngstrom: req.latticeSpacingAngstrom!, braggDistancePx: braggPx!, scanStepNm: req.scanStepNm });
+      let braggPx: number | undefined;
+      let rings: { radius: number; strength: number }[] | undefined;
+      if (lattice !== undefined) {
+        if (req.braggDistancePx !== undefined) {
+          braggPx = req.braggDistancePx;
+          sources.braggDistancePx = 'given';
+        } else {
+          // Never assign a spacing to a ring silently: only when a single ring stands out, in the
+          // mean pattern (polycrystals, halos) and in the max pattern (Bragg disks a halo can hide).
+          const mean = replaceBadPixels(s.meanPattern, detY, detX, f.badPixels.mask);
+          const max = replaceBadPixels(s.maxPattern, detY, detX, f.badPixels.mask);
+          const found = ringCandidates(mean, detY, detX, disk.cx, disk.cy, disk.r * 1.5, f.badPixels.mask);
+          for (const c of ringCandidates(max, detY, detX, disk.cx, disk.cy, disk.r * 1.5, f.badPixels.mask)) {
+            if (!found.some((m) => Math.abs(m.radius - c.radius) < 1.5)) found.push(c);
+          }
+          found.sort((a, b) => a.radius - b.radius);
+          rings = found.map((c) => ({ radius: c.radius, strength: c.strength }));
+          if (found.length === 0) throw new InputError(`no ring found beyond ${(disk.r * 1.5).toFixed(1)} px from the centre; give the Bragg disk distance by hand`);
+          if (found.length > 1) {
+            throw new InputError(`several rings could be the one of spacing ${lattice} Å: ${found.map((c) => `${c.radius.toFixed(1)} px (strength ${c.strength.toFixed(2)})`).join(', ')}; ` +
+              'expected the distance of the right ring from the centre given by hand (--bragg-distance-px in the command line)', 'ambiguous');
+          }
+          braggPx = found[0].radius;
+          sources.braggDistancePx = 'the only ring of the mean and max patterns';
+        }
+      }
+      const cal = calibrate(lattice === undefined
+        ? { source: 'convergence-angle', energyKeV, convergenceSemiAngleMrad: alpha!, diskRadiusPx: disk.r, scanStepNm }
+        : { source: 'lattice-spacing', energyKeV, latticeSpacingAngstrom: lattice, braggDistancePx: braggPx!, scanStepNm });
       return {
         dataset: r.id,
         wavelengthPm: cal.wavelengthPm,
         disk,
         mradPerPixel: cal.mradPerPixel,
         inverseAngstromPerPixel: cal.inverseAngstromPerPixel,
-        ...(braggPx !== undefined ? { braggDistancePx: braggPx, braggDistanceSource: req.braggDistancePx !== undefined ? 'given' as const : 'strongest ring of the mean pattern' as const } : {}),
-        ...(req.scanStepNm !== undefined ? { scanStepNm: req.scanStepNm } : {}),
-        source: req.convergenceMrad !== undefined ? 'convergence-angle' as const : 'lattice-spacing' as const,
+        ...(braggPx !== undefined ? { braggDistancePx: braggPx, braggDistanceSource: req.braggDistancePx !== undefined ? 'given' as const : 'the only ring of the mean and max patterns' as const } : {}),
+        ...(scanStepNm !== undefined ? { scanStepNm } : {}),
+        source: lattice === undefined ? 'convergence-angle' as const : 'lattice-spacing' as const,
         badPixels: { hot: f.badPixels.hot.length, dead: f.badPixels.dead.length },
+        valueSources: sources,
+        ...(rings ? { rings } : {}),
       };
     });
   }

@@ -147,6 +147,7 @@ export async function openHdf5(spec: SourceSpec, options: Hdf5ReadOptions = {}):
         ...(rank === 3 ? { scanShape: [shape.scanY, shape.scanX] as [number, number] } : {}),
       },
       sourceFiles,
+      attributes: smallAttributes(h5, datasetPath),
     };
     source.descriptor = descriptor;
     return source;
@@ -333,6 +334,24 @@ class Hdf5TileSource implements TileSource {
       Module._free(ptr);
     }
   }
+}
+
+/** The dataset's numeric and text attributes of up to 16 values (calibration, labels); others are skipped. */
+function smallAttributes(h5: H5File, datasetPath: string): Record<string, number | number[] | string> {
+  const out: Record<string, number | number[] | string> = {};
+  try {
+    const ds = h5.get(datasetPath) as { attrs?: Record<string, { json_value?: unknown }> } | null;
+    for (const [name, attr] of Object.entries(ds?.attrs ?? {})) {
+      let v: unknown;
+      try { v = attr.json_value; } catch { continue; }
+      if (typeof v === 'number' && Number.isFinite(v)) out[name] = v;
+      else if (typeof v === 'string' && v.length <= 500) out[name] = v;
+      else if (Array.isArray(v) && v.length <= 16 && v.every((x) => typeof x === 'number' && Number.isFinite(x))) out[name] = v as number[];
+    }
+  } catch {
+    // attributes are a convenience; a file whose attributes cannot be read still opens
+  }
+  return out;
 }
 
 /**

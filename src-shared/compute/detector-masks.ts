@@ -18,7 +18,8 @@ import { InputError } from '../model/errors';
  *              selects the same pixels as the rectangle with those corners, and for a lattice
  *              polygon the count is I + B of Pick's theorem. "Exactly" means up to the rounding of
  *              the edge's crossing with the pixel row, which is exact for integer vertices.
- *   mask       values > 0
+ *   mask       values > 0 — for a mask of 0s and 1s only; a painted mask holding fractions is a
+ *              mask of weights and is always used as weights, whatever `weighted` says
  *
  * Area-weighted mode — each pixel gets the fraction of its square inside the shape:
  *   disk/annulus  closed form of circle ∩ axis-aligned square (annulus = outer − inner); only
@@ -35,6 +36,11 @@ import { InputError } from '../model/errors';
  * Shapes partly outside the pattern are clipped silently (normal while dragging); a shape covering
  * no pixel at all is an InputError ("empty detector").
  */
+
+function holdsFractions(values: ArrayLike<number>): boolean {
+  for (let i = 0; i < values.length; i++) if (values[i] !== 0 && values[i] !== 1) return true;
+  return false;
+}
 
 /** Which kind of thing a shape describes, for messages: a detector on the pattern or a region on the scan. */
 export interface ShapeContext {
@@ -67,7 +73,8 @@ export function compileDetector(spec: DetectorSpec, detY: number, detX: number, 
   }
   const label = spec.label ?? describeDetector(spec);
 
-  if (spec.weighted) {
+  // A painted mask of fractions is weights by nature: never round 0.5 up to a whole pixel.
+  if (spec.weighted || (shape.kind === 'mask' && holdsFractions(shape.values))) {
     const weights = new Float64Array(detY * detX);
     fillWeights(shape, detY, detX, weights);
     let covered = 0;

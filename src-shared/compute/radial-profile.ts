@@ -25,30 +25,55 @@ export function radialProfile(pattern: ArrayLike<number>, detY: number, detX: nu
   return { mean, count };
 }
 
+export interface RingCandidate {
+  /** Distance from the centre, px (sub-pixel: a parabola through the top three rings). */
+  radius: number;
+  /** Excess of the ring over the straight line between its neighbouring minima. */
+  prominence: number;
+  /** prominence / the strongest ring's prominence. */
+  strength: number;
+}
+
+/** A ring this weak beside the strongest is not counted as a candidate. */
+export const RING_STRENGTH_FLOOR = 0.15;
+
 /**
- * Distance (px, sub-pixel) of the strongest ring beyond `rMin` in the azimuthal average: the
- * first Bragg ring of a polycrystal or the nearest Bragg disks. The ring's excess over a
- * straight-line background between its neighbouring minima is what counts, so a falling
- * diffuse halo does not win; the peak is refined by a parabola through the top three rings.
+ * Rings of the azimuthal average beyond `rMin`, strongest first: the Bragg rings of a
+ * polycrystal or the nearest Bragg disks. A ring's excess over a straight-line background
+ * between its neighbouring minima is what counts, so a falling diffuse halo does not win.
+ * Only rings of at least RING_STRENGTH_FLOOR of the strongest are returned.
  */
-export function strongestRing(pattern: ArrayLike<number>, detY: number, detX: number, cx: number, cy: number,
-  rMin: number, exclude?: Uint8Array): { radius: number; prominence: number } {
+export function ringCandidates(pattern: ArrayLike<number>, detY: number, detX: number, cx: number, cy: number,
+  rMin: number, exclude?: Uint8Array): RingCandidate[] {
   const { mean, count } = radialProfile(pattern, detY, detX, cx, cy, exclude);
   const rMaxInside = Math.floor(Math.min(cx, cy, detX - 1 - cx, detY - 1 - cy));
-  let best = -1;
-  let bestProm = 0;
+  const found: { k: number; prominence: number }[] = [];
   for (let k = Math.max(1, Math.ceil(rMin)); k < Math.min(rMaxInside, mean.length - 1); k++) {
     if (!(count[k] > 0) || !(mean[k] >= mean[k - 1]) || !(mean[k] >= mean[k + 1])) continue;
     // Walk down to the minima on either side.
     let lo = k; while (lo > rMin && mean[lo - 1] <= mean[lo]) lo--;
     let hi = k; while (hi < rMaxInside && mean[hi + 1] <= mean[hi]) hi++;
     const base = hi === lo ? mean[lo] : mean[lo] + ((mean[hi] - mean[lo]) * (k - lo)) / (hi - lo);
-    const prom = mean[k] - base;
-    if (prom > bestProm) { bestProm = prom; best = k; }
+    const prominence = mean[k] - base;
+    if (prominence > 0) found.push({ k, prominence });
   }
-  if (best < 0) throw new InputError(`no ring found beyond ${rMin.toFixed(1)} px from the centre; give the Bragg disk distance by hand`);
-  const a = mean[best - 1], b = mean[best], c = mean[best + 1];
-  const denom = a - 2 * b + c;
-  const shift = denom !== 0 ? Math.max(-0.5, Math.min(0.5, (0.5 * (a - c)) / denom)) : 0;
-  return { radius: best + shift, prominence: bestProm };
+  if (found.length === 0) return [];
+  const top = Math.max(...found.map((f) => f.prominence));
+  return found
+    .filter((f) => f.prominence >= RING_STRENGTH_FLOOR * top)
+    .sort((a, b) => b.prominence - a.prominence)
+    .map(({ k, prominence }) => {
+      const a = mean[k - 1], b = mean[k], c = mean[k + 1];
+      const denom = a - 2 * b + c;
+      const shift = denom !== 0 ? Math.max(-0.5, Math.min(0.5, (0.5 * (a - c)) / denom)) : 0;
+      return { radius: k + shift, prominence, strength: prominence / top };
+    });
+}
+
+/** The strongest ring beyond `rMin` (see ringCandidates). */
+export function strongestRing(pattern: ArrayLike<number>, detY: number, detX: number, cx: number, cy: number,
+  rMin: number, exclude?: Uint8Array): { radius: number; prominence: number } {
+  const rings = ringCandidates(pattern, detY, detX, cx, cy, rMin, exclude);
+  if (rings.length === 0) throw new InputError(`no ring found beyond ${rMin.toFixed(1)} px from the centre; give the Bragg disk distance by hand`);
+  return { radius: rings[0].radius, prominence: rings[0].prominence };
 }

@@ -148,8 +148,9 @@ export interface ComFieldResult {
 
 export interface CalibrationRequest extends JobOptions {
   dataset: DatasetId;
-  energyKeV: number;
-  /** Exactly one of the convergence semi-angle or a lattice spacing. */
+  /** Beam energy; when omitted, read from the dataset's attributes (beam_energy_kev, …). */
+  energyKeV?: number;
+  /** At most one of the convergence semi-angle or a lattice spacing; with neither, the semi-angle is read from the dataset's attributes. */
   convergenceMrad?: number;
   latticeSpacingAngstrom?: number;
   /** With a lattice spacing: the distance of that Bragg disk from the centre, when known. */
@@ -164,10 +165,14 @@ export interface CalibrationResult {
   mradPerPixel: number;
   inverseAngstromPerPixel: number;
   braggDistancePx?: number;
-  braggDistanceSource?: 'given' | 'strongest ring of the mean pattern';
+  braggDistanceSource?: 'given' | 'the only ring of the mean and max patterns';
   scanStepNm?: number;
   source: 'convergence-angle' | 'lattice-spacing';
   badPixels: { hot: number; dead: number };
+  /** Where each value came from: 'given', or 'attribute NAME of the dataset'. */
+  valueSources: Record<string, string>;
+  /** Rings of the mean and max patterns' azimuthal averages (lattice-spacing calibration), by radius; strength relative to the strongest of the same pattern. */
+  rings?: { radius: number; strength: number }[];
 }
 
 export interface RegionPatternRequest extends JobOptions {

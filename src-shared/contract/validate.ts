@@ -76,14 +76,14 @@ const SCHEMAS: Record<ServiceMethod, z.ZodType> = {
   }).strict(),
   calibrate: z.object({
     dataset,
-    energyKeV: positive,
+    energyKeV: positive.optional(),
     convergenceMrad: positive.optional(),
     latticeSpacingAngstrom: positive.optional(),
     braggDistancePx: positive.optional(),
     scanStepNm: positive.optional(),
     ...job,
   }).strict()
-    .refine((r) => (r.convergenceMrad === undefined) !== (r.latticeSpacingAngstrom === undefined), { message: 'give exactly one of convergenceMrad or latticeSpacingAngstrom' })
+    .refine((r) => r.convergenceMrad === undefined || r.latticeSpacingAngstrom === undefined, { message: 'give at most one of convergenceMrad or latticeSpacingAngstrom' })
     .refine((r) => r.braggDistancePx === undefined || r.latticeSpacingAngstrom !== undefined, { message: 'braggDistancePx goes with latticeSpacingAngstrom' }),
   regionPattern: z.object({ dataset, region: regionShape, ...job }).strict(),
   patternAt: z.object({ dataset, y: whole, x: whole }).strict(),

@@ -61,6 +61,8 @@ export interface DatasetDescriptor {
    * Scanfold writes may land on any of them.
    */
   sourceFiles: string[];
+  /** Small numeric and text attributes stored with the dataset (HDF5), e.g. beam_energy_kev. */
+  attributes?: Record<string, number | number[] | string>;
 }
 
 /** One numeric dataset found in an HDF5 file, whether or not it can be opened as 4D-STEM. */

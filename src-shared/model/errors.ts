@@ -18,6 +18,7 @@ export type InputErrorCode =
   | 'bad-output'
   | 'too-large'
   | 'bad-request'
+  | 'ambiguous'
   | 'short-file'
   | 'bad-dtype'
   | 'bad-shape'

@@ -249,3 +249,40 @@ print(json.dumps({'yx': d[...].tolist(), 'r': float(d.attrs['disk_radius_px'])})
     expect(Math.abs(j.mrad_per_pixel - 20 / j.disk_radius_px)).toBeLessThan(1e-12);
   });
 });
+
+describe('calibrate reads the dataset and never picks a ring silently (demo scenario)', () => {
+  let demo: string;
+  beforeAll(() => {
+    demo = path.join(tmp, 'demo-cal.h5');
+    const r = scanfold('sample', '--size', 'demo', '--out', demo, '--quiet');
+    if (r.code !== 0) throw new Error(r.err);
+  });
+  const truth = () => JSON.parse(spawnSync(PYTHON, ['-c', `import h5py, sys, json
+a = h5py.File(sys.argv[1])['/scan/frames'].attrs
+print(json.dumps({'mrad': float(a['mrad_per_px']), 'g200': float(a['g200_px']), 'a_nm': float(a['lattice_constant_nm'])}))`, demo], { encoding: 'utf8' }).stdout);
+
+  it('with no flags, energy, semi-angle and scan step come from the attributes, and say so', () => {
+    const r = scanfold('calibrate', demo, '--dataset', '/scan/frames', '--quiet');
+    expect(r.code, r.err).toBe(0);
+    const c = JSON.parse(r.out);
+    expect(c.value_sources).toEqual({
+      energyKeV: 'attribute beam_energy_kev of the dataset',
+      convergenceMrad: 'attribute convergence_semiangle_mrad of the dataset',
+      scanStepNm: 'attribute scan_step_nm of the dataset',
+    });
+    // reference: the generator's own mrad per pixel (h5py reads it back), within 0.5 %
+    expect(Math.abs(c.mrad_per_pixel / truth().mrad - 1)).toBeLessThan(0.005);
+  });
+
+  it('a lattice spacing with several candidate rings is refused with the candidates; the right ring given by hand calibrates', () => {
+    // {200} spacing of the scenario's fcc lattice: a / 2 (a from the file's attributes)
+    const d200 = (truth().a_nm * 10) / 2;
+    const refused = scanfold('calibrate', demo, '--dataset', '/scan/frames', '--lattice-spacing-angstrom', String(d200), '--quiet');
+    expect(refused.code).toBe(2);
+    expect(refused.err).toMatch(/several rings could be the one of spacing .*px \(strength 1\.00\), .*--bragg-distance-px/);
+    const given = scanfold('calibrate', demo, '--dataset', '/scan/frames', '--lattice-spacing-angstrom', String(d200), '--bragg-distance-px', String(truth().g200), '--quiet');
+    expect(given.code, given.err).toBe(0);
+    // reference: the generator's mrad per pixel, which put the {200} disks at g200_px
+    expect(Math.abs(JSON.parse(given.out).mrad_per_pixel / truth().mrad - 1)).toBeLessThan(0.005);
+  });
+});

@@ -112,20 +112,20 @@ describe('engine service', () => {
   });
 
   it('one validator: bad requests get one message style, whatever their way in', async () => {
-    const cases: [Promise<unknown>, RegExp][] = [
-      [service.open({ path: '' }), /^open: path: got ""; expected a non-empty text$/],
-      [service.firstPass({ dataset: 'dataset-999' }), /dataset "dataset-999" is not open; expected an id returned by open/],
+    const cases: [() => Promise<unknown>, RegExp][] = [
+      [() => service.open({ path: '' }), /^open: path: got ""; expected a non-empty text$/],
+      [() => service.firstPass({ dataset: 'dataset-999' }), /dataset "dataset-999" is not open; expected an id returned by open/],
       // eslint-disable-next-line @typescript-eslint/no-explicit-any
-      [service.virtualImages({ dataset: 'x', detectors: [{ shape: { kind: 'disk', cx: 1, cy: 1, r: -2 } }] } as any), /^virtualImages: detectors\.0\.shape\.r: got -2; expected a number > 0$/],
+      [() => service.virtualImages({ dataset: 'x', detectors: [{ shape: { kind: 'disk', cx: 1, cy: 1, r: -2 } }] } as any), /^virtualImages: detectors\.0\.shape\.r: got -2; expected a number > 0$/],
       // eslint-disable-next-line @typescript-eslint/no-explicit-any
-      [service.comField({ dataset: 'x', descan: { kind: 'reference', region: { x0: 5, y0: 0, x1: 1, y1: 1 } } } as any), /^comField: descan\.region: the corners are swapped; expected x0 ≤ x1 and y0 ≤ y1$/],
+      [() => service.comField({ dataset: 'x', descan: { kind: 'reference', region: { x0: 5, y0: 0, x1: 1, y1: 1 } } } as any), /^comField: descan\.region: the corners are swapped; expected x0 ≤ x1 and y0 ≤ y1$/],
       // eslint-disable-next-line @typescript-eslint/no-explicit-any
-      [service.calibrate({ dataset: 'x', energyKeV: 200 } as any), /^calibrate: request: give exactly one of convergenceMrad or latticeSpacingAngstrom$/],
+      [() => service.calibrate({ dataset: 'x', energyKeV: 200, convergenceMrad: 20, latticeSpacingAngstrom: 2 } as any), /^calibrate: request: give at most one of convergenceMrad or latticeSpacingAngstrom$/],
       // eslint-disable-next-line @typescript-eslint/no-explicit-any
-      [service.firstPass({ dataset: 'x', extra: true } as any), /^firstPass: request: unknown field "extra"; expected only the fields this request takes$/],
+      [() => service.firstPass({ dataset: 'x', extra: true } as any), /^firstPass: request: unknown field "extra"; expected only the fields this request takes$/],
     ];
     for (const [p, re] of cases) {
-      const e = await inputError(p);
+      const e = await inputError(p());
       expect(e.message).toMatch(re);
       if (!/is not open/.test(e.message)) expect(e.code).toBe('bad-request');
     }

@@ -195,9 +195,13 @@ describe('weighted detectors', () => {
     const w = weightsOf(compileDetector({ shape: { kind: 'mask', width: 7, height: 9, values }, weighted: true }, 9, 7));
     // reference: the input values themselves (the definition of a weighted mask)
     expect(Array.from(w)).toEqual(values);
+    // A mask of fractions is weights even without `weighted`: 0.5 is half a pixel, never a whole one.
     const b = compileDetector({ shape: { kind: 'mask', width: 7, height: 9, values } }, 9, 7);
-    // reference: the indices where the input is > 0, found by filtering the input
-    expect(indicesOf(b)).toEqual(values.flatMap((v, i) => (v > 0 ? [i] : [])));
+    expect(Array.from(weightsOf(b))).toEqual(values);
+    // A 0/1 mask stays binary: reference, the indices where the input is > 0, found by filtering the input
+    const ones = values.map((v) => (v > 0.5 ? 1 : 0));
+    const c = compileDetector({ shape: { kind: 'mask', width: 7, height: 9, values: ones } }, 9, 7);
+    expect(indicesOf(c)).toEqual(ones.flatMap((v, i) => (v > 0 ? [i] : [])));
   });
 
   it('is continuous: a 1e-3 px move changes a weighted image by at most perimeter × max I × 1e-3, while the binary mask jumps', () => {
@@ -396,5 +400,18 @@ describe('speed', () => {
     const ms = Math.min(...batches);
     console.log(`weighted annulus 256×256: best ${ms.toFixed(3)} ms, worst batch ${Math.max(...batches).toFixed(3)} ms per compile`);
     expect(ms).toBeLessThan(5);
+  });
+});
+
+describe('painted masks of weights', () => {
+  it('a mask holding fractions is used as weights without --weighted (0.5 counts as half a pixel)', () => {
+    // analytic case: the compiled weights are the painted values themselves
+    const values = new Float64Array(12).fill(0);
+    values[1] = 0.5; values[5] = 1; values[7] = 0.25;
+    const d = compileDetector({ shape: { kind: 'mask', width: 4, height: 3, values } }, 3, 4);
+    expect(d.mode).toBe('weights');
+    expect(d.mode === 'weights' && Array.from(d.weights)).toEqual(Array.from(values));
+    const binary = compileDetector({ shape: { kind: 'mask', width: 4, height: 3, values: values.map((v) => (v > 0 ? 1 : 0)) } }, 3, 4);
+    expect(binary.mode).toBe('indices');
   });
 });
