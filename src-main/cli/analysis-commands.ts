@@ -13,29 +13,8 @@ import type { OutputFile } from '../io/output-file';
 import { readNpy2D } from '../io/npy-array';
 import { canonicalPath, physicalPath } from '../io/input-file';
 import { followJobs } from './progress';
+import { SCANFOLD_VERSION } from '../engine/version';
 import { decimalNumber, numberList, outputFlag, parseFlags, rectangleFlag, rejectExtraPositionals, SOURCE_OPTIONS, sourceSpecFromFlags } from './source-flags';
-
-export const ANALYSIS_HELP = `  scanfold image FILE [source flags] --disk CX,CY,R --annulus CX,CY,R0,R1 --rect X0,Y0,X1,Y1
-                 --polygon "X,Y X,Y X,Y" --mask MASK.npy [--weighted] [--bad-pixels auto|none] --out OUT.h5
-      virtual images of any number of detectors (detector px; x column, y row), in the order
-      given, in one pass: /images (n_detectors, scan_y, scan_x) float64
-  scanfold com FILE [source flags] [--mask-disk CX,CY,R] [--threshold T] [--descan auto|none|mean|plane|reference
-                 [--descan-region X0,Y0,X1,Y1]]
-                 [--rotation auto|DEGREES] [--flip auto|yes|no] [--bad-pixels auto|none]
-                 [--mrad-per-pixel M --energy-kev E --scan-step-nm S] --out OUT.h5
-      centre of mass per pattern: /com_x, /com_y (detector px shifts, after descan and rotation),
-      by default the descan reference and the half-turn come from vacuum found in the scan
-      (else the mean COM is removed and the half-turn is chosen by the phase's skewness, with a note);
-      /total_intensity, /magnitude, /direction, /divergence, /curl, /phase (integrated COM),
-      attributes rotation_degrees, flip; with the calibration also /com_x_mrad, /com_y_mrad, /phase_radians
-  scanfold calibrate FILE [source flags] [--energy-kev E] [--convergence-mrad A | --lattice-spacing-angstrom D
-                 [--bragg-distance-px G]] [--scan-step-nm S]
-      wavelength, bright-field disk, mrad and Å⁻¹ per detector pixel, as JSON; values not given
-      are read from the dataset's attributes (beam_energy_kev, convergence_semiangle_mrad,
-      scan_step_nm, …) and the output says where each came from; with a lattice spacing and
-      several rings in the mean pattern, it lists them and asks for --bragg-distance-px
-  --bad-pixels auto (default) finds hot and dead detector pixels on the mean/max pattern (one
-      extra pass) and leaves them out of every detector and of the COM; none keeps every pixel.`;
 
 type Flags = Record<string, string | boolean | (string | boolean)[] | undefined>;
 type EngineFlags = Record<string, { type: 'string' | 'boolean' }>;
@@ -155,8 +134,27 @@ function flagFiles(v: Flags, ...names: string[]): string[] {
   return names.flatMap((n) => [v[n]].flat().filter((x): x is string => typeof x === 'string').map((x) => physicalPath(x)));
 }
 
-function provenance(d: { path: string; datasetPath: string | null; fingerprint: string }, producer: string): Record<string, string> {
-  return { source_path: d.path, source_dataset: d.datasetPath ?? '', source_fingerprint: d.fingerprint, producer };
+/**
+ * Where a result came from, on every output file: Scanfold's version, the command line, the
+ * request as the engine received it (every parameter, defaults included where the engine
+ * chose them, see the other attributes), the input and its fingerprint.
+ */
+export function provenance(d: { path: string; datasetPath: string | null; fingerprint: string }, producer: string, request?: unknown): Record<string, string> {
+  return {
+    producer,
+    scanfold_version: SCANFOLD_VERSION,
+    command_line: JSON.stringify(process.argv.slice(2)),
+    created: new Date().toISOString(),
+    source_path: d.path,
+    source_dataset: d.datasetPath ?? '',
+    source_fingerprint: d.fingerprint,
+    ...(request !== undefined ? { request: JSON.stringify(request, (_k, v) => (ArrayBuffer.isView(v) || (Array.isArray(v) && v.length > 64) ? `(${(v as ArrayLike<number>).length} values)` : v)) } : {}),
+  };
+}
+
+/** Bad detector pixels left out, as [y, x] coordinates, for the output's attributes. */
+function badPixelAttrs(b: { hot: [number, number][]; dead: [number, number][] } | undefined): Record<string, string> {
+  return b ? { bad_pixels_hot_yx: JSON.stringify(b.hot), bad_pixels_dead_yx: JSON.stringify(b.dead) } : {};
 }
 
 export async function cmdImage(args: string[], engineOptions: EngineOptionsOf, engineFlags: EngineFlags): Promise<void> {
@@ -177,13 +175,15 @@ export async function cmdImage(args: string[], engineOptions: EngineOptionsOf, e
     const { detY, detX, scanY, scanX } = opened.descriptor.shape;
     const shapes = detectorShapes(parsed.tokens, detY, detX);
     if (shapes.length === 0) throw new InputError('image needs at least one detector: --disk, --annulus, --rect, --polygon or --mask');
-    const r = await service.virtualImages({ dataset: opened.id, detectors: shapes.map((shape) => ({ shape, weighted: v.weighted === true })), badPixels });
+    const request = { dataset: opened.id, detectors: shapes.map((shape) => ({ shape, weighted: v.weighted === true })), badPixels };
+    const r = await service.virtualImages(request);
     const n = scanY * scanX;
     const all = new Float64Array(r.images.length * n);
     r.images.forEach((img, k) => all.set(img, k * n));
     const attrs: Record<string, string | number> = { detectors: JSON.stringify(r.labels), bad_pixels_left_out: r.badPixelsLeftOut, non_finite_inputs: r.nonFiniteInputs };
     r.labels.forEach((label, k) => { attrs[`detector_${k}`] = label; });
-    const written = await writeResults(service, out, { images: { data: all, shape: [r.images.length, scanY, scanX], attrs } }, provenance(r.descriptor, 'scanfold image'));
+    const written = await writeResults(service, out, { images: { data: all, shape: [r.images.length, scanY, scanX], attrs, dims: ['detector', 'scan_y', 'scan_x'] } },
+      { ...provenance(r.descriptor, 'scanfold image', request), ...badPixelAttrs(r.badPixels) });
     noteNonFiniteResults(written);
     if (!quiet) process.stderr.write(`wrote ${written.path}: ${r.images.length} image(s) ${scanY}×${scanX}${r.badPixelsLeftOut ? `, ${r.badPixelsLeftOut} bad detector pixel(s) left out` : ''}\n`);
   }, out);
@@ -227,22 +227,23 @@ export async function cmdCom(args: string[], engineOptions: EngineOptionsOf, eng
   await withService(engineOptions(v as Record<string, unknown>), quiet, async (service) => {
     // Up to 11 maps of the scan: COM x/y, total, magnitude, direction, divergence, curl, phase and three calibrated ones.
     const opened = await openProtected(service, spec, out, { scan: 11, pattern: 0 });
-    const f = await service.comField({
+    const request = {
       dataset: opened.id, maskDisk, threshold, ...(descan ? { descan } : {}), badPixels,
-      rotation: rotationGiven === null ? 'auto' : { degrees: rotationGiven, flip: flipArg === 'yes' },
+      rotation: rotationGiven === null ? 'auto' as const : { degrees: rotationGiven, flip: flipArg === 'yes' },
       ...(cal[0] !== undefined ? { calibration: { mradPerPixel: cal[0], energyKeV: cal[1]!, scanStepNm: cal[2]! } } : {}),
-    });
+    };
+    const f = await service.comField(request);
     if (!quiet) for (const note of f.notes) process.stderr.write(`note: ${note}\n`);
     const shape = [f.scanY, f.scanX];
     const arrays: Record<string, ResultArray> = {};
     for (const [name, m] of Object.entries(f.maps)) {
-      arrays[name] = { data: m.data, shape, attrs: { units: m.units, ...(m.note ? { method: m.note } : {}) } };
+      arrays[name] = { data: m.data, shape, dims: ['scan_y', 'scan_x'], attrs: { units: m.units, ...(m.note ? { method: m.note } : {}) } };
     }
     const rot = f.rotation;
     const rootAttrs: Record<string, string | number> = {
       rotation_degrees: rot.degrees, flip: rot.flip ? 'yes' : 'no', rotation_source: rot.source,
       descan: f.descan, vacuum_source: f.vacuum.source, vacuum_positions: f.vacuum.positions, threshold: f.threshold, zero_total_patterns: f.zeroTotalPatterns, bad_pixels_left_out: f.badPixelsLeftOut,
-      non_finite_inputs: f.nonFiniteInputs, com_mask: f.comMask, ...provenance(f.descriptor, 'scanfold com'),
+      non_finite_inputs: f.nonFiniteInputs, com_mask: f.comMask, ...provenance(f.descriptor, 'scanfold com', request), ...badPixelAttrs(f.badPixels),
     };
     if (rot.alternativeDegrees !== undefined) {
       rootAttrs.rotation_alternative_degrees = rot.alternativeDegrees;
@@ -269,6 +270,7 @@ export async function cmdCalibrate(args: string[], engineOptions: EngineOptionsO
   const parsed = parseFlags(args, {
     ...SOURCE_OPTIONS, ...engineFlags, 'energy-kev': { type: 'string' }, 'convergence-mrad': { type: 'string' },
     'lattice-spacing-angstrom': { type: 'string' }, 'bragg-distance-px': { type: 'string' }, 'scan-step-nm': { type: 'string' },
+    out: { type: 'string' },
   });
   const v = parsed.values as Flags;
   const spec = sourceSpecFromFlags(parsed.positionals[0], v as Record<string, unknown>);
@@ -280,13 +282,30 @@ export async function cmdCalibrate(args: string[], engineOptions: EngineOptionsO
   if (alpha !== undefined && d !== undefined) throw new InputError('calibrate takes one of --convergence-mrad A or --lattice-spacing-angstrom D, not both');
   if (braggGiven !== undefined && d === undefined) throw new InputError('--bragg-distance-px goes with --lattice-spacing-angstrom (the distance of that Bragg disk from the centre)');
   rejectExtraPositionals(parsed.positionals, 'calibrate');
+  const out = typeof v.out === 'string' ? outputFlag(v.out, 'calibrate', [spec.path]) : undefined;
   await withService(engineOptions(v as Record<string, unknown>), v.quiet === true, async (service) => {
-    const opened = await service.open(spec);
-    const c = await service.calibrate({
+    const opened = out ? await openProtected(service, spec, out, { scan: 0, pattern: 0 }) : await service.open(spec);
+    const request = {
       dataset: opened.id, ...(energy !== undefined ? { energyKeV: energy } : {}),
       ...(alpha !== undefined ? { convergenceMrad: alpha } : {}), ...(d !== undefined ? { latticeSpacingAngstrom: d } : {}),
       ...(braggGiven !== undefined ? { braggDistancePx: braggGiven } : {}), ...(scanStep !== undefined ? { scanStepNm: scanStep } : {}),
-    });
+    };
+    const c = await service.calibrate(request);
+    if (out) {
+      // The calibration as attributes of the file's root (numbers as float64), and the rings found as a table.
+      const attrs: Record<string, string | number> = {
+        ...provenance(opened.descriptor, 'scanfold calibrate', request),
+        wavelength_pm: c.wavelengthPm, disk_center_x_px: c.disk.cx, disk_center_y_px: c.disk.cy, disk_radius_px: c.disk.r,
+        mrad_per_pixel: c.mradPerPixel, inverse_angstrom_per_pixel: c.inverseAngstromPerPixel, calibration_source: c.source,
+        value_sources: JSON.stringify(c.valueSources),
+        ...(c.braggDistancePx !== undefined ? { bragg_distance_px: c.braggDistancePx } : {}),
+        ...(c.scanStepNm !== undefined ? { scan_step_nm: c.scanStepNm } : {}),
+      };
+      const arrays: Record<string, ResultArray> = c.rings
+        ? { rings: { data: Float64Array.from(c.rings.flatMap((g) => [g.radius, g.strength])), shape: [c.rings.length, 2], attrs: { columns: 'radius_px, strength' } } }
+        : {};
+      await writeResults(service, out, arrays, attrs);
+    }
     process.stdout.write(JSON.stringify({
       wavelength_pm: c.wavelengthPm,
       disk_center_px: { x: c.disk.cx, y: c.disk.cy },
@@ -302,13 +321,8 @@ export async function cmdCalibrate(args: string[], engineOptions: EngineOptionsO
       bad_pixels: c.badPixels,
       note: 'exploratory: check against a reference specimen before quoting numbers',
     }, null, 2) + '\n');
-  });
+  }, out);
 }
-
-export const REGION_HELP = `  scanfold pattern FILE [source flags] (--region-rect X0,Y0,X1,Y1 | --region-polygon "X,Y X,Y X,Y" |
-                 --region-mask MASK.npy) --out OUT.h5
-      virtual diffraction: /mean_pattern and /max_pattern (det_y, det_x) float64 over a region of
-      the scan (scan positions; x column, y row)`;
 
 export async function cmdPattern(args: string[], engineOptions: EngineOptionsOf, engineFlags: EngineFlags): Promise<void> {
   const parsed = parseFlags(args, { ...SOURCE_OPTIONS, ...engineFlags, out: { type: 'string' }, 'region-rect': { type: 'string' }, 'region-polygon': { type: 'string' }, 'region-mask': { type: 'string' } });
@@ -337,11 +351,12 @@ export async function cmdPattern(args: string[], engineOptions: EngineOptionsOf,
       checkMaskValues(file, m.values, m.width);
       region = { kind: 'mask', width: m.width, height: m.height, values: m.values };
     }
-    const r = await service.regionPattern({ dataset: opened.id, region });
+    const request = { dataset: opened.id, region };
+    const r = await service.regionPattern(request);
     const written = await writeResults(service, out, {
-      mean_pattern: { data: r.mean, shape: [detY, detX] },
-      max_pattern: { data: r.max, shape: [detY, detX] },
-    }, { region: r.region, positions: r.count, non_finite_inputs: r.nonFiniteInputs, ...provenance(r.descriptor, 'scanfold pattern') });
+      mean_pattern: { data: r.mean, shape: [detY, detX], dims: ['det_y', 'det_x'], attrs: { units: 'counts per pattern' } },
+      max_pattern: { data: r.max, shape: [detY, detX], dims: ['det_y', 'det_x'], attrs: { units: 'counts' } },
+    }, { region: r.region, positions: r.count, non_finite_inputs: r.nonFiniteInputs, ...provenance(r.descriptor, 'scanfold pattern', request) });
     noteNonFiniteResults(written);
     if (v.quiet !== true) process.stderr.write(`wrote ${written.path}: mean and max pattern over ${r.count} probe position(s)\n`);
   }, out);

@@ -10,42 +10,14 @@ import type { WrittenResults } from '../io/write-results';
 import { OutputFile } from '../io/output-file';
 import { canonicalPath, checkInputFile, errnoText } from '../io/input-file';
 import { getH5 } from '../io/h5wasm-module';
-import { outputFlag, parseFlags, rejectExtraPositionals, SOURCE_HELP, SOURCE_OPTIONS, sourceSpecFromFlags, wholeNumber } from './source-flags';
+import { outputFlag, parseFlags, rejectExtraPositionals, SOURCE_OPTIONS, sourceSpecFromFlags, wholeNumber } from './source-flags';
 import { interruptRunningJob } from './progress';
 import { writeSample, SAMPLE_SIZES } from '../../samples/write-sample';
 import { projectRoot } from '../engine/paths';
-import { ANALYSIS_HELP, REGION_HELP, cmdCalibrate, cmdCom, cmdImage, cmdPattern, noteNonFiniteResults, openProtected, withService, writeResults } from './analysis-commands';
+import { COMMAND_HELP, OVERVIEW } from './help';
+import { SCANFOLD_VERSION } from '../engine/version';
+import { cmdCalibrate, cmdCom, cmdImage, cmdPattern, noteNonFiniteResults, openProtected, provenance, withService, writeResults } from './analysis-commands';
 import type { EngineService } from '../engine/service';
-
-const HELP = `scanfold — exploratory analysis of 4D-STEM datasets far larger than memory
-
-usage:
-  scanfold info FILE [source flags]
-      print the dataset descriptor as JSON (an HDF5 file without --dataset: its candidate datasets)
-  scanfold summary FILE [source flags] --out OUT.h5 [engine flags]
-      run the first streaming pass; write /mean_pattern, /max_pattern, /total_intensity (float64)
-${ANALYSIS_HELP}
-${REGION_HELP}
-  scanfold sample --size tiny|demo|large --out FILE.h5 [--seed N]
-      write a demo dataset of our own synthetic scenario (with its ground truth under /truth)
-  scanfold demo [--dir DIR]
-      make the demo dataset (once) and run the first pass over it, printing what it found
-
-${SOURCE_HELP}
-
-engine flags:
-  --workers N             worker threads (default: available cores)
-  --budget SIZE           memory budget for a job, e.g. 1GiB, 256MiB (default 1GiB)
-  --preview-budget SIZE   preview cube budget (default 256MiB, at most a quarter of the budget)
-  --kernel wasm|reference kernels: WebAssembly SIMD (default) or the plain TypeScript reference
-  --quiet                 no progress bar
-
---out: written to a temporary file beside it and renamed when complete; never a file the command
-reads, a folder, a device or a FIFO; a symlink is written through to its target.
-
-Results are exploratory: check quantitative claims against your own validation.
-Exit status: 0 success, 2 bad input or --out (nothing is written), 1 write failure or other error,
-130 interrupted.`;
 
 const ENGINE_OPTIONS = {
   workers: { type: 'string' },
@@ -88,15 +60,14 @@ async function cmdInfo(args: string[]) {
 async function writeSummary(service: EngineService, out: OutputFile, r: FirstPassResult, producer: string): Promise<WrittenResults> {
   const { scanY, scanX, detY, detX } = r.descriptor.shape;
   return writeResults(service, out, {
-    mean_pattern: { data: r.meanPattern, shape: [detY, detX] },
-    max_pattern: { data: r.maxPattern, shape: [detY, detX] },
-    total_intensity: { data: r.totalIntensity, shape: [scanY, scanX] },
+    mean_pattern: { data: r.meanPattern, shape: [detY, detX], dims: ['det_y', 'det_x'], attrs: { units: 'counts per pattern' } },
+    max_pattern: { data: r.maxPattern, shape: [detY, detX], dims: ['det_y', 'det_x'], attrs: { units: 'counts' } },
+    total_intensity: { data: r.totalIntensity, shape: [scanY, scanX], dims: ['scan_y', 'scan_x'], attrs: { units: 'counts' } },
   }, {
-    source_path: r.descriptor.path,
-    source_dataset: r.descriptor.datasetPath ?? '',
-    source_fingerprint: r.descriptor.fingerprint,
+    ...provenance(r.descriptor, producer, { dataset: r.dataset }),
     non_finite_inputs: r.nonFiniteInputs,
-    producer,
+    bad_pixels_hot_yx: JSON.stringify(r.badPixels.hot),
+    bad_pixels_dead_yx: JSON.stringify(r.badPixels.dead),
   });
 }
 
@@ -212,8 +183,16 @@ async function wrapParse(fn: () => Promise<void>): Promise<void> {
 export async function main(argv: string[]): Promise<number> {
   const [cmd, ...rest] = argv;
   try {
-    if (!cmd || cmd === '--help' || cmd === '-h' || cmd === 'help' || rest.includes('--help') || rest.includes('-h')) {
-      process.stdout.write(HELP + '\n');
+    if (cmd === '--version' || cmd === '-V' || cmd === 'version') {
+      process.stdout.write(`scanfold ${SCANFOLD_VERSION}\n`);
+      return 0;
+    }
+    if (!cmd || cmd === '--help' || cmd === '-h' || cmd === 'help') {
+      process.stdout.write(OVERVIEW + '\n');
+      return 0;
+    }
+    if (rest.includes('--help') || rest.includes('-h')) {
+      process.stdout.write((COMMAND_HELP[cmd] ?? OVERVIEW) + '\n');
       return 0;
     }
     switch (cmd) {

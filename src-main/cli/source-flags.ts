@@ -2,6 +2,7 @@ import path from 'node:path';
 import { parseArgs } from 'node:util';
 import { OutputFile } from '../io/output-file';
 import { physicalPath } from '../io/input-file';
+import { closestFlag } from './help';
 import type { SourceSpec } from '../../src-shared/model/dataset';
 import { isDType, DTYPES } from '../../src-shared/model/dtype';
 import { InputError } from '../../src-shared/model/errors';
@@ -16,14 +17,6 @@ export const SOURCE_OPTIONS = {
   offset: { type: 'string' },
   format: { type: 'string' },
 } as const;
-
-export const SOURCE_HELP = `source flags:
-  --dataset PATH          HDF5: the dataset inside the file (without it, info lists the candidates)
-  --scan-shape SY,SX      scan shape for 3-D data (positions, det_y, det_x)
-  --raw-shape SY,SX,KY,KX raw binary: the 4-D shape (scan_y, scan_x, det_y, det_x)
-  --dtype NAME            raw binary: ${DTYPES.join(', ')}
-  --byte-order little|big raw binary: byte order (default little)
-  --offset BYTES          raw binary: header bytes to skip (default 0)`;
 
 const DECIMAL = /^[-+]?(\d+(\.\d*)?|\.\d+)([eE][-+]?\d+)?$/;
 const WHOLE = /^\d+$/;
@@ -91,7 +84,13 @@ export function parseFlags<O extends OptionSpec>(args: string[], options: O) {
   try {
     return parseArgs({ args: joined, options: { ...options, help: { type: 'boolean', short: 'h' } }, allowPositionals: true, strict: true, tokens: true });
   } catch (e) {
-    throw new InputError(`${(e as Error).message}\nrun \`scanfold --help\` for usage`);
+    const err = e as Error & { code?: string };
+    const unknown = /Unknown option '(-{1,2}[^']+)'/.exec(err.message);
+    if (err.code === 'ERR_PARSE_ARGS_UNKNOWN_OPTION' && unknown) {
+      const near = closestFlag(unknown[1].replace(/^-+/, ''), Object.keys(options));
+      throw new InputError(`unknown flag ${unknown[1]}${near ? `; did you mean --${near}?` : ''} (scanfold COMMAND --help lists every flag)`);
+    }
+    throw new InputError(`${err.message.split('\n')[0]} (scanfold COMMAND --help lists every flag)`);
   }
 }
 

@@ -183,10 +183,10 @@ export class EngineService implements ScanfoldService {
     return r.first;
   }
 
-  private async badPixelMask(r: DatasetRecord, mode: BadPixelsMode | undefined, jobId: string | undefined): Promise<{ mask: Uint8Array | undefined; count: number }> {
+  private async badPixelMask(r: DatasetRecord, mode: BadPixelsMode | undefined, jobId: string | undefined): Promise<{ mask: Uint8Array | undefined; count: number; list?: { hot: [number, number][]; dead: [number, number][] } }> {
     if (mode === 'none') return { mask: undefined, count: 0 };
     const f = await this.ensureFirstPass(r, jobId ? `${jobId}/first-pass` : undefined, 'first pass (bad pixels)');
-    return { mask: f.badPixels.mask, count: f.badPixels.hot.length + f.badPixels.dead.length };
+    return { mask: f.badPixels.mask, count: f.badPixels.hot.length + f.badPixels.dead.length, list: { hot: f.badPixels.hot, dead: f.badPixels.dead } };
   }
 
   async firstPass(req: FirstPassRequest): Promise<FirstPassResult> {
@@ -218,7 +218,7 @@ export class EngineService implements ScanfoldService {
     const v = await this.track(this.engine.virtualImages(r.spec, compiled), req.jobId, 'virtual images');
     return {
       dataset: r.id, descriptor: v.descriptor, images: v.images, labels: req.detectors.map((s) => s.label ?? describeDetector(s)),
-      badPixelsLeftOut: bad.count, nonFiniteInputs: v.nonFinite, seconds: v.seconds,
+      badPixelsLeftOut: bad.count, ...(bad.list ? { badPixels: bad.list } : {}), nonFiniteInputs: v.nonFinite, seconds: v.seconds,
     };
   }
 
@@ -255,7 +255,7 @@ export class EngineService implements ScanfoldService {
     const field = aboutFile(file, () => comFieldFromSums(sums, req, {
       defaults, origin, comMask: maskSpec ? describeDetector(maskSpec) : 'whole pattern', badPixelsLeftOut: bad.count, seconds: sums.seconds,
     }));
-    return { dataset: r.id, ...field };
+    return { dataset: r.id, ...field, ...(bad.list ? { badPixels: bad.list } : {}) };
   }
 
   /**

@@ -28,6 +28,8 @@ export interface ResultArray {
   data: Float64Array;
   shape: number[];
   attrs?: Record<string, string | number>;
+  /** Dimension labels (HDF5 dimension scales' labels, as h5py's dims[i].label reads them). */
+  dims?: string[];
 }
 
 export interface WrittenResults {
@@ -56,6 +58,7 @@ export async function writeFloat64Results(out: OutputFile, arrays: Record<string
       // '<d' is h5wasm's spelling of float64; it reads '<f8' as float32.
       const ds = f.create_dataset({ name, data: a.data, shape: a.shape, dtype: '<d' });
       for (const [k, v] of Object.entries(a.attrs ?? {})) writeAttr(ds, k, v);
+      (a.dims ?? []).forEach((label, i) => ds.set_dimension_label(i, label));
       writeAttr(ds, 'non_finite_results', nonFiniteResults[name] ?? 0);
     }
   });

@@ -77,6 +77,8 @@ export interface VirtualImagesResult {
   images: Float64Array[];
   labels: string[];
   badPixelsLeftOut: number;
+  /** The bad pixels left out ([y, x]), when found. */
+  badPixels?: { hot: [number, number][]; dead: [number, number][] };
   nonFiniteInputs: number;
   seconds: number;
 }
@@ -139,6 +141,7 @@ export interface ComFieldResult {
   comMask: string;
   zeroTotalPatterns: number;
   badPixelsLeftOut: number;
+  badPixels?: { hot: [number, number][]; dead: [number, number][] };
   nonFiniteInputs: number;
   calibration?: ComCalibration & { wavelengthPm: number; radiansPerPhaseUnit: number };
   /** Things the user should know (a weak rotation estimate…), one line each. */

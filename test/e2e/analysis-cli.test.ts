@@ -20,10 +20,10 @@ function scanfold(...args: string[]) {
 function h5py(file: string): { data: Record<string, { shape: number[]; values: (number | null)[]; attrs: Record<string, unknown> }>; attrs: Record<string, unknown> } {
   const code = `import h5py, json, sys, numpy as np
 f = h5py.File(sys.argv[1], 'r')
-conv = lambda v: v.decode() if isinstance(v, bytes) else (v.item() if hasattr(v, 'item') else v)
+conv = lambda v: v.decode() if isinstance(v, bytes) else (v.tolist() if hasattr(v, 'tolist') else v)
 data = {k: {'shape': list(f[k].shape), 'values': [None if np.isnan(x) else float(x) for x in np.asarray(f[k], dtype=np.float64).ravel()],
             'attrs': {a: conv(f[k].attrs[a]) for a in f[k].attrs}} for k in f.keys()}
-print(json.dumps({'data': data, 'attrs': {a: conv(f.attrs[a]) for a in f.attrs}}))`;
+print(json.dumps({'data': data, 'attrs': {a: conv(f.attrs[a]) for a in f.attrs}}, default=lambda o: o.decode() if isinstance(o, bytes) else str(o)))`;
   const p = spawnSync(PYTHON, ['-c', code, file], { encoding: 'utf8', maxBuffer: 1 << 28 });
   if (p.status !== 0) throw new Error(p.stderr);
   return JSON.parse(p.stdout);

@@ -36,10 +36,39 @@ afterAll(() => {
 });
 
 describe('scanfold CLI', () => {
-  it('--help explains the commands', () => {
+  it('--help lists the commands; COMMAND --help explains every flag of one; --version', () => {
     const r = scanfold('--help');
     expect(r.code).toBe(0);
-    for (const c of ['info', 'summary', 'sample']) expect(r.out).toContain(`scanfold ${c}`);
+    for (const c of ['info', 'summary', 'image', 'com', 'calibrate', 'pattern', 'sample', 'demo']) expect(r.out).toMatch(new RegExp(`^  ${c} `, 'm'));
+    const com = scanfold('com', '--help');
+    expect(com.code).toBe(0);
+    // every flag the command takes is explained in its help
+    for (const f of ['--descan', '--descan-region', '--rotation', '--flip', '--mask-disk', '--threshold', '--mrad-per-pixel', '--bad-pixels', '--out', '--workers', '--budget']) {
+      expect(com.out).toContain(f);
+    }
+    expect(com.out).not.toContain('scanfold image');
+    expect(scanfold('--version').out).toMatch(/^scanfold \d+\.\d+\.\d+/);
+  });
+
+  it('an unknown flag names the closest known one', () => {
+    const r = scanfold('com', path.join(fx, 'a.npy'), '--treshold', '3', '--out', path.join(tmp, 'x.h5'));
+    expect(r.code).toBe(2);
+    expect(r.err).toMatch(/unknown flag --treshold; did you mean --threshold\?/);
+  });
+
+  it('every output records its provenance: version, command line, request, input fingerprint (h5py reads them)', () => {
+    const out = path.join(tmp, 'prov.h5');
+    expect(scanfold('summary', path.join(fx, 'a.npy'), '--out', out, '--quiet').code).toBe(0);
+    const p = spawnSync(PYTHON, ['-c', `import h5py, sys, json
+f = h5py.File(sys.argv[1])
+print(json.dumps({k: str(f.attrs[k]) for k in ('scanfold_version', 'command_line', 'request', 'source_fingerprint', 'created')} | {'dims': [d.label for d in f['mean_pattern'].dims]}))`, out], { encoding: 'utf8' });
+    expect(p.status, p.stderr).toBe(0);
+    const a = JSON.parse(p.stdout);
+    expect(a.scanfold_version).toMatch(/^\d+\.\d+\.\d+/);
+    expect(JSON.parse(a.command_line)).toEqual(['summary', path.join(fx, 'a.npy'), '--out', out, '--quiet']);
+    expect(a.source_fingerprint).toMatch(/^sha256:/);
+    expect(a.dims).toEqual(['det_y', 'det_x']);
+    expect(Date.parse(a.created)).not.toBeNaN();
   });
 
   it('info on an HDF5 file without --dataset lists the candidate datasets', () => {

@@ -1,0 +1,181 @@
+// Help for `scanfold --help` (the commands) and `scanfold COMMAND --help` (every flag of one).
+import { DTYPES } from '../../src-shared/model/dtype';
+
+const SOURCE = `source flags (which data to read):
+  --dataset PATH          HDF5: the dataset inside the file (without it, info lists the candidates)
+  --scan-shape SY,SX      3-D data (positions, det_y, det_x): the scan's rows and columns
+  --raw-shape SY,SX,KY,KX raw binary: the 4-D shape (scan_y, scan_x, det_y, det_x)
+  --dtype NAME            raw binary: ${DTYPES.join(', ')}
+  --byte-order little|big raw binary: byte order (default little)
+  --offset BYTES          raw binary: header bytes to skip (default 0)
+  --format hdf5|npy|raw   only when the file's first bytes cannot tell`;
+
+const ENGINE = `engine flags:
+  --workers N             worker threads (default: available cores; at most twice the cores)
+  --budget SIZE           memory budget for a job, e.g. 1GiB, 256MiB (default 1GiB, at most the
+                          machine's memory; counts worker threads, readers, tiles and results)
+  --preview-budget SIZE   preview cube budget (default 256MiB, at most a quarter of the budget, ≤ 3GiB)
+  --kernel wasm|reference kernels: WebAssembly SIMD (default) or the plain TypeScript reference
+  --quiet                 no progress bars or notes on success`;
+
+const OUT = `  --out OUT.h5            where the results go: written beside it in a private temporary folder and
+                          renamed when complete; never a file the command reads, a folder, a device,
+                          a FIFO or a file you may not write; a symlink is written through`;
+
+const BAD_PIXELS = `  --bad-pixels auto|none  auto (default): hot and dead detector pixels, found on the mean and max
+                          pattern of a first pass, are left out; none keeps every pixel`;
+
+export const COMMAND_HELP: Record<string, string> = {
+  info: `scanfold info FILE [source flags]
+  Print the dataset descriptor as JSON; for an HDF5 file without --dataset, its candidate datasets.
+
+${SOURCE}`,
+
+  summary: `scanfold summary FILE [source flags] --out OUT.h5 [engine flags]
+  The first streaming pass: /mean_pattern, /max_pattern (det_y, det_x) and /total_intensity
+  (scan_y, scan_x), float64.
+
+${OUT}
+
+${SOURCE}
+
+${ENGINE}`,
+
+  image: `scanfold image FILE [source flags] DETECTOR… --out OUT.h5 [engine flags]
+  Virtual images of any number of detectors in one pass: /images (n_detectors, scan_y, scan_x),
+  float64, in the order the detectors are given. Detector coordinates are detector pixels:
+  x the column, y the row, pixel centres at whole numbers.
+
+detectors (any number, any mix):
+  --disk CX,CY,R          pixels whose centre is within R of (CX, CY)
+  --annulus CX,CY,R0,R1   pixels with R0 < distance ≤ R1 (inner exclusive, outer inclusive)
+  --rect X0,Y0,X1,Y1      pixels with X0 ≤ x ≤ X1 and Y0 ≤ y ≤ Y1 (smaller corner first)
+  --polygon "X,Y X,Y X,Y" pixels inside the polygon (even–odd rule; edges count as inside)
+  --mask MASK.npy         a 2-D .npy of the detector's shape: 0/1 (or boolean) selects pixels;
+                          weights between 0 and 1 count each pixel by its weight
+  --weighted              drawn shapes count each pixel by the fraction of its area inside
+${BAD_PIXELS}
+${OUT}
+
+${SOURCE}
+
+${ENGINE}`,
+
+  com: `scanfold com FILE [source flags] [flags] --out OUT.h5 [engine flags]
+  Centre of mass of every pattern (Σ I·x / Σ I), as shifts after descan and rotation:
+  /com_x, /com_y (detector px), /total_intensity, /magnitude, /direction, /divergence, /curl,
+  /phase (integrated COM); with the calibration also /com_x_mrad, /com_y_mrad, /phase_radians.
+
+flags:
+  --descan auto|none|mean|plane|reference
+                          auto (default): vacuum found in the scan (positions whose patterns scatter
+                          nothing outside the bright-field disk) is the reference, else the mean COM
+                          is removed; none: positions on the detector; mean: remove the mean COM;
+                          plane: remove a fitted plane; reference: remove the mean over --descan-region
+  --descan-region X0,Y0,X1,Y1
+                          scan positions (x column, y row) of a reference area such as vacuum
+  --rotation auto|DEGREES and --flip auto|yes|no
+                          the scan-to-detector rotation and flip: auto (default, both) estimates them
+                          by least curl, the half-turn settled by vacuum when there is some; or give both
+  --mask-disk CX,CY,R     only pixels inside this disk (detector px) count towards the COM
+  --threshold T           pixels at or below T count as 0 (default 0; may be negative)
+  --mrad-per-pixel M --energy-kev E --scan-step-nm S
+                          together: also give the COM in mrad and the phase in radians
+${BAD_PIXELS}
+${OUT}
+
+${SOURCE}
+
+${ENGINE}`,
+
+  calibrate: `scanfold calibrate FILE [source flags] [flags] [--out OUT.h5] [engine flags]
+  Wavelength, bright-field disk, mrad and Å⁻¹ per detector pixel, printed as JSON (and written to
+  --out as attributes when given). Values not given are read from the dataset's attributes
+  (beam_energy_kev, convergence_semiangle_mrad, scan_step_nm, …); the output says where each came from.
+
+flags:
+  --energy-kev E          beam energy in keV
+  --convergence-mrad A    convergence semi-angle in mrad: mrad/px = A / the disk's radius in px
+  --lattice-spacing-angstrom D
+                          instead: a lattice spacing in Å whose Bragg ring or disks are visible; when
+                          the patterns show several rings, they are listed and the command asks for:
+  --bragg-distance-px G   the distance (px) of that ring or disk from the centre
+  --scan-step-nm S        the distance between probe positions in nm
+${OUT.replace('where the results go', 'optional: also write the calibration there')}
+
+${SOURCE}
+
+${ENGINE}`,
+
+  pattern: `scanfold pattern FILE [source flags] REGION --out OUT.h5 [engine flags]
+  Virtual diffraction: /mean_pattern and /max_pattern (det_y, det_x) float64 over a region of the
+  scan (scan positions: x column, y row).
+
+region (exactly one):
+  --region-rect X0,Y0,X1,Y1   positions with X0 ≤ x ≤ X1 and Y0 ≤ y ≤ Y1 (smaller corner first)
+  --region-polygon "X,Y X,Y X,Y"
+                              positions inside the polygon
+  --region-mask MASK.npy      a 2-D .npy of the scan's shape, nonzero where the region is
+${OUT}
+
+${SOURCE}
+
+${ENGINE}`,
+
+  sample: `scanfold sample [--size tiny|demo|large] --out FILE.h5 [--seed N]
+  Write a demo dataset of our own synthetic scenario (ground truth under /truth).
+  --size                  tiny, demo (default; 64×64 × 96×96) or large (256×256 × 128×128, 2 GiB)
+  --seed N                random seed (a whole number)
+${OUT}`,
+
+  demo: `scanfold demo [--dir DIR] [engine flags]
+  Make the demo dataset once (DIR/demo.h5), run the first pass, write DIR/demo-summary.h5 and print
+  what it found. DIR defaults to demo-data/ in the project.
+
+${ENGINE}`,
+};
+
+export const OVERVIEW = `scanfold — exploratory analysis of 4D-STEM datasets far larger than memory
+
+usage: scanfold COMMAND FILE [flags]      (scanfold COMMAND --help for every flag of a command)
+
+commands:
+  info       the dataset descriptor as JSON, or an HDF5 file's candidate datasets
+  summary    the first pass: mean and max pattern, total intensity
+  image      virtual images of any number of detectors, in one pass
+  com        centre of mass: shifts, magnitude, direction, divergence, curl, integrated phase
+  calibrate  wavelength, bright-field disk, mrad and Å⁻¹ per detector pixel
+  pattern    mean and max pattern over a region of the scan
+  sample     write a demo dataset of our own synthetic scenario
+  demo       make the demo dataset and run the first pass over it
+
+  scanfold --version       the version
+
+Results are exploratory: check quantitative claims against your own validation.
+Exit status: 0 success, 2 bad input or --out (nothing is written), 1 write failure or other error,
+130 interrupted (Ctrl-C), 143 terminated.`;
+
+/** The known flag closest to an unknown one, for "did you mean". */
+export function closestFlag(unknown: string, known: readonly string[]): string | null {
+  let best: string | null = null;
+  let bestD = Infinity;
+  for (const k of known) {
+    const d = editDistance(unknown, k);
+    if (d < bestD) { bestD = d; best = k; }
+  }
+  return best !== null && bestD <= Math.max(2, Math.floor(unknown.length / 3)) ? best : null;
+}
+
+function editDistance(a: string, b: string): number {
+  const row = Array.from({ length: b.length + 1 }, (_, j) => j);
+  for (let i = 1; i <= a.length; i++) {
+    let prev = row[0];
+    row[0] = i;
+    for (let j = 1; j <= b.length; j++) {
+      const cur = row[j];
+      row[j] = Math.min(row[j] + 1, row[j - 1] + 1, prev + (a[i - 1] === b[j - 1] ? 0 : 1));
+      prev = cur;
+    }
+  }
+  return row[b.length];
+}
