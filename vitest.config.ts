@@ -7,5 +7,7 @@ export default defineConfig({
     hookTimeout: 300_000,
     // Tests spawn worker pools and child processes; keep file-level parallelism modest on 2 cores.
     maxWorkers: 2,
+    // Each test says whether it wants the first-pass cache (test/e2e/cache.test.ts does).
+    env: { SCANFOLD_CACHE_DIR: 'off' },
   },
 });

@@ -25,14 +25,21 @@ import type { FirstPassSummary } from './first-pass';
 import type { Job } from './job';
 import { previewDetectorImages } from './preview';
 import { comDefaults, comFieldFromSums } from './com-field';
+import { cacheKey, defaultCacheDir, readCachedFirstPass, writeCachedFirstPass, type CachedFirstPass } from './first-pass-cache';
 import { findVacuum, type VacuumFinding } from '../../src-shared/compute/vacuum';
+
+interface FirstResults extends CachedFirstPass {
+  /** The pass itself, with its preview cube; null when the results came from the cache. */
+  summary: FirstPassSummary | null;
+  seconds: number;
+}
 
 interface DatasetRecord {
   id: DatasetId;
   spec: SourceSpec;
   opened: OpenedDataset;
-  /** The last first pass, with its preview cube, bad pixels and disk. */
-  first: { summary: FirstPassSummary; badPixels: BadPixels; disk: BrightFieldDisk | { notFound: string } } | null;
+  /** The last first pass's results (from a pass, with its preview cube, or from the cache, without). */
+  first: FirstResults | null;
 }
 
 type ServiceJobInfo = JobInfo & { jobId: string };
@@ -83,8 +90,12 @@ export class EngineService implements ScanfoldService {
   private nextDataset = 1;
   private nextJob = 1;
 
-  constructor(options: EngineOptions = {}) {
+  /** Where first-pass results are kept between commands; null: no cache. */
+  private readonly cacheDir: string | null;
+
+  constructor(options: EngineOptions & { cacheDir?: string | null } = {}) {
     this.engine = new Engine(options);
+    this.cacheDir = options.cacheDir === undefined ? defaultCacheDir() : options.cacheDir;
   }
 
   /** What the engine changed from what was asked (workers capped…), one line each. */
@@ -119,7 +130,7 @@ export class EngineService implements ScanfoldService {
   async close(dataset: DatasetId): Promise<void> {
     validateRequest('close', dataset);
     const r = this.record(dataset);
-    if (r.first) this.engine.release(r.first.summary);
+    if (r.first?.summary) this.engine.release(r.first.summary);
     this.records.delete(dataset);
     await Promise.all(Array.from({ length: this.engine.pool.size }, () => this.engine.pool.run((w) => w.closeSource(r.spec)).catch(() => undefined)));
     this.emit({ kind: 'dataset', dataset, version: r.opened.version + 1, change: 'closed' });
@@ -158,9 +169,21 @@ export class EngineService implements ScanfoldService {
     }
   }
 
-  /** The first pass of a dataset, run now or the one already done. */
-  private async ensureFirstPass(r: DatasetRecord, jobId: string | undefined, label: string): Promise<NonNullable<DatasetRecord['first']>> {
-    if (r.first) return r.first;
+  /**
+   * The first pass's results: those already at hand, else the cache's (unless the preview cube
+   * itself is needed), else a pass over the data, whose results then go to the cache.
+   */
+  private async ensureFirstPass(r: DatasetRecord, jobId: string | undefined, label: string, needPreview = false): Promise<FirstResults> {
+    if (r.first && (r.first.summary || !needPreview)) return r.first;
+    const d = r.opened.descriptor;
+    const key = this.cacheDir ? cacheKey(d) : null;
+    if (!needPreview && key && this.cacheDir) {
+      const cached = readCachedFirstPass(this.cacheDir, key, d);
+      if (cached) {
+        r.first = { ...cached, summary: null, seconds: 0 };
+        return r.first;
+      }
+    }
     const summary = await this.track(this.engine.firstPass(r.spec), jobId, label);
     const { detY, detX, scanY, scanX } = summary.descriptor.shape;
     const found = aboutFile(summary.descriptor.path, () => findBadPixels(summary.meanPattern, summary.maxPattern, detY, detX, { patternCount: scanY * scanX }));
@@ -168,16 +191,21 @@ export class EngineService implements ScanfoldService {
     let disk: BrightFieldDisk | { notFound: string };
     try {
       const mean = replaceBadPixels(summary.meanPattern, detY, detX, found.mask);
-      const d = findBrightFieldDisk(mean, detY, detX, { excludePixels: found.mask });
-      disk = { cx: d.cx, cy: d.cy, r: d.r, edgeConsistency: d.edgeConsistency };
+      const fd = findBrightFieldDisk(mean, detY, detX, { excludePixels: found.mask });
+      disk = { cx: fd.cx, cy: fd.cy, r: fd.r, edgeConsistency: fd.edgeConsistency };
     } catch (e) {
       if (!isInputError(e)) throw e;
       disk = { notFound: e.message };
     }
+    const vacuum = 'notFound' in disk ? null : this.findVacuum(summary, badPixels.mask, disk);
     // Another request may have finished a first pass meanwhile: keep one.
     const previous = r.first as DatasetRecord['first'];
-    if (previous) this.engine.release(previous.summary);
-    r.first = { summary, badPixels, disk };
+    if (previous?.summary) this.engine.release(previous.summary);
+    r.first = {
+      summary, seconds: summary.seconds, meanPattern: summary.meanPattern, maxPattern: summary.maxPattern,
+      totalIntensity: summary.totalIntensity, nonFinite: summary.nonFinite, badPixels, disk, vacuum,
+    };
+    if (key && this.cacheDir) writeCachedFirstPass(this.cacheDir, key, r.first);
     r.opened = { ...r.opened, version: r.opened.version + 1 };
     this.emit({ kind: 'dataset', dataset: r.id, version: r.opened.version, change: 'first-pass' });
     return r.first;
@@ -192,9 +220,11 @@ export class EngineService implements ScanfoldService {
   async firstPass(req: FirstPassRequest): Promise<FirstPassResult> {
     validateRequest('firstPass', req);
     const r = this.record(req.dataset);
-    if (r.first) { this.engine.release(r.first.summary); r.first = null; }
-    const f = await this.ensureFirstPass(r, req.jobId, 'first pass');
-    const s = f.summary;
+    // Asked for explicitly: a real pass, with its preview cube for detector drags.
+    if (r.first?.summary) this.engine.release(r.first.summary);
+    r.first = null;
+    const f = await this.ensureFirstPass(r, req.jobId, 'first pass', true);
+    const s = f.summary!;
     return {
       dataset: r.id, descriptor: s.descriptor, meanPattern: s.meanPattern, maxPattern: s.maxPattern, totalIntensity: s.totalIntensity,
       nonFiniteInputs: s.nonFinite, seconds: s.seconds, badPixels: f.badPixels, brightFieldDisk: f.disk,
@@ -242,7 +272,7 @@ export class EngineService implements ScanfoldService {
     const first = await this.ensureFirstPass(r, req.jobId ? `${req.jobId}/first-pass` : undefined, 'first pass');
     const bad = await this.badPixelMask(r, req.badPixels, req.jobId);
     const disk = 'notFound' in first.disk ? null : first.disk;
-    const defaults = aboutFile(file, () => comDefaults(req, scanY, scanX, disk ? this.findVacuum(first, disk) : null));
+    const defaults = aboutFile(file, () => comDefaults(req, scanY, scanX, first.vacuum));
     if (!maskSpec && bad.count >= detY * detX) {
       throw new InputError(`${file}: every detector pixel was flagged as hot, dead or non-finite on the mean/max pattern, so no centre of mass can be computed; expected patterns with counts (or leave bad pixels in)`);
     }
@@ -262,13 +292,12 @@ export class EngineService implements ScanfoldService {
    * Vacuum from the preview cube, with no pass over the data: the fraction of each position's
    * counts outside the bright-field disk (2 px margin), at the preview's scan binning.
    */
-  private findVacuum(first: NonNullable<DatasetRecord['first']>, disk: BrightFieldDisk): VacuumFinding {
-    const s = first.summary;
+  private findVacuum(s: FirstPassSummary, badMask: Uint8Array, disk: BrightFieldDisk): VacuumFinding {
     const { detY, detX, scanY, scanX } = s.descriptor.shape;
     const dets = [
       { shape: { kind: 'disk' as const, cx: disk.cx, cy: disk.cy, r: disk.r + 2 } },
       { shape: { kind: 'rectangle' as const, x0: 0, y0: 0, x1: detX - 1, y1: detY - 1 } },
-    ].map((d) => ({ ...compileDetector(d, detY, detX, { excludePixels: first.badPixels.mask }), label: '' }));
+    ].map((d) => ({ ...compileDetector(d, detY, detX, { excludePixels: badMask }), label: '' }));
     const pv = previewDetectorImages(s.preview, dets);
     const [inside, total] = pv.images;
     const scattered = total.map((t, i) => t - inside[i]);
@@ -310,8 +339,7 @@ export class EngineService implements ScanfoldService {
     }
     const scanStepNm = pick('scanStepNm', req.scanStepNm, SCAN_STEP_ATTRIBUTES);
     const f = await this.ensureFirstPass(r, req.jobId, 'first pass');
-    const s = f.summary;
-    const { detY, detX } = s.descriptor.shape;
+    const { detY, detX } = d.shape;
     if ('notFound' in f.disk) throw new InputError(`${file}: ${f.disk.notFound}`);
     const disk = f.disk;
     return aboutFile(file, () => {
@@ -324,8 +352,8 @@ export class EngineService implements ScanfoldService {
         } else {
           // Never assign a spacing to a ring silently: only when a single ring stands out, in the
           // mean pattern (polycrystals, halos) and in the max pattern (Bragg disks a halo can hide).
-          const mean = replaceBadPixels(s.meanPattern, detY, detX, f.badPixels.mask);
-          const max = replaceBadPixels(s.maxPattern, detY, detX, f.badPixels.mask);
+          const mean = replaceBadPixels(f.meanPattern, detY, detX, f.badPixels.mask);
+          const max = replaceBadPixels(f.maxPattern, detY, detX, f.badPixels.mask);
           const found = ringCandidates(mean, detY, detX, disk.cx, disk.cy, disk.r * 1.5, f.badPixels.mask);
           for (const c of ringCandidates(max, detY, detX, disk.cx, disk.cy, disk.r * 1.5, f.badPixels.mask)) {
             if (!found.some((m) => Math.abs(m.radius - c.radius) < 1.5)) found.push(c);
@@ -386,7 +414,7 @@ export class EngineService implements ScanfoldService {
   async previewImages(req: PreviewImagesRequest): Promise<PreviewImagesResult> {
     validateRequest('previewImages', req);
     const r = this.record(req.dataset);
-    if (!r.first) throw new InputError(`previewImages: ${r.opened.descriptor.path} has no preview yet; expected a first pass first`, 'bad-request');
+    if (!r.first?.summary) throw new InputError(`previewImages: ${r.opened.descriptor.path} has no preview yet; expected a first pass first`, 'bad-request');
     const compiled = this.compileDetectors(r, req.detectors, r.first.badPixels.mask);
     return previewDetectorImages(r.first.summary.preview, compiled);
   }
