@@ -13,6 +13,8 @@
 export const GAP_SIGMAS = 5;
 export const MIN_FRACTION = 0.01;
 export const MIN_POSITIONS = 8;
+/** How many of the widest steps in the sorted fractions are scored as a vacuum edge. */
+export const CANDIDATE_STEPS = 32;
 
 export interface VacuumFinding {
   /** One byte per position, 1 over vacuum; null when none was found. */
@@ -46,11 +48,13 @@ export function findVacuum(scattered: ArrayLike<number>, total: ArrayLike<number
   order.sort((a, b) => fraction[a] - fraction[b]);
   const v = Float64Array.from(order, (i) => fraction[i]);
   let best = { k: 0, score: 0 };
-  // Candidate groups: the lowest k values, k up to half the positions.
-  for (let k = minCount; k <= Math.floor(m / 2); k++) {
-    const gap = v[k] - v[k - 1];
-    if (gap <= 0) continue;
-    const score = gap / groupSigma(v, k, order, scattered, total);
+  // Candidate groups: the lowest k values, k up to half the positions. A vacuum edge is one of
+  // the widest steps, so only the widest CANDIDATE_STEPS are scored (each score sorts k values).
+  const steps: number[] = [];
+  for (let k = minCount; k <= Math.floor(m / 2); k++) if (v[k] > v[k - 1]) steps.push(k);
+  steps.sort((a, b) => (v[b] - v[b - 1]) - (v[a] - v[a - 1]));
+  for (const k of steps.slice(0, CANDIDATE_STEPS)) {
+    const score = (v[k] - v[k - 1]) / groupSigma(v, k, order, scattered, total);
     if (score > best.score) best = { k, score };
   }
   if (best.score < GAP_SIGMAS) return { ...none, gapSigmas: best.score };
@@ -64,19 +68,36 @@ export function findVacuum(scattered: ArrayLike<number>, total: ArrayLike<number
 /**
  * The spread of the group's scattered fraction: 1.4826 × the median absolute deviation (a
  * normal distribution's σ), but never below the Poisson noise of its counts, √(s + 1) / t with
- * the group's median scattered counts s and total t. Over clean vacuum nearly every value is
- * exactly 0, where the deviation alone would be 0 and any step would look infinitely clear.
+ * the scattered counts s and total t of the group's median position. Over clean vacuum nearly
+ * every value is exactly 0, where the deviation alone would be 0 and any step would look
+ * infinitely clear. O(k): v is sorted, so the deviations on either side of the median are too,
+ * and their median is found by walking outwards from it.
  */
 function groupSigma(v: Float64Array, k: number, order: number[], scattered: ArrayLike<number>, total: ArrayLike<number>): number {
-  const med = median(v, 0, k);
-  const dev = new Float64Array(k);
-  for (let i = 0; i < k; i++) dev[i] = Math.abs(v[i] - med);
-  dev.sort();
-  const s = new Float64Array(k), t = new Float64Array(k);
-  for (let i = 0; i < k; i++) { s[i] = Math.max(0, scattered[order[i]]); t[i] = total[order[i]]; }
-  s.sort();
-  t.sort();
-  return Math.max(1.4826 * median(dev, 0, k), Math.sqrt(median(s, 0, k) + 1) / median(t, 0, k));
+  const mid = order[k >> 1];
+  const poisson = Math.sqrt(Math.max(0, scattered[mid]) + 1) / total[mid];
+  return Math.max(1.4826 * sortedMad(v, k), poisson);
+}
+
+/**
+ * The median absolute deviation from the median of the sorted values v[0..k), in O(k): the
+ * deviations below and above the median are each sorted, so the smallest are merged outwards.
+ */
+export function sortedMad(v: ArrayLike<number>, k: number): number {
+  if (k < 1) return NaN;
+  const m = k >> 1;
+  const med = k % 2 ? v[m] : (v[m - 1] + v[m]) / 2;
+  let lo = m - 1, hi = m;
+  let taken = 0, last = 0, before = 0;
+  // Take the deviations in increasing order until the one at index m (0-based) is reached.
+  while (taken <= m) {
+    const dl = lo >= 0 ? med - v[lo] : Infinity;
+    const dh = hi < k ? v[hi] - med : Infinity;
+    before = last;
+    if (dl <= dh) { last = dl; lo--; } else { last = dh; hi++; }
+    taken++;
+  }
+  return k % 2 ? last : (before + last) / 2;
 }
 
 function median(sorted: Float64Array, start: number, end: number): number {

@@ -64,3 +64,28 @@ describe('vacuum finding (planted strips)', () => {
     expect(findVacuum(scattered, total).mask).toBeNull();
   });
 });
+
+describe('vacuum finding, speed', () => {
+  it('a 512 × 512 scan takes well under a second (it runs on every first pass)', () => {
+    const { scattered, total } = planted(512, 512, 40, (y, x) => 0.02 + 0.01 * Math.sin(x / 9 + y / 13));
+    const t0 = performance.now();
+    const v = findVacuum(scattered, total);
+    const ms = performance.now() - t0;
+    expect(v.positions).toBe(512 * 40);
+    expect(ms).toBeLessThan(1000);
+  });
+});
+
+describe('median absolute deviation of sorted values', () => {
+  it('equals the textbook definition (sort the deviations, take the median) for every length', async () => {
+    const { sortedMad } = await import('../../src-shared/compute/vacuum');
+    const r = rng(11);
+    for (let k = 1; k <= 40; k++) {
+      const v = Float64Array.from({ length: k }, () => Math.round(r.u() * 20) / 4).sort();
+      const med = k % 2 ? v[k >> 1] : (v[(k >> 1) - 1] + v[k >> 1]) / 2;
+      const dev = Array.from(v, (x) => Math.abs(x - med)).sort((a, b) => a - b);
+      const want = k % 2 ? dev[k >> 1] : (dev[(k >> 1) - 1] + dev[k >> 1]) / 2;
+      expect(sortedMad(v, k), `k=${k}`).toBeCloseTo(want, 12);
+    }
+  });
+});
