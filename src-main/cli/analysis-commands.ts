@@ -242,7 +242,10 @@ export async function cmdCom(args: string[], engineOptions: EngineOptionsOf, eng
     const rot = f.rotation;
     const rootAttrs: Record<string, string | number> = {
       rotation_degrees: rot.degrees, flip: rot.flip ? 'yes' : 'no', rotation_source: rot.source,
-      descan: f.descan, vacuum_source: f.vacuum.source, vacuum_positions: f.vacuum.positions, threshold: f.threshold, zero_total_patterns: f.zeroTotalPatterns, bad_pixels_left_out: f.badPixelsLeftOut,
+      descan: f.descan, vacuum_source: f.vacuum.source, vacuum_positions: f.vacuum.positions, threshold: f.threshold,
+      descan_removed_x_abc: JSON.stringify([f.descanRemoved.x.a, f.descanRemoved.x.b, f.descanRemoved.x.c]),
+      descan_removed_y_abc: JSON.stringify([f.descanRemoved.y.a, f.descanRemoved.y.b, f.descanRemoved.y.c]),
+      descan_removed_meaning: 'a + b·scan_x + c·scan_y (detector px) subtracted from com_x and com_y before rotation', zero_total_patterns: f.zeroTotalPatterns, bad_pixels_left_out: f.badPixelsLeftOut,
       non_finite_inputs: f.nonFiniteInputs, com_mask: f.comMask, ...provenance(f.descriptor, 'scanfold com', request), ...badPixelAttrs(f.badPixels),
     };
     if (rot.alternativeDegrees !== undefined) {

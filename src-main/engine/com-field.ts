@@ -135,6 +135,7 @@ export function comFieldFromSums(
     },
     descan: context.defaults.descan,
     vacuum: context.defaults.vacuum,
+    descanRemoved: { x: ds.removedX, y: ds.removedY },
     threshold,
     comMask: context.comMask,
     zeroTotalPatterns: zeroTotal,

@@ -137,6 +137,8 @@ export interface ComFieldResult {
   descan: string;
   /** Vacuum in the scan: found from the first pass (no request needed), given as the descan region, or none. */
   vacuum: { source: 'found' | 'given' | 'none'; positions: number; gapSigmas?: number };
+  /** What the descan subtracted from each COM component (detector px): a + b·x + c·y over scan positions (b = c = 0 but for 'plane'). */
+  descanRemoved: { x: { a: number; b: number; c: number }; y: { a: number; b: number; c: number } };
   threshold: number;
   comMask: string;
   zeroTotalPatterns: number;

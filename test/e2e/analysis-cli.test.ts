@@ -182,12 +182,16 @@ for c in ('x', 'y'):
     A = np.stack([np.ones(ok.sum()), xx[ok], yy[ok]], axis=1)
     coef = np.linalg.lstsq(A, g[ok], rcond=None)[0]
     res[c] = (g - (coef[0] + coef[1] * xx + coef[2] * yy)).ravel().tolist()
+    res['coef_' + c] = coef.tolist()
 print(json.dumps(res).replace('NaN', 'null'))`;
     const p = spawnSync(PYTHON, ['-c', code, fx], { encoding: 'utf8' });
     expect(p.status, p.stderr).toBe(0);
     const want = JSON.parse(p.stdout) as Record<string, (number | null)[]>;
     const h = h5py(out);
     for (const c of ['x', 'y']) {
+      // the plane the output says it removed is NumPy's least-squares plane
+      const abc = JSON.parse(h.attrs[`descan_removed_${c}_abc`] as string) as number[];
+      abc.forEach((v, i) => expect(Math.abs(v - (want[`coef_${c}`][i] as number))).toBeLessThan(1e-9));
       const got = nanAware(h.data[`com_${c}`].values);
       const ref = nanAware(want[c]);
       // compare absolute differences: after descan the values are near zero
