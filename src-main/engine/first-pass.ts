@@ -1,13 +1,13 @@
 import type { DatasetDescriptor, SourceSpec } from '../../src-shared/model/dataset';
 import type { FirstPassGeometry } from '../../src-shared/compute/first-pass-types';
 import { planFirstPass, type EngineLimits, type FirstPassPlan } from './budget';
-import { Job } from './job';
-import { runTiles } from './tile-runner';
+import type { Job } from './job';
+import { streamingJob } from './tile-runner';
 import { foldSumMax } from '../../src-shared/compute/region-pattern';
 import { createWasmPreviewImager, type PreviewImager } from '../../src-shared/compute/preview-image-wasm';
 import { loadWasmModule } from '../workers/wasm-loader';
 import type { WorkerPool } from './worker-pool';
-import type { KernelKind, FirstPassTileReply } from '../workers/tile-worker';
+import type { KernelKind, FirstPassShared, FirstPassTileReply } from '../workers/tile-worker';
 
 /** The binned in-memory copy used for instant previews. */
 export interface PreviewCube {
@@ -71,46 +71,52 @@ export class PreviewPool {
 }
 
 export function startFirstPass(pool: WorkerPool, spec: SourceSpec, limits: EngineLimits, kernel: KernelKind, previews = new PreviewPool()): Job<FirstPassSummary> {
-  const job = new Job<FirstPassSummary>('first-pass', `first pass over ${spec.path}`, 0);
-  (async () => {
-    const t0 = performance.now();
-    const { descriptor: d, rowAlignment, memory } = await pool.run((w) => w.open(spec));
-    if (job.cancelled) return;
-    const plan = planFirstPass(d, { rowAlignment, memory }, limits);
-    job.bytesTotal = d.byteSize;
-    const { scanY, scanX, detY, detX } = d.shape;
-    const pixels = detY * detX;
-    const geometry: FirstPassGeometry = { scanX, detY, detX, detBin: plan.detBin, scanBin: plan.scanBin };
-    const sum = new Float64Array(pixels);
-    const max = new Float64Array(pixels).fill(-Infinity);
-    const pv = plan.preview;
-    // The cube lives in the shared memory of the kernel that answers detector drags from it;
-    // workers write preview rows and totals straight into shared memory.
-    const imager = kernel === 'wasm' ? previews.take(pv.qY, pv.qX, pv.pY, pv.pX) : null;
-    const shared = {
-      preview: imager ? imager.sharedBuffer : new SharedArrayBuffer(pv.qY * pv.qX * pv.pY * pv.pX * 4),
-      previewByteOffset: imager ? imager.cubeByteOffset : 0,
-      total: new SharedArrayBuffer(scanY * scanX * 8),
-      previewRowValues: pv.qX * pv.pY * pv.pX,
-    };
-    const preview = imager ? imager.cube() : new Float32Array(shared.preview);
-    const total = new Float64Array(shared.total);
-    const options = { kernel, maxTileBytes: plan.tileBytes };
-    // A cancelled pass's cube is dropped, not pooled: tiles still in flight may write into it.
-    const totals = await runTiles<FirstPassTileReply>({
-      pool, job, spec: d.spec, tiles: plan.tiles,
-      compute: (w, tile) => w.firstPassTile(d.spec, tile.row0, tile.nRows, geometry, options, shared),
-      merge: (r) => foldSumMax(sum, max, r.sum, r.max),
-    });
-    if (job.cancelled) return;
-    const n = scanY * scanX;
-    const mean = new Float64Array(pixels);
-    for (let i = 0; i < pixels; i++) mean[i] = sum[i] / n;
-    job.succeed({
-      descriptor: d, meanPattern: mean, maxPattern: max, totalIntensity: total,
-      preview: { data: preview, qY: pv.qY, qX: pv.qX, pY: pv.pY, pX: pv.pX, detBin: plan.detBin, scanBin: plan.scanBin, imager },
-      plan, seconds: (performance.now() - t0) / 1000, ...totals,
-    });
-  })().catch((e) => job.fail(e));
-  return job;
+  interface State {
+    geometry: FirstPassGeometry;
+    sum: Float64Array;
+    max: Float64Array;
+    shared: FirstPassShared;
+    preview: Float32Array;
+    total: Float64Array;
+    imager: PreviewImager | null;
+  }
+  return streamingJob<FirstPassSummary, FirstPassPlan, State, FirstPassTileReply>({
+    pool, spec, kind: 'first-pass', label: `first pass over ${spec.path}`,
+    plan: (d, reader) => planFirstPass(d, reader, limits),
+    begin: (d, plan) => {
+      const { scanY, scanX, detY, detX } = d.shape;
+      const pixels = detY * detX;
+      const pv = plan.preview;
+      // The cube lives in the shared memory of the kernel that answers detector drags from it;
+      // workers write preview rows and totals straight into shared memory. A cancelled pass's
+      // cube is dropped, not pooled: tiles still in flight may write into it.
+      const imager = kernel === 'wasm' ? previews.take(pv.qY, pv.qX, pv.pY, pv.pX) : null;
+      const shared: FirstPassShared = {
+        preview: imager ? imager.sharedBuffer : new SharedArrayBuffer(pv.qY * pv.qX * pv.pY * pv.pX * 4),
+        previewByteOffset: imager ? imager.cubeByteOffset : 0,
+        total: new SharedArrayBuffer(scanY * scanX * 8),
+        previewRowValues: pv.qX * pv.pY * pv.pX,
+      };
+      return {
+        geometry: { scanX, detY, detX, detBin: plan.detBin, scanBin: plan.scanBin },
+        sum: new Float64Array(pixels),
+        max: new Float64Array(pixels).fill(-Infinity),
+        shared,
+        preview: imager ? imager.cube() : new Float32Array(shared.preview),
+        total: new Float64Array(shared.total),
+        imager,
+      };
+    },
+    compute: (w, tile, d, plan, s) => w.firstPassTile(d.spec, tile.row0, tile.nRows, s.geometry, { kernel, maxTileBytes: plan.tileBytes }, s.shared),
+    merge: (r, _tile, s) => foldSumMax(s.sum, s.max, r.sum, r.max),
+    finish: (s, { descriptor: d, plan, totals, seconds }) => {
+      const n = d.shape.scanY * d.shape.scanX;
+      const pv = plan.preview;
+      return {
+        descriptor: d, meanPattern: s.sum.map((v) => v / n), maxPattern: s.max, totalIntensity: s.total,
+        preview: { data: s.preview, qY: pv.qY, qX: pv.qX, pY: pv.pY, pX: pv.pX, detBin: plan.detBin, scanBin: plan.scanBin, imager: s.imager },
+        plan, seconds, ...totals,
+      };
+    },
+  });
 }

@@ -1,6 +1,6 @@
-import type { SourceSpec } from '../../src-shared/model/dataset';
-import type { Job } from './job';
-import type { TilePlan } from './budget';
+import type { DatasetDescriptor, SourceSpec } from '../../src-shared/model/dataset';
+import { Job } from './job';
+import type { ReaderFacts, TilePlan } from './budget';
 import type { TileWorker, WorkerPool } from './worker-pool';
 
 /** What every tile reply carries, for the job's time split. */
@@ -57,4 +57,47 @@ export async function runTiles<P extends TimedPartial>(opts: {
   await Promise.all(Array.from({ length: Math.min(pool.size, tiles.length) }, lane));
   if (failure !== null) throw failure;
   return totals;
+}
+
+/**
+ * The one skeleton of a streaming job: open the source on a worker → plan (memory reserved,
+ * tiles chosen) → check the request against the dataset → allocate the accumulators → tiles
+ * through the pool, partials merged here → finish. Cancellation is a value: once the job is
+ * cancelled nothing more is started and the result is never delivered. Failures fail the job.
+ */
+export function streamingJob<T, Plan extends { tiles: TilePlan[] }, State, P extends TimedPartial>(opts: {
+  pool: WorkerPool;
+  spec: SourceSpec;
+  kind: string;
+  label: string;
+  /** Tiles and memory: e.g. planTiles with the bytes results need, or planFirstPass. */
+  plan: (d: DatasetDescriptor, reader: ReaderFacts) => Plan;
+  /** Refuse a request that does not fit this dataset (before anything is allocated). */
+  check?: (d: DatasetDescriptor) => void;
+  /** Which of the plan's tiles to read (default all). */
+  tiles?: (plan: Plan, d: DatasetDescriptor) => TilePlan[];
+  begin: (d: DatasetDescriptor, plan: Plan) => State;
+  compute: (worker: TileWorker, tile: TilePlan, d: DatasetDescriptor, plan: Plan, state: State) => Promise<P>;
+  merge: (partial: P, tile: TilePlan, state: State) => void;
+  finish: (state: State, done: { descriptor: DatasetDescriptor; plan: Plan; totals: TileTotals; seconds: number }) => T;
+}): Job<T> {
+  const job = new Job<T>(opts.kind, opts.label, 0);
+  (async () => {
+    const t0 = performance.now();
+    const { descriptor: d, rowAlignment, memory } = await opts.pool.run((w) => w.open(opts.spec));
+    if (job.cancelled) return;
+    const plan = opts.plan(d, { rowAlignment, memory });
+    opts.check?.(d);
+    const tiles = opts.tiles ? opts.tiles(plan, d) : plan.tiles;
+    job.bytesTotal = tiles.reduce((s, t) => s + t.bytes, 0);
+    const state = opts.begin(d, plan);
+    const totals = await runTiles<P>({
+      pool: opts.pool, job, spec: d.spec, tiles,
+      compute: (w, tile) => opts.compute(w, tile, d, plan, state),
+      merge: (r, tile) => opts.merge(r, tile, state),
+    });
+    if (job.cancelled) return;
+    job.succeed(opts.finish(state, { descriptor: d, plan, totals, seconds: (performance.now() - t0) / 1000 }));
+  })().catch((e) => job.fail(e));
+  return job;
 }
