@@ -12,6 +12,7 @@ import { projectRoot } from '../src-main/engine/paths';
 import { fmtBytes } from '../src-main/engine/budget';
 import { allocTyped } from '../src-shared/model/dtype';
 import { runAnalysesBenchmark } from './analyses.bench';
+import { runCommandsBenchmark } from './commands.bench';
 
 const PY = '/usr/bin/python3';
 
@@ -141,4 +142,5 @@ export async function runBenchmark(opts: { dir: string; workers: number }): Prom
   const detail = `worker time split (raw): read ${(fpRaw.readMs / 1000).toFixed(2)} s, compute ${(fpRaw.computeMs / 1000).toFixed(2)} s (summed over workers); tiles of ${fpRaw.plan.tileRows} rows, preview ${fpRaw.preview.qY}×${fpRaw.preview.qX}×${fpRaw.preview.pY}×${fpRaw.preview.pX}`;
   console.log(detail);
   await runAnalysesBenchmark({ raw, shape, workers: opts.workers, readRate });
+  runCommandsBenchmark({ raw, shape, workers: opts.workers });
 }
