@@ -294,13 +294,27 @@ export class EngineService implements ScanfoldService {
    */
   private findVacuum(s: FirstPassSummary, badMask: Uint8Array, disk: BrightFieldDisk): VacuumFinding {
     const { detY, detX, scanY, scanX } = s.descriptor.shape;
-    const dets = [
-      { shape: { kind: 'disk' as const, cx: disk.cx, cy: disk.cy, r: disk.r + 2 } },
-      { shape: { kind: 'rectangle' as const, x0: 0, y0: 0, x1: detX - 1, y1: detY - 1 } },
-    ].map((d) => ({ ...compileDetector(d, detY, detX, { excludePixels: badMask }), label: '' }));
+    // Only the disk (and the few bad pixels) are summed from the cube: the total of each
+    // position is known exactly from the pass, which keeps this to milliseconds.
+    const diskSpec = { shape: { kind: 'disk' as const, cx: disk.cx, cy: disk.cy, r: disk.r + 2 } };
+    const dets = [{ ...compileDetector(diskSpec, detY, detX, { excludePixels: badMask }), label: '' }];
+    const badIndices = Uint32Array.from(Array.from(badMask).flatMap((v, i) => (v ? [i] : [])));
+    if (badIndices.length) dets.push({ mode: 'indices', indices: badIndices, detY, detX, label: '' });
     const pv = previewDetectorImages(s.preview, dets);
-    const [inside, total] = pv.images;
-    const scattered = total.map((t, i) => t - inside[i]);
+    const inside = pv.images[0];
+    const bad = pv.images[1];
+    // Totals at the preview's scan binning (the cube averages each scan bin).
+    const total = new Float64Array(pv.qY * pv.qX);
+    const counts = new Float64Array(pv.qY * pv.qX);
+    for (let y = 0; y < scanY; y++) {
+      for (let x = 0; x < scanX; x++) {
+        const q = Math.floor(y / pv.scanBin) * pv.qX + Math.floor(x / pv.scanBin);
+        total[q] += s.totalIntensity[y * scanX + x];
+        counts[q]++;
+      }
+    }
+    for (let q = 0; q < total.length; q++) total[q] = total[q] / counts[q] - (bad ? bad[q] : 0);
+    const scattered = total.map((t, q) => t - inside[q]);
     const coarse = findVacuum(scattered, total);
     if (!coarse.mask || pv.scanBin === 1) return coarse;
     const mask = new Uint8Array(scanY * scanX);
