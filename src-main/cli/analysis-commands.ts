@@ -1,7 +1,6 @@
 // `scanfold image`, `com`, `calibrate`, `pattern`: flags → one request to the engine service →
 // files. The analysis itself (bad pixels, detectors, the COM field, calibration) is the
 // service's; this file only parses, asks and writes.
-import path from 'node:path';
 import type { SourceSpec } from '../../src-shared/model/dataset';
 import type { DetectorShape, RegionShape } from '../../src-shared/model/detectors';
 import { InputError } from '../../src-shared/model/errors';
@@ -153,7 +152,7 @@ export function provenance(d: { path: string; datasetPath: string | null; finger
 }
 
 /** Bad detector pixels left out, as [y, x] coordinates, for the output's attributes. */
-function badPixelAttrs(b: { hot: [number, number][]; dead: [number, number][] } | undefined): Record<string, string> {
+export function badPixelAttrs(b: { hot: [number, number][]; dead: [number, number][] } | undefined): Record<string, string> {
   return b ? { bad_pixels_hot_yx: JSON.stringify(b.hot), bad_pixels_dead_yx: JSON.stringify(b.dead) } : {};
 }
 

@@ -16,7 +16,7 @@ import { writeSample, SAMPLE_SIZES } from '../../samples/write-sample';
 import { projectRoot } from '../engine/paths';
 import { COMMAND_HELP, OVERVIEW } from './help';
 import { SCANFOLD_VERSION } from '../engine/version';
-import { cmdCalibrate, cmdCom, cmdImage, cmdPattern, noteNonFiniteResults, openProtected, provenance, withService, writeResults } from './analysis-commands';
+import { cmdCalibrate, cmdCom, cmdImage, badPixelAttrs, cmdPattern, noteNonFiniteResults, openProtected, provenance, withService, writeResults } from './analysis-commands';
 import type { EngineService } from '../engine/service';
 
 const ENGINE_OPTIONS = {
@@ -66,8 +66,7 @@ async function writeSummary(service: EngineService, out: OutputFile, r: FirstPas
   }, {
     ...provenance(r.descriptor, producer, { dataset: r.dataset }),
     non_finite_inputs: r.nonFiniteInputs,
-    bad_pixels_hot_yx: JSON.stringify(r.badPixels.hot),
-    bad_pixels_dead_yx: JSON.stringify(r.badPixels.dead),
+    ...badPixelAttrs(r.badPixels),
   });
 }
 
@@ -169,17 +168,6 @@ async function cmdDemo(args: string[]) {
   }, null, 2) + '\n');
 }
 
-/** parseArgs throws TypeErrors with codes for unknown or malformed flags: those are bad input. */
-async function wrapParse(fn: () => Promise<void>): Promise<void> {
-  try {
-    await fn();
-  } catch (e) {
-    const code = (e as { code?: string }).code;
-    if (typeof code === 'string' && code.startsWith('ERR_PARSE_ARGS')) throw new InputError(`${(e as Error).message}\nrun \`scanfold --help\` for usage`);
-    throw e;
-  }
-}
-
 export async function main(argv: string[]): Promise<number> {
   const [cmd, ...rest] = argv;
   try {
@@ -200,10 +188,10 @@ export async function main(argv: string[]): Promise<number> {
       case 'summary': await cmdSummary(rest); break;
       case 'sample': await cmdSample(rest); break;
       case 'demo': await cmdDemo(rest); break;
-      case 'image': await wrapParse(() => cmdImage(rest, engineOptions, ENGINE_OPTIONS)); break;
-      case 'com': await wrapParse(() => cmdCom(rest, engineOptions, ENGINE_OPTIONS)); break;
-      case 'calibrate': await wrapParse(() => cmdCalibrate(rest, engineOptions, ENGINE_OPTIONS)); break;
-      case 'pattern': await wrapParse(() => cmdPattern(rest, engineOptions, ENGINE_OPTIONS)); break;
+      case 'image': await cmdImage(rest, engineOptions, ENGINE_OPTIONS); break;
+      case 'com': await cmdCom(rest, engineOptions, ENGINE_OPTIONS); break;
+      case 'calibrate': await cmdCalibrate(rest, engineOptions, ENGINE_OPTIONS); break;
+      case 'pattern': await cmdPattern(rest, engineOptions, ENGINE_OPTIONS); break;
       default: throw new InputError(`unknown command "${cmd}"; expected info, summary, image, com, calibrate, pattern, sample or demo (see scanfold --help; benchmarks: npm run bench)`);
     }
     return 0;

@@ -1,4 +1,3 @@
-import path from 'node:path';
 import { parseArgs } from 'node:util';
 import { OutputFile } from '../io/output-file';
 import { physicalPath } from '../io/input-file';

@@ -36,13 +36,15 @@ interface FirstResults extends CachedFirstPass {
 
 interface DatasetRecord {
   id: DatasetId;
-  spec: SourceSpec;
   opened: OpenedDataset;
   /** The last first pass's results (from a pass, with its preview cube, or from the cache, without). */
   first: FirstResults | null;
 }
 
 type ServiceJobInfo = JobInfo & { jobId: string };
+
+/** The spec that reopens exactly the dataset (the descriptor's resolved one). */
+const specOf = (r: DatasetRecord): SourceSpec => r.opened.descriptor.spec;
 
 /**
  * Attribute names read for calibration values when the request leaves them out: only names that
@@ -85,7 +87,8 @@ export class EngineService implements ScanfoldService {
   readonly engine: Engine;
   private readonly records = new Map<DatasetId, DatasetRecord>();
   private readonly listeners = new Set<(e: ServiceEvent) => void>();
-  private readonly running = new Map<string, Job<unknown>>();
+  /** Running jobs by the client's id, with their info as events show it. */
+  private readonly running = new Map<string, { job: Job<unknown>; info: () => ServiceJobInfo }>();
   private readonly finished: ServiceJobInfo[] = [];
   private nextDataset = 1;
   private nextJob = 1;
@@ -122,7 +125,7 @@ export class EngineService implements ScanfoldService {
     const descriptor = await this.engine.describe(spec);
     const id = `dataset-${this.nextDataset++}`;
     const opened: OpenedDataset = { id, descriptor, version: 1 };
-    this.records.set(id, { id, spec: descriptor.spec, opened, first: null });
+    this.records.set(id, { id, opened, first: null });
     this.emit({ kind: 'dataset', dataset: id, version: 1, change: 'opened' });
     return opened;
   }
@@ -132,7 +135,7 @@ export class EngineService implements ScanfoldService {
     const r = this.record(dataset);
     if (r.first?.summary) this.engine.release(r.first.summary);
     this.records.delete(dataset);
-    await Promise.all(Array.from({ length: this.engine.pool.size }, () => this.engine.pool.run((w) => w.closeSource(r.spec)).catch(() => undefined)));
+    await this.engine.pool.each((w) => w.closeSource(r.opened.descriptor.spec)).catch(() => undefined);
     this.emit({ kind: 'dataset', dataset, version: r.opened.version + 1, change: 'closed' });
   }
 
@@ -153,8 +156,8 @@ export class EngineService implements ScanfoldService {
       job.cancel('duplicate job id');
       throw new InputError(`job id ${JSON.stringify(id)} is already running; expected a new id`, 'bad-request');
     }
-    this.running.set(id, job as Job<unknown>);
     const info = (): ServiceJobInfo => ({ ...job.info(), label, jobId: id });
+    this.running.set(id, { job: job as Job<unknown>, info });
     this.emit({ kind: 'job', job: info() });
     const off = job.onProgress(() => this.emit({ kind: 'job', job: info() }));
     try {
@@ -184,7 +187,7 @@ export class EngineService implements ScanfoldService {
         return r.first;
       }
     }
-    const summary = await this.track(this.engine.firstPass(r.spec), jobId, label);
+    const summary = await this.track(this.engine.firstPass(specOf(r)), jobId, label);
     const { detY, detX, scanY, scanX } = summary.descriptor.shape;
     const found = aboutFile(summary.descriptor.path, () => findBadPixels(summary.meanPattern, summary.maxPattern, detY, detX, { patternCount: scanY * scanX }));
     const badPixels: BadPixels = { mask: found.mask, hot: found.hot.map(([y, x]) => [y, x]), dead: found.dead.map(([y, x]) => [y, x]) };
@@ -245,7 +248,7 @@ export class EngineService implements ScanfoldService {
     this.compileDetectors(r, req.detectors);
     const bad = await this.badPixelMask(r, req.badPixels, req.jobId);
     const compiled = this.compileDetectors(r, req.detectors, bad.mask);
-    const v = await this.track(this.engine.virtualImages(r.spec, compiled), req.jobId, 'virtual images');
+    const v = await this.track(this.engine.virtualImages(specOf(r), compiled), req.jobId, 'virtual images');
     return {
       dataset: r.id, descriptor: v.descriptor, images: v.images, labels: req.detectors.map((s) => s.label ?? describeDetector(s)),
       badPixelsLeftOut: bad.count, ...(bad.list ? { badPixels: bad.list } : {}), nonFiniteInputs: v.nonFinite, seconds: v.seconds,
@@ -269,10 +272,14 @@ export class EngineService implements ScanfoldService {
     const maskSpec: DetectorSpec | null = req.maskDisk ? { shape: { kind: 'disk', ...req.maskDisk } } : null;
     if (maskSpec) this.compileDetectors(r, [maskSpec]);
     // The first pass gives the bad pixels, the disk centre and, from its preview, the vacuum.
-    const first = await this.ensureFirstPass(r, req.jobId ? `${req.jobId}/first-pass` : undefined, 'first pass');
+    // With all of them given or not wanted (the plain definition), no pass is spent on it.
+    const rotation = req.rotation ?? 'auto';
+    const needsFirst = req.badPixels !== 'none' || req.descan === undefined || rotation === 'auto'
+      || (req.descan.kind === 'none' && (rotation.degrees % 360 !== 0 || rotation.flip));
+    const first = needsFirst ? await this.ensureFirstPass(r, req.jobId ? `${req.jobId}/first-pass` : undefined, 'first pass') : null;
     const bad = await this.badPixelMask(r, req.badPixels, req.jobId);
-    const disk = 'notFound' in first.disk ? null : first.disk;
-    const defaults = aboutFile(file, () => comDefaults(req, scanY, scanX, first.vacuum));
+    const disk = first && !('notFound' in first.disk) ? first.disk : null;
+    const defaults = aboutFile(file, () => comDefaults(req, scanY, scanX, first?.vacuum ?? null));
     if (!maskSpec && bad.count >= detY * detX) {
       throw new InputError(`${file}: every detector pixel was flagged as hot, dead or non-finite on the mean/max pattern, so no centre of mass can be computed; expected patterns with counts (or leave bad pixels in)`);
     }
@@ -280,7 +287,7 @@ export class EngineService implements ScanfoldService {
     const mask = maskSpec || bad.count > 0
       ? this.compileDetectors(r, [maskSpec ?? { shape: { kind: 'rectangle', x0: 0, y0: 0, x1: detX - 1, y1: detY - 1 } }], bad.mask)[0]
       : null;
-    const sums = await this.track(this.engine.comSums(r.spec, { mask, threshold: req.threshold ?? 0 }), req.jobId, 'centre of mass');
+    const sums = await this.track(this.engine.comSums(specOf(r), { mask, threshold: req.threshold ?? 0 }), req.jobId, 'centre of mass');
     const origin = disk ? { x: disk.cx, y: disk.cy } : { x: (detX - 1) / 2, y: (detY - 1) / 2 };
     const field = aboutFile(file, () => comFieldFromSums(sums, req, {
       defaults, origin, comMask: maskSpec ? describeDetector(maskSpec) : 'whole pattern', badPixelsLeftOut: bad.count, seconds: sums.seconds,
@@ -407,7 +414,7 @@ export class EngineService implements ScanfoldService {
     const r = this.record(req.dataset);
     const { scanY, scanX } = r.opened.descriptor.shape;
     const region = aboutFile(r.opened.descriptor.path, () => compileRegion(req.region, scanY, scanX));
-    const p = await this.track(this.engine.regionPattern(r.spec, region), req.jobId, 'region pattern');
+    const p = await this.track(this.engine.regionPattern(specOf(r), region), req.jobId, 'region pattern');
     return {
       dataset: r.id, descriptor: p.descriptor, mean: p.mean, max: p.max, count: p.count,
       region: describeRegion(req.region), nonFiniteInputs: p.nonFinite, seconds: p.seconds,
@@ -421,7 +428,7 @@ export class EngineService implements ScanfoldService {
     if (req.y >= scanY || req.x >= scanX) {
       throw new InputError(`patternAt: position (y ${req.y}, x ${req.x}) is outside the ${scanY}×${scanX} scan of ${r.opened.descriptor.path}`, 'bad-request');
     }
-    const pattern = await this.engine.pool.run((w) => w.readPattern(r.spec, req.y, req.x));
+    const pattern = await this.engine.pool.run((w) => w.readPattern(specOf(r), req.y, req.x));
     return { detY, detX, pattern };
   }
 
@@ -442,21 +449,20 @@ export class EngineService implements ScanfoldService {
   }
 
   async jobs(): Promise<ServiceJobInfo[]> {
-    const running = [...this.running.entries()].map(([jobId, j]) => ({ ...j.info(), jobId }));
-    return [...this.finished, ...running];
+    return [...this.finished, ...[...this.running.values()].map((r) => r.info())];
   }
 
   async cancel(jobId: string): Promise<boolean> {
     validateRequest('cancel', jobId);
-    const j = this.running.get(jobId);
-    if (!j) return false;
-    j.cancel();
+    const r = this.running.get(jobId);
+    if (!r) return false;
+    r.job.cancel();
     return true;
   }
 
   /** Cancel whatever runs (Ctrl-C in the CLI). */
   cancelAll(reason = 'interrupted'): number {
-    for (const j of this.running.values()) j.cancel(reason);
+    for (const r of this.running.values()) r.job.cancel(reason);
     return this.running.size;
   }
 

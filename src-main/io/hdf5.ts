@@ -2,7 +2,7 @@ import * as fs from 'node:fs';
 import * as nodePath from 'node:path';
 import type { DatasetDescriptor, Hdf5DatasetInfo, Shape4D, SourceSpec } from '../../src-shared/model/dataset';
 import { DTYPE_BYTES, DTYPES, isDType, typedView, type ByteOrder, type DType, type NumericArray } from '../../src-shared/model/dtype';
-import { InputError, isInputError } from '../../src-shared/model/errors';
+import { InputError } from '../../src-shared/model/errors';
 import { fingerprint } from './fingerprint';
 import { availableFilterNames, briefHdf5Error, filterName, getH5, isFilterAvailable, withFileOpenLog, type H5Runtime } from './h5wasm-module';
 import { checkPatternRequest, checkRowRequest, type ReaderMemory, type TileSource } from './tile-source';
@@ -110,17 +110,9 @@ export async function openHdf5(spec: SourceSpec, options: Hdf5ReadOptions = {}):
     const source = new Hdf5TileSource(rt, h5, {
       file, datasetPath, rank, shape, dtype, chunks: facts.chunks, maxSliceBytes: options.maxSliceBytes ?? DEFAULT_MAX_SLICE_BYTES,
     }, chunkWorkBytes);
+    // readPiece already turns a failed read (a missing or irregular external file) into a message.
     const sampled = withFileOpenLog(() => source.samplePatterns());
-    if (sampled.error !== undefined) {
-      if (isInputError(sampled.error)) throw sampled.error;
-      const bad = sampled.opens.find((o) => o.failed);
-      if (bad) {
-        const why = /^E[A-Z]+$/.test(bad.failed!) ? errnoText(bad.failed) : `it is ${bad.failed}, not a regular file`;
-        throw new InputError(`${what}: the dataset's data lives in ${bad.path}, which could not be opened (${why}); expected a present, regular file`,
-          bad.failed === 'ENOENT' ? 'missing-file' : 'unreadable');
-      }
-      throw sampled.error;
-    }
+    if (sampled.error !== undefined) throw sampled.error;
     // Files HDF5 opened to read the samples: external raw-data files.
     for (const o of sampled.opens) if (!o.failed && !sourceFiles.includes(o.path)) sourceFiles.push(o.path);
     const descriptor: DatasetDescriptor = {

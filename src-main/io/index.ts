@@ -1,9 +1,11 @@
 import fs from 'node:fs';
-import path from 'node:path';
 import { canonicalPath, openInputFile, physicalPath } from './input-file';
 import { hdf5SignatureOffset } from './hdf5-signature';
-import type { DatasetDescriptor, Hdf5DatasetInfo, SourceFormat, SourceSpec } from '../../src-shared/model/dataset';
+import type { SourceFormat, SourceSpec } from '../../src-shared/model/dataset';
 import { InputError } from '../../src-shared/model/errors';
+import type { Inspection } from '../../src-shared/contract/service';
+
+export type { Inspection };
 import type { TileSource } from './tile-source';
 import { openNpy } from './npy';
 import { openRaw } from './raw';
@@ -43,9 +45,6 @@ export async function openTileSource(spec: SourceSpec, options: Hdf5ReadOptions 
   }
 }
 
-export type Inspection =
-  | { kind: 'dataset'; descriptor: DatasetDescriptor }
-  | { kind: 'hdf5-listing'; path: string; datasets: Hdf5DatasetInfo[] };
 
 /**
  * What `scanfold info` shows: the descriptor, or, for an HDF5 file opened without a

@@ -1,5 +1,4 @@
 import fs from 'node:fs';
-import path from 'node:path';
 import { DTYPE_BYTES, typedView } from '../../src-shared/model/dtype';
 import { InputError } from '../../src-shared/model/errors';
 import { swapBytesInPlace } from './contiguous';

@@ -1,5 +1,4 @@
 import * as fs from 'node:fs';
-import * as nodePath from 'node:path';
 import type { DatasetDescriptor, Shape4D, SourceSpec } from '../../src-shared/model/dataset';
 import { DTYPE_BYTES, DTYPES, isDType, type ByteOrder, type DType } from '../../src-shared/model/dtype';
 import { InputError } from '../../src-shared/model/errors';

@@ -99,9 +99,3 @@ export function sortedMad(v: ArrayLike<number>, k: number): number {
   }
   return k % 2 ? last : (before + last) / 2;
 }
-
-function median(sorted: Float64Array, start: number, end: number): number {
-  const n = end - start;
-  const mid = start + (n >> 1);
-  return n % 2 ? sorted[mid] : (sorted[mid - 1] + sorted[mid]) / 2;
-}
