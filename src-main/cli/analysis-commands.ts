@@ -250,6 +250,7 @@ export async function cmdCom(args: string[], engineOptions: EngineOptionsOf, eng
     if (rot.alternativeDegrees !== undefined) {
       rootAttrs.rotation_alternative_degrees = rot.alternativeDegrees;
       rootAttrs.rotation_curl_relative = rot.curlRelative!;
+      rootAttrs.rotation_estimate_smoothing_scan_steps = rot.smoothingSigma!;
       rootAttrs.rotation_half_turn_rule = rot.halfTurnRule!;
       rootAttrs.rotation_half_turn_score = rot.halfTurnScore!;
       rootAttrs.rotation_half_turn = rot.halfTurnDetermined ? 'settled by vacuum' : 'undetermined (no vacuum): chosen by the phase skewness';

@@ -129,7 +129,7 @@ export function comFieldFromSums(
     rotation: {
       degrees, flip, source: estimate ? 'estimated (least curl)' : 'given',
       ...(estimate ? {
-        alternativeDegrees: estimate.alternativeDegrees, curlRelative: estimate.curlRelative, halfTurnRule: estimate.halfTurnRule,
+        alternativeDegrees: estimate.alternativeDegrees, curlRelative: estimate.curlRelative, smoothingSigma: estimate.smoothingSigma, halfTurnRule: estimate.halfTurnRule,
         halfTurnScore: estimate.halfTurnScore, halfTurnDetermined: vacuumMask !== null,
       } : {}),
     },

@@ -127,6 +127,8 @@ export interface ComFieldResult {
     source: 'estimated (least curl)' | 'given';
     alternativeDegrees?: number;
     curlRelative?: number;
+    /** Gaussian width (scan steps) the field was smoothed by for the estimate only (the maps are not smoothed); 0 = none. */
+    smoothingSigma?: number;
     halfTurnRule?: string;
     /** How clearly the rule told θ from θ + 180° (its score; near 0 is a guess). */
     halfTurnScore?: number;

@@ -33,7 +33,7 @@ P = (np.fft.fft2(GX) * kx + np.fft.fft2(GY) * ky) / (2j * np.pi * k2); P[0, 0] =
 truth = np.real(np.fft.ifft2(P))[:sy, :sx]
 print(json.dumps({'corr': float(np.corrcoef(truth.ravel(), f['phase'][()].ravel())[0, 1]),
   'vacuum': int(f.attrs['vacuum_positions']), 'vacuum_truth': int((t['grain_map'][()] == 0).sum()),
-  'descan': str(f.attrs['descan']), 'half_turn': str(f.attrs['rotation_half_turn']), 'rotation': float(f.attrs['rotation_degrees'])}))`, out, demo], { encoding: 'utf8' });
+  'descan': str(f.attrs['descan']), 'half_turn': str(f.attrs['rotation_half_turn']), 'rotation': float(f.attrs['rotation_degrees']), 'flip': str(f.attrs['flip'])}))`, out, demo], { encoding: 'utf8' });
   expect(p.status, p.stderr).toBe(0);
   const got = JSON.parse(p.stdout);
   // reference: the generator's ground truth (vacuum = grain map 0, the in-plane field's pattern shifts)
@@ -41,5 +41,8 @@ print(json.dumps({'corr': float(np.corrcoef(truth.ravel(), f['phase'][()].ravel(
   expect(got.descan).toBe('reference (vacuum found)');
   expect(got.half_turn).toBe('settled by vacuum');
   expect(got.corr).toBeGreaterThan(0.95);
+  // reference: the generator draws the field in the scan frame with no rotation or flip
+  expect(Math.min(got.rotation, 360 - got.rotation)).toBeLessThan(3);
+  expect(got.flip).toBe('no');
   console.log(`demo, no flags: phase correlation ${got.corr.toFixed(4)} with the integrated truth; rotation ${got.rotation.toFixed(2)}° (truth 0°)`);
 });
