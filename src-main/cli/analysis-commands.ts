@@ -13,6 +13,7 @@ import { readNpy2D } from '../io/npy-array';
 import { canonicalPath, physicalPath } from '../io/input-file';
 import { followJobs } from './progress';
 import { SCANFOLD_VERSION } from '../engine/version';
+import { getH5 } from '../io/h5wasm-module';
 import { decimalNumber, numberList, outputFlag, parseFlags, rectangleFlag, rejectExtraPositionals, SOURCE_OPTIONS, sourceSpecFromFlags } from './source-flags';
 
 type Flags = Record<string, string | boolean | (string | boolean)[] | undefined>;
@@ -93,6 +94,9 @@ function checkMaskValues(file: string, values: ArrayLike<number>, width: number)
 export async function withService<T>(options: EngineOptions, quiet: boolean, fn: (s: EngineService) => Promise<T>, out?: OutputFile): Promise<T> {
   try {
     const service = new EngineService(options);
+    // The HDF5 library the results are written with takes ~0.2 s to load: load it while the
+    // workers read, not after (a failure here surfaces again, with its message, when writing).
+    if (out) getH5().catch(() => undefined);
     for (const note of service.notes) process.stderr.write(`note: ${note}\n`);
     const stop = followJobs(service, quiet);
     try { return await fn(service); } finally { stop(); await service.shutdown(); }
@@ -245,7 +249,7 @@ export async function cmdCom(args: string[], engineOptions: EngineOptionsOf, eng
       descan_removed_x_abc: JSON.stringify([f.descanRemoved.x.a, f.descanRemoved.x.b, f.descanRemoved.x.c]),
       descan_removed_y_abc: JSON.stringify([f.descanRemoved.y.a, f.descanRemoved.y.b, f.descanRemoved.y.c]),
       descan_removed_meaning: 'a + b·scan_x + c·scan_y (detector px) subtracted from com_x and com_y before rotation', zero_total_patterns: f.zeroTotalPatterns, bad_pixels_left_out: f.badPixelsLeftOut,
-      non_finite_inputs: f.nonFiniteInputs, com_mask: f.comMask, ...provenance(f.descriptor, 'scanfold com', request), ...badPixelAttrs(f.badPixels),
+      non_finite_inputs: f.nonFiniteInputs, com_mask: f.comMask, com_sums_from: f.sumsFrom, ...provenance(f.descriptor, 'scanfold com', request), ...badPixelAttrs(f.badPixels),
     };
     if (rot.alternativeDegrees !== undefined) {
       rootAttrs.rotation_alternative_degrees = rot.alternativeDegrees;

@@ -123,7 +123,8 @@ export function planTiles(d: DatasetDescriptor, reader: ReaderFacts, limits: Eng
 }
 
 /** The first pass: the preview cube and sum/max accumulators are reserved before the tiles. */
-export function planFirstPass(d: DatasetDescriptor, reader: ReaderFacts, limits: EngineLimits): FirstPassPlan {
+/** `comWatched`: with COM sums in the pass, how many pixels are watched (null: no COM sums). */
+export function planFirstPass(d: DatasetDescriptor, reader: ReaderFacts, limits: EngineLimits, comWatched: number | null = null): FirstPassPlan {
   const { scanY, scanX, detY, detX } = d.shape;
   const pixels = detY * detX;
   const previewBudget = Math.min(limits.previewBudgetBytes, Math.floor(limits.budgetBytes / 4));
@@ -131,7 +132,9 @@ export function planFirstPass(d: DatasetDescriptor, reader: ReaderFacts, limits:
   const pv = { qY: Math.ceil(scanY / scanBin), qX: Math.ceil(scanX / scanBin), pY: Math.ceil(detY / detBin), pX: Math.ceil(detX / detBin), bytes: 0 };
   pv.bytes = previewBytes(d, detBin, scanBin);
   // Accumulators: sum+max (float64) on the main thread and in each worker's reply, totals image.
-  const accumulators = 16 * pixels * (limits.workers + 1) + 8 * scanY * scanX;
+  // With COM sums: Σ I, Σ I·x, Σ I·y and the watched pixels' values per position, and the mask.
+  const com = comWatched === null ? 0 : 8 * scanY * scanX * (3 + comWatched) + 8 * pixels;
+  const accumulators = 16 * pixels * (limits.workers + 1) + 8 * scanY * scanX + com;
   return { detBin, scanBin, preview: pv, ...planTiles(d, reader, limits, pv.bytes + accumulators, scanBin) };
 }
 

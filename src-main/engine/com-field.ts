@@ -8,6 +8,7 @@ import { compileRegion } from '../../src-shared/compute/region-masks';
 import { curl, descan, divergence, estimateRotation, integrateCom, magnitudeDirection, rotateCom, type DescanMode } from '../../src-shared/compute/com-field';
 import { electronWavelengthPm } from '../../src-shared/compute/wavelength';
 import type { ComSumsResult } from './analyses';
+import type { FirstPassComSums } from './first-pass';
 import type { VacuumFinding } from '../../src-shared/compute/vacuum';
 
 export interface ComDefaults {
@@ -46,9 +47,9 @@ export function comDefaults(req: ComFieldRequest, scanY: number, scanX: number, 
 }
 
 export function comFieldFromSums(
-  sums: ComSumsResult,
+  sums: Pick<ComSumsResult, 'descriptor' | 'total' | 'sumX' | 'sumY' | 'nonFinite'>,
   req: ComFieldRequest,
-  context: { defaults: ComDefaults; origin: { x: number; y: number }; comMask: string; badPixelsLeftOut: number; seconds: number },
+  context: { defaults: ComDefaults; origin: { x: number; y: number }; comMask: string; badPixelsLeftOut: number; seconds: number; sumsFrom: ComFieldResult['sumsFrom'] },
 ): Omit<ComFieldResult, 'dataset'> {
   const d: DatasetDescriptor = sums.descriptor;
   const { scanY, scanX } = d.shape;
@@ -138,6 +139,7 @@ export function comFieldFromSums(
     descanRemoved: { x: ds.removedX, y: ds.removedY },
     threshold,
     comMask: context.comMask,
+    sumsFrom: context.sumsFrom,
     zeroTotalPatterns: zeroTotal,
     badPixelsLeftOut: context.badPixelsLeftOut,
     nonFiniteInputs: sums.nonFinite,
@@ -145,4 +147,42 @@ export function comFieldFromSums(
     notes,
     seconds: context.seconds,
   };
+}
+
+/** Σ I, Σ I·x, Σ I·y per position over the detector less the bad pixels, and the non-finite values met. */
+export interface ComSumsOverGoodPixels {
+  total: Float64Array;
+  sumX: Float64Array;
+  sumY: Float64Array;
+  nonFinite: number;
+}
+
+/**
+ * The first pass's COM sums turned into what the COM pass computes with its defaults (whole
+ * detector less the bad pixels `bad`, no threshold): watched pixels that are not bad are added
+ * back from their kept values. Null when a bad pixel was not watched and could have counts (a
+ * pixel whose max and mean are 0, or never finite, adds nothing either way).
+ */
+export function comSumsLessBadPixels(c: FirstPassComSums, bad: Uint8Array, mean: Float64Array, max: Float64Array, detX: number): ComSumsOverGoodPixels | null {
+  const watched = new Uint8Array(bad.length);
+  for (const i of c.watch) watched[i] = 1;
+  for (let i = 0; i < bad.length; i++) {
+    if (bad[i] && !watched[i] && !(max[i] === -Infinity || (max[i] === 0 && mean[i] === 0))) return null;
+  }
+  const total = c.total.slice(), sumX = c.sumX.slice(), sumY = c.sumY.slice();
+  let nonFinite = c.nonFinite;
+  const nW = c.watch.length;
+  for (let j = 0; j < nW; j++) {
+    const i = c.watch[j];
+    if (bad[i]) continue;
+    const x = i % detX, y = (i - x) / detX;
+    for (let p = 0; p < total.length; p++) {
+      const v = c.watchValues[p * nW + j];
+      if (!Number.isFinite(v)) { nonFinite++; continue; }
+      total[p] += v;
+      sumX[p] += v * x;
+      sumY[p] += v * y;
+    }
+  }
+  return { total, sumX, sumY, nonFinite };
 }

@@ -7,7 +7,7 @@ import type { CompiledDetector } from '../../src-shared/model/detectors';
 import type { ComOptions } from '../../src-shared/compute/tile-kernels-types';
 import type { Job } from './job';
 import { WorkerPool } from './worker-pool';
-import type { KernelKind } from '../workers/tile-worker';
+import type { FirstPassComPlan, KernelKind } from '../workers/tile-worker';
 import { inspectSource, type Inspection } from '../io/index';
 
 export interface EngineOptions {
@@ -56,8 +56,8 @@ export class Engine {
   }
 
   /** The first streaming pass: mean/max pattern, total intensity, preview cube. */
-  firstPass(spec: SourceSpec): Job<FirstPassSummary> {
-    return this.track(startFirstPass(this.pool, spec, this.limits, this.kernel, this.previews));
+  firstPass(spec: SourceSpec, com?: FirstPassComPlan): Job<FirstPassSummary> {
+    return this.track(startFirstPass(this.pool, spec, this.limits, this.kernel, this.previews, com));
   }
 
   /** Give back a first-pass result that is no longer shown; its preview cube's memory is reused. */

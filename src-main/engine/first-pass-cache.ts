@@ -2,7 +2,8 @@
 // each other) need not read a 40 GB file again just to find the bad pixels. Keyed by the
 // dataset's fingerprint and by the size, modification time and inode of every file its data
 // comes from: a file changed in any way is a new key, and its old entry ages out. The preview
-// cube is not kept (it can be large); the scan-sized vacuum finding made from it is.
+// cube is not kept (it can be large); the scan-sized vacuum finding made from it is, and so
+// are the centre-of-mass sums the pass took, so `com` after `summary` reads nothing.
 import fs from 'node:fs';
 import os from 'node:os';
 import path from 'node:path';
@@ -10,6 +11,7 @@ import { createHash } from 'node:crypto';
 import type { DatasetDescriptor } from '../../src-shared/model/dataset';
 import type { BadPixels, BrightFieldDisk } from '../../src-shared/contract/service';
 import type { VacuumFinding } from '../../src-shared/compute/vacuum';
+import type { ComSumsOverGoodPixels } from './com-field';
 
 export interface CachedFirstPass {
   meanPattern: Float64Array;
@@ -19,11 +21,16 @@ export interface CachedFirstPass {
   badPixels: BadPixels;
   disk: BrightFieldDisk | { notFound: string };
   vacuum: VacuumFinding | null;
+  /**
+   * Centre-of-mass sums per position over the whole detector less the bad pixels, no threshold
+   * (what `com` computes with its defaults), taken in the same pass; null when they could not be.
+   */
+  com: ComSumsOverGoodPixels | null;
 }
 
 /** The cache keeps at most this much; the least recently used entries go first. */
 export const CACHE_LIMIT_BYTES = 256 * 2 ** 20;
-const FORMAT = 'scanfold-first-pass-1';
+const FORMAT = 'scanfold-first-pass-2';
 
 /** Where entries live: SCANFOLD_CACHE_DIR ('off' disables), else the user's cache folder. */
 export function defaultCacheDir(): string | null {
@@ -75,6 +82,7 @@ export function readCachedFirstPass(dir: string, key: string, d: DatasetDescript
     const meanPattern = f64(pixels), maxPattern = f64(pixels), totalIntensity = f64(positions);
     const badMask = u8(pixels);
     const vacuumMask = header.vacuum?.hasMask ? u8(positions) : null;
+    const com = header.com ? { total: f64(positions), sumX: f64(positions), sumY: f64(positions), nonFinite: header.com.nonFinite } : null;
     if (at !== buf.length) return null;
     // Touch it: the size limit drops the least recently used entries.
     const now = new Date();
@@ -84,6 +92,7 @@ export function readCachedFirstPass(dir: string, key: string, d: DatasetDescript
       badPixels: { mask: badMask, hot: header.hot, dead: header.dead },
       disk: header.disk,
       vacuum: header.vacuum ? { mask: vacuumMask, positions: header.vacuum.positions, threshold: header.vacuum.threshold ?? NaN, gapSigmas: header.vacuum.gapSigmas } : null,
+      com,
     };
   } catch {
     return null; // damaged: treat as absent (it is rewritten after the next pass)
@@ -97,9 +106,11 @@ export function writeCachedFirstPass(dir: string, key: string, v: CachedFirstPas
     const header = Buffer.from(JSON.stringify({
       format: FORMAT, nonFinite: v.nonFinite, hot: v.badPixels.hot, dead: v.badPixels.dead, disk: v.disk,
       vacuum: v.vacuum ? { hasMask: v.vacuum.mask !== null, positions: v.vacuum.positions, threshold: v.vacuum.threshold, gapSigmas: v.vacuum.gapSigmas } : null,
+      com: v.com ? { nonFinite: v.com.nonFinite } : null,
     }));
     const parts = [Buffer.alloc(4), header, ...[v.meanPattern, v.maxPattern, v.totalIntensity].map((a) => Buffer.from(a.buffer, a.byteOffset, a.byteLength)),
-      Buffer.from(v.badPixels.mask), ...(v.vacuum?.mask ? [Buffer.from(v.vacuum.mask)] : [])];
+      Buffer.from(v.badPixels.mask), ...(v.vacuum?.mask ? [Buffer.from(v.vacuum.mask)] : []),
+      ...(v.com ? [v.com.total, v.com.sumX, v.com.sumY].map((a) => Buffer.from(a.buffer, a.byteOffset, a.byteLength)) : [])];
     parts[0].writeUInt32LE(header.length, 0);
     // Written aside and renamed: a reader never sees half an entry. The folder is ours alone.
     const tmp = path.join(dir, `.${key}.${process.pid}.${Date.now()}.tmp`);

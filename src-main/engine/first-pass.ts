@@ -7,7 +7,7 @@ import { foldSumMax } from '../../src-shared/compute/region-pattern';
 import { createWasmPreviewImager, type PreviewImager } from '../../src-shared/compute/preview-image-wasm';
 import { loadWasmModule } from '../workers/wasm-loader';
 import type { WorkerPool } from './worker-pool';
-import type { KernelKind, FirstPassShared, FirstPassTileReply } from '../workers/tile-worker';
+import type { KernelKind, FirstPassComPlan, FirstPassShared, FirstPassTileReply } from '../workers/tile-worker';
 
 /** The binned in-memory copy used for instant previews. */
 export interface PreviewCube {
@@ -35,10 +35,23 @@ export interface FirstPassSummary {
   /** NaN/±Inf values met in float data; they were left out of every sum and max. */
   nonFinite: number;
   plan: FirstPassPlan;
+  /** Centre-of-mass sums taken in the same pass (when planned): see FirstPassComPlan. */
+  com: FirstPassComSums | null;
   seconds: number;
   /** Time the workers spent reading vs computing, summed over tiles (ms). */
   readMs: number;
   computeMs: number;
+}
+
+/** Per-position sums over the planned mask (no threshold), and the watched pixels' values, position-major. */
+export interface FirstPassComSums {
+  total: Float64Array;
+  sumX: Float64Array;
+  sumY: Float64Array;
+  watch: Uint32Array;
+  watchValues: Float64Array;
+  /** Non-finite values met inside the mask. */
+  nonFinite: number;
 }
 
 /**
@@ -70,8 +83,9 @@ export class PreviewPool {
   clear(): void { this.spare = null; }
 }
 
-export function startFirstPass(pool: WorkerPool, spec: SourceSpec, limits: EngineLimits, kernel: KernelKind, previews = new PreviewPool()): Job<FirstPassSummary> {
+export function startFirstPass(pool: WorkerPool, spec: SourceSpec, limits: EngineLimits, kernel: KernelKind, previews = new PreviewPool(), com?: FirstPassComPlan): Job<FirstPassSummary> {
   interface State {
+    com: FirstPassComSums | null;
     geometry: FirstPassGeometry;
     sum: Float64Array;
     max: Float64Array;
@@ -82,7 +96,7 @@ export function startFirstPass(pool: WorkerPool, spec: SourceSpec, limits: Engin
   }
   return streamingJob<FirstPassSummary, FirstPassPlan, State, FirstPassTileReply>({
     pool, spec, kind: 'first-pass', label: `first pass over ${spec.path}`,
-    plan: (d, reader) => planFirstPass(d, reader, limits),
+    plan: (d, reader) => planFirstPass(d, reader, limits, com ? com.watch.length : null),
     begin: (d, plan) => {
       const { scanY, scanX, detY, detX } = d.shape;
       const pixels = detY * detX;
@@ -105,17 +119,31 @@ export function startFirstPass(pool: WorkerPool, spec: SourceSpec, limits: Engin
         preview: imager ? imager.cube() : new Float32Array(shared.preview),
         total: new Float64Array(shared.total),
         imager,
+        com: com ? {
+          total: new Float64Array(scanY * scanX), sumX: new Float64Array(scanY * scanX), sumY: new Float64Array(scanY * scanX),
+          watch: com.watch, watchValues: new Float64Array(scanY * scanX * com.watch.length), nonFinite: 0,
+        } : null,
       };
     },
-    compute: (w, tile, d, plan, s) => w.firstPassTile(d.spec, tile.row0, tile.nRows, s.geometry, { kernel, maxTileBytes: plan.tileBytes }, s.shared),
-    merge: (r, _tile, s) => foldSumMax(s.sum, s.max, r.sum, r.max),
+    compute: (w, tile, d, plan, s) => w.firstPassTile(d.spec, tile.row0, tile.nRows, s.geometry, { kernel, maxTileBytes: plan.tileBytes }, s.shared, com),
+    merge: (r, tile, s) => {
+      foldSumMax(s.sum, s.max, r.sum, r.max);
+      if (s.com && r.com) {
+        const at = tile.row0 * s.geometry.scanX;
+        s.com.total.set(r.com.total, at);
+        s.com.sumX.set(r.com.sumX, at);
+        s.com.sumY.set(r.com.sumY, at);
+        s.com.watchValues.set(r.com.watchValues, at * s.com.watch.length);
+        s.com.nonFinite += r.com.nonFinite;
+      }
+    },
     finish: (s, { descriptor: d, plan, totals, seconds }) => {
       const n = d.shape.scanY * d.shape.scanX;
       const pv = plan.preview;
       return {
         descriptor: d, meanPattern: s.sum.map((v) => v / n), maxPattern: s.max, totalIntensity: s.total,
         preview: { data: s.preview, qY: pv.qY, qX: pv.qX, pY: pv.pY, pX: pv.pX, detBin: plan.detBin, scanBin: plan.scanBin, imager: s.imager },
-        plan, seconds, ...totals,
+        plan, com: s.com, seconds, ...totals,
       };
     },
   });

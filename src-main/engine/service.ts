@@ -4,7 +4,7 @@
 // done here so that no front end repeats them.
 import type { SourceSpec } from '../../src-shared/model/dataset';
 import type { CompiledDetector, DetectorSpec } from '../../src-shared/model/detectors';
-import { InputError, isInputError } from '../../src-shared/model/errors';
+import { CancelledError, InputError, isInputError } from '../../src-shared/model/errors';
 import type { JobInfo } from '../../src-shared/contract/jobs';
 import type {
   BadPixels, BadPixelsMode, BrightFieldDisk, CalibrationRequest, CalibrationResult, ComFieldRequest, ComFieldResult,
@@ -24,7 +24,7 @@ import { fmtBytes } from '../../src-shared/model/bytes';
 import type { FirstPassSummary } from './first-pass';
 import type { Job } from './job';
 import { previewDetectorImages } from './preview';
-import { comDefaults, comFieldFromSums } from './com-field';
+import { comDefaults, comFieldFromSums, comSumsLessBadPixels } from './com-field';
 import { cacheKey, defaultCacheDir, readCachedFirstPass, writeCachedFirstPass, type CachedFirstPass } from './first-pass-cache';
 import { findVacuum, type VacuumFinding } from '../../src-shared/compute/vacuum';
 
@@ -42,6 +42,12 @@ interface DatasetRecord {
 }
 
 type ServiceJobInfo = JobInfo & { jobId: string };
+
+/** Patterns sampled (a side × side grid over the scan) to guess the bad pixels before the first pass. */
+const COM_SAMPLE_SIDE = 4;
+/** Pixels whose values the first pass keeps per position for its centre-of-mass sums, at most. */
+const COM_MAX_WATCHED = 64;
+
 
 /** The spec that reopens exactly the dataset (the descriptor's resolved one). */
 const specOf = (r: DatasetRecord): SourceSpec => r.opened.descriptor.spec;
@@ -89,6 +95,8 @@ export class EngineService implements ScanfoldService {
   private readonly listeners = new Set<(e: ServiceEvent) => void>();
   /** Running jobs by the client's id, with their info as events show it. */
   private readonly running = new Map<string, { job: Job<unknown>; info: () => ServiceJobInfo }>();
+  /** Requests in progress under a client job id, and whether the client cancelled them. */
+  private readonly requests = new Map<string, { cancelled: boolean }>();
   private readonly finished: ServiceJobInfo[] = [];
   private nextDataset = 1;
   private nextJob = 1;
@@ -150,8 +158,27 @@ export class EngineService implements ScanfoldService {
   }
 
   /** Follow an engine job: events, the Activity list, cancel by the client's id. */
+  /**
+   * Run one request under the client's job id (if any), so a cancel that arrives before its job
+   * starts, between its jobs, or when it needs no job at all still cancels it.
+   */
+  private async request<T>(jobId: string | undefined, fn: () => Promise<T>): Promise<T> {
+    if (jobId === undefined) return fn();
+    if (this.requests.has(jobId)) throw new InputError(`job id ${JSON.stringify(jobId)} is already running; expected a new id`, 'bad-request');
+    const state = { cancelled: false };
+    this.requests.set(jobId, state);
+    try {
+      const out = await fn();
+      if (state.cancelled) throw new CancelledError();
+      return out;
+    } finally {
+      this.requests.delete(jobId);
+    }
+  }
+
   private async track<T>(job: Job<T>, jobId: string | undefined, label: string): Promise<T> {
     const id = jobId ?? `job-${this.nextJob++}`;
+    if (jobId !== undefined && this.requests.get(jobId.split('/')[0])?.cancelled) job.cancel();
     if (this.running.has(id)) {
       job.cancel('duplicate job id');
       throw new InputError(`job id ${JSON.stringify(id)} is already running; expected a new id`, 'bad-request');
@@ -187,7 +214,8 @@ export class EngineService implements ScanfoldService {
         return r.first;
       }
     }
-    const summary = await this.track(this.engine.firstPass(specOf(r)), jobId, label);
+    const comPlan = await this.comPlanForPass(r);
+    const summary = await this.track(this.engine.firstPass(specOf(r), comPlan ?? undefined), jobId, label);
     const { detY, detX, scanY, scanX } = summary.descriptor.shape;
     const found = aboutFile(summary.descriptor.path, () => findBadPixels(summary.meanPattern, summary.maxPattern, detY, detX, { patternCount: scanY * scanX }));
     const badPixels: BadPixels = { mask: found.mask, hot: found.hot.map(([y, x]) => [y, x]), dead: found.dead.map(([y, x]) => [y, x]) };
@@ -207,11 +235,47 @@ export class EngineService implements ScanfoldService {
     r.first = {
       summary, seconds: summary.seconds, meanPattern: summary.meanPattern, maxPattern: summary.maxPattern,
       totalIntensity: summary.totalIntensity, nonFinite: summary.nonFinite, badPixels, disk, vacuum,
+      com: summary.com ? comSumsLessBadPixels(summary.com, found.mask, summary.meanPattern, summary.maxPattern, detX) : null,
     };
     if (key && this.cacheDir) writeCachedFirstPass(this.cacheDir, key, r.first);
     r.opened = { ...r.opened, version: r.opened.version + 1 };
     this.emit({ kind: 'dataset', dataset: r.id, version: r.opened.version, change: 'first-pass' });
     return r.first;
+  }
+
+  /**
+   * The centre-of-mass sums the first pass takes along (so `com` needs no pass of its own): over
+   * the whole detector less the pixels that look bad on a sample of patterns spread over the
+   * scan, whose values are kept per position so any that the pass clears can be added back.
+   * Null when too many pixels look bad for their values to be kept.
+   */
+  private async comPlanForPass(r: DatasetRecord): Promise<{ mask: CompiledDetector | null; watch: Uint32Array } | null> {
+    const { scanY, scanX, detY, detX } = r.opened.descriptor.shape;
+    const side = Math.min(COM_SAMPLE_SIDE, scanY, scanX);
+    const positions: [number, number][] = [];
+    for (let i = 0; i < side; i++) {
+      for (let j = 0; j < side; j++) positions.push([Math.floor(((i + 0.5) * scanY) / side), Math.floor(((j + 0.5) * scanX) / side)]);
+    }
+    const sum = new Float64Array(detY * detX);
+    const max = new Float64Array(detY * detX).fill(-Infinity);
+    // Read on every worker at once; for chunked data each read may inflate a chunk.
+    const patterns = await Promise.all(positions.map(([y, x]) => this.engine.pool.run((w) => w.readPattern(specOf(r), y, x))));
+    for (const p of patterns) {
+      for (let i = 0; i < p.length; i++) {
+        const v = p[i];
+        if (!Number.isFinite(v)) continue;
+        sum[i] += v;
+        if (v > max[i]) max[i] = v;
+      }
+    }
+    const mean = sum.map((v) => v / positions.length);
+    const seen = findBadPixels(mean, max, detY, detX, { patternCount: positions.length });
+    const watch = Uint32Array.from(Array.from(seen.mask).flatMap((v, i) => (v ? [i] : [])));
+    if (watch.length > COM_MAX_WATCHED || watch.length >= detY * detX) return null;
+    const mask = watch.length
+      ? this.compileDetectors(r, [{ shape: { kind: 'rectangle', x0: 0, y0: 0, x1: detX - 1, y1: detY - 1 } }], seen.mask)[0]
+      : null;
+    return { mask, watch };
   }
 
   private async badPixelMask(r: DatasetRecord, mode: BadPixelsMode | undefined, jobId: string | undefined): Promise<{ mask: Uint8Array | undefined; count: number; list?: { hot: [number, number][]; dead: [number, number][] } }> {
@@ -222,17 +286,19 @@ export class EngineService implements ScanfoldService {
 
   async firstPass(req: FirstPassRequest): Promise<FirstPassResult> {
     validateRequest('firstPass', req);
-    const r = this.record(req.dataset);
-    // Asked for explicitly: a real pass, with its preview cube for detector drags.
-    if (r.first?.summary) this.engine.release(r.first.summary);
-    r.first = null;
-    const f = await this.ensureFirstPass(r, req.jobId, 'first pass', true);
-    const s = f.summary!;
-    return {
-      dataset: r.id, descriptor: s.descriptor, meanPattern: s.meanPattern, maxPattern: s.maxPattern, totalIntensity: s.totalIntensity,
-      nonFiniteInputs: s.nonFinite, seconds: s.seconds, badPixels: f.badPixels, brightFieldDisk: f.disk,
-      preview: { qY: s.preview.qY, qX: s.preview.qX, pY: s.preview.pY, pX: s.preview.pX, detBin: s.preview.detBin, scanBin: s.preview.scanBin },
-    };
+    return this.request(req.jobId, async () => {
+      const r = this.record(req.dataset);
+      // Asked for explicitly: a real pass, with its preview cube for detector drags.
+      if (r.first?.summary) this.engine.release(r.first.summary);
+      r.first = null;
+      const f = await this.ensureFirstPass(r, req.jobId, 'first pass', true);
+      const s = f.summary!;
+      return {
+        dataset: r.id, descriptor: s.descriptor, meanPattern: s.meanPattern, maxPattern: s.maxPattern, totalIntensity: s.totalIntensity,
+        nonFiniteInputs: s.nonFinite, seconds: s.seconds, badPixels: f.badPixels, brightFieldDisk: f.disk,
+        preview: { qY: s.preview.qY, qX: s.preview.qX, pY: s.preview.pY, pX: s.preview.pX, detBin: s.preview.detBin, scanBin: s.preview.scanBin },
+      };
+    });
   }
 
   private compileDetectors(r: DatasetRecord, detectors: DetectorSpec[], exclude?: Uint8Array): CompiledDetector[] {
@@ -243,56 +309,65 @@ export class EngineService implements ScanfoldService {
 
   async virtualImages(req: VirtualImagesRequest): Promise<VirtualImagesResult> {
     validateRequest('virtualImages', req);
-    const r = this.record(req.dataset);
-    // Every detector is checked before any pass over the data.
-    this.compileDetectors(r, req.detectors);
-    const bad = await this.badPixelMask(r, req.badPixels, req.jobId);
-    const compiled = this.compileDetectors(r, req.detectors, bad.mask);
-    const v = await this.track(this.engine.virtualImages(specOf(r), compiled), req.jobId, 'virtual images');
-    return {
-      dataset: r.id, descriptor: v.descriptor, images: v.images, labels: req.detectors.map((s) => s.label ?? describeDetector(s)),
-      badPixelsLeftOut: bad.count, ...(bad.list ? { badPixels: bad.list } : {}), nonFiniteInputs: v.nonFinite, seconds: v.seconds,
-    };
+    return this.request(req.jobId, async () => {
+      const r = this.record(req.dataset);
+      // Every detector is checked before any pass over the data.
+      this.compileDetectors(r, req.detectors);
+      const bad = await this.badPixelMask(r, req.badPixels, req.jobId);
+      const compiled = this.compileDetectors(r, req.detectors, bad.mask);
+      const v = await this.track(this.engine.virtualImages(specOf(r), compiled), req.jobId, 'virtual images');
+      return {
+        dataset: r.id, descriptor: v.descriptor, images: v.images, labels: req.detectors.map((s) => s.label ?? describeDetector(s)),
+        badPixelsLeftOut: bad.count, ...(bad.list ? { badPixels: bad.list } : {}), nonFiniteInputs: v.nonFinite, seconds: v.seconds,
+      };
+    });
   }
 
   async comField(req: ComFieldRequest): Promise<ComFieldResult> {
     validateRequest('comField', req);
-    const r = this.record(req.dataset);
-    const { detY, detX, scanY, scanX } = r.opened.descriptor.shape;
-    const file = r.opened.descriptor.path;
-    // Everything asked for is checked before any pass over the data.
-    if (req.descan?.kind === 'reference') aboutFile(file, () => comDefaults(req, scanY, scanX, null));
-    // The field's maps and the Fourier integration (on the scan mirrored to twice its size) live
-    // in memory at once: about COM_BYTES_PER_POSITION per scan position. Refuse before any pass.
-    const fieldBytes = COM_BYTES_PER_POSITION * scanY * scanX;
-    if (fieldBytes > this.engine.limits.budgetBytes) {
-      throw new InputError(`${file}: the centre-of-mass maps of a ${scanY}×${scanX} scan and their Fourier integration need about ${fmtBytes(fieldBytes)}, ` +
-        `more than the memory budget of ${fmtBytes(this.engine.limits.budgetBytes)}; expected a larger budget (or a smaller scan region)`, 'too-large');
-    }
-    const maskSpec: DetectorSpec | null = req.maskDisk ? { shape: { kind: 'disk', ...req.maskDisk } } : null;
-    if (maskSpec) this.compileDetectors(r, [maskSpec]);
-    // The first pass gives the bad pixels, the disk centre and, from its preview, the vacuum.
-    // With all of them given or not wanted (the plain definition), no pass is spent on it.
-    const rotation = req.rotation ?? 'auto';
-    const needsFirst = req.badPixels !== 'none' || req.descan === undefined || rotation === 'auto'
-      || (req.descan.kind === 'none' && (rotation.degrees % 360 !== 0 || rotation.flip));
-    const first = needsFirst ? await this.ensureFirstPass(r, req.jobId ? `${req.jobId}/first-pass` : undefined, 'first pass') : null;
-    const bad = await this.badPixelMask(r, req.badPixels, req.jobId);
-    const disk = first && !('notFound' in first.disk) ? first.disk : null;
-    const defaults = aboutFile(file, () => comDefaults(req, scanY, scanX, first?.vacuum ?? null));
-    if (!maskSpec && bad.count >= detY * detX) {
-      throw new InputError(`${file}: every detector pixel was flagged as hot, dead or non-finite on the mean/max pattern, so no centre of mass can be computed; expected patterns with counts (or leave bad pixels in)`);
-    }
-    // Bad pixels leave the COM through the mask; with no mask given the mask is the whole detector.
-    const mask = maskSpec || bad.count > 0
-      ? this.compileDetectors(r, [maskSpec ?? { shape: { kind: 'rectangle', x0: 0, y0: 0, x1: detX - 1, y1: detY - 1 } }], bad.mask)[0]
-      : null;
-    const sums = await this.track(this.engine.comSums(specOf(r), { mask, threshold: req.threshold ?? 0 }), req.jobId, 'centre of mass');
-    const origin = disk ? { x: disk.cx, y: disk.cy } : { x: (detX - 1) / 2, y: (detY - 1) / 2 };
-    const field = aboutFile(file, () => comFieldFromSums(sums, req, {
-      defaults, origin, comMask: maskSpec ? describeDetector(maskSpec) : 'whole pattern', badPixelsLeftOut: bad.count, seconds: sums.seconds,
-    }));
-    return { dataset: r.id, ...field, ...(bad.list ? { badPixels: bad.list } : {}) };
+    return this.request(req.jobId, async () => {
+      const r = this.record(req.dataset);
+      const { detY, detX, scanY, scanX } = r.opened.descriptor.shape;
+      const file = r.opened.descriptor.path;
+      // Everything asked for is checked before any pass over the data.
+      if (req.descan?.kind === 'reference') aboutFile(file, () => comDefaults(req, scanY, scanX, null));
+      // The field's maps and the Fourier integration (on the scan mirrored to twice its size) live
+      // in memory at once: about COM_BYTES_PER_POSITION per scan position. Refuse before any pass.
+      const fieldBytes = COM_BYTES_PER_POSITION * scanY * scanX;
+      if (fieldBytes > this.engine.limits.budgetBytes) {
+        throw new InputError(`${file}: the centre-of-mass maps of a ${scanY}×${scanX} scan and their Fourier integration need about ${fmtBytes(fieldBytes)}, ` +
+          `more than the memory budget of ${fmtBytes(this.engine.limits.budgetBytes)}; expected a larger budget (or a smaller scan region)`, 'too-large');
+      }
+      const maskSpec: DetectorSpec | null = req.maskDisk ? { shape: { kind: 'disk', ...req.maskDisk } } : null;
+      if (maskSpec) this.compileDetectors(r, [maskSpec]);
+      // The first pass gives the bad pixels, the disk centre and, from its preview, the vacuum.
+      // With all of them given or not wanted (the plain definition), no pass is spent on it.
+      const rotation = req.rotation ?? 'auto';
+      const needsFirst = req.badPixels !== 'none' || req.descan === undefined || rotation === 'auto'
+        || (req.descan.kind === 'none' && (rotation.degrees % 360 !== 0 || rotation.flip));
+      const first = needsFirst ? await this.ensureFirstPass(r, req.jobId ? `${req.jobId}/first-pass` : undefined, 'first pass') : null;
+      const bad = await this.badPixelMask(r, req.badPixels, req.jobId);
+      const disk = first && !('notFound' in first.disk) ? first.disk : null;
+      const defaults = aboutFile(file, () => comDefaults(req, scanY, scanX, first?.vacuum ?? null));
+      if (!maskSpec && bad.count >= detY * detX) {
+        throw new InputError(`${file}: every detector pixel was flagged as hot, dead or non-finite on the mean/max pattern, so no centre of mass can be computed; expected patterns with counts (or leave bad pixels in)`);
+      }
+      // Bad pixels leave the COM through the mask; with no mask given the mask is the whole detector.
+      const mask = maskSpec || bad.count > 0
+        ? this.compileDetectors(r, [maskSpec ?? { shape: { kind: 'rectangle', x0: 0, y0: 0, x1: detX - 1, y1: detY - 1 } }], bad.mask)[0]
+        : null;
+      // With the defaults (whole detector less the bad pixels, no threshold) the first pass took the sums along.
+      const fromPass = !maskSpec && (req.threshold ?? 0) === 0 && req.badPixels !== 'none' && first?.com ? first.com : null;
+      const sums = fromPass
+        ? { descriptor: r.opened.descriptor, ...fromPass, seconds: 0 }
+        : await this.track(this.engine.comSums(specOf(r), { mask, threshold: req.threshold ?? 0 }), req.jobId, 'centre of mass');
+      const origin = disk ? { x: disk.cx, y: disk.cy } : { x: (detX - 1) / 2, y: (detY - 1) / 2 };
+      const field = aboutFile(file, () => comFieldFromSums(sums, req, {
+        defaults, origin, comMask: maskSpec ? describeDetector(maskSpec) : 'whole pattern', badPixelsLeftOut: bad.count, seconds: sums.seconds,
+        sumsFrom: fromPass ? 'first pass' : 'own pass',
+      }));
+      return { dataset: r.id, ...field, ...(bad.list ? { badPixels: bad.list } : {}) };
+    });
   }
 
   /**
@@ -338,87 +413,91 @@ export class EngineService implements ScanfoldService {
 
   async calibrate(req: CalibrationRequest): Promise<CalibrationResult> {
     validateRequest('calibrate', req);
-    const r = this.record(req.dataset);
-    const d = r.opened.descriptor;
-    const file = d.path;
-    // Values not given are read from the dataset's attributes, and the result says which.
-    const sources: Record<string, string> = {};
-    const pick = (key: string, given: number | undefined, names: readonly string[]): number | undefined => {
-      if (given !== undefined) { sources[key] = 'given'; return given; }
-      const found = attributeValue(d.attributes, names);
-      if (found) sources[key] = `attribute ${found.name} of the dataset`;
-      return found?.value;
-    };
-    const energyKeV = pick('energyKeV', req.energyKeV, ENERGY_ATTRIBUTES);
-    if (energyKeV === undefined) {
-      throw new InputError(`${file}: no beam energy was given and the dataset stores none (looked for ${ENERGY_ATTRIBUTES.join(', ')}); expected the beam energy in keV`, 'bad-request');
-    }
-    const lattice = req.latticeSpacingAngstrom;
-    const alpha = lattice === undefined ? pick('convergenceMrad', req.convergenceMrad, CONVERGENCE_ATTRIBUTES) : undefined;
-    if (lattice === undefined && alpha === undefined) {
-      throw new InputError(`${file}: neither a convergence semi-angle nor a lattice spacing was given, and the dataset stores no semi-angle (looked for ${CONVERGENCE_ATTRIBUTES.join(', ')}); expected one of them`, 'bad-request');
-    }
-    const scanStepNm = pick('scanStepNm', req.scanStepNm, SCAN_STEP_ATTRIBUTES);
-    const f = await this.ensureFirstPass(r, req.jobId, 'first pass');
-    const { detY, detX } = d.shape;
-    if ('notFound' in f.disk) throw new InputError(`${file}: ${f.disk.notFound}`);
-    const disk = f.disk;
-    return aboutFile(file, () => {
-      let braggPx: number | undefined;
-      let rings: { radius: number; strength: number }[] | undefined;
-      if (lattice !== undefined) {
-        if (req.braggDistancePx !== undefined) {
-          braggPx = req.braggDistancePx;
-          sources.braggDistancePx = 'given';
-        } else {
-          // Never assign a spacing to a ring silently: only when a single ring stands out, in the
-          // mean pattern (polycrystals, halos) and in the max pattern (Bragg disks a halo can hide).
-          const mean = replaceBadPixels(f.meanPattern, detY, detX, f.badPixels.mask);
-          const max = replaceBadPixels(f.maxPattern, detY, detX, f.badPixels.mask);
-          const found = ringCandidates(mean, detY, detX, disk.cx, disk.cy, disk.r * 1.5, f.badPixels.mask);
-          for (const c of ringCandidates(max, detY, detX, disk.cx, disk.cy, disk.r * 1.5, f.badPixels.mask)) {
-            if (!found.some((m) => Math.abs(m.radius - c.radius) < 1.5)) found.push(c);
-          }
-          found.sort((a, b) => a.radius - b.radius);
-          rings = found.map((c) => ({ radius: c.radius, strength: c.strength }));
-          if (found.length === 0) throw new InputError(`no ring found beyond ${(disk.r * 1.5).toFixed(1)} px from the centre; give the Bragg disk distance by hand`);
-          if (found.length > 1) {
-            throw new InputError(`several rings could be the one of spacing ${lattice} Å: ${found.map((c) => `${c.radius.toFixed(1)} px (strength ${c.strength.toFixed(2)})`).join(', ')}; ` +
-              'expected the distance of the right ring from the centre given by hand (--bragg-distance-px in the command line)', 'ambiguous');
-          }
-          braggPx = found[0].radius;
-          sources.braggDistancePx = 'the only ring of the mean and max patterns';
-        }
-      }
-      const cal = calibrate(lattice === undefined
-        ? { source: 'convergence-angle', energyKeV, convergenceSemiAngleMrad: alpha!, diskRadiusPx: disk.r, scanStepNm }
-        : { source: 'lattice-spacing', energyKeV, latticeSpacingAngstrom: lattice, braggDistancePx: braggPx!, scanStepNm });
-      return {
-        dataset: r.id,
-        wavelengthPm: cal.wavelengthPm,
-        disk,
-        mradPerPixel: cal.mradPerPixel,
-        inverseAngstromPerPixel: cal.inverseAngstromPerPixel,
-        ...(braggPx !== undefined ? { braggDistancePx: braggPx, braggDistanceSource: req.braggDistancePx !== undefined ? 'given' as const : 'the only ring of the mean and max patterns' as const } : {}),
-        ...(scanStepNm !== undefined ? { scanStepNm } : {}),
-        source: lattice === undefined ? 'convergence-angle' as const : 'lattice-spacing' as const,
-        badPixels: { hot: f.badPixels.hot.length, dead: f.badPixels.dead.length },
-        valueSources: sources,
-        ...(rings ? { rings } : {}),
+    return this.request(req.jobId, async () => {
+      const r = this.record(req.dataset);
+      const d = r.opened.descriptor;
+      const file = d.path;
+      // Values not given are read from the dataset's attributes, and the result says which.
+      const sources: Record<string, string> = {};
+      const pick = (key: string, given: number | undefined, names: readonly string[]): number | undefined => {
+        if (given !== undefined) { sources[key] = 'given'; return given; }
+        const found = attributeValue(d.attributes, names);
+        if (found) sources[key] = `attribute ${found.name} of the dataset`;
+        return found?.value;
       };
+      const energyKeV = pick('energyKeV', req.energyKeV, ENERGY_ATTRIBUTES);
+      if (energyKeV === undefined) {
+        throw new InputError(`${file}: no beam energy was given and the dataset stores none (looked for ${ENERGY_ATTRIBUTES.join(', ')}); expected the beam energy in keV`, 'bad-request');
+      }
+      const lattice = req.latticeSpacingAngstrom;
+      const alpha = lattice === undefined ? pick('convergenceMrad', req.convergenceMrad, CONVERGENCE_ATTRIBUTES) : undefined;
+      if (lattice === undefined && alpha === undefined) {
+        throw new InputError(`${file}: neither a convergence semi-angle nor a lattice spacing was given, and the dataset stores no semi-angle (looked for ${CONVERGENCE_ATTRIBUTES.join(', ')}); expected one of them`, 'bad-request');
+      }
+      const scanStepNm = pick('scanStepNm', req.scanStepNm, SCAN_STEP_ATTRIBUTES);
+      const f = await this.ensureFirstPass(r, req.jobId, 'first pass');
+      const { detY, detX } = d.shape;
+      if ('notFound' in f.disk) throw new InputError(`${file}: ${f.disk.notFound}`);
+      const disk = f.disk;
+      return aboutFile(file, () => {
+        let braggPx: number | undefined;
+        let rings: { radius: number; strength: number }[] | undefined;
+        if (lattice !== undefined) {
+          if (req.braggDistancePx !== undefined) {
+            braggPx = req.braggDistancePx;
+            sources.braggDistancePx = 'given';
+          } else {
+            // Never assign a spacing to a ring silently: only when a single ring stands out, in the
+            // mean pattern (polycrystals, halos) and in the max pattern (Bragg disks a halo can hide).
+            const mean = replaceBadPixels(f.meanPattern, detY, detX, f.badPixels.mask);
+            const max = replaceBadPixels(f.maxPattern, detY, detX, f.badPixels.mask);
+            const found = ringCandidates(mean, detY, detX, disk.cx, disk.cy, disk.r * 1.5, f.badPixels.mask);
+            for (const c of ringCandidates(max, detY, detX, disk.cx, disk.cy, disk.r * 1.5, f.badPixels.mask)) {
+              if (!found.some((m) => Math.abs(m.radius - c.radius) < 1.5)) found.push(c);
+            }
+            found.sort((a, b) => a.radius - b.radius);
+            rings = found.map((c) => ({ radius: c.radius, strength: c.strength }));
+            if (found.length === 0) throw new InputError(`no ring found beyond ${(disk.r * 1.5).toFixed(1)} px from the centre; give the Bragg disk distance by hand`);
+            if (found.length > 1) {
+              throw new InputError(`several rings could be the one of spacing ${lattice} Å: ${found.map((c) => `${c.radius.toFixed(1)} px (strength ${c.strength.toFixed(2)})`).join(', ')}; ` +
+                'expected the distance of the right ring from the centre given by hand (--bragg-distance-px in the command line)', 'ambiguous');
+            }
+            braggPx = found[0].radius;
+            sources.braggDistancePx = 'the only ring of the mean and max patterns';
+          }
+        }
+        const cal = calibrate(lattice === undefined
+          ? { source: 'convergence-angle', energyKeV, convergenceSemiAngleMrad: alpha!, diskRadiusPx: disk.r, scanStepNm }
+          : { source: 'lattice-spacing', energyKeV, latticeSpacingAngstrom: lattice, braggDistancePx: braggPx!, scanStepNm });
+        return {
+          dataset: r.id,
+          wavelengthPm: cal.wavelengthPm,
+          disk,
+          mradPerPixel: cal.mradPerPixel,
+          inverseAngstromPerPixel: cal.inverseAngstromPerPixel,
+          ...(braggPx !== undefined ? { braggDistancePx: braggPx, braggDistanceSource: req.braggDistancePx !== undefined ? 'given' as const : 'the only ring of the mean and max patterns' as const } : {}),
+          ...(scanStepNm !== undefined ? { scanStepNm } : {}),
+          source: lattice === undefined ? 'convergence-angle' as const : 'lattice-spacing' as const,
+          badPixels: { hot: f.badPixels.hot.length, dead: f.badPixels.dead.length },
+          valueSources: sources,
+          ...(rings ? { rings } : {}),
+        };
+      });
     });
   }
 
   async regionPattern(req: RegionPatternRequest): Promise<RegionPatternResult> {
     validateRequest('regionPattern', req);
-    const r = this.record(req.dataset);
-    const { scanY, scanX } = r.opened.descriptor.shape;
-    const region = aboutFile(r.opened.descriptor.path, () => compileRegion(req.region, scanY, scanX));
-    const p = await this.track(this.engine.regionPattern(specOf(r), region), req.jobId, 'region pattern');
-    return {
-      dataset: r.id, descriptor: p.descriptor, mean: p.mean, max: p.max, count: p.count,
-      region: describeRegion(req.region), nonFiniteInputs: p.nonFinite, seconds: p.seconds,
-    };
+    return this.request(req.jobId, async () => {
+      const r = this.record(req.dataset);
+      const { scanY, scanX } = r.opened.descriptor.shape;
+      const region = aboutFile(r.opened.descriptor.path, () => compileRegion(req.region, scanY, scanX));
+      const p = await this.track(this.engine.regionPattern(specOf(r), region), req.jobId, 'region pattern');
+      return {
+        dataset: r.id, descriptor: p.descriptor, mean: p.mean, max: p.max, count: p.count,
+        region: describeRegion(req.region), nonFiniteInputs: p.nonFinite, seconds: p.seconds,
+      };
+    });
   }
 
   async patternAt(req: PatternAtRequest): Promise<PatternAtResult> {
@@ -452,12 +531,20 @@ export class EngineService implements ScanfoldService {
     return [...this.finished, ...[...this.running.values()].map((r) => r.info())];
   }
 
+  /**
+   * Cancel a request by the client's job id: its running job (and the first pass it waits on)
+   * stops, and the request rejects with CancelledError even when it was between jobs or needed
+   * none. False when nothing runs under that id.
+   */
   async cancel(jobId: string): Promise<boolean> {
     validateRequest('cancel', jobId);
-    const r = this.running.get(jobId);
-    if (!r) return false;
-    r.job.cancel();
-    return true;
+    let hit = false;
+    for (const [id, r] of this.running) {
+      if (id === jobId || id.startsWith(`${jobId}/`)) { r.job.cancel(); hit = true; }
+    }
+    const req = this.requests.get(jobId);
+    if (req) { req.cancelled = true; hit = true; }
+    return hit;
   }
 
   /** Cancel whatever runs (Ctrl-C in the CLI). */

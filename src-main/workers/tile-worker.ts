@@ -48,7 +48,21 @@ export interface TileTiming {
   computeMs: number;
 }
 
-export type FirstPassTileReply = Pick<FirstPassTileResult, 'sum' | 'max' | 'nonFinite'> & TileTiming;
+export type FirstPassTileReply = Pick<FirstPassTileResult, 'sum' | 'max' | 'nonFinite'> & TileTiming & {
+  /** With a COM plan: the tile's centre-of-mass sums and the watched pixels' values (pattern-major). */
+  com?: { total: Float64Array; sumX: Float64Array; sumY: Float64Array; nonFinite: number; watchValues: Float64Array };
+};
+
+/**
+ * Centre-of-mass sums taken in the first pass, on the tile already in memory: over `mask`
+ * (the whole detector less the watched pixels, or null for all of it), no threshold; and the
+ * value of every watched pixel at every position, so pixels that turn out not to be bad can be
+ * added back once the pass has found the real ones.
+ */
+export interface FirstPassComPlan {
+  mask: CompiledDetector | null;
+  watch: Uint32Array;
+}
 
 /** The whole preview cube (float32) and total-intensity image (float64), shared with the main thread. */
 export interface FirstPassShared {
@@ -119,12 +133,14 @@ function closeSource(spec: SourceSpec): void {
  */
 const workerMemory = new WebAssembly.Memory({ initial: 1 });
 type AnyKernel = FirstPassKernel | VirtualImageKernel | ComKernel;
-let active: { key: string; kernel: AnyKernel } | null = null;
+type KernelName = 'first-pass' | 'virtual-image' | 'com';
+/** The kernels in use, at most one per kind (the first pass runs the COM kernel on its tiles too). */
+const kernels = new Map<KernelName, { key: string; kernel: AnyKernel }>();
 
-function kernelFor<K extends AnyKernel>(kind: 'first-pass' | 'virtual-image' | 'com', options: KernelOptions): K {
-  const key = `${kind}:${options.kernel}:${options.maxTileBytes}`;
-  if (active && active.key === key) return active.kernel as K;
-  active = null;
+function kernelFor<K extends AnyKernel>(kind: KernelName, options: KernelOptions): K {
+  const key = `${options.kernel}:${options.maxTileBytes}`;
+  const hit = kernels.get(kind);
+  if (hit && hit.key === key) return hit.kernel as K;
   let kernel: AnyKernel;
   if (options.kernel === 'wasm') {
     const module = loadWasmModule(kind);
@@ -136,10 +152,9 @@ function kernelFor<K extends AnyKernel>(kind: 'first-pass' | 'virtual-image' | '
       : kind === 'virtual-image' ? createReferenceVirtualImageKernel()
         : createReferenceComKernel();
   }
-  active = { key, kernel };
+  kernels.set(kind, { key, kernel });
   return kernel as K;
 }
-
 
 /** Read rows straight into `buffer` (kernel memory) and time it. */
 function readInto(src: TileSource, row0: number, nRows: number, buffer: (n: number) => NumericArray) {
@@ -193,18 +208,42 @@ const api = {
    * One tile of the first pass. The preview rows and the totals go straight into the shared
    * arrays that hold the whole preview cube and total-intensity image; sum and max come back.
    */
-  async firstPassTile(spec: SourceSpec, row0: number, nRows: number, geometry: FirstPassGeometry, options: KernelOptions, shared: FirstPassShared): Promise<FirstPassTileReply> {
+  async firstPassTile(spec: SourceSpec, row0: number, nRows: number, geometry: FirstPassGeometry, options: KernelOptions, shared: FirstPassShared, com?: FirstPassComPlan): Promise<FirstPassTileReply> {
     const src = await sourceFor(spec);
     const k = kernelFor<FirstPassKernel>('first-pass', options);
+    const ck = com ? kernelFor<ComKernel>('com', options) : null;
     const dtype = src.descriptor.dtype;
-    const { bytes, readMs } = readInto(src, row0, nRows, (n) => k.tileBuffer(dtype, n));
+    const { tile, n, bytes, readMs } = readInto(src, row0, nRows, (n) => k.tileBuffer(dtype, n));
     const t1 = performance.now();
+    const nPatterns = nRows * geometry.scanX;
+    const nPix = geometry.detY * geometry.detX;
+    let watchValues: Float64Array | null = null;
+    let copy: NumericArray | null = null;
+    if (com) {
+      // Views of kernel memory may detach when a run grows it: take what is needed first.
+      const watch = com.watch;
+      watchValues = new Float64Array(nPatterns * watch.length);
+      for (let p = 0, o = 0; p < nPatterns; p++) for (let j = 0; j < watch.length; j++) watchValues[o++] = tile[p * nPix + watch[j]];
+      // The WebAssembly kernels share the worker's memory and tile offset; the reference kernels do not.
+      if (options.kernel !== 'wasm') copy = tile.slice();
+    }
     const out = sharedOutputs(row0, nRows, geometry, shared);
     const r = k.run(dtype, nRows, geometry, out);
+    const transfers: ArrayBuffer[] = [r.sum.buffer as ArrayBuffer, r.max.buffer as ArrayBuffer];
+    let comReply: FirstPassTileReply['com'];
+    if (com && ck) {
+      ck.setOptions({ mask: com.mask, threshold: 0 }, geometry.detY, geometry.detX);
+      const view = ck.tileBuffer(dtype, n);
+      if (copy) view.set(copy as never);
+      const c = ck.run(dtype, nPatterns);
+      comReply = { total: c.total, sumX: c.sumX, sumY: c.sumY, nonFinite: c.nonFinite, watchValues: watchValues! };
+      transfers.push(c.total.buffer as ArrayBuffer, c.sumX.buffer as ArrayBuffer, c.sumY.buffer as ArrayBuffer, watchValues!.buffer as ArrayBuffer);
+    }
     const reply: FirstPassTileReply = {
       sum: r.sum, max: r.max, nonFinite: r.nonFinite, row0, nRows, bytes, readMs, computeMs: performance.now() - t1,
+      ...(comReply ? { com: comReply } : {}),
     };
-    return Comlink.transfer(reply, [r.sum.buffer, r.max.buffer] as ArrayBuffer[]);
+    return Comlink.transfer(reply, transfers);
   },
 
   async virtualImagesTile(spec: SourceSpec, row0: number, nRows: number, detectors: CompiledDetector[], options: KernelOptions): Promise<VirtualImagesTileReply> {
@@ -261,7 +300,7 @@ const api = {
   close(): void {
     for (const src of new Set(sources.values())) src.close();
     sources.clear();
-    active = null;
+    kernels.clear();
   },
 
   ping(): number {

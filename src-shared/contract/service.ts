@@ -143,6 +143,8 @@ export interface ComFieldResult {
   descanRemoved: { x: { a: number; b: number; c: number }; y: { a: number; b: number; c: number } };
   threshold: number;
   comMask: string;
+  /** Where Σ I, Σ I·x, Σ I·y came from: taken along in the dataset's first pass (no read of its own), or a pass of their own. */
+  sumsFrom: 'first pass' | 'own pass';
   zeroTotalPatterns: number;
   badPixelsLeftOut: number;
   badPixels?: { hot: [number, number][]; dead: [number, number][] };

@@ -44,3 +44,26 @@ it('a second command takes the bad pixels from the cache (no first pass), with t
   expect(third.err).toMatch(/first pass \(bad pixels\) \[/);
   expect(fs.readdirSync(cache).filter((f) => f.endsWith('.first-pass'))).toHaveLength(2);
 });
+
+it('com after summary reads nothing: the first pass took its sums along, and the cache kept them', () => {
+  // make_engine_fixtures.py's b.h5 has no one-pattern spikes, so the bad pixels guessed before the pass are the ones it finds.
+  const data = path.join(tmp, 'b.h5');
+  fs.copyFileSync(path.join(fx, 'b.h5'), data);
+  const src = [data, '--dataset', '/frames', '--scan-shape', '6,7'];
+  const summary = scanfold('summary', ...src, '--out', path.join(tmp, 's.h5'));
+  expect(summary.code, summary.err).toBe(0);
+  const com = scanfold('com', ...src, '--out', path.join(tmp, 'com.h5'));
+  expect(com.code, com.err).toBe(0);
+  // No job at all: neither a first pass nor a centre-of-mass pass.
+  expect(com.err).not.toMatch(/first pass|centre of mass \[/);
+  const from = spawnSync(PYTHON, ['-c', 'import h5py,sys; print(h5py.File(sys.argv[1]).attrs["com_sums_from"])', path.join(tmp, 'com.h5')], { encoding: 'utf8' });
+  expect(from.stdout.trim()).toBe('first pass');
+  // The same command with a pass of its own (a threshold below every value) gives the same maps.
+  const own = scanfold('com', ...src, '--threshold', '-1e300', '--out', path.join(tmp, 'own.h5'));
+  expect(own.code, own.err).toBe(0);
+  expect(own.err).toMatch(/centre of mass \[/);
+  const same = spawnSync(PYTHON, ['-c', `import h5py, numpy as np, sys
+a, b = h5py.File(sys.argv[1]), h5py.File(sys.argv[2])
+print(all(np.array_equal(a[k][()], b[k][()], equal_nan=True) for k in ('com_x', 'com_y', 'phase', 'total_intensity')))`, path.join(tmp, 'com.h5'), path.join(tmp, 'own.h5')], { encoding: 'utf8' });
+  expect(same.stdout.trim(), same.stderr).toBe('True');
+});

@@ -56,6 +56,40 @@ describe('engine service', () => {
     expect(await service.datasets()).toEqual([]);
   });
 
+  it('the first pass takes the COM sums along: with the defaults, com reads nothing more and equals a pass of its own', async () => {
+    // a.npy has a hot pixel in every pattern (3, 5) and a one-pattern spike (20, 20) that the
+    // sample of patterns taken before the pass may miss; steady.npy is a.npy without the spike.
+    const steady = path.join(fx, 'steady.npy');
+    const w = spawnSync(PYTHON, ['-c', 'import numpy as np, sys; a = np.load(sys.argv[1]); a[2, 3, 20, 20] = a[2, 3, 20, 19]; np.save(sys.argv[2], a)', path.join(fx, 'a.npy'), steady], { encoding: 'utf8' });
+    expect(w.status, w.stderr).toBe(0);
+    const fixed = { descan: { kind: 'none' as const }, rotation: { degrees: 0, flip: false } };
+    for (const [file, expected] of [[steady, 'first pass'], [path.join(fx, 'a.npy'), 'own pass']] as const) {
+      const d = await service.open({ path: file });
+      const first = await service.firstPass({ dataset: d.id });
+      expect(first.badPixels.hot).toContainEqual([3, 5]);
+      const jobsBefore = (await service.jobs()).length;
+      const fromPass = await service.comField({ dataset: d.id, ...fixed });
+      // Where the pass found a bad pixel the sample did not, its sums cannot be used: a pass of its own follows.
+      expect(fromPass.sumsFrom).toBe(expected);
+      expect((await service.jobs()).length).toBe(jobsBefore + (expected === 'first pass' ? 0 : 1));
+      // A threshold below every value changes nothing but always asks for a pass of its own.
+      const own = await service.comField({ dataset: d.id, ...fixed, threshold: -1e300 });
+      expect(own.sumsFrom).toBe('own pass');
+      for (const k of ['com_x', 'com_y', 'total_intensity']) expect(Array.from(fromPass.maps[k].data)).toEqual(Array.from(own.maps[k].data));
+      // reference: NumPy, Σ I·x / Σ I over the detector without the pixels found bad
+      const bad = JSON.stringify([...first.badPixels.hot, ...first.badPixels.dead]);
+      const p = spawnSync(PYTHON, ['-c', `import numpy as np, sys, json
+a = np.load(sys.argv[1]).astype(np.float64); m = np.ones(a.shape[-2:], bool)
+for y, x in json.loads(sys.argv[2]): m[y, x] = False
+yy, xx = np.mgrid[0:a.shape[-2], 0:a.shape[-1]]
+t = (a * m).sum(axis=(-2, -1))
+print(json.dumps(((a * m * xx).sum(axis=(-2, -1)) / t).ravel().tolist()))`, file, bad], { encoding: 'utf8' });
+      expect(p.status, p.stderr).toBe(0);
+      expect(maxRelDiff(fromPass.maps.com_x.data, JSON.parse(p.stdout))).toBeLessThan(1e-12);
+      await service.close(d.id);
+    }
+  });
+
   it('the pattern at one probe position equals NumPy\'s a[y, x]', async () => {
     const d = await service.open({ path: path.join(fx, 'a.h5'), datasetPath: '/entry/frames' });
     const r = await service.patternAt({ dataset: d.id, y: 2, x: 3 });
@@ -100,6 +134,10 @@ describe('engine service', () => {
     await new Promise((r) => setTimeout(r, 0));
     await service.cancel('mine-2');
     await expect(p).rejects.toBeInstanceOf(CancelledError);
+    // Cancelled at once, before any job of the request has started: still cancelled.
+    const q = service.comField({ dataset: d.id, jobId: 'mine-3' });
+    expect(await service.cancel('mine-3')).toBe(true);
+    await expect(q).rejects.toBeInstanceOf(CancelledError);
     expect(await service.cancel('no-such-job')).toBe(false);
     off();
     await service.close(d.id);
