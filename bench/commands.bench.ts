@@ -35,7 +35,12 @@ export function runCommandsBenchmark(opts: { raw: string; shape: number[]; worke
     fs.rmSync(cache, { recursive: true, force: true });
     rows.push(['image, one annulus, bad pixels found (cold cache)', wall(process.execPath, [cli, 'image', ...source, annulus[0], annulus[1], '--out', path.join(out, 'b.h5')], env), null]);
     rows.push(['image, one annulus, bad pixels from the cache', wall(process.execPath, [cli, 'image', ...source, annulus[0], annulus[1], '--out', path.join(out, 'c.h5')], env), null]);
-    rows.push(['com, defaults, from the cache', wall(process.execPath, [cli, 'com', ...source, '--out', path.join(out, 'd.h5')], env), fs.existsSync(PY) ? wall(PY, npArgs('com'), npEnv) : null]);
+    const npCom = fs.existsSync(PY) ? wall(PY, npArgs('com'), npEnv) : null;
+    rows.push(['com, defaults, from the cache (sums kept by the first pass)', wall(process.execPath, [cli, 'com', ...source, '--out', path.join(out, 'd.h5')], env), npCom]);
+    fs.rmSync(cache, { recursive: true, force: true });
+    rows.push(['com, defaults, cold cache (one read: first pass with COM sums)', wall(process.execPath, [cli, 'com', ...source, '--out', path.join(out, 'd2.h5')], env), npCom]);
+    rows.push(['com, plain Σ I·x / Σ I (--bad-pixels none --descan none --rotation 0 --flip no)',
+      wall(process.execPath, [cli, 'com', ...source, '--bad-pixels', 'none', '--descan', 'none', '--rotation', '0', '--flip', 'no', '--out', path.join(out, 'd3.h5')], env), npCom]);
     rows.push(['summary (first pass)', wall(process.execPath, [cli, 'summary', ...source, '--out', path.join(out, 'e.h5')], env), null]);
     console.log(`\nwhole commands, each a fresh process (${opts.workers} workers, page-cached, one run):`);
     console.log('command | seconds | NumPy script (fresh process) | ratio');

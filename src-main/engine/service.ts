@@ -18,7 +18,7 @@ import { compileRegion, describeRegion } from '../../src-shared/compute/region-m
 import { findBadPixels, replaceBadPixels } from '../../src-shared/compute/bad-pixels';
 import { findBrightFieldDisk } from '../../src-shared/compute/bright-field-disk';
 import { calibrate } from '../../src-shared/compute/calibration';
-import { ringCandidates } from '../../src-shared/compute/radial-profile';
+import { braggRingCandidates } from '../../src-shared/compute/radial-profile';
 import { Engine, type EngineOptions } from './engine';
 import { fmtBytes } from '../../src-shared/model/bytes';
 import type { FirstPassSummary } from './first-pass';
@@ -447,17 +447,20 @@ export class EngineService implements ScanfoldService {
             braggPx = req.braggDistancePx;
             sources.braggDistancePx = 'given';
           } else {
-            // Never assign a spacing to a ring silently: only when a single ring stands out, in the
-            // mean pattern (polycrystals, halos) and in the max pattern (Bragg disks a halo can hide).
+            // Never assign a spacing to a ring silently: only when a single ring of Bragg disks (disks
+            // of the bright-field disk's size) stands out, in the mean pattern (polycrystals) and in
+            // the max pattern (disks of a few grains, which the mean dilutes). A broad amorphous
+            // halo is not a candidate.
             const mean = replaceBadPixels(f.meanPattern, detY, detX, f.badPixels.mask);
             const max = replaceBadPixels(f.maxPattern, detY, detX, f.badPixels.mask);
-            const found = ringCandidates(mean, detY, detX, disk.cx, disk.cy, disk.r * 1.5, f.badPixels.mask);
-            for (const c of ringCandidates(max, detY, detX, disk.cx, disk.cy, disk.r * 1.5, f.badPixels.mask)) {
+            // Radii from the max pattern first: there the disks stand highest above a halo.
+            const found = braggRingCandidates(max, detY, detX, disk.cx, disk.cy, disk.r, f.badPixels.mask);
+            for (const c of braggRingCandidates(mean, detY, detX, disk.cx, disk.cy, disk.r, f.badPixels.mask)) {
               if (!found.some((m) => Math.abs(m.radius - c.radius) < 1.5)) found.push(c);
             }
             found.sort((a, b) => a.radius - b.radius);
             rings = found.map((c) => ({ radius: c.radius, strength: c.strength }));
-            if (found.length === 0) throw new InputError(`no ring found beyond ${(disk.r * 1.5).toFixed(1)} px from the centre; give the Bragg disk distance by hand`);
+            if (found.length === 0) throw new InputError(`no ring of Bragg disks found beyond ${(2.6 * disk.r + 1).toFixed(1)} px from the centre; expected the distance of a ring given by hand (--bragg-distance-px in the command line)`, 'ambiguous');
             if (found.length > 1) {
               throw new InputError(`several rings could be the one of spacing ${lattice} Å: ${found.map((c) => `${c.radius.toFixed(1)} px (strength ${c.strength.toFixed(2)})`).join(', ')}; ` +
                 'expected the distance of the right ring from the centre given by hand (--bragg-distance-px in the command line)', 'ambiguous');

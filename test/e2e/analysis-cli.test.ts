@@ -284,6 +284,13 @@ print(json.dumps({'mrad': float(a['mrad_per_px']), 'g200': float(a['g200_px']), 
     const refused = scanfold('calibrate', demo, '--dataset', '/scan/frames', '--lattice-spacing-angstrom', String(d200), '--quiet');
     expect(refused.code).toBe(2);
     expect(refused.err).toMatch(/several rings could be the one of spacing .*px \(strength 1\.00\), .*--bragg-distance-px/);
+    // reference: the generator's ring radii — {200} at g200, {220} at √2·g200, {400} at 2·g200 (fcc, common
+    // practice) — are what is offered, and not the amorphous halo at 0.85·g200 (the scenario's halo radius)
+    const radii = [...refused.err.matchAll(/([\d.]+) px \(strength/g)].map((m) => Number(m[1]));
+    const g = truth().g200;
+    for (const want of [g, Math.SQRT2 * g, 2 * g]) expect(Math.min(...radii.map((r) => Math.abs(r / want - 1)))).toBeLessThan(0.025);
+    expect(Math.min(...radii.map((r) => Math.abs(r - g)))).toBeLessThan(0.3);
+    expect(radii.some((r) => Math.abs(r - 0.85 * g) < 1)).toBe(false);
     const given = scanfold('calibrate', demo, '--dataset', '/scan/frames', '--lattice-spacing-angstrom', String(d200), '--bragg-distance-px', String(truth().g200), '--quiet');
     expect(given.code, given.err).toBe(0);
     // reference: the generator's mrad per pixel, which put the {200} disks at g200_px

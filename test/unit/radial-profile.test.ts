@@ -1,5 +1,5 @@
 import { describe, expect, it } from 'vitest';
-import { radialProfile, strongestRing } from '../../src-shared/compute/radial-profile';
+import { braggRingCandidates, diskContrast, radialProfile, strongestRing } from '../../src-shared/compute/radial-profile';
 
 /** A pattern with a Gaussian ring of known radius over a falling halo (analytic construction). */
 function ringPattern(n: number, cx: number, cy: number, ringR: number, halo = 50): Float64Array {
@@ -36,5 +36,42 @@ describe('radial profile', () => {
     const n = 64, p = new Float64Array(n * n);
     for (let y = 0; y < n; y++) for (let x = 0; x < n; x++) p[y * n + x] = 100 * Math.exp(-Math.hypot(x - 32, y - 32) / 10);
     expect(() => strongestRing(p, n, n, 32, 32, 5)).toThrow(/no ring/);
+  });
+});
+
+/** A bright-field disk and `spots` Bragg disks of the same radius on a ring, over a broad halo (σ 6 px) peaking inside their ring (analytic construction). */
+function spotPattern(n: number, cx: number, cy: number, diskR: number, ringR: number, spots: number, haloR: number): Float64Array {
+  const p = new Float64Array(n * n);
+  for (let y = 0; y < n; y++) for (let x = 0; x < n; x++) {
+    const d = Math.hypot(x - cx, y - cy);
+    p[y * n + x] = 40 * Math.exp(-((d - haloR) ** 2) / (2 * 6 ** 2)) + (d <= diskR ? 2000 : 0);
+    for (let k = 0; k < spots; k++) {
+      const a = (2 * Math.PI * (k + 0.3)) / spots;
+      if (Math.hypot(x - cx - ringR * Math.cos(a), y - cy - ringR * Math.sin(a)) <= diskR) p[y * n + x] += 60;
+    }
+  }
+  return p;
+}
+
+describe('rings of Bragg disks', () => {
+  it('disk contrast is zero on a flat pattern and peaks at a disk of the probe\'s size (analytic)', () => {
+    const n = 40;
+    const flat = new Float64Array(n * n).fill(7);
+    for (const v of diskContrast(flat, n, n, 4)) expect(v).toBeCloseTo(0, 12);
+    const one = new Float64Array(n * n);
+    for (let y = 0; y < n; y++) for (let x = 0; x < n; x++) if (Math.hypot(x - 20, y - 17) <= 4) one[y * n + x] = 10;
+    const c = diskContrast(one, n, n, 4);
+    // the template centred on the disk sees all of it inside and none of it around: contrast = 10
+    expect(c[17 * n + 20]).toBeCloseTo(10, 12);
+    expect(Math.max(...c)).toBe(c[17 * n + 20]);
+  });
+
+  it('finds the ring of the spots, not the brighter halo inside it, to a fraction of a pixel', () => {
+    // analytic: 12 disks of radius 4.2 drawn with centres 19.2 px from a sub-pixel centre, a halo peaking at 16.3 px
+    const p = spotPattern(96, 47.3, 47.8, 4.2, 19.2, 12, 16.3);
+    const rings = braggRingCandidates(p, 96, 96, 47.3, 47.8, 4.2);
+    expect(rings.length).toBeGreaterThan(0);
+    expect(Math.abs(rings[0].radius - 19.2)).toBeLessThan(0.2);
+    expect(rings.some((r) => Math.abs(r.radius - 16.3) < 1.5)).toBe(false);
   });
 });
