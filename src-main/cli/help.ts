@@ -14,7 +14,8 @@ const ENGINE = `engine flags:
   --workers N             worker threads (default: available cores; at most twice the cores)
   --budget SIZE           memory budget for a job, e.g. 1GiB, 256MiB (default 1GiB, at most the
                           machine's memory; counts worker threads, readers, tiles and results)
-  --preview-budget SIZE   preview cube budget (default 256MiB, at most a quarter of the budget, ≤ 3GiB)
+  --preview-budget SIZE   preview cube budget (default 32MiB: commands use the cube only to find
+                          vacuum; at most a quarter of the budget, ≤ 3GiB)
   --kernel wasm|reference kernels: WebAssembly SIMD (default) or the plain TypeScript reference
   --quiet                 no progress bars or notes on success`;
 

@@ -27,11 +27,16 @@ const ENGINE_OPTIONS = {
   quiet: { type: 'boolean' },
 } as const;
 
+/** The preview cube of a command (see engineOptions). */
+const CLI_PREVIEW_BUDGET_BYTES = 32 * 2 ** 20;
+
 function engineOptions(v: Record<string, unknown>): EngineOptions {
   const o: EngineOptions = {};
   if (typeof v.workers === 'string') o.workers = wholeNumber('workers', v.workers, 1, 'a whole number ≥ 1');
   if (typeof v.budget === 'string') o.budgetBytes = parseBytes(v.budget);
-  if (typeof v['preview-budget'] === 'string') o.previewBudgetBytes = parseBytes(v['preview-budget']);
+  // A command uses the preview cube only to find vacuum, which any binning of it does exactly:
+  // a small cube spares the memory and its first touch (the app keeps the engine's larger default).
+  o.previewBudgetBytes = typeof v['preview-budget'] === 'string' ? parseBytes(v['preview-budget']) : CLI_PREVIEW_BUDGET_BYTES;
   if (typeof v.kernel === 'string') {
     if (v.kernel !== 'wasm' && v.kernel !== 'reference') throw new InputError(`--kernel ${v.kernel}: expected wasm or reference`);
     o.kernel = v.kernel;

@@ -24,6 +24,7 @@ import { fmtBytes } from '../../src-shared/model/bytes';
 import type { FirstPassSummary } from './first-pass';
 import type { Job } from './job';
 import { previewDetectorImages } from './preview';
+import { previewImages } from '../../src-shared/compute/preview-image';
 import { comDefaults, comFieldFromSums, comSumsLessBadPixels } from './com-field';
 import { cacheKey, defaultCacheDir, readCachedFirstPass, writeCachedFirstPass, type CachedFirstPass } from './first-pass-cache';
 import { findVacuum, type VacuumFinding } from '../../src-shared/compute/vacuum';
@@ -371,33 +372,33 @@ export class EngineService implements ScanfoldService {
   }
 
   /**
-   * Vacuum from the preview cube, with no pass over the data: the fraction of each position's
-   * counts outside the bright-field disk (2 px margin), at the preview's scan binning.
+   * Vacuum from the preview cube, with no pass over the data: each position's counts outside the
+   * bright-field disk against its total, at the preview's scan binning. Whole detector bins are
+   * used, never fractions of one: "inside" is every bin with a pixel within the disk (2 px margin),
+   * "outside" every other bin, and a bin holding a bad pixel is in neither. So vacuum, which has
+   * no counts beyond its disk, reads exactly zero outside at any binning of the cube.
    */
   private findVacuum(s: FirstPassSummary, badMask: Uint8Array, disk: BrightFieldDisk): VacuumFinding {
     const { detY, detX, scanY, scanX } = s.descriptor.shape;
-    // Only the disk (and the few bad pixels) are summed from the cube: the total of each
-    // position is known exactly from the pass, which keeps this to milliseconds.
-    const diskSpec = { shape: { kind: 'disk' as const, cx: disk.cx, cy: disk.cy, r: disk.r + 2 } };
-    const dets = [{ ...compileDetector(diskSpec, detY, detX, { excludePixels: badMask }), label: '' }];
-    const badIndices = Uint32Array.from(Array.from(badMask).flatMap((v, i) => (v ? [i] : [])));
-    if (badIndices.length) dets.push({ mode: 'indices', indices: badIndices, detY, detX, label: '' });
-    const pv = previewDetectorImages(s.preview, dets);
-    const inside = pv.images[0];
-    const bad = pv.images[1];
-    // Totals at the preview's scan binning (the cube averages each scan bin).
-    const total = new Float64Array(pv.qY * pv.qX);
-    const counts = new Float64Array(pv.qY * pv.qX);
-    for (let y = 0; y < scanY; y++) {
-      for (let x = 0; x < scanX; x++) {
-        const q = Math.floor(y / pv.scanBin) * pv.qX + Math.floor(x / pv.scanBin);
-        total[q] += s.totalIntensity[y * scanX + x];
-        counts[q]++;
+    const { detBin, pY, pX } = s.preview;
+    const touches = new Uint8Array(pY * pX), bad = new Uint8Array(pY * pX);
+    const reach = disk.r + 2;
+    for (let y = 0; y < detY; y++) {
+      for (let x = 0; x < detX; x++) {
+        const b = Math.floor(y / detBin) * pX + Math.floor(x / detBin);
+        if (badMask[y * detX + x]) bad[b] = 1;
+        if (Math.hypot(x - disk.cx, y - disk.cy) <= reach) touches[b] = 1;
       }
     }
-    for (let q = 0; q < total.length; q++) total[q] = total[q] / counts[q] - (bad ? bad[q] : 0);
-    const scattered = total.map((t, q) => t - inside[q]);
-    const coarse = findVacuum(scattered, total);
+    const inside = new Float64Array(pY * pX), outside = new Float64Array(pY * pX);
+    for (let b = 0; b < pY * pX; b++) {
+      if (bad[b]) continue;
+      if (touches[b]) inside[b] = 1; else outside[b] = 1;
+    }
+    const pv = s.preview;
+    const [inImage, outImage] = pv.imager ? pv.imager.images([inside, outside]) : previewImages(pv.data, pv.qY, pv.qX, pY, pX, [inside, outside]);
+    const total = inImage.map((v, q) => v + outImage[q]);
+    const coarse = findVacuum(outImage, total);
     if (!coarse.mask || pv.scanBin === 1) return coarse;
     const mask = new Uint8Array(scanY * scanX);
     let positions = 0;
