@@ -123,6 +123,36 @@ ${SOURCE}
 
 ${ENGINE}`,
 
+  pca: `scanfold pca FILE [source flags] --components K [flags] --out OUT.h5 [engine flags]
+  PCA of every pattern by randomized SVD of the mean-centred feature vectors, streamed (the data
+  are read power-iterations + 1 times): /singular_values, /explained_variance_ratio,
+  /components (k, det_y', det_x': each a pattern on the binned detector), /loadings (k, scan_y,
+  scan_x: each position's coordinate along a component), /mean_pattern; every choice in attributes.
+
+features (how a pattern becomes a vector):
+  --bin auto|1|2|4|8      detector binning (default auto: the least giving at most 64×64 bins)
+  --crop X0,Y0,X1,Y1      only these detector pixels (inclusive; trimmed to whole bins)
+  --scaling none|sqrt|poisson
+                          none (default); sqrt: square root of the counts (steadies Poisson noise);
+                          poisson: each value over √(pattern mean × bin mean) (Keenan & Kotula 2004)
+  --normalize             divide each pattern by its total first (not with --scaling poisson)
+  --bad-pixels auto|none  auto (default): bins holding a hot or dead pixel are left out (NaN in the
+                          outputs); none keeps every pixel
+
+method:
+  --components K          how many components (at most the number of patterns and of bins)
+  --oversample P          extra random directions in the sketch (default 10)
+  --power-iterations Q    passes that sharpen the sketch (default 2; 0 reads the data once; the
+                          top singular values of a slowly decaying spectrum are within 0.01 % of an
+                          exact SVD at Q = 1 in our tests and within 8 % at Q = 0)
+  --seed S                seed of the random sketch (default 0): the same input and seed give the
+                          same output, whatever the workers or budget
+${OUT}
+
+${SOURCE}
+
+${ENGINE}`,
+
   sample: `scanfold sample [--size tiny|demo|large] --out FILE.h5 [--seed N]
   Write a demo dataset of our own synthetic scenario (ground truth under /truth).
   --size                  tiny, demo (default; 64×64 × 96×96) or large (256×256 × 128×128, 2 GiB)
@@ -147,6 +177,7 @@ commands:
   com        centre of mass: shifts, magnitude, direction, divergence, curl, integrated phase
   calibrate  wavelength, bright-field disk, mrad and Å⁻¹ per detector pixel
   pattern    mean and max pattern over a region of the scan
+  pca        principal components of all patterns (randomized SVD, out of core)
   sample     write a demo dataset of our own synthetic scenario
   demo       make the demo dataset and run the first pass over it
 

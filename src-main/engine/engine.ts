@@ -9,6 +9,9 @@ import type { Job } from './job';
 import { WorkerPool } from './worker-pool';
 import type { FirstPassComPlan, KernelKind } from '../workers/tile-worker';
 import { inspectSource, type Inspection } from '../io/index';
+import { startPca, type PcaJobResult } from './statistics';
+import type { FeaturePlan } from '../../src-shared/compute/pattern-features';
+import type { PcaOptions } from '../../src-shared/compute/pca';
 
 export interface EngineOptions {
   /** Worker threads; default: available cores. */
@@ -75,6 +78,11 @@ export class Engine {
   /** Per-position centre-of-mass sums (Σ I, Σ I·x, Σ I·y). */
   comSums(spec: SourceSpec, options: ComOptions): Job<ComSumsResult> {
     return this.track(startComSums(this.pool, spec, options, this.limits, this.kernel));
+  }
+
+  /** PCA of every pattern's feature vector by randomized SVD (q + 1 passes). */
+  pca(spec: SourceSpec, plan: FeaturePlan, options: PcaOptions): Job<PcaJobResult> {
+    return this.track(startPca(this.pool, spec, plan, options, this.limits));
   }
 
   /** Mean and max pattern over a real-space region (mask of the scan's shape). */

@@ -8,7 +8,7 @@ import { CancelledError, InputError, isInputError } from '../../src-shared/model
 import type { JobInfo } from '../../src-shared/contract/jobs';
 import type {
   BadPixels, BadPixelsMode, BrightFieldDisk, CalibrationRequest, CalibrationResult, ComFieldRequest, ComFieldResult,
-  DatasetId, FirstPassRequest, FirstPassResult, Inspection, OpenedDataset, PatternAtRequest, PatternAtResult,
+  DatasetId, FirstPassRequest, FirstPassResult, Inspection, OpenedDataset, PatternAtRequest, PatternAtResult, PcaRequest, PcaResult,
   PreviewImagesRequest, PreviewImagesResult, RegionPatternRequest, RegionPatternResult, ScanfoldService, ServiceEvent,
   VirtualImagesRequest, VirtualImagesResult,
 } from '../../src-shared/contract/service';
@@ -28,6 +28,7 @@ import { previewImages } from '../../src-shared/compute/preview-image';
 import { comDefaults, comFieldFromSums, comSumsLessBadPixels } from './com-field';
 import { cacheKey, defaultCacheDir, readCachedFirstPass, writeCachedFirstPass, type CachedFirstPass } from './first-pass-cache';
 import { findVacuum, type VacuumFinding } from '../../src-shared/compute/vacuum';
+import { featuresToImage, planFeatures } from '../../src-shared/compute/pattern-features';
 
 interface FirstResults extends CachedFirstPass {
   /** The pass itself, with its preview cube; null when the results came from the cache. */
@@ -43,6 +44,13 @@ interface DatasetRecord {
 }
 
 type ServiceJobInfo = JobInfo & { jobId: string };
+
+/** The least detector binning (1, 2, 4, 8) that brings the (cropped) detector to at most 64 × 64 bins. */
+function autoFeatureBin(detY: number, detX: number, crop?: { x0: number; y0: number; x1: number; y1: number }): 1 | 2 | 4 | 8 {
+  const h = crop ? crop.y1 - crop.y0 + 1 : detY, w = crop ? crop.x1 - crop.x0 + 1 : detX;
+  for (const b of [1, 2, 4] as const) if (Math.floor(h / b) * Math.floor(w / b) <= 64 * 64) return b;
+  return 8;
+}
 
 /** Patterns sampled (a side × side grid over the scan) to guess the bad pixels before the first pass. */
 const COM_SAMPLE_SIDE = 4;
@@ -487,6 +495,42 @@ export class EngineService implements ScanfoldService {
           ...(rings ? { rings } : {}),
         };
       });
+    });
+  }
+
+  async pca(req: PcaRequest): Promise<PcaResult> {
+    validateRequest('pca', req);
+    return this.request(req.jobId, async () => {
+      const r = this.record(req.dataset);
+      const d = r.opened.descriptor;
+      const { scanY, scanX, detY, detX } = d.shape;
+      const scaling = req.scaling ?? 'none';
+      const badMode = req.badPixels ?? 'auto';
+      const bin = req.bin === undefined || req.bin === 'auto' ? autoFeatureBin(detY, detX, req.crop) : req.bin;
+      // Bad pixels and Poisson weighting's mean pattern come from the first pass.
+      const first = badMode === 'auto' || scaling === 'poisson'
+        ? await this.ensureFirstPass(r, req.jobId ? `${req.jobId}/first-pass` : undefined, 'first pass') : null;
+      const plan = aboutFile(d.path, () => planFeatures({ bin, crop: req.crop, scaling, normalize: req.normalize ?? false }, detY, detX,
+        badMode === 'auto' ? first!.badPixels.mask : null, first?.meanPattern ?? null));
+      const n = scanY * scanX;
+      if (req.components > Math.min(n, plan.nFeatures)) {
+        throw new InputError(`${d.path}: ${req.components} components asked for, but the data have ${n} patterns of ${plan.nFeatures} features ` +
+          `(${plan.outY}×${plan.outX} bins${plan.binsLeftOut ? `, ${plan.binsLeftOut} left out` : ''}); expected at most ${Math.min(n, plan.nFeatures)}`, 'bad-request');
+      }
+      const options = { components: req.components, oversample: req.oversample ?? 10, powerIterations: req.powerIterations ?? 2, seed: req.seed ?? 0 };
+      const job = await this.track(this.engine.pca(specOf(r), plan, options), req.jobId, 'PCA');
+      const p = job.pca;
+      const bins = plan.outY * plan.outX;
+      const components = new Float64Array(p.k * bins);
+      for (let c = 0; c < p.k; c++) components.set(featuresToImage(p.components.subarray(c * plan.nFeatures, (c + 1) * plan.nFeatures), plan), c * bins);
+      return {
+        dataset: r.id, descriptor: job.descriptor, k: p.k, singularValues: p.singularValues, explainedVarianceRatio: p.explainedVarianceRatio,
+        totalVariance: p.totalVariance, components, loadings: p.loadings, meanPattern: featuresToImage(p.mean, plan),
+        features: { bin: plan.bin, crop: plan.crop, outY: plan.outY, outX: plan.outX, nFeatures: plan.nFeatures, binsLeftOut: plan.binsLeftOut, scaling, normalize: plan.normalize, badPixels: badMode },
+        method: { oversample: options.oversample, sketch: p.sketch, powerIterations: options.powerIterations, seed: options.seed, passes: p.passes, totalVarianceFrom: p.totalVarianceFrom },
+        ...(first && badMode === 'auto' ? { badPixels: { hot: first.badPixels.hot, dead: first.badPixels.dead } } : {}),
+        zeroPatterns: job.zeroPatterns, seconds: job.seconds,
+      };
     });
   }
 

@@ -5,7 +5,7 @@ import { parentPort, workerData } from 'node:worker_threads';
 import * as Comlink from 'comlink';
 import nodeEndpoint from 'comlink/dist/esm/node-adapter.mjs';
 import type { SourceSpec, DatasetDescriptor } from '../../src-shared/model/dataset';
-import { allocTyped, DTYPE_BYTES, type NumericArray } from '../../src-shared/model/dtype';
+import { allocTyped, DTYPE_BYTES, type DType, type NumericArray } from '../../src-shared/model/dtype';
 import type { CompiledDetector } from '../../src-shared/model/detectors';
 import type { FirstPassGeometry, FirstPassKernel, FirstPassTileResult } from '../../src-shared/compute/first-pass-types';
 import type { ComKernel, ComOptions, VirtualImageKernel } from '../../src-shared/compute/tile-kernels-types';
@@ -16,6 +16,8 @@ import { createWasmVirtualImageKernel } from '../../src-shared/compute/virtual-i
 import { createReferenceComKernel } from '../../src-shared/compute/com';
 import { createWasmComKernel } from '../../src-shared/compute/com-wasm';
 import { accumulateRegionPatterns } from '../../src-shared/compute/region-pattern';
+import { patternFeatures, type FeaturePlan } from '../../src-shared/compute/pattern-features';
+import { rangeBlock } from '../../src-shared/compute/randomized-svd';
 import { openTileSource, type TileSource } from '../io/index';
 import type { ReaderMemory } from '../io/tile-source';
 import { loadWasmModule } from './wasm-loader';
@@ -83,6 +85,20 @@ function sharedOutputs(row0: number, nRows: number, g: FirstPassGeometry, shared
 }
 export type VirtualImagesTileReply = { images: Float64Array; nonFinite: number } & TileTiming;
 export type ComTileReply = { total: Float64Array; sumX: Float64Array; sumY: Float64Array; nonFinite: number } & TileTiming;
+/**
+ * One tile of a PCA pass, in groups of `groupRows` scan rows (the tile holds whole groups): the
+ * tile's rows of Y, and per group its part of W = Cᵀ·Y, its column sums and sum of squares, so
+ * the main thread can add the groups in scan order whatever the tiling.
+ */
+export type PcaTileReply = {
+  y: Float64Array;
+  groupW: Float64Array;
+  groupColSum: Float64Array;
+  groupSumSq: Float64Array;
+  nonFinite: number;
+  zeroPatterns: number;
+} & TileTiming;
+
 export type RegionTileReply = { sum: Float64Array; max: Float64Array; count: number; nonFinite: number } & TileTiming;
 
 /**
@@ -154,6 +170,17 @@ function kernelFor<K extends AnyKernel>(kind: KernelName, options: KernelOptions
   }
   kernels.set(kind, { key, kernel });
   return kernel as K;
+}
+
+/** Buffers a worker reuses between tiles of plain-TypeScript work (grown, never shrunk; dropped with the kernels). */
+const scratchBuffers = new Map<string, NumericArray>();
+function scratch(name: string, dtype: DType, n: number): NumericArray {
+  const key = `${name}:${dtype}`;
+  const have = scratchBuffers.get(key);
+  if (have && have.length >= n) return have.subarray(0, n);
+  const fresh = allocTyped(dtype, n);
+  scratchBuffers.set(key, fresh);
+  return fresh;
 }
 
 /** Read rows straight into `buffer` (kernel memory) and time it. */
@@ -271,6 +298,41 @@ const api = {
     return Comlink.transfer(reply, [r.total.buffer, r.sumX.buffer, r.sumY.buffer] as ArrayBuffer[]);
   },
 
+  /** One tile of a PCA pass (see PcaTileReply): features of every pattern, then Y = C·Z and W = Cᵀ·Y by groups of rows. */
+  async pcaTile(spec: SourceSpec, row0: number, nRows: number, groupRows: number, plan: FeaturePlan, z: Float64Array, l: number, centre: Float64Array | null): Promise<PcaTileReply> {
+    const src = await sourceFor(spec);
+    const { dtype, shape } = src.descriptor;
+    const nPix = shape.detY * shape.detX;
+    const d = plan.nFeatures;
+    const t0 = performance.now();
+    const raw = scratch('pca-raw', dtype, nRows * shape.scanX * nPix);
+    src.readRows(row0, nRows, raw);
+    const readMs = performance.now() - t0;
+    const t1 = performance.now();
+    const nPatterns = nRows * shape.scanX;
+    const features = scratch('pca-features', 'float64', nPatterns * d) as Float64Array;
+    const f = patternFeatures(raw, nPatterns, plan, features);
+    const groups = Math.ceil(nRows / groupRows);
+    const y = new Float64Array(nPatterns * l);
+    const groupW = new Float64Array(groups * d * l);
+    const groupColSum = new Float64Array(groups * d);
+    const groupSumSq = new Float64Array(groups);
+    for (let g = 0; g < groups; g++) {
+      const p0 = g * groupRows * shape.scanX;
+      const p1 = Math.min(nRows, (g + 1) * groupRows) * shape.scanX;
+      const b = rangeBlock(features.subarray(p0 * d, p1 * d), p1 - p0, d, z, l, centre);
+      y.set(b.y, p0 * l);
+      groupW.set(b.w, g * d * l);
+      groupColSum.set(b.colSum, g * d);
+      groupSumSq[g] = b.sumSq;
+    }
+    const reply: PcaTileReply = {
+      y, groupW, groupColSum, groupSumSq, nonFinite: f.nonFinite, zeroPatterns: f.zeroPatterns,
+      row0, nRows, bytes: raw.byteLength, readMs, computeMs: performance.now() - t1,
+    };
+    return Comlink.transfer(reply, [y.buffer, groupW.buffer, groupColSum.buffer, groupSumSq.buffer]);
+  },
+
   /** Sum and max pattern over the selected positions of rows [row0, row0+nRows). */
   async regionPatternTile(spec: SourceSpec, row0: number, nRows: number, select: Uint8Array): Promise<RegionTileReply> {
     const src = await sourceFor(spec);
@@ -301,6 +363,7 @@ const api = {
     for (const src of new Set(sources.values())) src.close();
     sources.clear();
     kernels.clear();
+    scratchBuffers.clear();
   },
 
   ping(): number {

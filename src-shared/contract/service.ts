@@ -229,6 +229,56 @@ export interface PreviewImagesResult {
   scanBin: number;
 }
 
+/** How patterns are made into feature vectors for PCA (see compute/pattern-features.ts). */
+export interface FeatureOptions {
+  /** Detector binning 1, 2, 4 or 8; 'auto' (default): the least that brings the detector to at most 64 × 64 bins. */
+  bin?: 1 | 2 | 4 | 8 | 'auto';
+  /** Detector pixels kept, inclusive; default the whole detector (trimmed to whole bins). */
+  crop?: { x0: number; y0: number; x1: number; y1: number };
+  /** none (default), sqrt (variance-stabilising) or poisson (Keenan & Kotula 2004 weighting). */
+  scaling?: 'none' | 'sqrt' | 'poisson';
+  /** Divide each pattern by its total before scaling (default false). */
+  normalize?: boolean;
+  /** auto (default): bins holding a hot or dead pixel are left out; none keeps every pixel. */
+  badPixels?: BadPixelsMode;
+}
+
+export interface PcaRequest extends JobOptions, FeatureOptions {
+  dataset: DatasetId;
+  /** Components wanted (k ≥ 1, at most the number of patterns and of features). */
+  components: number;
+  /** Extra sketch columns beyond k (default 10). */
+  oversample?: number;
+  /** Power iterations (default 2): the data are read this many times plus one. */
+  powerIterations?: number;
+  /** Seed of the random sketch (default 0); the same input and seed give the same output. */
+  seed?: number;
+}
+
+export interface PcaResult {
+  dataset: DatasetId;
+  descriptor: DatasetDescriptor;
+  /** The k components found (fewer when the data have fewer independent directions). */
+  k: number;
+  singularValues: Float64Array;
+  explainedVarianceRatio: Float64Array;
+  totalVariance: number;
+  /** k × outY × outX: each component as a pattern on the binned, cropped detector; NaN where a bin was left out. */
+  components: Float64Array;
+  /** k × scanY × scanX: each position's coordinate along each component. */
+  loadings: Float64Array;
+  /** outY × outX: the mean feature vector taken out; NaN where a bin was left out. */
+  meanPattern: Float64Array;
+  /** What was done, defaults included. */
+  features: { bin: number; crop: { x0: number; y0: number; x1: number; y1: number }; outY: number; outX: number; nFeatures: number;
+    binsLeftOut: number; scaling: 'none' | 'sqrt' | 'poisson'; normalize: boolean; badPixels: BadPixelsMode };
+  method: { oversample: number; sketch: number; powerIterations: number; seed: number; passes: number; totalVarianceFrom: string };
+  badPixels?: { hot: [number, number][]; dead: [number, number][] };
+  /** Patterns whose features summed to zero (left as zero vectors). */
+  zeroPatterns: number;
+  seconds: number;
+}
+
 export type ServiceEvent =
   /** A job started, progressed, finished, failed or was cancelled. */
   | { kind: 'job'; job: JobInfo & { jobId: string } }
@@ -249,6 +299,8 @@ export interface ScanfoldService {
   comField(req: ComFieldRequest): Promise<ComFieldResult>;
   calibrate(req: CalibrationRequest): Promise<CalibrationResult>;
   regionPattern(req: RegionPatternRequest): Promise<RegionPatternResult>;
+  /** PCA of all patterns by randomized SVD, streamed (q + 1 passes over the data). */
+  pca(req: PcaRequest): Promise<PcaResult>;
 
   /** Fast requests, outside the job queue. */
   patternAt(req: PatternAtRequest): Promise<PatternAtResult>;
@@ -274,7 +326,7 @@ export interface ScanfoldService {
 /** The request methods, for generic transports and the validator. */
 export const SERVICE_METHODS = [
   'inspect', 'open', 'close', 'datasets', 'firstPass', 'virtualImages', 'comField', 'calibrate',
-  'regionPattern', 'patternAt', 'previewImages', 'filesRead', 'jobs', 'cancel', 'shutdown',
+  'regionPattern', 'pca', 'patternAt', 'previewImages', 'filesRead', 'jobs', 'cancel', 'shutdown',
 ] as const satisfies readonly (keyof ScanfoldService)[];
 
 export type ServiceMethod = (typeof SERVICE_METHODS)[number];

@@ -1,0 +1,85 @@
+// `scanfold pca`: flags → one request to the engine service → files. The features, the
+// randomized SVD and its passes are the service's; this file only parses, asks and writes.
+import { InputError } from '../../src-shared/model/errors';
+import type { PcaRequest } from '../../src-shared/contract/service';
+import type { EngineOptions } from '../engine/engine';
+import { badPixelAttrs, noteNonFiniteResults, openProtected, provenance, withService, writeResults } from './analysis-commands';
+import { outputFlag, parseFlags, rectangleFlag, rejectExtraPositionals, SOURCE_OPTIONS, sourceSpecFromFlags, wholeNumber } from './source-flags';
+
+type Flags = Record<string, string | boolean | (string | boolean)[] | undefined>;
+type EngineFlags = Record<string, { type: 'string' | 'boolean' }>;
+
+/** --bin, --crop, --scaling, --normalize, --bad-pixels: how patterns become feature vectors. */
+export const FEATURE_FLAGS = {
+  bin: { type: 'string' }, crop: { type: 'string' }, scaling: { type: 'string' }, normalize: { type: 'boolean' }, 'bad-pixels': { type: 'string' },
+} as const;
+
+function featureOptions(v: Flags): Pick<PcaRequest, 'bin' | 'crop' | 'scaling' | 'normalize' | 'badPixels'> {
+  const out: Pick<PcaRequest, 'bin' | 'crop' | 'scaling' | 'normalize' | 'badPixels'> = {};
+  if (typeof v.bin === 'string') {
+    if (v.bin === 'auto') out.bin = 'auto';
+    else {
+      const b = Number(v.bin);
+      if (![1, 2, 4, 8].includes(b) || !/^\d+$/.test(v.bin)) throw new InputError(`--bin ${v.bin}: expected 1, 2, 4, 8 or auto`);
+      out.bin = b as 1 | 2 | 4 | 8;
+    }
+  }
+  if (typeof v.crop === 'string') out.crop = rectangleFlag('crop', v.crop);
+  if (typeof v.scaling === 'string') {
+    if (v.scaling !== 'none' && v.scaling !== 'sqrt' && v.scaling !== 'poisson') throw new InputError(`--scaling ${v.scaling}: expected none, sqrt or poisson`);
+    out.scaling = v.scaling;
+  }
+  if (v.normalize === true) out.normalize = true;
+  if (typeof v['bad-pixels'] === 'string') {
+    if (v['bad-pixels'] !== 'auto' && v['bad-pixels'] !== 'none') throw new InputError(`--bad-pixels ${v['bad-pixels']}: expected auto or none`);
+    out.badPixels = v['bad-pixels'];
+  }
+  return out;
+}
+
+export async function cmdPca(args: string[], engineOptions: (v: Record<string, unknown>) => EngineOptions, engineFlags: EngineFlags): Promise<void> {
+  const parsed = parseFlags(args, {
+    ...SOURCE_OPTIONS, ...engineFlags, ...FEATURE_FLAGS, out: { type: 'string' }, components: { type: 'string' },
+    oversample: { type: 'string' }, 'power-iterations': { type: 'string' }, seed: { type: 'string' },
+  });
+  const v = parsed.values as Flags;
+  rejectExtraPositionals(parsed.positionals, 'pca');
+  const spec = sourceSpecFromFlags(parsed.positionals[0], v as Record<string, unknown>);
+  if (typeof v.components !== 'string') throw new InputError('pca needs --components K (how many components to find)');
+  const components = wholeNumber('components', v.components, 1, 'a whole number ≥ 1');
+  const features = featureOptions(v);
+  const optional = (flag: string, min: number) => (typeof v[flag] === 'string' ? wholeNumber(flag, v[flag] as string, min) : undefined);
+  const out = outputFlag(v.out, 'pca', [spec.path]);
+  await withService(engineOptions(v as Record<string, unknown>), v.quiet === true, async (service) => {
+    const opened = await openProtected(service, spec, out, { scan: components, pattern: components + 1 });
+    const { scanY, scanX } = opened.descriptor.shape;
+    const request: PcaRequest = {
+      dataset: opened.id, components, ...features,
+      ...(optional('oversample', 0) !== undefined ? { oversample: optional('oversample', 0) } : {}),
+      ...(optional('power-iterations', 0) !== undefined ? { powerIterations: optional('power-iterations', 0) } : {}),
+      ...(optional('seed', 0) !== undefined ? { seed: optional('seed', 0) } : {}),
+    };
+    const r = await service.pca(request);
+    const f = r.features;
+    const written = await writeResults(service, out, {
+      singular_values: { data: r.singularValues, shape: [r.k], dims: ['component'], attrs: { units: 'feature units (after scaling)' } },
+      explained_variance_ratio: { data: r.explainedVarianceRatio, shape: [r.k], dims: ['component'], attrs: { units: 'fraction of the total variance' } },
+      components: { data: r.components, shape: [r.k, f.outY, f.outX], dims: ['component', 'det_y_binned', 'det_x_binned'],
+        attrs: { units: 'unit vector over the features', note: 'NaN where a detector bin was left out; each component\'s largest entry is positive' } },
+      loadings: { data: r.loadings, shape: [r.k, scanY, scanX], dims: ['component', 'scan_y', 'scan_x'], attrs: { units: 'feature units (coordinate along the component)' } },
+      mean_pattern: { data: r.meanPattern, shape: [f.outY, f.outX], dims: ['det_y_binned', 'det_x_binned'], attrs: { units: 'feature units (after scaling)', note: 'NaN where a detector bin was left out' } },
+    }, {
+      components_found: r.k, total_variance: r.totalVariance, bin: f.bin, crop_x0_y0_x1_y1: JSON.stringify([f.crop.x0, f.crop.y0, f.crop.x1, f.crop.y1]),
+      features: f.nFeatures, bins_left_out: f.binsLeftOut, scaling: f.scaling, normalize: f.normalize ? 'yes' : 'no', bad_pixels: f.badPixels,
+      oversample: r.method.oversample, sketch_columns: r.method.sketch, power_iterations: r.method.powerIterations, seed: r.method.seed,
+      passes_over_data: r.method.passes, total_variance_from: r.method.totalVarianceFrom, zero_total_patterns: r.zeroPatterns,
+      method: 'randomized SVD of the mean-centred features (Halko, Martinsson & Tropp 2011)',
+      ...provenance(r.descriptor, 'scanfold pca', request), ...badPixelAttrs(r.badPixels),
+    });
+    noteNonFiniteResults(written, ' (bins left out are NaN in /components and /mean_pattern)');
+    if (v.quiet !== true) {
+      const top = Array.from(r.explainedVarianceRatio.slice(0, 5), (x) => `${(100 * x).toFixed(1)} %`).join(', ');
+      process.stderr.write(`wrote ${written.path}: ${r.k} components of ${f.outY}×${f.outX} bins (bin ${f.bin}), ${r.method.passes} passes; explained variance ${top}${r.k > 5 ? ', …' : ''}\n`);
+    }
+  }, out);
+}

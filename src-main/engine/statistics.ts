@@ -1,0 +1,95 @@
+import type { DatasetDescriptor, SourceSpec } from '../../src-shared/model/dataset';
+import { DTYPE_BYTES } from '../../src-shared/model/dtype';
+import { CancelledError, InputError } from '../../src-shared/model/errors';
+import type { FeaturePlan } from '../../src-shared/compute/pattern-features';
+import { randomizedPca, type PassSums, type PcaOptions, type PcaResult } from '../../src-shared/compute/pca';
+import { MiB, planTiles, type EngineLimits } from './budget';
+import { Job } from './job';
+import { runTiles } from './tile-runner';
+import type { WorkerPool } from './worker-pool';
+
+export interface PcaJobResult {
+  descriptor: DatasetDescriptor;
+  pca: PcaResult;
+  zeroPatterns: number;
+  seconds: number;
+}
+
+/** Raw bytes per group of rows whose partial sums are added in scan order (see PcaTileReply). */
+const GROUP_BYTES = 8 * MiB;
+
+/**
+ * PCA of every pattern's feature vector, streamed: q + 1 passes over the data through the pool
+ * (randomizedPca drives them). Within a pass the partial sums of fixed groups of scan rows are
+ * added in scan order, whatever tile finishes first, so the same input and seed give the same
+ * output for any number of workers or memory budget.
+ */
+export function startPca(pool: WorkerPool, spec: SourceSpec, plan: FeaturePlan, options: PcaOptions, limits: EngineLimits): Job<PcaJobResult> {
+  const job = new Job<PcaJobResult>('pca', `PCA of ${spec.path}`, 0);
+  (async () => {
+    const t0 = performance.now();
+    const { descriptor: d, rowAlignment, memory } = await pool.run((w) => w.open(spec));
+    if (job.cancelled) return;
+    const { scanY, scanX, detY, detX } = d.shape;
+    const n = scanY * scanX;
+    const dim = plan.nFeatures;
+    const l = Math.min(options.components + options.oversample, n, dim);
+    const patternBytes = detY * detX * DTYPE_BYTES[d.dtype];
+    const rowBytes = scanX * patternBytes;
+    const groupRows = Math.max(1, Math.min(scanY, Math.floor(GROUP_BYTES / rowBytes)));
+    // Per worker beside its tile: the tile's feature vectors (float64) and its groups' partial W.
+    const featureCopies = (dim * 8) / patternBytes;
+    const reserved = n * l * 8 + dim * l * 8 * (3 + 4 * limits.workers) + dim * 8 * 4;
+    const tp = planTiles(d, { rowAlignment, memory: { ...memory, tileCopies: memory.tileCopies + featureCopies } }, limits, reserved, groupRows);
+    const dataBytes = tp.tiles.reduce((s, t) => s + t.bytes, 0);
+    job.bytesTotal = dataBytes * (options.powerIterations + 1);
+    let zeroPatterns = 0;
+    let passIndex = 0;
+    const pass = async (z: Float64Array, centre: Float64Array | null): Promise<PassSums> => {
+      passIndex++;
+      const y = new Float64Array(n * l);
+      const w = new Float64Array(dim * l);
+      const colSum = new Float64Array(dim);
+      let sumSq = 0;
+      let nonFinite = 0;
+      const pending = new Map<number, { w: Float64Array; colSum: Float64Array; sumSq: number }>();
+      let nextGroup = 0;
+      const totals = await runTiles({
+        pool, job, spec: d.spec, tiles: tp.tiles,
+        compute: (worker, tile) => worker.pcaTile(d.spec, tile.row0, tile.nRows, groupRows, plan, z, l, centre),
+        merge: (r, tile) => {
+          y.set(r.y, tile.row0 * scanX * l);
+          const g0 = tile.row0 / groupRows;
+          const groups = r.groupSumSq.length;
+          for (let g = 0; g < groups; g++) {
+            pending.set(g0 + g, { w: r.groupW.subarray(g * dim * l, (g + 1) * dim * l), colSum: r.groupColSum.subarray(g * dim, (g + 1) * dim), sumSq: r.groupSumSq[g] });
+          }
+          for (let part = pending.get(nextGroup); part; part = pending.get(nextGroup)) {
+            for (let x = 0; x < w.length; x++) w[x] += part.w[x];
+            for (let j = 0; j < dim; j++) colSum[j] += part.colSum[j];
+            sumSq += part.sumSq;
+            pending.delete(nextGroup++);
+          }
+          nonFinite += r.nonFinite;
+          if (passIndex === 1) zeroPatterns += r.zeroPatterns;
+        },
+      });
+      void totals;
+      if (job.cancelled) throw new CancelledError();
+      if (nonFinite > 0) {
+        throw new InputError(`${d.path}: the data hold ${nonFinite} NaN or ±Inf value(s) inside the features; expected finite data for PCA (crop them away, or leave such bins out)`, 'bad-input');
+      }
+      if (passIndex === 1 && zeroPatterns === n) {
+        throw new InputError(`${d.path}: every pattern's features sum to zero; expected data with counts for PCA`, 'bad-input');
+      }
+      return { y, w, colSum, sumSq };
+    };
+    const pca = await randomizedPca(pass, n, dim, options);
+    if (job.cancelled) return;
+    if (!(pca.totalVariance > 0) || pca.k === 0) {
+      throw new InputError(`${d.path}: every pattern has the same features (no variance), so there are no components; expected patterns that differ`, 'bad-input');
+    }
+    job.succeed({ descriptor: d, pca, zeroPatterns, seconds: (performance.now() - t0) / 1000 });
+  })().catch((e) => job.fail(e));
+  return job;
+}

@@ -1,0 +1,134 @@
+// PCA through the engine service, streamed over the worker pool, against NumPy: features made
+// by NumPy (crop, binning, sqrt, Poisson weighting, normalisation) and numpy.linalg.svd of the
+// centred features (make_pca_fixtures.py); determinism across workers; a hot pixel's component.
+import fs from 'node:fs';
+import path from 'node:path';
+import { afterAll, beforeAll, describe, expect, it } from 'vitest';
+import { EngineService } from '../../src-main/engine/service';
+import { isInputError } from '../../src-shared/model/errors';
+import { makeFixtures, readNpyF64, tightBudget } from '../helpers/fixtures';
+
+let fx: string;
+let service: EngineService;
+beforeAll(() => {
+  fx = makeFixtures('make_pca_fixtures.py');
+  service = new EngineService({ workers: 2, budgetBytes: tightBudget(2, true), cacheDir: null });
+});
+afterAll(async () => {
+  await service?.shutdown();
+  if (fx) fs.rmSync(fx, { recursive: true, force: true });
+});
+const load = (f: string) => readNpyF64(path.join(fx, f)).data;
+
+describe('PCA through the service', () => {
+  const cases = [
+    ['mix-b2', { bin: 2 as const }],
+    ['mix-crop-sqrt', { bin: 1 as const, crop: { x0: 2, y0: 3, x1: 17, y1: 20 }, scaling: 'sqrt' as const }],
+    ['mix-b4-poisson', { bin: 4 as const, scaling: 'poisson' as const }],
+    ['mix-b2-norm', { bin: 2 as const, normalize: true }],
+  ] as const;
+  it.each(cases)('%s: singular values, components and mean equal NumPy\'s', async (name, features) => {
+    const d = await service.open({ path: path.join(fx, 'mix.npy') });
+    // A sketch as wide as the data (oversampling capped at min(patterns, features)) spans them all,
+    // so the result is exact: this checks the features and the streaming, not the sketch's accuracy.
+    const r = await service.pca({ dataset: d.id, components: 3, badPixels: 'none', powerIterations: 3, oversample: 1000, ...features });
+    // reference: numpy.linalg.svd of NumPy's centred features (make_pca_fixtures.py)
+    const s = load(`${name}.s.npy`);
+    for (let i = 0; i < 3; i++) expect(Math.abs(r.singularValues[i] / s[i] - 1)).toBeLessThan(1e-9);
+    const vt = load(`${name}.vt.npy`);
+    const dim = r.features.nFeatures;
+    const bins = r.features.outY * r.features.outX;
+    expect(dim).toBe(vt.length / 3);
+    for (let c = 0; c < 3; c++) {
+      let dot = 0;
+      for (let j = 0; j < dim; j++) dot += r.components[c * bins + j] * vt[c * dim + j];
+      expect(Math.abs(dot)).toBeGreaterThan(1 - 1e-9);
+    }
+    const mean = load(`${name}.mean.npy`);
+    for (let j = 0; j < dim; j++) expect(r.meanPattern[j]).toBeCloseTo(mean[j], 9);
+    // the loadings are the centred features' coordinates: Σ over positions of a loading is 0
+    const n = d.descriptor.shape.scanY * d.descriptor.shape.scanX;
+    for (let c = 0; c < 3; c++) {
+      let sum = 0, sq = 0;
+      for (let i = 0; i < n; i++) { sum += r.loadings[c * n + i]; sq += r.loadings[c * n + i] ** 2; }
+      expect(Math.abs(sum)).toBeLessThan(1e-8 * Math.sqrt(sq) * n);
+      expect(Math.sqrt(sq) / r.singularValues[c]).toBeCloseTo(1, 9);
+    }
+    expect(r.method.passes).toBe(4);
+    await service.close(d.id);
+  });
+
+  it('the same seed gives identical output with 1 or 2 workers and any budget', async () => {
+    const one = new EngineService({ workers: 1, budgetBytes: 64 * 2 ** 20, cacheDir: null });
+    try {
+      const a = await one.open({ path: path.join(fx, 'mix.npy') });
+      const b = await service.open({ path: path.join(fx, 'mix.npy') });
+      const ra = await one.pca({ dataset: a.id, components: 4, bin: 1, badPixels: 'none', seed: 11 });
+      const rb = await service.pca({ dataset: b.id, components: 4, bin: 1, badPixels: 'none', seed: 11 });
+      expect(Array.from(ra.singularValues)).toEqual(Array.from(rb.singularValues));
+      expect(Array.from(ra.components)).toEqual(Array.from(rb.components));
+      expect(Array.from(ra.loadings)).toEqual(Array.from(rb.loadings));
+      const other = await service.pca({ dataset: b.id, components: 4, bin: 1, badPixels: 'none', seed: 12 });
+      expect(Array.from(other.components)).not.toEqual(Array.from(rb.components));
+      await service.close(b.id);
+    } finally {
+      await one.shutdown();
+    }
+  });
+
+  it('a hot pixel left in takes a component of its own; with bad pixels auto it is left out (common practice)', async () => {
+    const d = await service.open({ path: path.join(fx, 'mix-hot.npy') });
+    const { detX } = d.descriptor.shape;
+    const hotIndex = 7 * detX + 13;
+    const kept = await service.pca({ dataset: d.id, components: 4, bin: 1, badPixels: 'none' });
+    // some component is the hot pixel alone: its entry there carries nearly all of the unit vector
+    const bins = kept.features.outY * kept.features.outX;
+    const concentrated = (r: typeof kept, c: number) => Math.abs(r.components[c * bins + hotIndex]);
+    expect(Math.max(...[0, 1, 2, 3].map((c) => concentrated(kept, c)))).toBeGreaterThan(0.99);
+    const auto = await service.pca({ dataset: d.id, components: 4, bin: 1 });
+    expect(auto.badPixels!.hot).toContainEqual([7, 13]);
+    for (let c = 0; c < auto.k; c++) expect(Number.isNaN(auto.components[c * bins + hotIndex])).toBe(true);
+    await service.close(d.id);
+  });
+
+  it('bad requests get a clear message', async () => {
+    const d = await service.open({ path: path.join(fx, 'mix.npy') });
+    const refuse = async (p: Promise<unknown>, re: RegExp) => {
+      try { await p; } catch (e) { expect(isInputError(e), String(e)).toBe(true); expect((e as Error).message).toMatch(re); return; }
+      throw new Error('expected a refusal');
+    };
+    await refuse(service.pca({ dataset: d.id, components: 9999, bin: 8 }), /9999 components asked for, but the data have 168 patterns of 6 features .*expected at most 6/);
+    await refuse(service.pca({ dataset: d.id, components: 2, bin: 3 as never }), /^pca: bin: .*expected 1, 2, 4, 8 or auto/);
+    await refuse(service.pca({ dataset: d.id, components: 2, normalize: true, scaling: 'poisson' }), /normalize and Poisson scaling exclude each other/);
+    await refuse(service.pca({ dataset: d.id, components: 2, crop: { x0: 0, y0: 0, x1: 99, y1: 5 } }), /crop: x1 = 99 is outside the 24×20 detector/);
+    await service.close(d.id);
+  });
+});
+
+describe('scanfold pca', () => {
+  it('writes every result with its choices as attributes, which h5py reads', async () => {
+    const { spawnSync } = await import('node:child_process');
+    const { PYTHON } = await import('../helpers/fixtures');
+    const root = path.resolve(__dirname, '../..');
+    const out = path.join(fx, 'pca.h5');
+    const run = (...args: string[]) => spawnSync(process.execPath, [path.join(root, 'bin/scanfold.mjs'), ...args], { encoding: 'utf8', env: { ...process.env, SCANFOLD_CACHE_DIR: 'off' } });
+    const missing = run('pca', path.join(fx, 'mix.npy'), '--out', out);
+    expect(missing.status).toBe(2);
+    expect(missing.stderr).toMatch(/pca needs --components K/);
+    const r = run('pca', path.join(fx, 'mix.npy'), '--components', '3', '--bin', '2', '--scaling', 'sqrt', '--out', out);
+    expect(r.status, r.stderr).toBe(0);
+    expect(r.stderr).toMatch(/wrote .*3 components of 12×10 bins \(bin 2\), 3 passes; explained variance/);
+    const p = spawnSync(PYTHON, ['-c', `import h5py, json, sys
+f = h5py.File(sys.argv[1])
+print(json.dumps({k: list(f[k].shape) for k in f} | {'attrs': {k: (v.item() if hasattr(v, 'item') else str(v)) for k, v in f.attrs.items()}}))`, out], { encoding: 'utf8' });
+    expect(p.status, p.stderr).toBe(0);
+    const got = JSON.parse(p.stdout);
+    expect(got.components).toEqual([3, 12, 10]);
+    expect(got.loadings).toEqual([3, 14, 12]);
+    expect(got.singular_values).toEqual([3]);
+    expect(got.mean_pattern).toEqual([12, 10]);
+    for (const a of ['bin', 'scaling', 'power_iterations', 'oversample', 'seed', 'passes_over_data', 'scanfold_version', 'command_line', 'source_fingerprint', 'total_variance']) expect(got.attrs).toHaveProperty(a);
+    expect(got.attrs.scaling).toBe('sqrt');
+    expect(got.attrs.passes_over_data).toBe(3);
+  });
+});
