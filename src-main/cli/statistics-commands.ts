@@ -76,7 +76,10 @@ export async function cmdPca(args: string[], engineOptions: (v: Record<string, u
       method: 'randomized SVD of the mean-centred features (Halko, Martinsson & Tropp 2011)',
       ...provenance(r.descriptor, 'scanfold pca', request), ...badPixelAttrs(r.badPixels),
     });
-    noteNonFiniteResults(written, ' (bins left out are NaN in /components and /mean_pattern)');
+    // Bins left out are NaN by design in /components and /mean_pattern; anything else is news.
+    const expectedNaN = { components: f.binsLeftOut * r.k, mean_pattern: f.binsLeftOut };
+    const unexpected = Object.entries(written.nonFiniteResults).some(([name, count]) => count !== (expectedNaN as Record<string, number>)[name]);
+    if (unexpected) noteNonFiniteResults(written, ' (bins left out are NaN in /components and /mean_pattern)');
     if (v.quiet !== true) {
       const top = Array.from(r.explainedVarianceRatio.slice(0, 5), (x) => `${(100 * x).toFixed(1)} %`).join(', ');
       process.stderr.write(`wrote ${written.path}: ${r.k} components of ${f.outY}×${f.outX} bins (bin ${f.bin}), ${r.method.passes} passes; explained variance ${top}${r.k > 5 ? ', …' : ''}\n`);

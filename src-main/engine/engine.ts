@@ -82,7 +82,7 @@ export class Engine {
 
   /** PCA of every pattern's feature vector by randomized SVD (q + 1 passes). */
   pca(spec: SourceSpec, plan: FeaturePlan, options: PcaOptions): Job<PcaJobResult> {
-    return this.track(startPca(this.pool, spec, plan, options, this.limits));
+    return this.track(startPca(this.pool, spec, plan, options, this.limits, this.kernel));
   }
 
   /** Mean and max pattern over a real-space region (mask of the scan's shape). */

@@ -7,6 +7,7 @@ import { MiB, planTiles, type EngineLimits } from './budget';
 import { Job } from './job';
 import { runTiles } from './tile-runner';
 import type { WorkerPool } from './worker-pool';
+import type { KernelKind } from '../workers/tile-worker';
 
 export interface PcaJobResult {
   descriptor: DatasetDescriptor;
@@ -24,7 +25,7 @@ const GROUP_BYTES = 8 * MiB;
  * added in scan order, whatever tile finishes first, so the same input and seed give the same
  * output for any number of workers or memory budget.
  */
-export function startPca(pool: WorkerPool, spec: SourceSpec, plan: FeaturePlan, options: PcaOptions, limits: EngineLimits): Job<PcaJobResult> {
+export function startPca(pool: WorkerPool, spec: SourceSpec, plan: FeaturePlan, options: PcaOptions, limits: EngineLimits, kernel: KernelKind): Job<PcaJobResult> {
   const job = new Job<PcaJobResult>('pca', `PCA of ${spec.path}`, 0);
   (async () => {
     const t0 = performance.now();
@@ -37,7 +38,7 @@ export function startPca(pool: WorkerPool, spec: SourceSpec, plan: FeaturePlan, 
     const patternBytes = detY * detX * DTYPE_BYTES[d.dtype];
     const rowBytes = scanX * patternBytes;
     const groupRows = Math.max(1, Math.min(scanY, Math.floor(GROUP_BYTES / rowBytes)));
-    // Per worker beside its tile: the tile's feature vectors (float64) and its groups' partial W.
+    // Per worker beside its tile: a group's feature vectors (float64) and the groups' partial W.
     const featureCopies = (dim * 8) / patternBytes;
     const reserved = n * l * 8 + dim * l * 8 * (3 + 4 * limits.workers) + dim * 8 * 4;
     const tp = planTiles(d, { rowAlignment, memory: { ...memory, tileCopies: memory.tileCopies + featureCopies } }, limits, reserved, groupRows);
@@ -56,7 +57,7 @@ export function startPca(pool: WorkerPool, spec: SourceSpec, plan: FeaturePlan, 
       let nextGroup = 0;
       const totals = await runTiles({
         pool, job, spec: d.spec, tiles: tp.tiles,
-        compute: (worker, tile) => worker.pcaTile(d.spec, tile.row0, tile.nRows, groupRows, plan, z, l, centre),
+        compute: (worker, tile) => worker.pcaTile(d.spec, tile.row0, tile.nRows, groupRows, plan, z, l, centre, kernel),
         merge: (r, tile) => {
           y.set(r.y, tile.row0 * scanX * l);
           const g0 = tile.row0 / groupRows;

@@ -16,8 +16,9 @@ import { createWasmVirtualImageKernel } from '../../src-shared/compute/virtual-i
 import { createReferenceComKernel } from '../../src-shared/compute/com';
 import { createWasmComKernel } from '../../src-shared/compute/com-wasm';
 import { accumulateRegionPatterns } from '../../src-shared/compute/region-pattern';
-import { patternFeatures, type FeaturePlan } from '../../src-shared/compute/pattern-features';
+import { binsAlignWithCrop, featuresFromBins, patternFeatures, type FeaturePlan } from '../../src-shared/compute/pattern-features';
 import { rangeBlock } from '../../src-shared/compute/randomized-svd';
+import { createWasmSketchKernel, type SketchKernel } from '../../src-shared/compute/sketch-wasm';
 import { openTileSource, type TileSource } from '../io/index';
 import type { ReaderMemory } from '../io/tile-source';
 import { loadWasmModule } from './wasm-loader';
@@ -172,6 +173,15 @@ function kernelFor<K extends AnyKernel>(kind: KernelName, options: KernelOptions
   return kernel as K;
 }
 
+/** Element types whose bin sums of up to 8 × 8 pixels are exact in float32. */
+const SMALL_INTEGER_DTYPES = new Set<DType>(['uint8', 'uint16', 'int8', 'int16']);
+
+let sketch: SketchKernel | null = null;
+function sketchKernel(): SketchKernel {
+  sketch ??= createWasmSketchKernel(loadWasmModule('sketch'));
+  return sketch;
+}
+
 /** Buffers a worker reuses between tiles of plain-TypeScript work (grown, never shrunk; dropped with the kernels). */
 const scratchBuffers = new Map<string, NumericArray>();
 function scratch(name: string, dtype: DType, n: number): NumericArray {
@@ -299,36 +309,51 @@ const api = {
   },
 
   /** One tile of a PCA pass (see PcaTileReply): features of every pattern, then Y = C·Z and W = Cᵀ·Y by groups of rows. */
-  async pcaTile(spec: SourceSpec, row0: number, nRows: number, groupRows: number, plan: FeaturePlan, z: Float64Array, l: number, centre: Float64Array | null): Promise<PcaTileReply> {
+  async pcaTile(spec: SourceSpec, row0: number, nRows: number, groupRows: number, plan: FeaturePlan, z: Float64Array, l: number, centre: Float64Array | null, kernel: KernelKind): Promise<PcaTileReply> {
     const src = await sourceFor(spec);
     const { dtype, shape } = src.descriptor;
     const nPix = shape.detY * shape.detX;
     const d = plan.nFeatures;
     const t0 = performance.now();
-    const raw = scratch('pca-raw', dtype, nRows * shape.scanX * nPix);
+    const nPatterns = nRows * shape.scanX;
+    const nElements = nPatterns * nPix;
+    // Fast path: the first-pass kernel's detector bins (exact sums in float32 for data of at most
+    // 16 bits: 64 × 65535 < 2²⁴), then only the kept bins are gathered.
+    const viaBins = kernel === 'wasm' && SMALL_INTEGER_DTYPES.has(dtype) && binsAlignWithCrop(plan);
+    const fk = viaBins ? kernelFor<FirstPassKernel>('first-pass', { kernel: 'wasm', maxTileBytes: nElements * DTYPE_BYTES[dtype] }) : null;
+    const raw = fk ? fk.tileBuffer(dtype, nElements) : scratch('pca-raw', dtype, nElements);
     src.readRows(row0, nRows, raw);
+    const rawBytes = nElements * DTYPE_BYTES[dtype];
     const readMs = performance.now() - t0;
     const t1 = performance.now();
-    const nPatterns = nRows * shape.scanX;
-    const features = scratch('pca-features', 'float64', nPatterns * d) as Float64Array;
-    const f = patternFeatures(raw, nPatterns, plan, features);
+    const pY = Math.ceil(shape.detY / plan.bin), pX = Math.ceil(shape.detX / plan.bin);
+    const bins = fk ? fk.run(dtype, nRows, { scanX: shape.scanX, detY: shape.detY, detX: shape.detX, detBin: plan.bin, scanBin: 1 }).preview : null;
+    const sk = kernel === 'wasm' ? sketchKernel() : null;
     const groups = Math.ceil(nRows / groupRows);
     const y = new Float64Array(nPatterns * l);
     const groupW = new Float64Array(groups * d * l);
     const groupColSum = new Float64Array(groups * d);
     const groupSumSq = new Float64Array(groups);
+    let nonFinite = 0, zeroPatterns = 0;
     for (let g = 0; g < groups; g++) {
       const p0 = g * groupRows * shape.scanX;
       const p1 = Math.min(nRows, (g + 1) * groupRows) * shape.scanX;
-      const b = rangeBlock(features.subarray(p0 * d, p1 * d), p1 - p0, d, z, l, centre);
+      const m = p1 - p0;
+      // Features go straight into the kernel's memory (or a scratch array for the reference).
+      const rows = sk ? sk.rows(m, d, l) : scratch('pca-features', 'float64', m * d) as Float64Array;
+      const f = bins ? { nonFinite: 0, ...featuresFromBins(bins.subarray(p0 * pY * pX, p1 * pY * pX), m, pY, pX, plan, rows) }
+        : patternFeatures(raw.subarray(p0 * nPix, p1 * nPix), m, plan, rows);
+      nonFinite += f.nonFinite;
+      zeroPatterns += f.zeroPatterns;
+      const b = sk ? sk.run(m, d, z, l, centre) : rangeBlock(rows, m, d, z, l, centre);
       y.set(b.y, p0 * l);
       groupW.set(b.w, g * d * l);
       groupColSum.set(b.colSum, g * d);
       groupSumSq[g] = b.sumSq;
     }
     const reply: PcaTileReply = {
-      y, groupW, groupColSum, groupSumSq, nonFinite: f.nonFinite, zeroPatterns: f.zeroPatterns,
-      row0, nRows, bytes: raw.byteLength, readMs, computeMs: performance.now() - t1,
+      y, groupW, groupColSum, groupSumSq, nonFinite, zeroPatterns,
+      row0, nRows, bytes: rawBytes, readMs, computeMs: performance.now() - t1,
     };
     return Comlink.transfer(reply, [y.buffer, groupW.buffer, groupColSum.buffer, groupSumSq.buffer]);
   },
@@ -364,6 +389,7 @@ const api = {
     sources.clear();
     kernels.clear();
     scratchBuffers.clear();
+    sketch = null;
   },
 
   ping(): number {

@@ -109,40 +109,92 @@ export function patternFeatures(tile: NumericArray, nPatterns: number, p: Featur
   const d = p.nFeatures;
   if (out.length < nPatterns * d) throw new RangeError(`pattern features: output holds ${out.length} values, expected ${nPatterns * d}`);
   if (tile.length < nPatterns * nPix) throw new RangeError(`pattern features: tile holds ${tile.length} values, expected ${nPatterns * nPix}`);
-  const map = p.pixelFeature;
-  // The crop's pixels only, row by row.
+  // Each pattern is binned densely (a column → bin table, no per-pixel branch for integer data),
+  // then its kept bins are gathered: a bin holding a bad pixel is simply never gathered.
   const { x0, y0, x1, y1 } = p.crop;
+  const width = x1 - x0 + 1;
+  const colBin = new Int32Array(width);
+  for (let x = 0; x < width; x++) colBin[x] = Math.floor(x / p.bin);
+  const dense = new Float64Array(p.outY * p.outX);
+  const binOf = p.binOf;
+  const integer = !(tile instanceof Float32Array || tile instanceof Float64Array);
   let nonFinite = 0;
   let zeroPatterns = 0;
   for (let k = 0; k < nPatterns; k++) {
     const row = out.subarray(k * d, (k + 1) * d);
-    row.fill(0);
+    dense.fill(0);
     const base = k * nPix;
     for (let y = y0; y <= y1; y++) {
-      const r = y * p.detX;
-      for (let x = x0; x <= x1; x++) {
-        const f = map[r + x];
-        if (f < 0) continue;
-        const v = tile[base + r + x];
-        if (!Number.isFinite(v)) { nonFinite++; continue; }
-        row[f] += v;
+      const binRow = Math.floor((y - y0) / p.bin) * p.outX;
+      const src = base + y * p.detX + x0;
+      if (integer) {
+        for (let x = 0; x < width; x++) dense[binRow + colBin[x]] += tile[src + x];
+      } else {
+        for (let x = 0; x < width; x++) {
+          const v = tile[src + x];
+          if (v - v !== 0) { if (p.pixelFeature[y * p.detX + x0 + x] >= 0) nonFinite++; continue; }
+          dense[binRow + colBin[x]] += v;
+        }
       }
     }
-    let total = 0;
-    for (let j = 0; j < d; j++) total += row[j];
-    if (total === 0) { zeroPatterns++; continue; }
-    if (p.normalize) for (let j = 0; j < d; j++) row[j] /= total;
-    if (p.scaling === 'sqrt') {
-      for (let j = 0; j < d; j++) row[j] = row[j] > 0 ? Math.sqrt(row[j]) : 0;
-    } else if (p.scaling === 'poisson') {
-      const g = total / d;
-      if (!(g > 0)) { row.fill(0); continue; }
-      const s = 1 / Math.sqrt(g);
-      const h = p.columnScale!;
-      for (let j = 0; j < d; j++) row[j] *= s * h[j];
-    }
+    for (let j = 0; j < d; j++) row[j] = dense[binOf[j]];
+    if (finishFeatureRow(row, p)) zeroPatterns++;
   }
   return { nonFinite, zeroPatterns };
+}
+
+/**
+ * Normalisation and scaling of one pattern's binned features, in place (see the top of this
+ * file). Returns true when the pattern's features sum to zero (it is left all zero).
+ */
+function finishFeatureRow(row: Float64Array, p: FeaturePlan): boolean {
+  const d = row.length;
+  let total = 0;
+  for (let j = 0; j < d; j++) total += row[j];
+  if (total === 0) return true;
+  if (p.normalize) for (let j = 0; j < d; j++) row[j] /= total;
+  if (p.scaling === 'sqrt') {
+    for (let j = 0; j < d; j++) row[j] = row[j] > 0 ? Math.sqrt(row[j]) : 0;
+  } else if (p.scaling === 'poisson') {
+    const g = total / d;
+    if (!(g > 0)) { row.fill(0); return false; }
+    const s = 1 / Math.sqrt(g);
+    const h = p.columnScale!;
+    for (let j = 0; j < d; j++) row[j] *= s * h[j];
+  }
+  return false;
+}
+
+/**
+ * Whether `featuresFromBins` can take this plan's features from detector-bin sums of the whole
+ * detector binned from pixel (0, 0) (the first-pass kernel's preview rows): the crop must start
+ * on that bin grid.
+ */
+export function binsAlignWithCrop(p: FeaturePlan): boolean {
+  return p.crop.x0 % p.bin === 0 && p.crop.y0 % p.bin === 0;
+}
+
+/**
+ * The same features as patternFeatures, from per-pattern sums of bin × bin detector pixels
+ * (nPatterns × pY × pX, the whole detector binned from pixel (0, 0), as exact sums).
+ */
+export function featuresFromBins(bins: ArrayLike<number>, nPatterns: number, pY: number, pX: number, p: FeaturePlan, out: Float64Array): { zeroPatterns: number } {
+  if (!binsAlignWithCrop(p)) throw new Error('featuresFromBins: the crop does not start on the bin grid');
+  const d = p.nFeatures;
+  const by0 = p.crop.y0 / p.bin, bx0 = p.crop.x0 / p.bin;
+  const src = new Int32Array(d);
+  for (let j = 0; j < d; j++) {
+    const b = p.binOf[j];
+    src[j] = (by0 + Math.floor(b / p.outX)) * pX + bx0 + (b % p.outX);
+  }
+  let zeroPatterns = 0;
+  for (let k = 0; k < nPatterns; k++) {
+    const row = out.subarray(k * d, (k + 1) * d);
+    const base = k * pY * pX;
+    for (let j = 0; j < d; j++) row[j] = bins[base + src[j]];
+    if (finishFeatureRow(row, p)) zeroPatterns++;
+  }
+  return { zeroPatterns };
 }
 
 /** A feature vector (or component) laid back on the binned, cropped detector; bins left out are NaN. */
