@@ -13,6 +13,7 @@ import { fmtBytes } from '../src-main/engine/budget';
 import { allocTyped } from '../src-shared/model/dtype';
 import { runAnalysesBenchmark } from './analyses.bench';
 import { runCommandsBenchmark } from './commands.bench';
+import { runPcaBenchmark } from './pca.bench';
 
 const PY = '/usr/bin/python3';
 
@@ -143,4 +144,5 @@ export async function runBenchmark(opts: { dir: string; workers: number }): Prom
   console.log(detail);
   await runAnalysesBenchmark({ raw, shape, workers: opts.workers, readRate });
   runCommandsBenchmark({ raw, shape, workers: opts.workers });
+  runPcaBenchmark({ h5, shape, workers: opts.workers });
 }

@@ -16,6 +16,12 @@ export interface PcaJobResult {
   seconds: number;
 }
 
+function shared(a: Float64Array): Float64Array {
+  const s = new Float64Array(new SharedArrayBuffer(a.byteLength));
+  s.set(a);
+  return s;
+}
+
 /** Raw bytes per group of rows whose partial sums are added in scan order (see PcaTileReply). */
 const GROUP_BYTES = 8 * MiB;
 
@@ -40,42 +46,61 @@ export function startPca(pool: WorkerPool, spec: SourceSpec, plan: FeaturePlan, 
     const groupRows = Math.max(1, Math.min(scanY, Math.floor(GROUP_BYTES / rowBytes)));
     // Per worker beside its tile: a group's feature vectors (float64) and the groups' partial W.
     const featureCopies = (dim * 8) / patternBytes;
-    const reserved = n * l * 8 + dim * l * 8 * (3 + 4 * limits.workers) + dim * 8 * 4;
+    const reserved = 2 * n * l * 8 + dim * l * 8 * (3 + 2 * (limits.workers + 1) * 4) + dim * 8 * 4;
     const tp = planTiles(d, { rowAlignment, memory: { ...memory, tileCopies: memory.tileCopies + featureCopies } }, limits, reserved, groupRows);
     const dataBytes = tp.tiles.reduce((s, t) => s + t.bytes, 0);
     job.bytesTotal = dataBytes * (options.powerIterations + 1);
     let zeroPatterns = 0;
     let passIndex = 0;
-    const pass = async (z: Float64Array, centre: Float64Array | null): Promise<PassSums> => {
+    // Y and the groups' partial W are written by the workers into shared memory, never sent in
+    // replies: fresh buffers per tile would pile up faster than the collector frees them. A group
+    // holds a slot of W until it is added in scan order; at most every worker's tile in flight
+    // and as many waiting for an earlier one hold slots.
+    const groupsPerTile = tp.tileRows / groupRows;
+    const slotCount = 2 * (limits.workers + 1) * groupsPerTile;
+    const slots = new Float64Array(new SharedArrayBuffer(slotCount * dim * l * 8));
+    const freeSlots = Array.from({ length: slotCount }, (_, i) => i);
+    const pass = async (zLocal: Float64Array, centreLocal: Float64Array | null): Promise<PassSums> => {
       passIndex++;
-      const y = new Float64Array(n * l);
+      // Z and the centre go to every tile: in shared memory they are not copied into each message.
+      const z = shared(zLocal);
+      const centre = centreLocal ? shared(centreLocal) : null;
+      const y = new Float64Array(new SharedArrayBuffer(n * l * 8));
       const w = new Float64Array(dim * l);
       const colSum = new Float64Array(dim);
       let sumSq = 0;
       let nonFinite = 0;
-      const pending = new Map<number, { w: Float64Array; colSum: Float64Array; sumSq: number }>();
+      const pending = new Map<number, { slot: number; colSum: Float64Array; sumSq: number }>();
+      const slotsOfTile = new Map<number, Int32Array>();
       let nextGroup = 0;
-      const totals = await runTiles({
+      await runTiles({
         pool, job, spec: d.spec, tiles: tp.tiles,
-        compute: (worker, tile) => worker.pcaTile(d.spec, tile.row0, tile.nRows, groupRows, plan, z, l, centre, kernel),
+        compute: (worker, tile) => {
+          const groups = Math.ceil(tile.nRows / groupRows);
+          if (freeSlots.length < groups) throw new Error('PCA: no free slot for partial sums (more tiles in flight than planned)');
+          const ids = Int32Array.from(freeSlots.splice(0, groups));
+          slotsOfTile.set(tile.row0, ids);
+          return worker.pcaTile(d.spec, tile.row0, tile.nRows, groupRows, plan, z, l, centre, kernel, y, slots, ids);
+        },
         merge: (r, tile) => {
-          y.set(r.y, tile.row0 * scanX * l);
+          const ids = slotsOfTile.get(tile.row0)!;
+          slotsOfTile.delete(tile.row0);
           const g0 = tile.row0 / groupRows;
-          const groups = r.groupSumSq.length;
-          for (let g = 0; g < groups; g++) {
-            pending.set(g0 + g, { w: r.groupW.subarray(g * dim * l, (g + 1) * dim * l), colSum: r.groupColSum.subarray(g * dim, (g + 1) * dim), sumSq: r.groupSumSq[g] });
+          for (let g = 0; g < ids.length; g++) {
+            pending.set(g0 + g, { slot: ids[g], colSum: r.groupColSum.subarray(g * dim, (g + 1) * dim), sumSq: r.groupSumSq[g] });
           }
           for (let part = pending.get(nextGroup); part; part = pending.get(nextGroup)) {
-            for (let x = 0; x < w.length; x++) w[x] += part.w[x];
+            const from = part.slot * dim * l;
+            for (let x = 0; x < w.length; x++) w[x] += slots[from + x];
             for (let j = 0; j < dim; j++) colSum[j] += part.colSum[j];
             sumSq += part.sumSq;
+            freeSlots.push(part.slot);
             pending.delete(nextGroup++);
           }
           nonFinite += r.nonFinite;
           if (passIndex === 1) zeroPatterns += r.zeroPatterns;
         },
       });
-      void totals;
       if (job.cancelled) throw new CancelledError();
       if (nonFinite > 0) {
         throw new InputError(`${d.path}: the data hold ${nonFinite} NaN or ±Inf value(s) inside the features; expected finite data for PCA (crop them away, or leave such bins out)`, 'bad-input');

@@ -88,12 +88,11 @@ export type VirtualImagesTileReply = { images: Float64Array; nonFinite: number }
 export type ComTileReply = { total: Float64Array; sumX: Float64Array; sumY: Float64Array; nonFinite: number } & TileTiming;
 /**
  * One tile of a PCA pass, in groups of `groupRows` scan rows (the tile holds whole groups): the
- * tile's rows of Y, and per group its part of W = Cᵀ·Y, its column sums and sum of squares, so
- * the main thread can add the groups in scan order whatever the tiling.
+ * tile's rows of Y and each group's part of W = Cᵀ·Y are written into shared memory (Y in place,
+ * W into the slots the main thread lent); the reply holds each group's column sums and sum of
+ * squares, so the main thread can add the groups in scan order whatever the tiling.
  */
 export type PcaTileReply = {
-  y: Float64Array;
-  groupW: Float64Array;
   groupColSum: Float64Array;
   groupSumSq: Float64Array;
   nonFinite: number;
@@ -309,7 +308,8 @@ const api = {
   },
 
   /** One tile of a PCA pass (see PcaTileReply): features of every pattern, then Y = C·Z and W = Cᵀ·Y by groups of rows. */
-  async pcaTile(spec: SourceSpec, row0: number, nRows: number, groupRows: number, plan: FeaturePlan, z: Float64Array, l: number, centre: Float64Array | null, kernel: KernelKind): Promise<PcaTileReply> {
+  async pcaTile(spec: SourceSpec, row0: number, nRows: number, groupRows: number, plan: FeaturePlan, z: Float64Array, l: number, centre: Float64Array | null,
+    kernel: KernelKind, yAll: Float64Array, wSlots: Float64Array, slotIds: Int32Array): Promise<PcaTileReply> {
     const src = await sourceFor(spec);
     const { dtype, shape } = src.descriptor;
     const nPix = shape.detY * shape.detX;
@@ -327,11 +327,13 @@ const api = {
     const readMs = performance.now() - t0;
     const t1 = performance.now();
     const pY = Math.ceil(shape.detY / plan.bin), pX = Math.ceil(shape.detX / plan.bin);
-    const bins = fk ? fk.run(dtype, nRows, { scanX: shape.scanX, detY: shape.detY, detX: shape.detX, detBin: plan.bin, scanBin: 1 }).preview : null;
+    // Into reused arrays: fresh ones per tile would pile up faster than the collector frees them.
+    const bins = fk ? fk.run(dtype, nRows, { scanX: shape.scanX, detY: shape.detY, detX: shape.detX, detBin: plan.bin, scanBin: 1 },
+      { preview: scratch('pca-bins', 'float32', nPatterns * pY * pX) as Float32Array, total: scratch('pca-totals', 'float64', nPatterns) as Float64Array }).preview : null;
     const sk = kernel === 'wasm' ? sketchKernel() : null;
     const groups = Math.ceil(nRows / groupRows);
-    const y = new Float64Array(nPatterns * l);
-    const groupW = new Float64Array(groups * d * l);
+    // Y rows and each group's W go straight into the shared arrays (see PcaTileReply).
+    const y = yAll.subarray(row0 * shape.scanX * l, (row0 * shape.scanX + nPatterns) * l);
     const groupColSum = new Float64Array(groups * d);
     const groupSumSq = new Float64Array(groups);
     let nonFinite = 0, zeroPatterns = 0;
@@ -345,17 +347,17 @@ const api = {
         : patternFeatures(raw.subarray(p0 * nPix, p1 * nPix), m, plan, rows);
       nonFinite += f.nonFinite;
       zeroPatterns += f.zeroPatterns;
-      const b = sk ? sk.run(m, d, z, l, centre) : rangeBlock(rows, m, d, z, l, centre);
-      y.set(b.y, p0 * l);
-      groupW.set(b.w, g * d * l);
+      const into = { y: y.subarray(p0 * l, p1 * l), w: wSlots.subarray(slotIds[g] * d * l, (slotIds[g] + 1) * d * l) };
+      const b = sk ? sk.run(m, d, z, l, centre, into) : rangeBlock(rows, m, d, z, l, centre);
+      if (!sk) { into.y.set(b.y); into.w.set(b.w); }
       groupColSum.set(b.colSum, g * d);
       groupSumSq[g] = b.sumSq;
     }
     const reply: PcaTileReply = {
-      y, groupW, groupColSum, groupSumSq, nonFinite, zeroPatterns,
+      groupColSum, groupSumSq, nonFinite, zeroPatterns,
       row0, nRows, bytes: rawBytes, readMs, computeMs: performance.now() - t1,
     };
-    return Comlink.transfer(reply, [y.buffer, groupW.buffer, groupColSum.buffer, groupSumSq.buffer]);
+    return Comlink.transfer(reply, [groupColSum.buffer, groupSumSq.buffer]);
   },
 
   /** Sum and max pattern over the selected positions of rows [row0, row0+nRows). */

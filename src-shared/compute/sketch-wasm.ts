@@ -10,8 +10,11 @@ import { ensureMemoryBytes, PAGE_BYTES, roundUp } from './wasm-memory';
 export interface SketchKernel {
   /** A view of n × d float64 values in kernel memory for the block's rows (room for l sketch columns is made too). */
   rows(n: number, d: number, l: number): Float64Array;
-  /** The products for the rows last written; `centre` (d values) is taken out of them first, in place. */
-  run(n: number, d: number, z: Float64Array, l: number, centre: Float64Array | null): RangeBlock;
+  /**
+   * The products for the rows last written; `centre` (d values) is taken out of them first, in
+   * place. With `into`, Y and W are written there (n × l and d × l) instead of fresh arrays.
+   */
+  run(n: number, d: number, z: Float64Array, l: number, centre: Float64Array | null, into?: { y: Float64Array; w: Float64Array }): RangeBlock;
 }
 
 export function createWasmSketchKernel(wasmModule: WebAssembly.Module): SketchKernel {
@@ -38,7 +41,7 @@ export function createWasmSketchKernel(wasmModule: WebAssembly.Module): SketchKe
       ensureMemoryBytes(memory, lay.end, 'sketch');
       return new Float64Array(memory.buffer, lay.a, n * d);
     },
-    run(n, d, z, l, centre) {
+    run(n, d, z, l, centre, into) {
       if (z.length !== d * l) throw new RangeError(`sketch: Z holds ${z.length} values, expected ${d}×${l}`);
       const lay = layout(n, d, l);
       if (memory.buffer.byteLength < lay.end) throw new Error('sketch: rows(n, d, l) must be called before run');
@@ -55,13 +58,14 @@ export function createWasmSketchKernel(wasmModule: WebAssembly.Module): SketchKe
       ex.matmulTransA(lay.a, n, d, lay.y, L, lay.w, 0);
       const yv = new Float64Array(buf, lay.y, n * L);
       const wv = new Float64Array(buf, lay.w, d * L);
-      const unpad = (v: Float64Array, rows: number) => {
-        if (L === l) return v.slice();
-        const o = new Float64Array(rows * l);
-        for (let i = 0; i < rows; i++) o.set(v.subarray(i * L, i * L + l), i * l);
+      const unpad = (v: Float64Array, rows: number, target?: Float64Array) => {
+        const o = target ?? new Float64Array(rows * l);
+        if (o.length !== rows * l) throw new RangeError(`sketch: output holds ${o.length} values, expected ${rows}×${l}`);
+        if (L === l) o.set(v);
+        else for (let i = 0; i < rows; i++) o.set(v.subarray(i * L, i * L + l), i * l);
         return o;
       };
-      return { y: unpad(yv, n), w: unpad(wv, d), colSum: new Float64Array(buf, lay.colSum, d).slice(), sumSq };
+      return { y: unpad(yv, n, into?.y), w: unpad(wv, d, into?.w), colSum: new Float64Array(buf, lay.colSum, d).slice(), sumSq };
     },
   };
 }
