@@ -23,7 +23,7 @@ function shared(a: Float64Array): Float64Array {
 }
 
 /** Raw bytes per group of rows whose partial sums are added in scan order (see PcaTileReply). */
-const GROUP_BYTES = 8 * MiB;
+const GROUP_BYTES = 2 * MiB;
 
 /**
  * PCA of every pattern's feature vector, streamed: q + 1 passes over the data through the pool
@@ -44,9 +44,12 @@ export function startPca(pool: WorkerPool, spec: SourceSpec, plan: FeaturePlan, 
     const patternBytes = detY * detX * DTYPE_BYTES[d.dtype];
     const rowBytes = scanX * patternBytes;
     const groupRows = Math.max(1, Math.min(scanY, Math.floor(GROUP_BYTES / rowBytes)));
-    // Per worker beside its tile: a group's feature vectors (float64) and the groups' partial W.
-    const featureCopies = (dim * 8) / patternBytes;
-    const reserved = 2 * n * l * 8 + dim * l * 8 * (3 + 2 * (limits.workers + 1) * 4) + dim * 8 * 4;
+    // Per worker beside its tile: the tile's detector bins (float32) and the bin kernel's scratch
+    // (about one more tile), and a group's feature vectors (float64).
+    const featureCopies = 1 + (dim * 8) / patternBytes;
+    // On the main thread: Y, and at the end its orthonormal basis, U and the loadings (N × l each);
+    // W, Z and the slots of partial W (D × l each); a few D-vectors.
+    const reserved = 4 * n * l * 8 + dim * l * 8 * (3 + 2 * (limits.workers + 1) * 4) + dim * 8 * 4;
     const tp = planTiles(d, { rowAlignment, memory: { ...memory, tileCopies: memory.tileCopies + featureCopies } }, limits, reserved, groupRows);
     const dataBytes = tp.tiles.reduce((s, t) => s + t.bytes, 0);
     job.bytesTotal = dataBytes * (options.powerIterations + 1);
