@@ -153,6 +153,25 @@ ${SOURCE}
 
 ${ENGINE}`,
 
+  kmeans: `scanfold kmeans FILE [source flags] --clusters K [flags] --out OUT.h5 [engine flags]
+  k-means of every pattern on its first principal components (a streamed PCA, then one more pass
+  for the clusters' mean patterns): /labels (int32, scan_y × scan_x), /centers (k × components),
+  /cluster_patterns (k, det_y, det_x: each cluster's mean pattern), /sizes; inertia and every
+  choice in attributes.
+
+  --clusters K            how many clusters
+  --features pca:N        cluster each position's coordinates along the first N components (default pca:10)
+  --restarts R            k-means++ starts; the lowest inertia is kept (default 10)
+  --seed S                seed of the PCA sketch and of the starts (default 0)
+  --power-iterations Q    of the PCA (default 2)
+  --bin, --crop, --scaling, --normalize, --bad-pixels
+                          how patterns become vectors, as for pca (scanfold pca --help)
+${OUT}
+
+${SOURCE}
+
+${ENGINE}`,
+
   sample: `scanfold sample [--size tiny|demo|large] --out FILE.h5 [--seed N]
   Write a demo dataset of our own synthetic scenario (ground truth under /truth).
   --size                  tiny, demo (default; 64×64 × 96×96) or large (256×256 × 128×128, 2 GiB)
@@ -178,6 +197,7 @@ commands:
   calibrate  wavelength, bright-field disk, mrad and Å⁻¹ per detector pixel
   pattern    mean and max pattern over a region of the scan
   pca        principal components of all patterns (randomized SVD, out of core)
+  kmeans     clusters of all patterns (k-means on principal components) and their mean patterns
   sample     write a demo dataset of our own synthetic scenario
   demo       make the demo dataset and run the first pass over it
 

@@ -1,7 +1,7 @@
 // `scanfold pca`: flags → one request to the engine service → files. The features, the
 // randomized SVD and its passes are the service's; this file only parses, asks and writes.
 import { InputError } from '../../src-shared/model/errors';
-import type { PcaRequest } from '../../src-shared/contract/service';
+import type { KmeansRequest, PcaRequest } from '../../src-shared/contract/service';
 import type { EngineOptions } from '../engine/engine';
 import { badPixelAttrs, noteNonFiniteResults, openProtected, provenance, withService, writeResults } from './analysis-commands';
 import { outputFlag, parseFlags, rectangleFlag, rejectExtraPositionals, SOURCE_OPTIONS, sourceSpecFromFlags, wholeNumber } from './source-flags';
@@ -83,6 +83,56 @@ export async function cmdPca(args: string[], engineOptions: (v: Record<string, u
     if (v.quiet !== true) {
       const top = Array.from(r.explainedVarianceRatio.slice(0, 5), (x) => `${(100 * x).toFixed(1)} %`).join(', ');
       process.stderr.write(`wrote ${written.path}: ${r.k} components of ${f.outY}×${f.outX} bins (bin ${f.bin}), ${r.method.passes} passes; explained variance ${top}${r.k > 5 ? ', …' : ''}\n`);
+    }
+  }, out);
+}
+
+export async function cmdKmeans(args: string[], engineOptions: (v: Record<string, unknown>) => EngineOptions, engineFlags: EngineFlags): Promise<void> {
+  const parsed = parseFlags(args, {
+    ...SOURCE_OPTIONS, ...engineFlags, ...FEATURE_FLAGS, out: { type: 'string' }, clusters: { type: 'string' }, features: { type: 'string' },
+    restarts: { type: 'string' }, seed: { type: 'string' }, 'power-iterations': { type: 'string' },
+  });
+  const v = parsed.values as Flags;
+  rejectExtraPositionals(parsed.positionals, 'kmeans');
+  const spec = sourceSpecFromFlags(parsed.positionals[0], v as Record<string, unknown>);
+  if (typeof v.clusters !== 'string') throw new InputError('kmeans needs --clusters K (how many clusters to find)');
+  const clusters = wholeNumber('clusters', v.clusters, 1, 'a whole number ≥ 1');
+  let pcaComponents: number | undefined;
+  if (typeof v.features === 'string') {
+    const m = /^pca:(\d+)$/.exec(v.features);
+    if (!m) throw new InputError(`--features ${v.features}: expected pca:N (the first N principal components of every pattern), e.g. pca:10`);
+    pcaComponents = wholeNumber('features', m[1], 1, 'pca:N with N ≥ 1');
+  }
+  const features = featureOptions(v);
+  const optional = (flag: string, min: number) => (typeof v[flag] === 'string' ? wholeNumber(flag, v[flag] as string, min) : undefined);
+  const out = outputFlag(v.out, 'kmeans', [spec.path]);
+  await withService(engineOptions(v as Record<string, unknown>), v.quiet === true, async (service) => {
+    const opened = await openProtected(service, spec, out, { scan: 1, pattern: clusters });
+    const { scanY, scanX, detY, detX } = opened.descriptor.shape;
+    const request: KmeansRequest = {
+      dataset: opened.id, clusters, ...features, ...(pcaComponents !== undefined ? { pcaComponents } : {}),
+      ...(optional('restarts', 1) !== undefined ? { restarts: optional('restarts', 1) } : {}),
+      ...(optional('seed', 0) !== undefined ? { seed: optional('seed', 0) } : {}),
+      ...(optional('power-iterations', 0) !== undefined ? { powerIterations: optional('power-iterations', 0) } : {}),
+    };
+    const r = await service.kmeans(request);
+    const f = r.features;
+    const written = await writeResults(service, out, {
+      labels: { data: r.labels, shape: [scanY, scanX], dims: ['scan_y', 'scan_x'], attrs: { units: 'cluster index, 0 … k − 1' } },
+      centers: { data: r.centers, shape: [r.k, f.components], dims: ['cluster', 'component'], attrs: { units: 'coordinates along the principal components (feature units)' } },
+      cluster_patterns: { data: r.clusterPatterns, shape: [r.k, detY, detX], dims: ['cluster', 'det_y', 'det_x'], attrs: { units: 'counts per pattern (mean over the cluster, full resolution)' } },
+      sizes: { data: Float64Array.from(r.sizes), shape: [r.k], dims: ['cluster'], attrs: { units: 'probe positions' } },
+    }, {
+      clusters: r.k, inertia: r.inertia, iterations: r.iterations, restarts: r.method.restarts, restart_kept: r.method.restartKept, seed: r.method.seed,
+      features_kind: 'pca', pca_components: f.components, pca_explained_variance: f.explainedVariance, pca_passes_over_data: r.method.pcaPasses,
+      passes_over_data: r.method.pcaPasses + 1,
+      bin: f.bin, crop_x0_y0_x1_y1: JSON.stringify([f.crop.x0, f.crop.y0, f.crop.x1, f.crop.y1]), scaling: f.scaling, normalize: f.normalize ? 'yes' : 'no', bad_pixels: f.badPixels,
+      method: 'k-means++ seeding (Arthur & Vassilvitskii 2007), Lloyd iterations, lowest inertia of the restarts',
+      ...provenance(r.descriptor, 'scanfold kmeans', request), ...badPixelAttrs(r.badPixels),
+    });
+    noteNonFiniteResults(written, ' (an empty cluster has a NaN mean pattern)');
+    if (v.quiet !== true) {
+      process.stderr.write(`wrote ${written.path}: ${r.k} clusters of ${Array.from(r.sizes).join(', ')} positions; inertia ${r.inertia.toPrecision(6)} on ${f.components} principal components\n`);
     }
   }, out);
 }

@@ -10,7 +10,7 @@ import type { Job } from './job';
 import { streamingJob } from './tile-runner';
 import { foldSumMax } from '../../src-shared/compute/region-pattern';
 import type { WorkerPool } from './worker-pool';
-import type { ComTileReply, KernelKind, RegionTileReply, VirtualImagesTileReply } from '../workers/tile-worker';
+import type { ClusterTileReply, ComTileReply, KernelKind, RegionTileReply, VirtualImagesTileReply } from '../workers/tile-worker';
 
 export interface VirtualImagesResult {
   descriptor: DatasetDescriptor;
@@ -126,5 +126,37 @@ export function startRegionPattern(pool: WorkerPool, spec: SourceSpec, region: U
     compute: (w, tile, d) => w.regionPatternTile(d.spec, tile.row0, tile.nRows, region.slice(tile.row0 * d.shape.scanX, (tile.row0 + tile.nRows) * d.shape.scanX)),
     merge: (r, _tile, a) => { foldSumMax(a.sum, a.max, r.sum, r.max); a.count += r.count; },
     finish: (a, { descriptor, totals, seconds }) => ({ descriptor, mean: a.sum.map((v) => v / a.count), max: a.max, count: a.count, nonFinite: totals.nonFinite, seconds }),
+  });
+}
+
+export interface ClusterPatternsResult {
+  descriptor: DatasetDescriptor;
+  /** k × detY × detX: the mean pattern of each cluster (NaN for an empty one). */
+  means: Float64Array;
+  counts: Float64Array;
+  nonFinite: number;
+  seconds: number;
+}
+
+/** The mean pattern of every cluster, full resolution, in one streamed pass (labels: one per scan position). */
+export function startClusterPatterns(pool: WorkerPool, spec: SourceSpec, labels: Int32Array, k: number, limits: EngineLimits): Job<ClusterPatternsResult> {
+  type Acc = { sums: Float64Array; counts: Float64Array };
+  return streamingJob<ClusterPatternsResult, TilesPlan, Acc, ClusterTileReply>({
+    pool, spec, kind: 'cluster-patterns', label: `mean pattern of each cluster of ${spec.path}`,
+    plan: tilesWith(limits, (d) => 8 * k * d.shape.detY * d.shape.detX * (limits.workers + 2)),
+    check: (d) => {
+      if (labels.length !== d.shape.scanY * d.shape.scanX) throw new InputError(`cluster labels: ${labels.length} values, but ${d.path} has ${d.shape.scanY * d.shape.scanX} positions`);
+    },
+    begin: (d) => ({ sums: new Float64Array(k * d.shape.detY * d.shape.detX), counts: new Float64Array(k) }),
+    compute: (w, tile, d) => w.clusterSumsTile(d.spec, tile.row0, tile.nRows, labels.slice(tile.row0 * d.shape.scanX, (tile.row0 + tile.nRows) * d.shape.scanX), k),
+    merge: (r, _tile, a) => {
+      for (let i = 0; i < a.sums.length; i++) a.sums[i] += r.sums[i];
+      for (let c = 0; c < k; c++) a.counts[c] += r.counts[c];
+    },
+    finish: (a, { descriptor, totals, seconds }) => {
+      const pixels = descriptor.shape.detY * descriptor.shape.detX;
+      const means = a.sums.map((v, i) => v / a.counts[Math.floor(i / pixels)]);
+      return { descriptor, means, counts: a.counts, nonFinite: totals.nonFinite, seconds };
+    },
   });
 }

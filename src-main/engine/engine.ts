@@ -2,7 +2,7 @@ import type { DatasetDescriptor, SourceSpec } from '../../src-shared/model/datas
 import type { JobInfo } from '../../src-shared/contract/jobs';
 import { memoryPerWorker, resolveEngineLimits, type EngineLimits } from './budget';
 import { PreviewPool, startFirstPass, type FirstPassSummary } from './first-pass';
-import { startComSums, startRegionPattern, startVirtualImages, type ComSumsResult, type RegionPatternResult, type VirtualImagesResult } from './analyses';
+import { startClusterPatterns, startComSums, startRegionPattern, startVirtualImages, type ClusterPatternsResult, type ComSumsResult, type RegionPatternResult, type VirtualImagesResult } from './analyses';
 import type { CompiledDetector } from '../../src-shared/model/detectors';
 import type { ComOptions } from '../../src-shared/compute/tile-kernels-types';
 import type { Job } from './job';
@@ -83,6 +83,11 @@ export class Engine {
   /** PCA of every pattern's feature vector by randomized SVD (q + 1 passes). */
   pca(spec: SourceSpec, plan: FeaturePlan, options: PcaOptions): Job<PcaJobResult> {
     return this.track(startPca(this.pool, spec, plan, options, this.limits, this.kernel));
+  }
+
+  /** The mean pattern of every cluster (labels: one per scan position, 0 … k − 1). */
+  clusterPatterns(spec: SourceSpec, labels: Int32Array, k: number): Job<ClusterPatternsResult> {
+    return this.track(startClusterPatterns(this.pool, spec, labels, k, this.limits));
   }
 
   /** Mean and max pattern over a real-space region (mask of the scan's shape). */

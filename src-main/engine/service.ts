@@ -8,7 +8,7 @@ import { CancelledError, InputError, isInputError } from '../../src-shared/model
 import type { JobInfo } from '../../src-shared/contract/jobs';
 import type {
   BadPixels, BadPixelsMode, BrightFieldDisk, CalibrationRequest, CalibrationResult, ComFieldRequest, ComFieldResult,
-  DatasetId, FirstPassRequest, FirstPassResult, Inspection, OpenedDataset, PatternAtRequest, PatternAtResult, PcaRequest, PcaResult,
+  DatasetId, FirstPassRequest, FirstPassResult, Inspection, KmeansRequest, KmeansResult, OpenedDataset, PatternAtRequest, PatternAtResult, PcaRequest, PcaResult,
   PreviewImagesRequest, PreviewImagesResult, RegionPatternRequest, RegionPatternResult, ScanfoldService, ServiceEvent,
   VirtualImagesRequest, VirtualImagesResult,
 } from '../../src-shared/contract/service';
@@ -29,6 +29,7 @@ import { comDefaults, comFieldFromSums, comSumsLessBadPixels } from './com-field
 import { cacheKey, defaultCacheDir, readCachedFirstPass, writeCachedFirstPass, type CachedFirstPass } from './first-pass-cache';
 import { findVacuum, type VacuumFinding } from '../../src-shared/compute/vacuum';
 import { featuresToImage, planFeatures } from '../../src-shared/compute/pattern-features';
+import { kmeans } from '../../src-shared/compute/kmeans';
 
 interface FirstResults extends CachedFirstPass {
   /** The pass itself, with its preview cube; null when the results came from the cache. */
@@ -500,8 +501,11 @@ export class EngineService implements ScanfoldService {
 
   async pca(req: PcaRequest): Promise<PcaResult> {
     validateRequest('pca', req);
-    return this.request(req.jobId, async () => {
-      const r = this.record(req.dataset);
+    return this.request(req.jobId, () => this.runPca(this.record(req.dataset), req));
+  }
+
+  private async runPca(r: DatasetRecord, req: PcaRequest): Promise<PcaResult> {
+    {
       const d = r.opened.descriptor;
       const { scanY, scanX, detY, detX } = d.shape;
       const scaling = req.scaling ?? 'none';
@@ -530,6 +534,39 @@ export class EngineService implements ScanfoldService {
         method: { oversample: options.oversample, sketch: p.sketch, powerIterations: options.powerIterations, seed: options.seed, passes: p.passes, totalVarianceFrom: p.totalVarianceFrom },
         ...(first && badMode === 'auto' ? { badPixels: { hot: first.badPixels.hot, dead: first.badPixels.dead } } : {}),
         zeroPatterns: job.zeroPatterns, seconds: job.seconds,
+      };
+    }
+  }
+
+  async kmeans(req: KmeansRequest): Promise<KmeansResult> {
+    validateRequest('kmeans', req);
+    return this.request(req.jobId, async () => {
+      const r = this.record(req.dataset);
+      const t0 = performance.now();
+      const d = r.opened.descriptor;
+      const n = d.shape.scanY * d.shape.scanX;
+      if (req.clusters > n) throw new InputError(`${d.path}: ${req.clusters} clusters asked for, but the scan has ${n} positions; expected at most ${n}`, 'bad-request');
+      const f = req.pcaComponents ?? 10;
+      const pca = await this.runPca(r, {
+        dataset: req.dataset, components: f, bin: req.bin, crop: req.crop, scaling: req.scaling, normalize: req.normalize, badPixels: req.badPixels,
+        seed: req.seed, powerIterations: req.powerIterations, ...(req.jobId ? { jobId: `${req.jobId}/pca` } : {}),
+      });
+      // Each position's coordinates along the components found: n × k.
+      const k = pca.k;
+      const points = new Float64Array(n * k);
+      for (let c = 0; c < k; c++) for (let i = 0; i < n; i++) points[i * k + c] = pca.loadings[c * n + i];
+      const restarts = req.restarts ?? 10, seed = req.seed ?? 0;
+      const km = aboutFile(d.path, () => kmeans(points, n, k, req.clusters, { restarts, seed, maxIterations: 300, tol: 1e-4 }));
+      const patterns = await this.track(this.engine.clusterPatterns(specOf(r), km.labels, req.clusters), req.jobId ? `${req.jobId}/cluster-patterns` : undefined, 'cluster patterns');
+      let explained = 0;
+      for (const x of pca.explainedVarianceRatio) explained += x;
+      return {
+        dataset: r.id, descriptor: d, k: req.clusters, labels: km.labels, centers: km.centers, clusterPatterns: patterns.means,
+        sizes: km.sizes, inertia: km.inertia, iterations: km.iterations,
+        features: { ...pca.features, kind: 'pca', components: k, explainedVariance: explained },
+        method: { restarts, seed, restartKept: km.restart, pcaPasses: pca.method.passes },
+        ...(pca.badPixels ? { badPixels: pca.badPixels } : {}),
+        seconds: (performance.now() - t0) / 1000,
       };
     });
   }

@@ -25,7 +25,8 @@ export async function writeHdf5(out: OutputFile, fill: (f: H5File, h5wasm: H5Lib
 }
 
 export interface ResultArray {
-  data: Float64Array;
+  /** float64, or int32 for labels. */
+  data: Float64Array | Int32Array;
   shape: number[];
   attrs?: Record<string, string | number>;
   /** Dimension labels (HDF5 dimension scales' labels, as h5py's dims[i].label reads them). */
@@ -55,8 +56,8 @@ export async function writeFloat64Results(out: OutputFile, arrays: Record<string
     for (const [k, v] of Object.entries(rootAttrs)) writeAttr(f, k, v);
     writeAttr(f, 'non_finite_results', total);
     for (const [name, a] of Object.entries(arrays)) {
-      // '<d' is h5wasm's spelling of float64; it reads '<f8' as float32.
-      const ds = f.create_dataset({ name, data: a.data, shape: a.shape, dtype: '<d' });
+      // '<d' is h5wasm's spelling of float64 (it reads '<f8' as float32); '<i' is int32.
+      const ds = f.create_dataset({ name, data: a.data, shape: a.shape, dtype: a.data instanceof Int32Array ? '<i' : '<d' });
       for (const [k, v] of Object.entries(a.attrs ?? {})) writeAttr(ds, k, v);
       (a.dims ?? []).forEach((label, i) => ds.set_dimension_label(i, label));
       writeAttr(ds, 'non_finite_results', nonFiniteResults[name] ?? 0);

@@ -15,7 +15,7 @@ import { createReferenceVirtualImageKernel } from '../../src-shared/compute/virt
 import { createWasmVirtualImageKernel } from '../../src-shared/compute/virtual-image-wasm';
 import { createReferenceComKernel } from '../../src-shared/compute/com';
 import { createWasmComKernel } from '../../src-shared/compute/com-wasm';
-import { accumulateRegionPatterns } from '../../src-shared/compute/region-pattern';
+import { accumulateClusterSums, accumulateRegionPatterns } from '../../src-shared/compute/region-pattern';
 import { binsAlignWithCrop, featuresFromBins, patternFeatures, type FeaturePlan } from '../../src-shared/compute/pattern-features';
 import { rangeBlock } from '../../src-shared/compute/randomized-svd';
 import { createWasmSketchKernel, type SketchKernel } from '../../src-shared/compute/sketch-wasm';
@@ -98,6 +98,8 @@ export type PcaTileReply = {
   nonFinite: number;
   zeroPatterns: number;
 } & TileTiming;
+
+export type ClusterTileReply = { sums: Float64Array; counts: Float64Array; nonFinite: number } & TileTiming;
 
 export type RegionTileReply = { sum: Float64Array; max: Float64Array; count: number; nonFinite: number } & TileTiming;
 
@@ -358,6 +360,23 @@ const api = {
       row0, nRows, bytes: rawBytes, readMs, computeMs: performance.now() - t1,
     };
     return Comlink.transfer(reply, [groupColSum.buffer, groupSumSq.buffer]);
+  },
+
+  /** Per-cluster sums of the patterns of rows [row0, row0+nRows), by the labels of their positions. */
+  async clusterSumsTile(spec: SourceSpec, row0: number, nRows: number, labels: Int32Array, k: number): Promise<ClusterTileReply> {
+    const src = await sourceFor(spec);
+    const { dtype, shape } = src.descriptor;
+    const pixels = shape.detY * shape.detX;
+    const t0 = performance.now();
+    const raw = scratch('cluster-raw', dtype, nRows * shape.scanX * pixels);
+    src.readRows(row0, nRows, raw);
+    const readMs = performance.now() - t0;
+    const t1 = performance.now();
+    const sums = new Float64Array(k * pixels);
+    const counts = new Float64Array(k);
+    const { nonFinite } = accumulateClusterSums(raw, nRows * shape.scanX, pixels, labels, k, sums, counts);
+    const reply: ClusterTileReply = { sums, counts, nonFinite, row0, nRows, bytes: raw.byteLength, readMs, computeMs: performance.now() - t1 };
+    return Comlink.transfer(reply, [sums.buffer, counts.buffer]);
   },
 
   /** Sum and max pattern over the selected positions of rows [row0, row0+nRows). */

@@ -279,6 +279,40 @@ export interface PcaResult {
   seconds: number;
 }
 
+export interface KmeansRequest extends JobOptions, FeatureOptions {
+  dataset: DatasetId;
+  /** Clusters wanted (k ≥ 1). */
+  clusters: number;
+  /** Each position's coordinates along the first N principal components (default 10). */
+  pcaComponents?: number;
+  /** k-means++ starts; the lowest inertia is kept (default 10). */
+  restarts?: number;
+  /** Seed of the PCA sketch and of the starts (default 0). */
+  seed?: number;
+  /** Power iterations of the PCA (default 2). */
+  powerIterations?: number;
+}
+
+export interface KmeansResult {
+  dataset: DatasetId;
+  descriptor: DatasetDescriptor;
+  k: number;
+  /** scanY × scanX: the cluster of each position, 0 … k − 1. */
+  labels: Int32Array;
+  /** k × f: cluster centres in the feature space (PCA coordinates). */
+  centers: Float64Array;
+  /** k × detY × detX: the mean pattern of each cluster, at full resolution. */
+  clusterPatterns: Float64Array;
+  sizes: Int32Array;
+  inertia: number;
+  iterations: number;
+  /** What was done, defaults included. */
+  features: PcaResult['features'] & { kind: 'pca'; components: number; explainedVariance: number };
+  method: { restarts: number; seed: number; restartKept: number; pcaPasses: number };
+  badPixels?: { hot: [number, number][]; dead: [number, number][] };
+  seconds: number;
+}
+
 export type ServiceEvent =
   /** A job started, progressed, finished, failed or was cancelled. */
   | { kind: 'job'; job: JobInfo & { jobId: string } }
@@ -301,6 +335,8 @@ export interface ScanfoldService {
   regionPattern(req: RegionPatternRequest): Promise<RegionPatternResult>;
   /** PCA of all patterns by randomized SVD, streamed (q + 1 passes over the data). */
   pca(req: PcaRequest): Promise<PcaResult>;
+  /** k-means of all patterns on their first principal components, and each cluster's mean pattern. */
+  kmeans(req: KmeansRequest): Promise<KmeansResult>;
 
   /** Fast requests, outside the job queue. */
   patternAt(req: PatternAtRequest): Promise<PatternAtResult>;
@@ -326,7 +362,7 @@ export interface ScanfoldService {
 /** The request methods, for generic transports and the validator. */
 export const SERVICE_METHODS = [
   'inspect', 'open', 'close', 'datasets', 'firstPass', 'virtualImages', 'comField', 'calibrate',
-  'regionPattern', 'pca', 'patternAt', 'previewImages', 'filesRead', 'jobs', 'cancel', 'shutdown',
+  'regionPattern', 'pca', 'kmeans', 'patternAt', 'previewImages', 'filesRead', 'jobs', 'cancel', 'shutdown',
 ] as const satisfies readonly (keyof ScanfoldService)[];
 
 export type ServiceMethod = (typeof SERVICE_METHODS)[number];

@@ -1,0 +1,161 @@
+/**
+ * k-means of n points in f dimensions (row-major n × f): k-means++ seeding (Arthur &
+ * Vassilvitskii, SODA 2007: each next centre drawn with probability proportional to the squared
+ * distance to the nearest centre so far), then Lloyd iterations (assign each point to its nearest
+ * centre, move each centre to the mean of its points) until no point changes cluster or the
+ * centres move less than `tol` × the data's total variance; the restart with the lowest inertia
+ * (Σ squared distances to the assigned centres) is kept. A cluster left empty takes the point
+ * farthest from its centre. Deterministic for a given seed.
+ */
+import { InputError } from '../model/errors';
+
+export interface KmeansOptions {
+  restarts: number;
+  seed: number;
+  maxIterations: number;
+  /** Stop when Σ of the squared centre shifts falls below tol × the mean per-point variance (default 1e-4). */
+  tol: number;
+}
+
+export interface KmeansResult {
+  labels: Int32Array;
+  /** k × f */
+  centers: Float64Array;
+  inertia: number;
+  sizes: Int32Array;
+  iterations: number;
+  /** Which restart won (0-based). */
+  restart: number;
+}
+
+/** A small deterministic generator (mulberry32), enough for seeding choices. */
+function generator(seed: number): () => number {
+  let a = (seed >>> 0) ^ 0x5bd1e995;
+  return () => {
+    a = (a + 0x6d2b79f5) >>> 0;
+    let t = a;
+    t = Math.imul(t ^ (t >>> 15), t | 1);
+    t ^= t + Math.imul(t ^ (t >>> 7), t | 61);
+    return ((t ^ (t >>> 14)) >>> 0) / 4294967296;
+  };
+}
+
+function sqDist(p: Float64Array, i: number, c: Float64Array, j: number, f: number): number {
+  let s = 0;
+  for (let x = 0; x < f; x++) { const d = p[i * f + x] - c[j * f + x]; s += d * d; }
+  return s;
+}
+
+/** k-means++ seeding: k centres chosen among the points. */
+export function kmeansPlusPlus(points: Float64Array, n: number, f: number, k: number, random: () => number): Float64Array {
+  const centers = new Float64Array(k * f);
+  const first = Math.min(n - 1, Math.floor(random() * n));
+  centers.set(points.subarray(first * f, (first + 1) * f), 0);
+  const nearest = new Float64Array(n);
+  for (let i = 0; i < n; i++) nearest[i] = sqDist(points, i, centers, 0, f);
+  for (let c = 1; c < k; c++) {
+    let total = 0;
+    for (let i = 0; i < n; i++) total += nearest[i];
+    let pick = n - 1;
+    if (total > 0) {
+      let r = random() * total;
+      for (let i = 0; i < n; i++) { r -= nearest[i]; if (r < 0) { pick = i; break; } }
+    } else {
+      pick = Math.min(n - 1, Math.floor(random() * n));
+    }
+    centers.set(points.subarray(pick * f, (pick + 1) * f), c * f);
+    for (let i = 0; i < n; i++) nearest[i] = Math.min(nearest[i], sqDist(points, i, centers, c, f));
+  }
+  return centers;
+}
+
+/** Lloyd iterations from the given centres (modified in place). */
+export function lloyd(points: Float64Array, n: number, f: number, k: number, centers: Float64Array, maxIterations: number, shiftLimit: number):
+  { labels: Int32Array; inertia: number; sizes: Int32Array; iterations: number } {
+  const labels = new Int32Array(n).fill(-1);
+  const dist = new Float64Array(n);
+  const sums = new Float64Array(k * f);
+  const sizes = new Int32Array(k);
+  let iterations = 0;
+  for (; iterations < maxIterations; iterations++) {
+    let changed = 0;
+    for (let i = 0; i < n; i++) {
+      let best = 0, bestD = Infinity;
+      for (let c = 0; c < k; c++) { const d = sqDist(points, i, centers, c, f); if (d < bestD) { bestD = d; best = c; } }
+      if (labels[i] !== best) { labels[i] = best; changed++; }
+      dist[i] = bestD;
+    }
+    sums.fill(0);
+    sizes.fill(0);
+    for (let i = 0; i < n; i++) {
+      const c = labels[i];
+      sizes[c]++;
+      for (let x = 0; x < f; x++) sums[c * f + x] += points[i * f + x];
+    }
+    // An empty cluster takes the point farthest from its centre.
+    for (let c = 0; c < k; c++) {
+      if (sizes[c] > 0) continue;
+      let far = 0;
+      for (let i = 1; i < n; i++) if (dist[i] > dist[far]) far = i;
+      const old = labels[far];
+      sizes[old]--;
+      for (let x = 0; x < f; x++) { sums[old * f + x] -= points[far * f + x]; sums[c * f + x] = points[far * f + x]; }
+      sizes[c] = 1;
+      labels[far] = c;
+      dist[far] = 0;
+      changed++;
+    }
+    let shift = 0;
+    for (let c = 0; c < k; c++) {
+      for (let x = 0; x < f; x++) {
+        const m = sums[c * f + x] / sizes[c];
+        shift += (m - centers[c * f + x]) ** 2;
+        centers[c * f + x] = m;
+      }
+    }
+    if (changed === 0 || shift <= shiftLimit) { iterations++; break; }
+  }
+  let inertia = 0;
+  for (let i = 0; i < n; i++) {
+    labels[i] = nearestCenter(points, i, centers, k, f);
+    inertia += sqDist(points, i, centers, labels[i], f);
+  }
+  sizes.fill(0);
+  for (let i = 0; i < n; i++) sizes[labels[i]]++;
+  return { labels, inertia, sizes, iterations };
+}
+
+function nearestCenter(points: Float64Array, i: number, centers: Float64Array, k: number, f: number): number {
+  let best = 0, bestD = Infinity;
+  for (let c = 0; c < k; c++) { const d = sqDist(points, i, centers, c, f); if (d < bestD) { bestD = d; best = c; } }
+  return best;
+}
+
+export function kmeans(points: Float64Array, n: number, f: number, k: number, o: KmeansOptions): KmeansResult {
+  if (!Number.isInteger(k) || k < 1) throw new InputError(`clusters: expected a whole number ≥ 1, got ${k}`, 'bad-request');
+  if (k > n) throw new InputError(`${k} clusters asked for, but there are only ${n} points; expected at most ${n}`, 'bad-request');
+  for (let i = 0; i < points.length; i++) {
+    if (!Number.isFinite(points[i])) throw new InputError('k-means: the features hold NaN or ±Inf values; expected finite features', 'bad-input');
+  }
+  // More clusters than distinct points cannot all be filled.
+  const distinct = new Set<string>();
+  for (let i = 0; i < n && distinct.size < k; i++) distinct.add(Array.from(points.subarray(i * f, (i + 1) * f)).join(','));
+  if (distinct.size < k) throw new InputError(`${k} clusters asked for, but the features take only ${distinct.size} distinct value(s); expected at most ${distinct.size} clusters`, 'bad-request');
+  // Stop threshold relative to the data's variance (as common k-means implementations do).
+  let variance = 0;
+  for (let x = 0; x < f; x++) {
+    let m = 0;
+    for (let i = 0; i < n; i++) m += points[i * f + x];
+    m /= n;
+    for (let i = 0; i < n; i++) variance += (points[i * f + x] - m) ** 2;
+  }
+  const shiftLimit = o.tol * (variance / n);
+  const random = generator(o.seed);
+  let best: KmeansResult | null = null;
+  for (let r = 0; r < Math.max(1, o.restarts); r++) {
+    const centers = kmeansPlusPlus(points, n, f, k, random);
+    const run = lloyd(points, n, f, k, centers, o.maxIterations, shiftLimit);
+    if (!best || run.inertia < best.inertia) best = { ...run, centers, restart: r };
+  }
+  return best!;
+}

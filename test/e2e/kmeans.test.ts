@@ -1,0 +1,44 @@
+// scanfold kmeans on the demo scenario: the clusters recover the generator's grain map (vacuum,
+// amorphous support, three grains), scored by scikit-learn's adjusted Rand index; each cluster's
+// mean pattern equals NumPy's mean over the positions labelled so.
+import fs from 'node:fs';
+import os from 'node:os';
+import path from 'node:path';
+import { spawnSync } from 'node:child_process';
+import { afterAll, beforeAll, expect, it } from 'vitest';
+import { PYTHON } from '../helpers/fixtures';
+
+const root = path.resolve(__dirname, '../..');
+let dir: string;
+beforeAll(() => { dir = fs.mkdtempSync(path.join(os.tmpdir(), 'scanfold-kmeans-')); });
+afterAll(() => fs.rmSync(dir, { recursive: true, force: true }));
+const scanfold = (...args: string[]) => spawnSync(process.execPath, [path.join(root, 'bin/scanfold.mjs'), ...args], { encoding: 'utf8', env: { ...process.env, SCANFOLD_CACHE_DIR: 'off' } });
+
+it('kmeans --clusters 5 --scaling sqrt on the demo recovers the grain map (ARI ≥ 0.90) and writes each cluster\'s mean pattern', () => {
+  const demo = path.join(dir, 'demo.h5');
+  expect(scanfold('sample', '--size', 'demo', '--out', demo, '--quiet').status).toBe(0);
+  const out = path.join(dir, 'km.h5');
+  const r = scanfold('kmeans', demo, '--dataset', '/scan/frames', '--clusters', '5', '--scaling', 'sqrt', '--out', out);
+  expect(r.status, r.stderr).toBe(0);
+  expect(r.stderr).toMatch(/wrote .*5 clusters of/);
+  const p = spawnSync(PYTHON, ['-c', `import h5py, json, sys, numpy as np
+from sklearn.metrics import adjusted_rand_score
+f = h5py.File(sys.argv[1]); d = h5py.File(sys.argv[2])
+labels = f['labels'][()]; truth = d['truth/grain_map'][()]
+frames = d['scan/frames'][()]
+worst = 0.0
+for c in range(5):
+    m = frames[labels == c].astype(np.float64).mean(axis=0)
+    worst = max(worst, float(np.abs(m - f['cluster_patterns'][c]).max() / np.abs(m).max()))
+print(json.dumps({'ari': adjusted_rand_score(truth.ravel(), labels.ravel()), 'dtype': str(labels.dtype), 'sizes': f['sizes'][()].tolist(),
+  'worst': worst, 'inertia': float(f.attrs['inertia']), 'passes': float(f.attrs['passes_over_data'])}))`, out, demo], { encoding: 'utf8', maxBuffer: 1 << 26 });
+  expect(p.status, p.stderr).toBe(0);
+  const got = JSON.parse(p.stdout);
+  console.log(`demo, kmeans 5 clusters on sqrt-scaled patterns: adjusted Rand index ${got.ari.toFixed(4)} against the grain map; sizes ${got.sizes.join(', ')}`);
+  // reference: the generator's /truth/grain_map, scored by sklearn.metrics.adjusted_rand_score
+  expect(got.ari).toBeGreaterThan(0.9);
+  expect(got.dtype).toBe('int32');
+  // reference: NumPy's mean over the positions of each label
+  expect(got.worst).toBeLessThan(1e-12);
+  expect(got.passes).toBe(4);
+});
