@@ -50,6 +50,16 @@ export function runPcaBenchmark(opts: { h5: string; shape: number[]; workers: nu
       const worst = Math.max(...skS.slice(0, 10).map((s, i) => Math.abs(oursS[i] / s - 1)));
       console.log(`ratio ${(sk.seconds / ours.seconds).toFixed(2)}× faster; top-10 singular values within ${(100 * worst).toFixed(4)} % of scikit-learn's`);
     }
+    // k-means on the first 10 components, 6 clusters, against PCA(10) + KMeans(6) in scikit-learn.
+    const km = measured(process.execPath, [cli, 'kmeans', opts.h5, '--dataset', '/scan/frames', '--clusters', '6', '--bin', '2', '--bad-pixels', 'none',
+      '--workers', String(opts.workers), '--quiet', '--out', path.join(dir, 'k.h5')], env);
+    const kmInertia = Number(spawnSync(PY, ['-c', 'import h5py,sys; print(h5py.File(sys.argv[1]).attrs["inertia"])', path.join(dir, 'k.h5')], { encoding: 'utf8' }).stdout);
+    console.log(`\nk-means, 6 clusters on 10 components, bin 2: scanfold kmeans (PCA 2 passes + cluster patterns 1 pass) | ${km.seconds.toFixed(2)} s | peak RSS ${km.peakMiB.toFixed(0)} MiB | inertia ${kmInertia.toPrecision(6)}`);
+    if (fs.existsSync(PY)) {
+      const skk = measured(PY, [path.join(projectRoot(), 'bench/sklearn_kmeans.py'), opts.h5, '/scan/frames', '6'], npEnv);
+      const sk = JSON.parse(skk.stdout.trim().split('\n').at(-1)!) as { inertia: number };
+      console.log(`h5py + scikit-learn PCA(10) + KMeans(6) | ${skk.seconds.toFixed(2)} s | peak RSS ${skk.peakMiB.toFixed(0)} MiB | inertia ${sk.inertia.toPrecision(6)}; ratio ${(skk.seconds / km.seconds).toFixed(2)}× faster (ours also writes every cluster's full-resolution mean pattern)`);
+    }
     // The products of one pass, per thread: Y = C·Z and W = Cᵀ·Y for a block of 1024 × 4096 against 4096 × 32.
     const n = 1024, d = 4096, l = 32;
     const k = createWasmSketchKernel(loadWasmModule('sketch'));

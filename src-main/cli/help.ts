@@ -154,8 +154,8 @@ ${SOURCE}
 ${ENGINE}`,
 
   kmeans: `scanfold kmeans FILE [source flags] --clusters K [flags] --out OUT.h5 [engine flags]
-  k-means of every pattern on its first principal components (a streamed PCA, then one more pass
-  for the clusters' mean patterns): /labels (int32, scan_y × scan_x), /centers (k × components),
+  k-means of every pattern on its first principal components (a streamed PCA of 2 passes, then one
+  more for the clusters' mean patterns): /labels (int32, scan_y × scan_x), /centers (k × components),
   /cluster_patterns (k, det_y, det_x: each cluster's mean pattern), /sizes; inertia and every
   choice in attributes.
 
@@ -163,7 +163,8 @@ ${ENGINE}`,
   --features pca:N        cluster each position's coordinates along the first N components (default pca:10)
   --restarts R            k-means++ starts; the lowest inertia is kept (default 10)
   --seed S                seed of the PCA sketch and of the starts (default 0)
-  --power-iterations Q    of the PCA (default 2)
+  --power-iterations Q    of the PCA (default 1: clustering needs the leading components, not
+                          their last digits; each iteration reads the data once more)
   --bin, --crop, --scaling, --normalize, --bad-pixels
                           how patterns become vectors, as for pca (scanfold pca --help)
 ${OUT}

@@ -549,7 +549,8 @@ export class EngineService implements ScanfoldService {
       const f = req.pcaComponents ?? 10;
       const pca = await this.runPca(r, {
         dataset: req.dataset, components: f, bin: req.bin, crop: req.crop, scaling: req.scaling, normalize: req.normalize, badPixels: req.badPixels,
-        seed: req.seed, powerIterations: req.powerIterations, ...(req.jobId ? { jobId: `${req.jobId}/pca` } : {}),
+        // One power iteration: clustering needs the leading subspace, not its last digits (one read fewer).
+        seed: req.seed, powerIterations: req.powerIterations ?? 1, ...(req.jobId ? { jobId: `${req.jobId}/pca` } : {}),
       });
       // Each position's coordinates along the components found: n × k.
       const k = pca.k;

@@ -289,7 +289,7 @@ export interface KmeansRequest extends JobOptions, FeatureOptions {
   restarts?: number;
   /** Seed of the PCA sketch and of the starts (default 0). */
   seed?: number;
-  /** Power iterations of the PCA (default 2). */
+  /** Power iterations of the PCA (default 1: the leading subspace is what clustering needs). */
   powerIterations?: number;
 }
 
