@@ -5,7 +5,7 @@ import { spawnSync } from 'node:child_process';
 import fs from 'node:fs';
 
 const PYTHON = '/usr/bin/python3';
-const MODULES = [['numpy', 'python3-numpy'], ['h5py', 'python3-h5py'], ['hdf5plugin', 'python3-hdf5plugin']];
+const MODULES = [['numpy', 'python3-numpy'], ['h5py', 'python3-h5py'], ['hdf5plugin', 'python3-hdf5plugin'], ['sklearn', 'python3-sklearn'], ['scipy', 'python3-scipy']];
 
 function missing() {
   if (!fs.existsSync(PYTHON)) return MODULES.map(([, pkg]) => pkg).concat('python3');

@@ -173,6 +173,24 @@ ${SOURCE}
 
 ${ENGINE}`,
 
+  fit: `scanfold fit FILE [source flags] --reference-region X0,Y0,X1,Y1 [...] [flags] --out OUT.h5 [engine flags]
+  Every pattern fitted as a least-squares combination of reference patterns, each the mean pattern
+  of a region of the scan (two passes): /coefficients (r, scan_y, scan_x: the weight of each
+  reference), /residual (scan_y, scan_x: ‖pattern − fit‖ / ‖pattern‖, where no reference
+  explains what is there), /references (r, det_y', det_x').
+
+  --reference-region X0,Y0,X1,Y1
+                          scan positions (x column, y row, inclusive) whose mean pattern is a
+                          reference; repeat for each reference (1 to 16)
+  --nonnegative           weights ≥ 0 (Lawson & Hanson's non-negative least squares)
+  --bin, --crop, --scaling, --normalize, --bad-pixels
+                          how patterns become vectors, as for pca (scanfold pca --help)
+${OUT}
+
+${SOURCE}
+
+${ENGINE}`,
+
   sample: `scanfold sample [--size tiny|demo|large] --out FILE.h5 [--seed N]
   Write a demo dataset of our own synthetic scenario (ground truth under /truth).
   --size                  tiny, demo (default; 64×64 × 96×96) or large (256×256 × 128×128, 2 GiB)
@@ -199,6 +217,7 @@ commands:
   pattern    mean and max pattern over a region of the scan
   pca        principal components of all patterns (randomized SVD, out of core)
   kmeans     clusters of all patterns (k-means on principal components) and their mean patterns
+  fit        every pattern as a combination of reference patterns, with the residual
   sample     write a demo dataset of our own synthetic scenario
   demo       make the demo dataset and run the first pass over it
 

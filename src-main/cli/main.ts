@@ -16,7 +16,7 @@ import { writeSample, SAMPLE_SIZES } from '../../samples/write-sample';
 import { projectRoot } from '../engine/paths';
 import { COMMAND_HELP, OVERVIEW } from './help';
 import { SCANFOLD_VERSION } from '../engine/version';
-import { cmdKmeans, cmdPca } from './statistics-commands';
+import { cmdFit, cmdKmeans, cmdPca } from './statistics-commands';
 import { cmdCalibrate, cmdCom, cmdImage, badPixelAttrs, cmdPattern, noteNonFiniteResults, openProtected, provenance, withService, writeResults } from './analysis-commands';
 import type { EngineService } from '../engine/service';
 
@@ -200,7 +200,8 @@ export async function main(argv: string[]): Promise<number> {
       case 'pattern': await cmdPattern(rest, engineOptions, ENGINE_OPTIONS); break;
       case 'pca': await cmdPca(rest, engineOptions, ENGINE_OPTIONS); break;
       case 'kmeans': await cmdKmeans(rest, engineOptions, ENGINE_OPTIONS); break;
-      default: throw new InputError(`unknown command "${cmd}"; expected info, summary, image, com, calibrate, pattern, pca, kmeans, sample or demo (see scanfold --help; benchmarks: npm run bench)`);
+      case 'fit': await cmdFit(rest, engineOptions, ENGINE_OPTIONS); break;
+      default: throw new InputError(`unknown command "${cmd}"; expected info, summary, image, com, calibrate, pattern, pca, kmeans, fit, sample or demo (see scanfold --help; benchmarks: npm run bench)`);
     }
     return 0;
   } catch (e) {

@@ -1,7 +1,7 @@
 // `scanfold pca`: flags → one request to the engine service → files. The features, the
 // randomized SVD and its passes are the service's; this file only parses, asks and writes.
 import { InputError } from '../../src-shared/model/errors';
-import type { KmeansRequest, PcaRequest } from '../../src-shared/contract/service';
+import type { FitRequest, KmeansRequest, PcaRequest } from '../../src-shared/contract/service';
 import type { EngineOptions } from '../engine/engine';
 import { badPixelAttrs, noteNonFiniteResults, openProtected, provenance, withService, writeResults } from './analysis-commands';
 import { outputFlag, parseFlags, rectangleFlag, rejectExtraPositionals, SOURCE_OPTIONS, sourceSpecFromFlags, wholeNumber } from './source-flags';
@@ -133,6 +133,46 @@ export async function cmdKmeans(args: string[], engineOptions: (v: Record<string
     noteNonFiniteResults(written, ' (an empty cluster has a NaN mean pattern)');
     if (v.quiet !== true) {
       process.stderr.write(`wrote ${written.path}: ${r.k} clusters of ${Array.from(r.sizes).join(', ')} positions; inertia ${r.inertia.toPrecision(6)} on ${f.components} principal components\n`);
+    }
+  }, out);
+}
+
+export async function cmdFit(args: string[], engineOptions: (v: Record<string, unknown>) => EngineOptions, engineFlags: EngineFlags): Promise<void> {
+  const parsed = parseFlags(args, {
+    ...SOURCE_OPTIONS, ...engineFlags, ...FEATURE_FLAGS, out: { type: 'string' }, 'reference-region': { type: 'string', multiple: true }, nonnegative: { type: 'boolean' },
+  });
+  const v = parsed.values as Flags;
+  rejectExtraPositionals(parsed.positionals, 'fit');
+  const spec = sourceSpecFromFlags(parsed.positionals[0], v as Record<string, unknown>);
+  const given = v['reference-region'];
+  const list = Array.isArray(given) ? given : typeof given === 'string' ? [given] : [];
+  if (list.length === 0) throw new InputError('fit needs at least one --reference-region X0,Y0,X1,Y1 (scan positions whose mean pattern is a reference; repeat it for more)');
+  const references = list.map((s) => ({ kind: 'rectangle' as const, ...rectangleFlag('reference-region', String(s)) }));
+  const features = featureOptions(v);
+  const out = outputFlag(v.out, 'fit', [spec.path]);
+  await withService(engineOptions(v as Record<string, unknown>), v.quiet === true, async (service) => {
+    const opened = await openProtected(service, spec, out, { scan: references.length + 1, pattern: references.length });
+    const { scanY, scanX } = opened.descriptor.shape;
+    const request: FitRequest = { dataset: opened.id, references, ...features, ...(v.nonnegative === true ? { nonnegative: true } : {}) };
+    const r = await service.fit(request);
+    const f = r.features;
+    const written = await writeResults(service, out, {
+      coefficients: { data: r.coefficients, shape: [r.r, scanY, scanX], dims: ['reference', 'scan_y', 'scan_x'], attrs: { units: 'weight of the reference (1 = the reference itself)' } },
+      residual: { data: r.residual, shape: [scanY, scanX], dims: ['scan_y', 'scan_x'], attrs: { units: 'relative residual norm ‖f − Σ c_i r_i‖ / ‖f‖' } },
+      references: { data: r.references, shape: [r.r, f.outY, f.outX], dims: ['reference', 'det_y_binned', 'det_x_binned'], attrs: { units: 'feature units (after scaling)', note: 'NaN where a detector bin was left out' } },
+    }, {
+      references: r.r, reference_regions: JSON.stringify(r.regions), reference_positions: JSON.stringify(r.counts), nonnegative: r.nonnegative ? 'yes' : 'no',
+      bin: f.bin, crop_x0_y0_x1_y1: JSON.stringify([f.crop.x0, f.crop.y0, f.crop.x1, f.crop.y1]), features: f.nFeatures, bins_left_out: f.binsLeftOut,
+      scaling: f.scaling, normalize: f.normalize ? 'yes' : 'no', bad_pixels: f.badPixels, zero_total_patterns: r.zeroPatterns, passes_over_data: 2,
+      method: r.nonnegative ? 'non-negative least squares on the normal equations (Lawson & Hanson active set)' : 'linear least squares on the normal equations (Cholesky)',
+      ...provenance(r.descriptor, 'scanfold fit', request), ...badPixelAttrs(r.badPixels),
+    });
+    const expectedNaN = { references: f.binsLeftOut * r.r };
+    if (Object.entries(written.nonFiniteResults).some(([name, count]) => count !== (expectedNaN as Record<string, number>)[name])) noteNonFiniteResults(written);
+    if (v.quiet !== true) {
+      let mean = 0;
+      for (const x of r.residual) mean += x;
+      process.stderr.write(`wrote ${written.path}: ${r.r} reference(s) fitted to every pattern; mean relative residual ${(mean / r.residual.length).toFixed(4)}\n`);
     }
   }, out);
 }

@@ -9,7 +9,7 @@ import type { Job } from './job';
 import { WorkerPool } from './worker-pool';
 import type { FirstPassComPlan, KernelKind } from '../workers/tile-worker';
 import { inspectSource, type Inspection } from '../io/index';
-import { startPca, type PcaJobResult } from './statistics';
+import { startPca, startReferenceFit, type FitJobResult, type PcaJobResult } from './statistics';
 import type { FeaturePlan } from '../../src-shared/compute/pattern-features';
 import type { PcaOptions } from '../../src-shared/compute/pca';
 
@@ -83,6 +83,11 @@ export class Engine {
   /** PCA of every pattern's feature vector by randomized SVD (q + 1 passes). */
   pca(spec: SourceSpec, plan: FeaturePlan, options: PcaOptions): Job<PcaJobResult> {
     return this.track(startPca(this.pool, spec, plan, options, this.limits, this.kernel));
+  }
+
+  /** Reference fit of every pattern to the mean feature vectors of the given regions (two passes). */
+  referenceFit(spec: SourceSpec, plan: FeaturePlan, regions: Uint8Array[], nonnegative: boolean): Job<FitJobResult> {
+    return this.track(startReferenceFit(this.pool, spec, plan, regions, nonnegative, this.limits, this.kernel));
   }
 
   /** The mean pattern of every cluster (labels: one per scan position, 0 … k − 1). */

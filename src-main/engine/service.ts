@@ -8,7 +8,7 @@ import { CancelledError, InputError, isInputError } from '../../src-shared/model
 import type { JobInfo } from '../../src-shared/contract/jobs';
 import type {
   BadPixels, BadPixelsMode, BrightFieldDisk, CalibrationRequest, CalibrationResult, ComFieldRequest, ComFieldResult,
-  DatasetId, FirstPassRequest, FirstPassResult, Inspection, KmeansRequest, KmeansResult, OpenedDataset, PatternAtRequest, PatternAtResult, PcaRequest, PcaResult,
+  DatasetId, FeatureOptions, FirstPassRequest, FirstPassResult, FitRequest, FitResult, Inspection, KmeansRequest, KmeansResult, OpenedDataset, PatternAtRequest, PatternAtResult, PcaRequest, PcaResult,
   PreviewImagesRequest, PreviewImagesResult, RegionPatternRequest, RegionPatternResult, ScanfoldService, ServiceEvent,
   VirtualImagesRequest, VirtualImagesResult,
 } from '../../src-shared/contract/service';
@@ -505,37 +505,71 @@ export class EngineService implements ScanfoldService {
   }
 
   private async runPca(r: DatasetRecord, req: PcaRequest): Promise<PcaResult> {
-    {
-      const d = r.opened.descriptor;
-      const { scanY, scanX, detY, detX } = d.shape;
-      const scaling = req.scaling ?? 'none';
-      const badMode = req.badPixels ?? 'auto';
-      const bin = req.bin === undefined || req.bin === 'auto' ? autoFeatureBin(detY, detX, req.crop) : req.bin;
-      // Bad pixels and Poisson weighting's mean pattern come from the first pass.
-      const first = badMode === 'auto' || scaling === 'poisson'
-        ? await this.ensureFirstPass(r, req.jobId ? `${req.jobId}/first-pass` : undefined, 'first pass') : null;
-      const plan = aboutFile(d.path, () => planFeatures({ bin, crop: req.crop, scaling, normalize: req.normalize ?? false }, detY, detX,
-        badMode === 'auto' ? first!.badPixels.mask : null, first?.meanPattern ?? null));
-      const n = scanY * scanX;
-      if (req.components > Math.min(n, plan.nFeatures)) {
-        throw new InputError(`${d.path}: ${req.components} components asked for, but the data have ${n} patterns of ${plan.nFeatures} features ` +
-          `(${plan.outY}×${plan.outX} bins${plan.binsLeftOut ? `, ${plan.binsLeftOut} left out` : ''}); expected at most ${Math.min(n, plan.nFeatures)}`, 'bad-request');
-      }
-      const options = { components: req.components, oversample: req.oversample ?? 10, powerIterations: req.powerIterations ?? 2, seed: req.seed ?? 0 };
-      const job = await this.track(this.engine.pca(specOf(r), plan, options), req.jobId, 'PCA');
-      const p = job.pca;
-      const bins = plan.outY * plan.outX;
-      const components = new Float64Array(p.k * bins);
-      for (let c = 0; c < p.k; c++) components.set(featuresToImage(p.components.subarray(c * plan.nFeatures, (c + 1) * plan.nFeatures), plan), c * bins);
-      return {
-        dataset: r.id, descriptor: job.descriptor, k: p.k, singularValues: p.singularValues, explainedVarianceRatio: p.explainedVarianceRatio,
-        totalVariance: p.totalVariance, components, loadings: p.loadings, meanPattern: featuresToImage(p.mean, plan),
-        features: { bin: plan.bin, crop: plan.crop, outY: plan.outY, outX: plan.outX, nFeatures: plan.nFeatures, binsLeftOut: plan.binsLeftOut, scaling, normalize: plan.normalize, badPixels: badMode },
-        method: { oversample: options.oversample, sketch: p.sketch, powerIterations: options.powerIterations, seed: options.seed, passes: p.passes, totalVarianceFrom: p.totalVarianceFrom },
-        ...(first && badMode === 'auto' ? { badPixels: { hot: first.badPixels.hot, dead: first.badPixels.dead } } : {}),
-        zeroPatterns: job.zeroPatterns, seconds: job.seconds,
-      };
+    const d = r.opened.descriptor;
+    const { scanY, scanX } = d.shape;
+    const { plan, features, badPixels } = await this.featurePlan(r, req);
+    const n = scanY * scanX;
+    if (req.components > Math.min(n, plan.nFeatures)) {
+      throw new InputError(`${d.path}: ${req.components} components asked for, but the data have ${n} patterns of ${plan.nFeatures} features ` +
+        `(${plan.outY}×${plan.outX} bins${plan.binsLeftOut ? `, ${plan.binsLeftOut} left out` : ''}); expected at most ${Math.min(n, plan.nFeatures)}`, 'bad-request');
     }
+    const options = { components: req.components, oversample: req.oversample ?? 10, powerIterations: req.powerIterations ?? 2, seed: req.seed ?? 0 };
+    const job = await this.track(this.engine.pca(specOf(r), plan, options), req.jobId, 'PCA');
+    const p = job.pca;
+    const bins = plan.outY * plan.outX;
+    const components = new Float64Array(p.k * bins);
+    for (let c = 0; c < p.k; c++) components.set(featuresToImage(p.components.subarray(c * plan.nFeatures, (c + 1) * plan.nFeatures), plan), c * bins);
+    return {
+      dataset: r.id, descriptor: job.descriptor, k: p.k, singularValues: p.singularValues, explainedVarianceRatio: p.explainedVarianceRatio,
+      totalVariance: p.totalVariance, components, loadings: p.loadings, meanPattern: featuresToImage(p.mean, plan),
+      features,
+      method: { oversample: options.oversample, sketch: p.sketch, powerIterations: options.powerIterations, seed: options.seed, passes: p.passes, totalVarianceFrom: p.totalVarianceFrom },
+      ...(badPixels ? { badPixels } : {}),
+      zeroPatterns: job.zeroPatterns, seconds: job.seconds,
+    };
+  }
+
+  /** The feature plan of a request (bad pixels and Poisson's mean pattern from the first pass). */
+  private async featurePlan(r: DatasetRecord, req: FeatureOptions & { jobId?: string }) {
+    const d = r.opened.descriptor;
+    const { detY, detX } = d.shape;
+    const scaling = req.scaling ?? 'none';
+    const badMode = req.badPixels ?? 'auto';
+    const bin = req.bin === undefined || req.bin === 'auto' ? autoFeatureBin(detY, detX, req.crop) : req.bin;
+    const first = badMode === 'auto' || scaling === 'poisson'
+      ? await this.ensureFirstPass(r, req.jobId ? `${req.jobId}/first-pass` : undefined, 'first pass') : null;
+    const plan = aboutFile(d.path, () => planFeatures({ bin, crop: req.crop, scaling, normalize: req.normalize ?? false }, detY, detX,
+      badMode === 'auto' ? first!.badPixels.mask : null, first?.meanPattern ?? null));
+    const features: PcaResult['features'] = { bin: plan.bin, crop: plan.crop, outY: plan.outY, outX: plan.outX, nFeatures: plan.nFeatures, binsLeftOut: plan.binsLeftOut, scaling, normalize: plan.normalize, badPixels: badMode };
+    const badPixels = first && badMode === 'auto' ? { hot: first.badPixels.hot, dead: first.badPixels.dead } : undefined;
+    return { plan, features, badPixels };
+  }
+
+  async fit(req: FitRequest): Promise<FitResult> {
+    validateRequest('fit', req);
+    return this.request(req.jobId, async () => {
+      const r = this.record(req.dataset);
+      const d = r.opened.descriptor;
+      const { scanY, scanX } = d.shape;
+      const regions = aboutFile(d.path, () => req.references.map((shape) => compileRegion(shape, scanY, scanX)));
+      const { plan, features, badPixels } = await this.featurePlan(r, req);
+      if (req.references.length > plan.nFeatures) {
+        throw new InputError(`${d.path}: ${req.references.length} references for ${plan.nFeatures} features; expected at most as many references as features`, 'bad-request');
+      }
+      const job = await this.track(this.engine.referenceFit(specOf(r), plan, regions, req.nonnegative ?? false), req.jobId, 'reference fit');
+      const rr = req.references.length;
+      const n = scanY * scanX;
+      const coefficients = new Float64Array(rr * n);
+      for (let i = 0; i < n; i++) for (let c = 0; c < rr; c++) coefficients[c * n + i] = job.coefficients[i * rr + c];
+      const bins = plan.outY * plan.outX;
+      const references = new Float64Array(rr * bins);
+      for (let c = 0; c < rr; c++) references.set(featuresToImage(job.references.subarray(c * plan.nFeatures, (c + 1) * plan.nFeatures), plan), c * bins);
+      return {
+        dataset: r.id, descriptor: job.descriptor, r: rr, coefficients, residual: job.residual, references, counts: Array.from(job.counts),
+        regions: req.references.map((s) => describeRegion(s)), nonnegative: req.nonnegative ?? false, features,
+        ...(badPixels ? { badPixels } : {}), zeroPatterns: job.zeroPatterns, seconds: job.seconds,
+      };
+    });
   }
 
   async kmeans(req: KmeansRequest): Promise<KmeansResult> {

@@ -3,6 +3,7 @@ import { DTYPE_BYTES } from '../../src-shared/model/dtype';
 import { CancelledError, InputError } from '../../src-shared/model/errors';
 import type { FeaturePlan } from '../../src-shared/compute/pattern-features';
 import { randomizedPca, type PassSums, type PcaOptions, type PcaResult } from '../../src-shared/compute/pca';
+import { planFit } from '../../src-shared/compute/reference-fit';
 import { MiB, planTiles, type EngineLimits } from './budget';
 import { Job } from './job';
 import { runTiles } from './tile-runner';
@@ -119,6 +120,87 @@ export function startPca(pool: WorkerPool, spec: SourceSpec, plan: FeaturePlan, 
       throw new InputError(`${d.path}: every pattern has the same features (no variance), so there are no components; expected patterns that differ`, 'bad-input');
     }
     job.succeed({ descriptor: d, pca, zeroPatterns, seconds: (performance.now() - t0) / 1000 });
+  })().catch((e) => job.fail(e));
+  return job;
+}
+
+export interface FitJobResult {
+  descriptor: DatasetDescriptor;
+  /** r × D: each reference, the mean feature vector over its region. */
+  references: Float64Array;
+  /** Positions in each region. */
+  counts: Float64Array;
+  /** N × r: each position's weight of each reference. */
+  coefficients: Float64Array;
+  /** N: ‖f − Rᵀc‖ / ‖f‖ per position. */
+  residual: Float64Array;
+  zeroPatterns: number;
+  seconds: number;
+}
+
+/**
+ * The reference fit: one pass (over the tiles the regions touch) for each region's mean feature
+ * vector, then one pass fitting every pattern as a combination of them (see reference-fit.ts).
+ */
+export function startReferenceFit(pool: WorkerPool, spec: SourceSpec, plan: FeaturePlan, regions: Uint8Array[], nonnegative: boolean,
+  limits: EngineLimits, kernel: KernelKind): Job<FitJobResult> {
+  const job = new Job<FitJobResult>('reference-fit', `reference fit of ${spec.path}`, 0);
+  (async () => {
+    const t0 = performance.now();
+    const { descriptor: d, rowAlignment, memory } = await pool.run((w) => w.open(spec));
+    if (job.cancelled) return;
+    const { scanY, scanX, detY, detX } = d.shape;
+    const n = scanY * scanX, dim = plan.nFeatures, r = regions.length;
+    regions.forEach((m, i) => {
+      if (m.length !== n) throw new InputError(`reference region ${i + 1}: ${m.length} positions, but ${d.path} has ${n}`);
+      if (!m.some((v) => v !== 0)) throw new InputError(`reference region ${i + 1} holds no probe position; expected a region inside the ${scanY}×${scanX} scan`, 'bad-request');
+    });
+    const patternBytes = detY * detX * DTYPE_BYTES[d.dtype];
+    const featureCopies = 1 + (dim * 8) / patternBytes;
+    const reserved = n * (r + 1) * 8 * 2 + r * dim * 8 * (limits.workers + 3);
+    const tp = planTiles(d, { rowAlignment, memory: { ...memory, tileCopies: memory.tileCopies + featureCopies } }, limits, reserved);
+    const touched = tp.tiles.filter((t) => regions.some((m) => m.subarray(t.row0 * scanX, (t.row0 + t.nRows) * scanX).some((v) => v !== 0)));
+    job.bytesTotal = touched.reduce((s, t) => s + t.bytes, 0) + tp.tiles.reduce((s, t) => s + t.bytes, 0);
+    // Pass 1: each region's feature sums (added in scan order, so any tiling gives the same references).
+    const sums = new Float64Array(r * dim), counts = new Float64Array(r);
+    const parts = new Map<number, { sums: Float64Array; counts: Float64Array }>();
+    const order = touched.map((t) => t.row0);
+    let next = 0;
+    let nonFinite = 0;
+    await runTiles({
+      pool, job, spec: d.spec, tiles: touched,
+      compute: (w, tile) => {
+        const m = tile.nRows * scanX, at = tile.row0 * scanX;
+        const masks = new Uint8Array(r * m);
+        regions.forEach((reg, i) => masks.set(reg.subarray(at, at + m), i * m));
+        return w.regionFeatureSumsTile(d.spec, tile.row0, tile.nRows, plan, kernel, masks, r);
+      },
+      merge: (p, tile) => {
+        nonFinite += p.nonFinite;
+        parts.set(tile.row0, p);
+        for (let q = parts.get(order[next]); q; q = parts.get(order[next])) {
+          for (let i = 0; i < sums.length; i++) sums[i] += q.sums[i];
+          for (let i = 0; i < r; i++) counts[i] += q.counts[i];
+          parts.delete(order[next++]);
+        }
+      },
+    });
+    if (job.cancelled) return;
+    if (nonFinite > 0) throw new InputError(`${d.path}: the data hold ${nonFinite} NaN or ±Inf value(s) inside the features; expected finite data for the fit`, 'bad-input');
+    const references = sums.map((v, i) => v / counts[Math.floor(i / dim)]);
+    const fit = planFit(references, r, dim);
+    // Pass 2: every pattern, written by the workers into shared arrays.
+    const coefficients = new Float64Array(new SharedArrayBuffer(n * r * 8));
+    const residual = new Float64Array(new SharedArrayBuffer(n * 8));
+    let zeroPatterns = 0;
+    await runTiles({
+      pool, job, spec: d.spec, tiles: tp.tiles,
+      compute: (w, tile) => w.fitTile(d.spec, tile.row0, tile.nRows, plan, kernel, fit, nonnegative, coefficients, residual),
+      merge: (p) => { nonFinite += p.nonFinite; zeroPatterns += p.zeroPatterns; },
+    });
+    if (job.cancelled) return;
+    if (nonFinite > 0) throw new InputError(`${d.path}: the data hold ${nonFinite} NaN or ±Inf value(s) inside the features; expected finite data for the fit`, 'bad-input');
+    job.succeed({ descriptor: d, references, counts, coefficients: Float64Array.from(coefficients), residual: Float64Array.from(residual), zeroPatterns, seconds: (performance.now() - t0) / 1000 });
   })().catch((e) => job.fail(e));
   return job;
 }

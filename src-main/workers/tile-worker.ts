@@ -18,6 +18,7 @@ import { createWasmComKernel } from '../../src-shared/compute/com-wasm';
 import { accumulateClusterSums, accumulateRegionPatterns } from '../../src-shared/compute/region-pattern';
 import { binsAlignWithCrop, featuresFromBins, patternFeatures, type FeaturePlan } from '../../src-shared/compute/pattern-features';
 import { rangeBlock } from '../../src-shared/compute/randomized-svd';
+import { fitRows, type FitPlan } from '../../src-shared/compute/reference-fit';
 import { createWasmSketchKernel, type SketchKernel } from '../../src-shared/compute/sketch-wasm';
 import { openTileSource, type TileSource } from '../io/index';
 import type { ReaderMemory } from '../io/tile-source';
@@ -101,6 +102,8 @@ export type PcaTileReply = {
 
 export type ClusterTileReply = { sums: Float64Array; counts: Float64Array; nonFinite: number } & TileTiming;
 
+export type FeatureSumsReply = { sums: Float64Array; counts: Float64Array; nonFinite: number } & TileTiming;
+
 export type RegionTileReply = { sum: Float64Array; max: Float64Array; count: number; nonFinite: number } & TileTiming;
 
 /**
@@ -181,6 +184,32 @@ let sketch: SketchKernel | null = null;
 function sketchKernel(): SketchKernel {
   sketch ??= createWasmSketchKernel(loadWasmModule('sketch'));
   return sketch;
+}
+
+/** The feature vectors of a tile's patterns (nPatterns × nFeatures, in a reused scratch array). */
+function featuresOfTile(src: TileSource, row0: number, nRows: number, plan: FeaturePlan, kernel: KernelKind) {
+  const { dtype, shape } = src.descriptor;
+  const nPix = shape.detY * shape.detX;
+  const nPatterns = nRows * shape.scanX;
+  const nElements = nPatterns * nPix;
+  const t0 = performance.now();
+  const viaBins = kernel === 'wasm' && SMALL_INTEGER_DTYPES.has(dtype) && binsAlignWithCrop(plan);
+  const fk = viaBins ? kernelFor<FirstPassKernel>('first-pass', { kernel: 'wasm', maxTileBytes: nElements * DTYPE_BYTES[dtype] }) : null;
+  const raw = fk ? fk.tileBuffer(dtype, nElements) : scratch('feature-raw', dtype, nElements);
+  src.readRows(row0, nRows, raw);
+  const readMs = performance.now() - t0;
+  const t1 = performance.now();
+  const features = scratch('features', 'float64', nPatterns * plan.nFeatures) as Float64Array;
+  let f: { nonFinite: number; zeroPatterns: number };
+  if (fk) {
+    const pY = Math.ceil(shape.detY / plan.bin), pX = Math.ceil(shape.detX / plan.bin);
+    const bins = fk.run(dtype, nRows, { scanX: shape.scanX, detY: shape.detY, detX: shape.detX, detBin: plan.bin, scanBin: 1 },
+      { preview: scratch('feature-bins', 'float32', nPatterns * pY * pX) as Float32Array, total: scratch('feature-totals', 'float64', nPatterns) as Float64Array }).preview;
+    f = { nonFinite: 0, ...featuresFromBins(bins, nPatterns, pY, pX, plan, features) };
+  } else {
+    f = patternFeatures(raw, nPatterns, plan, features);
+  }
+  return { features, ...f, readMs, computeMs: performance.now() - t1, rawBytes: nElements * DTYPE_BYTES[dtype] };
 }
 
 /** Buffers a worker reuses between tiles of plain-TypeScript work (grown, never shrunk; dropped with the kernels). */
@@ -377,6 +406,38 @@ const api = {
     const { nonFinite } = accumulateClusterSums(raw, nRows * shape.scanX, pixels, labels, k, sums, counts);
     const reply: ClusterTileReply = { sums, counts, nonFinite, row0, nRows, bytes: raw.byteLength, readMs, computeMs: performance.now() - t1 };
     return Comlink.transfer(reply, [sums.buffer, counts.buffer]);
+  },
+
+  /** Sums of the feature vectors of the positions in each of r regions (masks r × the tile's positions), and their counts. */
+  async regionFeatureSumsTile(spec: SourceSpec, row0: number, nRows: number, plan: FeaturePlan, kernel: KernelKind, masks: Uint8Array, r: number): Promise<FeatureSumsReply> {
+    const src = await sourceFor(spec);
+    const f = featuresOfTile(src, row0, nRows, plan, kernel);
+    const t1 = performance.now();
+    const n = nRows * src.descriptor.shape.scanX, d = plan.nFeatures;
+    const sums = new Float64Array(r * d), counts = new Float64Array(r);
+    for (let i = 0; i < r; i++) {
+      for (let p = 0; p < n; p++) {
+        if (!masks[i * n + p]) continue;
+        counts[i]++;
+        for (let x = 0; x < d; x++) sums[i * d + x] += f.features[p * d + x];
+      }
+    }
+    const reply: FeatureSumsReply = { sums, counts, nonFinite: f.nonFinite, row0, nRows, bytes: f.rawBytes, readMs: f.readMs, computeMs: f.computeMs + performance.now() - t1 };
+    return Comlink.transfer(reply, [sums.buffer, counts.buffer]);
+  },
+
+  /** The reference fit of every pattern of rows [row0, row0+nRows), written into the shared coefficient (N × r) and residual (N) arrays. */
+  async fitTile(spec: SourceSpec, row0: number, nRows: number, plan: FeaturePlan, kernel: KernelKind, fit: FitPlan, nonnegative: boolean,
+    coefficients: Float64Array, residual: Float64Array): Promise<{ nonFinite: number; zeroPatterns: number } & TileTiming> {
+    const src = await sourceFor(spec);
+    const f = featuresOfTile(src, row0, nRows, plan, kernel);
+    const t1 = performance.now();
+    const n = nRows * src.descriptor.shape.scanX;
+    const at = row0 * src.descriptor.shape.scanX;
+    const r = fitRows(f.features, n, fit, nonnegative);
+    coefficients.set(r.coefficients, at * fit.r);
+    residual.set(r.residual, at);
+    return { nonFinite: f.nonFinite, zeroPatterns: f.zeroPatterns, row0, nRows, bytes: f.rawBytes, readMs: f.readMs, computeMs: f.computeMs + performance.now() - t1 };
   },
 
   /** Sum and max pattern over the selected positions of rows [row0, row0+nRows). */

@@ -313,6 +313,36 @@ export interface KmeansResult {
   seconds: number;
 }
 
+export interface FitRequest extends JobOptions, FeatureOptions {
+  dataset: DatasetId;
+  /** Regions of the scan whose mean patterns are the references (1 to 16). */
+  references: RegionShape[];
+  /** Weights constrained to be ≥ 0 (default false). */
+  nonnegative?: boolean;
+}
+
+export interface FitResult {
+  dataset: DatasetId;
+  descriptor: DatasetDescriptor;
+  /** Number of references. */
+  r: number;
+  /** r × scanY × scanX: each position's weight of each reference. */
+  coefficients: Float64Array;
+  /** scanY × scanX: ‖f − Σ c_i r_i‖ / ‖f‖ per position, what no reference explains. */
+  residual: Float64Array;
+  /** r × outY × outX: each reference as a pattern on the binned detector (NaN where a bin was left out). */
+  references: Float64Array;
+  /** Positions in each reference region. */
+  counts: number[];
+  /** Each reference region, described. */
+  regions: string[];
+  nonnegative: boolean;
+  features: PcaResult['features'];
+  badPixels?: { hot: [number, number][]; dead: [number, number][] };
+  zeroPatterns: number;
+  seconds: number;
+}
+
 export type ServiceEvent =
   /** A job started, progressed, finished, failed or was cancelled. */
   | { kind: 'job'; job: JobInfo & { jobId: string } }
@@ -337,6 +367,8 @@ export interface ScanfoldService {
   pca(req: PcaRequest): Promise<PcaResult>;
   /** k-means of all patterns on their first principal components, and each cluster's mean pattern. */
   kmeans(req: KmeansRequest): Promise<KmeansResult>;
+  /** Every pattern fitted as a least-squares combination of the mean patterns of chosen regions. */
+  fit(req: FitRequest): Promise<FitResult>;
 
   /** Fast requests, outside the job queue. */
   patternAt(req: PatternAtRequest): Promise<PatternAtResult>;
@@ -362,7 +394,7 @@ export interface ScanfoldService {
 /** The request methods, for generic transports and the validator. */
 export const SERVICE_METHODS = [
   'inspect', 'open', 'close', 'datasets', 'firstPass', 'virtualImages', 'comField', 'calibrate',
-  'regionPattern', 'pca', 'kmeans', 'patternAt', 'previewImages', 'filesRead', 'jobs', 'cancel', 'shutdown',
+  'regionPattern', 'pca', 'kmeans', 'fit', 'patternAt', 'previewImages', 'filesRead', 'jobs', 'cancel', 'shutdown',
 ] as const satisfies readonly (keyof ScanfoldService)[];
 
 export type ServiceMethod = (typeof SERVICE_METHODS)[number];
