@@ -147,6 +147,8 @@ method:
                           exact SVD at Q = 1 in our tests and within 8 % at Q = 0)
   --seed S                seed of the random sketch (default 0): the same input and seed give the
                           same output, whatever the workers or budget
+  --preview               a quick look: PCA of the preview cube (binned scan and detector, see
+                          --preview-budget) after the first pass, with no further read of the data
 ${OUT}
 
 ${SOURCE}
@@ -165,6 +167,7 @@ ${ENGINE}`,
   --seed S                seed of the PCA sketch and of the starts (default 0)
   --power-iterations Q    of the PCA (default 1: clustering needs the leading components, not
                           their last digits; each iteration reads the data once more)
+  --preview               a quick look: clusters of the preview cube, with no further read of the data
   --bin, --crop, --scaling, --normalize, --bad-pixels
                           how patterns become vectors, as for pca (scanfold pca --help)
 ${OUT}

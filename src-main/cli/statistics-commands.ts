@@ -40,7 +40,7 @@ function featureOptions(v: Flags): Pick<PcaRequest, 'bin' | 'crop' | 'scaling' |
 export async function cmdPca(args: string[], engineOptions: (v: Record<string, unknown>) => EngineOptions, engineFlags: EngineFlags): Promise<void> {
   const parsed = parseFlags(args, {
     ...SOURCE_OPTIONS, ...engineFlags, ...FEATURE_FLAGS, out: { type: 'string' }, components: { type: 'string' },
-    oversample: { type: 'string' }, 'power-iterations': { type: 'string' }, seed: { type: 'string' },
+    oversample: { type: 'string' }, 'power-iterations': { type: 'string' }, seed: { type: 'string' }, preview: { type: 'boolean' },
   });
   const v = parsed.values as Flags;
   rejectExtraPositionals(parsed.positionals, 'pca');
@@ -58,15 +58,18 @@ export async function cmdPca(args: string[], engineOptions: (v: Record<string, u
       ...(optional('oversample', 0) !== undefined ? { oversample: optional('oversample', 0) } : {}),
       ...(optional('power-iterations', 0) !== undefined ? { powerIterations: optional('power-iterations', 0) } : {}),
       ...(optional('seed', 0) !== undefined ? { seed: optional('seed', 0) } : {}),
+      ...(v.preview === true ? { preview: true } : {}),
     };
     const r = await service.pca(request);
     const f = r.features;
+    // A preview's loadings are per scan bin of the preview cube.
+    const [ly, lx] = r.preview ? [r.preview.qY, r.preview.qX] : [scanY, scanX];
     const written = await writeResults(service, out, {
       singular_values: { data: r.singularValues, shape: [r.k], dims: ['component'], attrs: { units: 'feature units (after scaling)' } },
       explained_variance_ratio: { data: r.explainedVarianceRatio, shape: [r.k], dims: ['component'], attrs: { units: 'fraction of the total variance' } },
       components: { data: r.components, shape: [r.k, f.outY, f.outX], dims: ['component', 'det_y_binned', 'det_x_binned'],
         attrs: { units: 'unit vector over the features', note: 'NaN where a detector bin was left out; each component\'s largest entry is positive' } },
-      loadings: { data: r.loadings, shape: [r.k, scanY, scanX], dims: ['component', 'scan_y', 'scan_x'], attrs: { units: 'feature units (coordinate along the component)' } },
+      loadings: { data: r.loadings, shape: [r.k, ly, lx], dims: ['component', r.preview ? 'scan_y_binned' : 'scan_y', r.preview ? 'scan_x_binned' : 'scan_x'], attrs: { units: 'feature units (coordinate along the component)' } },
       mean_pattern: { data: r.meanPattern, shape: [f.outY, f.outX], dims: ['det_y_binned', 'det_x_binned'], attrs: { units: 'feature units (after scaling)', note: 'NaN where a detector bin was left out' } },
     }, {
       components_found: r.k, total_variance: r.totalVariance, bin: f.bin, crop_x0_y0_x1_y1: JSON.stringify([f.crop.x0, f.crop.y0, f.crop.x1, f.crop.y1]),
@@ -74,6 +77,7 @@ export async function cmdPca(args: string[], engineOptions: (v: Record<string, u
       oversample: r.method.oversample, sketch_columns: r.method.sketch, power_iterations: r.method.powerIterations, seed: r.method.seed,
       passes_over_data: r.method.passes, total_variance_from: r.method.totalVarianceFrom, zero_total_patterns: r.zeroPatterns,
       method: 'randomized SVD of the mean-centred features (Halko, Martinsson & Tropp 2011)',
+      ...(r.preview ? { preview: 'yes: PCA of the preview cube, not of the full data', preview_scan_bin: r.preview.scanBin, preview_detector_bin: r.preview.detBin } : {}),
       ...provenance(r.descriptor, 'scanfold pca', request), ...badPixelAttrs(r.badPixels),
     });
     // Bins left out are NaN by design in /components and /mean_pattern; anything else is news.
@@ -82,7 +86,8 @@ export async function cmdPca(args: string[], engineOptions: (v: Record<string, u
     if (unexpected) noteNonFiniteResults(written, ' (bins left out are NaN in /components and /mean_pattern)');
     if (v.quiet !== true) {
       const top = Array.from(r.explainedVarianceRatio.slice(0, 5), (x) => `${(100 * x).toFixed(1)} %`).join(', ');
-      process.stderr.write(`wrote ${written.path}: ${r.k} components of ${f.outY}×${f.outX} bins (bin ${f.bin}), ${r.method.passes} passes; explained variance ${top}${r.k > 5 ? ', …' : ''}\n`);
+      const what = r.preview ? `a preview (preview cube binned ${r.preview.scanBin}× over the scan, ${r.preview.detBin}× on the detector), no pass over the data` : `${r.method.passes} passes`;
+      process.stderr.write(`wrote ${written.path}: ${r.k} components of ${f.outY}×${f.outX} bins (bin ${f.bin}), ${what}; explained variance ${top}${r.k > 5 ? ', …' : ''}\n`);
     }
   }, out);
 }
@@ -90,7 +95,7 @@ export async function cmdPca(args: string[], engineOptions: (v: Record<string, u
 export async function cmdKmeans(args: string[], engineOptions: (v: Record<string, unknown>) => EngineOptions, engineFlags: EngineFlags): Promise<void> {
   const parsed = parseFlags(args, {
     ...SOURCE_OPTIONS, ...engineFlags, ...FEATURE_FLAGS, out: { type: 'string' }, clusters: { type: 'string' }, features: { type: 'string' },
-    restarts: { type: 'string' }, seed: { type: 'string' }, 'power-iterations': { type: 'string' },
+    restarts: { type: 'string' }, seed: { type: 'string' }, 'power-iterations': { type: 'string' }, preview: { type: 'boolean' },
   });
   const v = parsed.values as Flags;
   rejectExtraPositionals(parsed.positionals, 'kmeans');
@@ -114,25 +119,31 @@ export async function cmdKmeans(args: string[], engineOptions: (v: Record<string
       ...(optional('restarts', 1) !== undefined ? { restarts: optional('restarts', 1) } : {}),
       ...(optional('seed', 0) !== undefined ? { seed: optional('seed', 0) } : {}),
       ...(optional('power-iterations', 0) !== undefined ? { powerIterations: optional('power-iterations', 0) } : {}),
+      ...(v.preview === true ? { preview: true } : {}),
     };
     const r = await service.kmeans(request);
     const f = r.features;
+    const pv = r.preview;
+    const [ly, lx, py, px] = pv ? [pv.qY, pv.qX, pv.pY, pv.pX] : [scanY, scanX, detY, detX];
     const written = await writeResults(service, out, {
-      labels: { data: r.labels, shape: [scanY, scanX], dims: ['scan_y', 'scan_x'], attrs: { units: 'cluster index, 0 … k − 1' } },
+      labels: { data: r.labels, shape: [ly, lx], dims: pv ? ['scan_y_binned', 'scan_x_binned'] : ['scan_y', 'scan_x'], attrs: { units: 'cluster index, 0 … k − 1' } },
       centers: { data: r.centers, shape: [r.k, f.components], dims: ['cluster', 'component'], attrs: { units: 'coordinates along the principal components (feature units)' } },
-      cluster_patterns: { data: r.clusterPatterns, shape: [r.k, detY, detX], dims: ['cluster', 'det_y', 'det_x'], attrs: { units: 'counts per pattern (mean over the cluster, full resolution)' } },
+      cluster_patterns: { data: r.clusterPatterns, shape: [r.k, py, px], dims: pv ? ['cluster', 'det_y_binned', 'det_x_binned'] : ['cluster', 'det_y', 'det_x'],
+        attrs: { units: pv ? 'counts per detector bin (mean over the cluster, preview cube)' : 'counts per pattern (mean over the cluster, full resolution)' } },
       sizes: { data: Float64Array.from(r.sizes), shape: [r.k], dims: ['cluster'], attrs: { units: 'probe positions' } },
     }, {
       clusters: r.k, inertia: r.inertia, iterations: r.iterations, restarts: r.method.restarts, restart_kept: r.method.restartKept, seed: r.method.seed,
       features_kind: 'pca', pca_components: f.components, pca_explained_variance: f.explainedVariance, pca_passes_over_data: r.method.pcaPasses,
-      passes_over_data: r.method.pcaPasses + 1,
+      passes_over_data: pv ? 0 : r.method.pcaPasses + 1,
       bin: f.bin, crop_x0_y0_x1_y1: JSON.stringify([f.crop.x0, f.crop.y0, f.crop.x1, f.crop.y1]), scaling: f.scaling, normalize: f.normalize ? 'yes' : 'no', bad_pixels: f.badPixels,
       method: 'k-means++ seeding (Arthur & Vassilvitskii 2007), Lloyd iterations, lowest inertia of the restarts',
+      ...(pv ? { preview: 'yes: clusters of the preview cube, not of the full data', preview_scan_bin: pv.scanBin, preview_detector_bin: pv.detBin } : {}),
       ...provenance(r.descriptor, 'scanfold kmeans', request), ...badPixelAttrs(r.badPixels),
     });
     noteNonFiniteResults(written, ' (an empty cluster has a NaN mean pattern)');
     if (v.quiet !== true) {
-      process.stderr.write(`wrote ${written.path}: ${r.k} clusters of ${Array.from(r.sizes).join(', ')} positions; inertia ${r.inertia.toPrecision(6)} on ${f.components} principal components\n`);
+      const where = pv ? ` (a preview: scan bins of ${pv.scanBin}×${pv.scanBin} positions from the preview cube, no pass over the data)` : ' positions';
+      process.stderr.write(`wrote ${written.path}: ${r.k} clusters of ${Array.from(r.sizes).join(', ')}${where}; inertia ${r.inertia.toPrecision(6)} on ${f.components} principal components\n`);
     }
   }, out);
 }

@@ -29,6 +29,7 @@ import { comDefaults, comFieldFromSums, comSumsLessBadPixels } from './com-field
 import { cacheKey, defaultCacheDir, readCachedFirstPass, writeCachedFirstPass, type CachedFirstPass } from './first-pass-cache';
 import { findVacuum, type VacuumFinding } from '../../src-shared/compute/vacuum';
 import { featuresToImage, planFeatures } from '../../src-shared/compute/pattern-features';
+import { previewPca } from './statistics';
 import { kmeans } from '../../src-shared/compute/kmeans';
 
 interface FirstResults extends CachedFirstPass {
@@ -504,7 +505,54 @@ export class EngineService implements ScanfoldService {
     return this.request(req.jobId, () => this.runPca(this.record(req.dataset), req));
   }
 
+  /**
+   * PCA of the preview cube (no read of the data): the cube's detector bins are the pixels the
+   * request's features bin again; its bins holding a bad pixel are left out.
+   */
+  private async runPreviewPca(r: DatasetRecord, req: PcaRequest): Promise<PcaResult> {
+    const t0 = performance.now();
+    const d = r.opened.descriptor;
+    const f = await this.ensureFirstPass(r, req.jobId ? `${req.jobId}/first-pass` : undefined, 'first pass', true);
+    const cube = f.summary!.preview;
+    const { detY, detX } = d.shape;
+    const scaling = req.scaling ?? 'none';
+    const badMode = req.badPixels ?? 'auto';
+    const cubeBad = new Uint8Array(cube.pY * cube.pX);
+    if (badMode === 'auto') {
+      for (let y = 0; y < detY; y++) for (let x = 0; x < detX; x++) if (f.badPixels.mask[y * detX + x]) cubeBad[Math.floor(y / cube.detBin) * cube.pX + Math.floor(x / cube.detBin)] = 1;
+    }
+    const crop = req.crop ? { x0: Math.floor(req.crop.x0 / cube.detBin), y0: Math.floor(req.crop.y0 / cube.detBin), x1: Math.floor(req.crop.x1 / cube.detBin), y1: Math.floor(req.crop.y1 / cube.detBin) } : undefined;
+    const bin = req.bin === undefined || req.bin === 'auto' ? autoFeatureBin(cube.pY, cube.pX, crop) : req.bin;
+    // The cube's mean over positions, per bin, for Poisson weighting.
+    let mean: Float64Array | null = null;
+    if (scaling === 'poisson') {
+      const data = cube.imager ? cube.imager.cube() : cube.data;
+      const per = cube.pY * cube.pX, q = cube.qY * cube.qX;
+      mean = new Float64Array(per);
+      for (let i = 0; i < q; i++) for (let j = 0; j < per; j++) mean[j] += data[i * per + j] / q;
+    }
+    const plan = aboutFile(d.path, () => planFeatures({ bin, crop, scaling, normalize: req.normalize ?? false }, cube.pY, cube.pX, badMode === 'auto' ? cubeBad : null, mean));
+    const n = cube.qY * cube.qX;
+    if (req.components > Math.min(n, plan.nFeatures)) {
+      throw new InputError(`${d.path}: ${req.components} components asked for, but the preview cube has ${n} positions of ${plan.nFeatures} features; expected at most ${Math.min(n, plan.nFeatures)}`, 'bad-request');
+    }
+    const options = { components: req.components, oversample: req.oversample ?? 10, powerIterations: req.powerIterations ?? 2, seed: req.seed ?? 0 };
+    const { pca: p, zeroPatterns } = await previewPca(cube, plan, options);
+    const bins = plan.outY * plan.outX;
+    const components = new Float64Array(p.k * bins);
+    for (let c = 0; c < p.k; c++) components.set(featuresToImage(p.components.subarray(c * plan.nFeatures, (c + 1) * plan.nFeatures), plan), c * bins);
+    return {
+      dataset: r.id, descriptor: d, k: p.k, singularValues: p.singularValues, explainedVarianceRatio: p.explainedVarianceRatio,
+      totalVariance: p.totalVariance, components, loadings: p.loadings, meanPattern: featuresToImage(p.mean, plan),
+      features: { bin: plan.bin, crop: plan.crop, outY: plan.outY, outX: plan.outX, nFeatures: plan.nFeatures, binsLeftOut: plan.binsLeftOut, scaling, normalize: plan.normalize, badPixels: badMode },
+      method: { oversample: options.oversample, sketch: p.sketch, powerIterations: options.powerIterations, seed: options.seed, passes: 0, totalVarianceFrom: p.totalVarianceFrom },
+      ...(badMode === 'auto' ? { badPixels: { hot: f.badPixels.hot, dead: f.badPixels.dead } } : {}),
+      zeroPatterns, preview: { qY: cube.qY, qX: cube.qX, scanBin: cube.scanBin, detBin: cube.detBin }, seconds: (performance.now() - t0) / 1000,
+    };
+  }
+
   private async runPca(r: DatasetRecord, req: PcaRequest): Promise<PcaResult> {
+    if (req.preview) return this.runPreviewPca(r, req);
     const d = r.opened.descriptor;
     const { scanY, scanX } = d.shape;
     const { plan, features, badPixels } = await this.featurePlan(r, req);
@@ -584,23 +632,38 @@ export class EngineService implements ScanfoldService {
       const pca = await this.runPca(r, {
         dataset: req.dataset, components: f, bin: req.bin, crop: req.crop, scaling: req.scaling, normalize: req.normalize, badPixels: req.badPixels,
         // One power iteration: clustering needs the leading subspace, not its last digits (one read fewer).
-        seed: req.seed, powerIterations: req.powerIterations ?? 1, ...(req.jobId ? { jobId: `${req.jobId}/pca` } : {}),
+        seed: req.seed, powerIterations: req.powerIterations ?? 1, ...(req.preview ? { preview: true } : {}), ...(req.jobId ? { jobId: `${req.jobId}/pca` } : {}),
       });
-      // Each position's coordinates along the components found: n × k.
+      // Each position's (or, for a preview, scan bin's) coordinates along the components found.
       const k = pca.k;
-      const points = new Float64Array(n * k);
-      for (let c = 0; c < k; c++) for (let i = 0; i < n; i++) points[i * k + c] = pca.loadings[c * n + i];
+      const m = pca.preview ? pca.preview.qY * pca.preview.qX : n;
+      const points = new Float64Array(m * k);
+      for (let c = 0; c < k; c++) for (let i = 0; i < m; i++) points[i * k + c] = pca.loadings[c * m + i];
       const restarts = req.restarts ?? 10, seed = req.seed ?? 0;
-      const km = aboutFile(d.path, () => kmeans(points, n, k, req.clusters, { restarts, seed, maxIterations: 300, tol: 1e-4 }));
-      const patterns = await this.track(this.engine.clusterPatterns(specOf(r), km.labels, req.clusters), req.jobId ? `${req.jobId}/cluster-patterns` : undefined, 'cluster patterns');
+      const km = aboutFile(d.path, () => kmeans(points, m, k, req.clusters, { restarts, seed, maxIterations: 300, tol: 1e-4 }));
+      let clusterPatterns: Float64Array;
+      let preview: KmeansResult['preview'];
+      if (pca.preview) {
+        // The mean cube row of each cluster, on the cube's binned detector.
+        const cube = r.first!.summary!.preview;
+        const data = cube.imager ? cube.imager.cube() : cube.data;
+        const per = cube.pY * cube.pX;
+        clusterPatterns = new Float64Array(req.clusters * per);
+        for (let i = 0; i < m; i++) for (let j = 0; j < per; j++) clusterPatterns[km.labels[i] * per + j] += data[i * per + j];
+        for (let c = 0; c < req.clusters; c++) for (let j = 0; j < per; j++) clusterPatterns[c * per + j] /= km.sizes[c];
+        preview = { qY: cube.qY, qX: cube.qX, pY: cube.pY, pX: cube.pX, scanBin: cube.scanBin, detBin: cube.detBin };
+      } else {
+        clusterPatterns = (await this.track(this.engine.clusterPatterns(specOf(r), km.labels, req.clusters), req.jobId ? `${req.jobId}/cluster-patterns` : undefined, 'cluster patterns')).means;
+      }
       let explained = 0;
       for (const x of pca.explainedVarianceRatio) explained += x;
       return {
-        dataset: r.id, descriptor: d, k: req.clusters, labels: km.labels, centers: km.centers, clusterPatterns: patterns.means,
+        dataset: r.id, descriptor: d, k: req.clusters, labels: km.labels, centers: km.centers, clusterPatterns,
         sizes: km.sizes, inertia: km.inertia, iterations: km.iterations,
         features: { ...pca.features, kind: 'pca', components: k, explainedVariance: explained },
         method: { restarts, seed, restartKept: km.restart, pcaPasses: pca.method.passes },
         ...(pca.badPixels ? { badPixels: pca.badPixels } : {}),
+        ...(preview ? { preview } : {}),
         seconds: (performance.now() - t0) / 1000,
       };
     });

@@ -4,6 +4,10 @@ import { CancelledError, InputError } from '../../src-shared/model/errors';
 import type { FeaturePlan } from '../../src-shared/compute/pattern-features';
 import { randomizedPca, type PassSums, type PcaOptions, type PcaResult } from '../../src-shared/compute/pca';
 import { planFit } from '../../src-shared/compute/reference-fit';
+import { patternFeatures } from '../../src-shared/compute/pattern-features';
+import { createWasmSketchKernel } from '../../src-shared/compute/sketch-wasm';
+import { loadWasmModule } from '../workers/wasm-loader';
+import type { PreviewCube } from './first-pass';
 import { MiB, planTiles, type EngineLimits } from './budget';
 import { Job } from './job';
 import { runTiles } from './tile-runner';
@@ -45,13 +49,17 @@ export function startPca(pool: WorkerPool, spec: SourceSpec, plan: FeaturePlan, 
     const patternBytes = detY * detX * DTYPE_BYTES[d.dtype];
     const rowBytes = scanX * patternBytes;
     const groupRows = Math.max(1, Math.min(scanY, Math.floor(GROUP_BYTES / rowBytes)));
-    // Per worker beside its tile: the tile's detector bins (float32) and the bin kernel's scratch
-    // (about one more tile), and a group's feature vectors (float64).
-    const featureCopies = 1 + (dim * 8) / patternBytes;
+    // Per worker beside its tile: with 8/16-bit data the tile sits in the bin kernel's memory
+    // (half a tile of slack) which also holds the detector bins it writes (float32), copied out
+    // once; a group's feature vectors (float64) and its Y and W in the sketch kernel.
+    const binsRatio = 4 / (DTYPE_BYTES[d.dtype] * plan.bin * plan.bin);
+    const viaBins = kernel === 'wasm' && DTYPE_BYTES[d.dtype] <= 2 && !d.dtype.startsWith('float');
+    const extraCopies = viaBins ? 0.5 + 2 * binsRatio : 0;
+    const perWorkerGroup = groupRows * scanX * (dim + l) * 8 + dim * l * 8 * 2;
     // On the main thread: Y, and at the end its orthonormal basis, U and the loadings (N × l each);
     // W, Z and the slots of partial W (D × l each); a few D-vectors.
-    const reserved = 4 * n * l * 8 + dim * l * 8 * (3 + 2 * (limits.workers + 1) * 4) + dim * 8 * 4;
-    const tp = planTiles(d, { rowAlignment, memory: { ...memory, tileCopies: memory.tileCopies + featureCopies } }, limits, reserved, groupRows);
+    const reserved = 4 * n * l * 8 + dim * l * 8 * (3 + 2 * (limits.workers + 1) * 4) + dim * 8 * 4 + limits.workers * perWorkerGroup;
+    const tp = planTiles(d, { rowAlignment, memory: { ...memory, tileCopies: memory.tileCopies + extraCopies } }, limits, reserved, groupRows);
     const dataBytes = tp.tiles.reduce((s, t) => s + t.bytes, 0);
     job.bytesTotal = dataBytes * (options.powerIterations + 1);
     let zeroPatterns = 0;
@@ -203,4 +211,41 @@ export function startReferenceFit(pool: WorkerPool, spec: SourceSpec, plan: Feat
     job.succeed({ descriptor: d, references, counts, coefficients: Float64Array.from(coefficients), residual: Float64Array.from(residual), zeroPatterns, seconds: (performance.now() - t0) / 1000 });
   })().catch((e) => job.fail(e));
   return job;
+}
+
+/**
+ * PCA of the preview cube, in memory, for an answer within seconds while the exact job reads the
+ * data: each preview position (a scan bin) is one row, its detector bins the pixels that `plan`
+ * bins further. The products run in the WebAssembly kernel on this thread, block by block, so
+ * the feature matrix is never built whole.
+ */
+export async function previewPca(cube: PreviewCube, plan: FeaturePlan, options: PcaOptions): Promise<{ pca: PcaResult; zeroPatterns: number }> {
+  const n = cube.qY * cube.qX;
+  const dim = plan.nFeatures;
+  const binsPerRow = cube.pY * cube.pX;
+  const data = cube.imager ? cube.imager.cube() : cube.data;
+  const sk = createWasmSketchKernel(loadWasmModule('sketch'));
+  const BLOCK = 256;
+  let zeroPatterns = 0;
+  let first = true;
+  const pass = async (z: Float64Array, centre: Float64Array | null): Promise<PassSums> => {
+    const l = z.length / dim;
+    const y = new Float64Array(n * l), w = new Float64Array(dim * l), colSum = new Float64Array(dim), part = new Float64Array(dim * l);
+    let sumSq = 0;
+    for (let i0 = 0; i0 < n; i0 += BLOCK) {
+      const m = Math.min(BLOCK, n - i0);
+      const rows = sk.rows(m, dim, l);
+      const f = patternFeatures(data.subarray(i0 * binsPerRow, (i0 + m) * binsPerRow), m, plan, rows);
+      if (first) zeroPatterns += f.zeroPatterns;
+      const b = sk.run(m, dim, z, l, centre, { y: y.subarray(i0 * l, (i0 + m) * l), w: part });
+      for (let x = 0; x < w.length; x++) w[x] += part[x];
+      for (let j = 0; j < dim; j++) colSum[j] += b.colSum[j];
+      sumSq += b.sumSq;
+      // Let other requests (a hover, a drag) in between blocks.
+      await new Promise((resolve) => setImmediate(resolve));
+    }
+    first = false;
+    return { y, w, colSum, sumSq };
+  };
+  return { pca: await randomizedPca(pass, n, dim, options), zeroPatterns };
 }

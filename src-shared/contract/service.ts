@@ -253,6 +253,11 @@ export interface PcaRequest extends JobOptions, FeatureOptions {
   powerIterations?: number;
   /** Seed of the random sketch (default 0); the same input and seed give the same output. */
   seed?: number;
+  /**
+   * A preview: PCA of the in-memory preview cube (binned scan and detector), answered within
+   * seconds with no read of the data, to show while the exact request runs.
+   */
+  preview?: boolean;
 }
 
 export interface PcaResult {
@@ -276,6 +281,11 @@ export interface PcaResult {
   badPixels?: { hot: [number, number][]; dead: [number, number][] };
   /** Patterns whose features summed to zero (left as zero vectors). */
   zeroPatterns: number;
+  /**
+   * Set when this is a preview (PCA of the preview cube): loadings are then qY × qX, one per scan
+   * bin of scanBin × scanBin positions, and components are on the cube's detBin-binned detector, binned by features.bin again.
+   */
+  preview?: { qY: number; qX: number; scanBin: number; detBin: number };
   seconds: number;
 }
 
@@ -291,6 +301,8 @@ export interface KmeansRequest extends JobOptions, FeatureOptions {
   seed?: number;
   /** Power iterations of the PCA (default 1: the leading subspace is what clustering needs). */
   powerIterations?: number;
+  /** A preview from the preview cube alone (no read of the data): labels per scan bin, cluster patterns on the cube's binned detector. */
+  preview?: boolean;
 }
 
 export interface KmeansResult {
@@ -310,6 +322,8 @@ export interface KmeansResult {
   features: PcaResult['features'] & { kind: 'pca'; components: number; explainedVariance: number };
   method: { restarts: number; seed: number; restartKept: number; pcaPasses: number };
   badPixels?: { hot: [number, number][]; dead: [number, number][] };
+  /** Set for a preview: labels are qY × qX (scan bins) and cluster patterns pY × pX (the cube's detector bins). */
+  preview?: { qY: number; qX: number; pY: number; pX: number; scanBin: number; detBin: number };
   seconds: number;
 }
 

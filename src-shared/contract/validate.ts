@@ -97,6 +97,7 @@ const SCHEMAS: Record<ServiceMethod, z.ZodType> = {
     oversample: whole.optional(),
     powerIterations: z.number().int().min(0).max(20, 'at most 20 power iterations (each reads the data once more)').optional(),
     seed: whole.optional(),
+    preview: z.boolean().optional(),
     ...job,
   }).strict().refine((r) => !(r.normalize && r.scaling === 'poisson'), { message: 'normalize and Poisson scaling exclude each other (Poisson weighting needs counts)' }),
   kmeans: z.object({
@@ -110,6 +111,7 @@ const SCHEMAS: Record<ServiceMethod, z.ZodType> = {
     pcaComponents: positiveWhole.optional(),
     restarts: z.number().int().min(1).max(1000).optional(),
     seed: whole.optional(),
+    preview: z.boolean().optional(),
     powerIterations: z.number().int().min(0).max(20, 'at most 20 power iterations (each reads the data once more)').optional(),
     ...job,
   }).strict().refine((r) => !(r.normalize && r.scaling === 'poisson'), { message: 'normalize and Poisson scaling exclude each other (Poisson weighting needs counts)' }),
