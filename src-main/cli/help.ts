@@ -147,6 +147,8 @@ method:
                           exact SVD at Q = 1 in our tests and within 8 % at Q = 0)
   --seed S                seed of the random sketch (default 0): the same input and seed give the
                           same output, whatever the workers or budget
+  --passes 1              read the data once: range and co-range sketches (Tropp et al. 2017),
+                          less accurate than power iterations (see the README for figures)
   --preview               a quick look: PCA of the preview cube (binned scan and detector, see
                           --preview-budget) after the first pass, with no further read of the data
 ${OUT}

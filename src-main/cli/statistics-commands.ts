@@ -40,7 +40,7 @@ function featureOptions(v: Flags): Pick<PcaRequest, 'bin' | 'crop' | 'scaling' |
 export async function cmdPca(args: string[], engineOptions: (v: Record<string, unknown>) => EngineOptions, engineFlags: EngineFlags): Promise<void> {
   const parsed = parseFlags(args, {
     ...SOURCE_OPTIONS, ...engineFlags, ...FEATURE_FLAGS, out: { type: 'string' }, components: { type: 'string' },
-    oversample: { type: 'string' }, 'power-iterations': { type: 'string' }, seed: { type: 'string' }, preview: { type: 'boolean' },
+    oversample: { type: 'string' }, 'power-iterations': { type: 'string' }, seed: { type: 'string' }, preview: { type: 'boolean' }, passes: { type: 'string' },
   });
   const v = parsed.values as Flags;
   rejectExtraPositionals(parsed.positionals, 'pca');
@@ -60,6 +60,11 @@ export async function cmdPca(args: string[], engineOptions: (v: Record<string, u
       ...(optional('seed', 0) !== undefined ? { seed: optional('seed', 0) } : {}),
       ...(v.preview === true ? { preview: true } : {}),
     };
+    if (typeof v.passes === 'string') {
+      if (v.passes !== '1') throw new InputError(`--passes ${v.passes}: expected 1 (the one-pass sketch); otherwise the passes are --power-iterations + 1`);
+      if (typeof v['power-iterations'] === 'string') throw new InputError('--passes 1 and --power-iterations exclude each other (the one-pass sketch makes no power iteration)');
+      request.passes = 1;
+    }
     const r = await service.pca(request);
     const f = r.features;
     // A preview's loadings are per scan bin of the preview cube.
@@ -75,6 +80,7 @@ export async function cmdPca(args: string[], engineOptions: (v: Record<string, u
       components_found: r.k, total_variance: r.totalVariance, bin: f.bin, crop_x0_y0_x1_y1: JSON.stringify([f.crop.x0, f.crop.y0, f.crop.x1, f.crop.y1]),
       features: f.nFeatures, bins_left_out: f.binsLeftOut, scaling: f.scaling, normalize: f.normalize ? 'yes' : 'no', bad_pixels: f.badPixels,
       oversample: r.method.oversample, sketch_columns: r.method.sketch, power_iterations: r.method.powerIterations, seed: r.method.seed,
+      sketch_kind: r.method.passes === 1 && request.passes === 1 ? 'one pass: range and co-range sketches (Tropp, Yurtsever, Udell & Cevher 2017)' : 'range sketch with power iterations',
       passes_over_data: r.method.passes, total_variance_from: r.method.totalVarianceFrom, zero_total_patterns: r.zeroPatterns,
       method: 'randomized SVD of the mean-centred features (Halko, Martinsson & Tropp 2011)',
       ...(r.preview ? { preview: 'yes: PCA of the preview cube, not of the full data', preview_scan_bin: r.preview.scanBin, preview_detector_bin: r.preview.detBin } : {}),
@@ -86,7 +92,8 @@ export async function cmdPca(args: string[], engineOptions: (v: Record<string, u
     if (unexpected) noteNonFiniteResults(written, ' (bins left out are NaN in /components and /mean_pattern)');
     if (v.quiet !== true) {
       const top = Array.from(r.explainedVarianceRatio.slice(0, 5), (x) => `${(100 * x).toFixed(1)} %`).join(', ');
-      const what = r.preview ? `a preview (preview cube binned ${r.preview.scanBin}× over the scan, ${r.preview.detBin}× on the detector), no pass over the data` : `${r.method.passes} passes`;
+      const what = r.preview ? `a preview (preview cube binned ${r.preview.scanBin}× over the scan, ${r.preview.detBin}× on the detector), no pass over the data`
+        : r.method.passes === 1 ? '1 pass' : `${r.method.passes} passes`;
       process.stderr.write(`wrote ${written.path}: ${r.k} components of ${f.outY}×${f.outX} bins (bin ${f.bin}), ${what}; explained variance ${top}${r.k > 5 ? ', …' : ''}\n`);
     }
   }, out);

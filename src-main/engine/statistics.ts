@@ -5,6 +5,7 @@ import type { FeaturePlan } from '../../src-shared/compute/pattern-features';
 import { randomizedPca, type PassSums, type PcaOptions, type PcaResult } from '../../src-shared/compute/pca';
 import { planFit } from '../../src-shared/compute/reference-fit';
 import { patternFeatures } from '../../src-shared/compute/pattern-features';
+import { coRangeRows } from '../../src-shared/compute/randomized-svd';
 import { createWasmSketchKernel } from '../../src-shared/compute/sketch-wasm';
 import { loadWasmModule } from '../workers/wasm-loader';
 import type { PreviewCube } from './first-pass';
@@ -58,10 +59,10 @@ export function startPca(pool: WorkerPool, spec: SourceSpec, plan: FeaturePlan, 
     const perWorkerGroup = groupRows * scanX * (dim + l) * 8 + dim * l * 8 * 2;
     // On the main thread: Y, and at the end its orthonormal basis, U and the loadings (N × l each);
     // W, Z and the slots of partial W (D × l each); a few D-vectors.
-    const reserved = 4 * n * l * 8 + dim * l * 8 * (3 + 2 * (limits.workers + 1) * 4) + dim * 8 * 4 + limits.workers * perWorkerGroup;
+    const reserved = 4 * n * l * 8 + dim * (2 * l + 1) * 8 * (3 + 2 * (limits.workers + 1) * 4) + dim * 8 * 4 + limits.workers * perWorkerGroup;
     const tp = planTiles(d, { rowAlignment, memory: { ...memory, tileCopies: memory.tileCopies + extraCopies } }, limits, reserved, groupRows);
     const dataBytes = tp.tiles.reduce((s, t) => s + t.bytes, 0);
-    job.bytesTotal = dataBytes * (options.powerIterations + 1);
+    job.bytesTotal = dataBytes * (options.onePass ? 1 : options.powerIterations + 1);
     let zeroPatterns = 0;
     let passIndex = 0;
     // Y and the groups' partial W are written by the workers into shared memory, never sent in
@@ -70,15 +71,18 @@ export function startPca(pool: WorkerPool, spec: SourceSpec, plan: FeaturePlan, 
     // and as many waiting for an earlier one hold slots.
     const groupsPerTile = tp.tileRows / groupRows;
     const slotCount = 2 * (limits.workers + 1) * groupsPerTile;
-    const slots = new Float64Array(new SharedArrayBuffer(slotCount * dim * l * 8));
+    // A slot holds D × l values, or D × s for the one-pass sketch's co-range (s = 2l + 1).
+    const wCols = options.onePass ? Math.min(2 * l + 1, n) : l;
+    const slots = new Float64Array(new SharedArrayBuffer(slotCount * dim * wCols * 8));
     const freeSlots = Array.from({ length: slotCount }, (_, i) => i);
-    const pass = async (zLocal: Float64Array, centreLocal: Float64Array | null): Promise<PassSums> => {
+    const pass = async (zLocal: Float64Array, centreLocal: Float64Array | null, coRange?: { s: number; seed: number }): Promise<PassSums> => {
       passIndex++;
       // Z and the centre go to every tile: in shared memory they are not copied into each message.
       const z = shared(zLocal);
       const centre = centreLocal ? shared(centreLocal) : null;
       const y = new Float64Array(new SharedArrayBuffer(n * l * 8));
-      const w = new Float64Array(dim * l);
+      const wl = coRange ? coRange.s : l;
+      const w = new Float64Array(dim * wl);
       const colSum = new Float64Array(dim);
       let sumSq = 0;
       let nonFinite = 0;
@@ -92,7 +96,7 @@ export function startPca(pool: WorkerPool, spec: SourceSpec, plan: FeaturePlan, 
           if (freeSlots.length < groups) throw new Error('PCA: no free slot for partial sums (more tiles in flight than planned)');
           const ids = Int32Array.from(freeSlots.splice(0, groups));
           slotsOfTile.set(tile.row0, ids);
-          return worker.pcaTile(d.spec, tile.row0, tile.nRows, groupRows, plan, z, l, centre, kernel, y, slots, ids);
+          return worker.pcaTile(d.spec, tile.row0, tile.nRows, groupRows, plan, z, l, centre, kernel, y, slots, ids, coRange);
         },
         merge: (r, tile) => {
           const ids = slotsOfTile.get(tile.row0)!;
@@ -102,7 +106,7 @@ export function startPca(pool: WorkerPool, spec: SourceSpec, plan: FeaturePlan, 
             pending.set(g0 + g, { slot: ids[g], colSum: r.groupColSum.subarray(g * dim, (g + 1) * dim), sumSq: r.groupSumSq[g] });
           }
           for (let part = pending.get(nextGroup); part; part = pending.get(nextGroup)) {
-            const from = part.slot * dim * l;
+            const from = part.slot * dim * wl;
             for (let x = 0; x < w.length; x++) w[x] += slots[from + x];
             for (let j = 0; j < dim; j++) colSum[j] += part.colSum[j];
             sumSq += part.sumSq;
@@ -228,16 +232,18 @@ export async function previewPca(cube: PreviewCube, plan: FeaturePlan, options: 
   const BLOCK = 256;
   let zeroPatterns = 0;
   let first = true;
-  const pass = async (z: Float64Array, centre: Float64Array | null): Promise<PassSums> => {
+  const pass = async (z: Float64Array, centre: Float64Array | null, coRange?: { s: number; seed: number }): Promise<PassSums> => {
     const l = z.length / dim;
-    const y = new Float64Array(n * l), w = new Float64Array(dim * l), colSum = new Float64Array(dim), part = new Float64Array(dim * l);
+    const wl = coRange ? coRange.s : l;
+    const y = new Float64Array(n * l), w = new Float64Array(dim * wl), colSum = new Float64Array(dim), part = new Float64Array(dim * wl);
     let sumSq = 0;
     for (let i0 = 0; i0 < n; i0 += BLOCK) {
       const m = Math.min(BLOCK, n - i0);
-      const rows = sk.rows(m, dim, l);
+      const rows = sk.rows(m, dim, l, coRange?.s ?? 0);
       const f = patternFeatures(data.subarray(i0 * binsPerRow, (i0 + m) * binsPerRow), m, plan, rows);
       if (first) zeroPatterns += f.zeroPatterns;
-      const b = sk.run(m, dim, z, l, centre, { y: y.subarray(i0 * l, (i0 + m) * l), w: part });
+      const psi = coRange ? { rows: coRangeRows(i0, i0 + m, coRange.s, coRange.seed), s: coRange.s } : undefined;
+      const b = sk.run(m, dim, z, l, centre, { y: y.subarray(i0 * l, (i0 + m) * l), w: part }, psi);
       for (let x = 0; x < w.length; x++) w[x] += part[x];
       for (let j = 0; j < dim; j++) colSum[j] += b.colSum[j];
       sumSq += b.sumSq;

@@ -17,7 +17,7 @@ import { createReferenceComKernel } from '../../src-shared/compute/com';
 import { createWasmComKernel } from '../../src-shared/compute/com-wasm';
 import { accumulateClusterSums, accumulateRegionPatterns } from '../../src-shared/compute/region-pattern';
 import { binsAlignWithCrop, featuresFromBins, patternFeatures, type FeaturePlan } from '../../src-shared/compute/pattern-features';
-import { rangeBlock } from '../../src-shared/compute/randomized-svd';
+import { coRangeRows, rangeBlock } from '../../src-shared/compute/randomized-svd';
 import { fitRows, type FitPlan } from '../../src-shared/compute/reference-fit';
 import { createWasmSketchKernel, type SketchKernel } from '../../src-shared/compute/sketch-wasm';
 import { openTileSource, type TileSource } from '../io/index';
@@ -340,7 +340,7 @@ const api = {
 
   /** One tile of a PCA pass (see PcaTileReply): features of every pattern, then Y = C·Z and W = Cᵀ·Y by groups of rows. */
   async pcaTile(spec: SourceSpec, row0: number, nRows: number, groupRows: number, plan: FeaturePlan, z: Float64Array, l: number, centre: Float64Array | null,
-    kernel: KernelKind, yAll: Float64Array, wSlots: Float64Array, slotIds: Int32Array): Promise<PcaTileReply> {
+    kernel: KernelKind, yAll: Float64Array, wSlots: Float64Array, slotIds: Int32Array, coRange?: { s: number; seed: number }): Promise<PcaTileReply> {
     const src = await sourceFor(spec);
     const { dtype, shape } = src.descriptor;
     const nPix = shape.detY * shape.detX;
@@ -373,13 +373,17 @@ const api = {
       const p1 = Math.min(nRows, (g + 1) * groupRows) * shape.scanX;
       const m = p1 - p0;
       // Features go straight into the kernel's memory (or a scratch array for the reference).
-      const rows = sk ? sk.rows(m, d, l) : scratch('pca-features', 'float64', m * d) as Float64Array;
+      const rows = sk ? sk.rows(m, d, l, coRange?.s ?? 0) : scratch('pca-features', 'float64', m * d) as Float64Array;
       const f = bins ? { nonFinite: 0, ...featuresFromBins(bins.subarray(p0 * pY * pX, p1 * pY * pX), m, pY, pX, plan, rows) }
         : patternFeatures(raw.subarray(p0 * nPix, p1 * nPix), m, plan, rows);
       nonFinite += f.nonFinite;
       zeroPatterns += f.zeroPatterns;
-      const into = { y: y.subarray(p0 * l, p1 * l), w: wSlots.subarray(slotIds[g] * d * l, (slotIds[g] + 1) * d * l) };
-      const b = sk ? sk.run(m, d, z, l, centre, into) : rangeBlock(rows, m, d, z, l, centre);
+      const wl = coRange ? coRange.s : l;
+      const into = { y: y.subarray(p0 * l, p1 * l), w: wSlots.subarray(slotIds[g] * d * wl, (slotIds[g] + 1) * d * wl) };
+      // The one-pass sketch's co-range rows, by position (so any tiling draws the same).
+      const first = row0 * shape.scanX + p0;
+      const psi = coRange ? { rows: coRangeRows(first, first + m, coRange.s, coRange.seed), s: coRange.s } : undefined;
+      const b = sk ? sk.run(m, d, z, l, centre, into, psi) : rangeBlock(rows, m, d, z, l, centre, psi);
       if (!sk) { into.y.set(b.y); into.w.set(b.w); }
       groupColSum.set(b.colSum, g * d);
       groupSumSq[g] = b.sumSq;

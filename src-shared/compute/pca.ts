@@ -5,7 +5,7 @@
  * W, column sums and sum of squares. The same driver runs over the preview cube in memory and
  * over a dataset on disk through the worker pool.
  */
-import { finishRandomizedSvd, gaussianMatrix, orthonormalize, rangeBlock, type RangeBlock } from './randomized-svd';
+import { coRangeRows, finishRandomizedSvd, gaussianMatrix, orthonormalize, rangeBlock, svdOfProjection, type RangeBlock } from './randomized-svd';
 
 export interface PcaOptions {
   /** Components wanted (k). */
@@ -15,6 +15,12 @@ export interface PcaOptions {
   /** Power iterations (q): the data are read q + 1 times. */
   powerIterations: number;
   seed: number;
+  /**
+   * One pass only: the range sketch Y = C·Ω and a co-range sketch W = Ψ·C (Ψ: s × N, s = 2l + 1)
+   * are formed together and the approximation C ≈ Q·X, X = (Ψ·Q)⁺·W, is taken from them (Tropp,
+   * Yurtsever, Udell & Cevher, SIAM J. Matrix Anal. Appl. 38(4), 2017); powerIterations is ignored.
+   */
+  onePass?: boolean;
 }
 
 /** The whole-data sums of one pass: Y stacked over all rows (N × l), W summed (D × l). */
@@ -39,7 +45,11 @@ export interface PcaResult {
   totalVarianceFrom: 'a centred pass' | 'the uncentred sums of the only pass';
 }
 
-export async function randomizedPca(pass: (z: Float64Array, centre: Float64Array | null) => Promise<PassSums>, n: number, d: number, o: PcaOptions): Promise<PcaResult> {
+/** A pass: Y = C·Z, and W = Cᵀ·Y, or with `coRange` W = Cᵀ·Ψᵀ (Ψᵀ rows from coRangeRows(…, s, seed)). */
+export type PcaPass = (z: Float64Array, centre: Float64Array | null, coRange?: { s: number; seed: number }) => Promise<PassSums>;
+
+export async function randomizedPca(pass: PcaPass, n: number, d: number, o: PcaOptions): Promise<PcaResult> {
+  if (o.onePass) return onePassPca(pass, n, d, o);
   const k = o.components;
   const l = Math.min(k + o.oversample, n, d);
   let z = gaussianMatrix(d, l, o.seed);
@@ -77,17 +87,73 @@ export async function randomizedPca(pass: (z: Float64Array, centre: Float64Array
   };
 }
 
+async function onePassPca(pass: PcaPass, n: number, d: number, o: PcaOptions): Promise<PcaResult> {
+  const k = o.components;
+  const l = Math.min(k + o.oversample, n, d);
+  const s = Math.min(2 * l + 1, n);
+  const z = gaussianMatrix(d, l, o.seed);
+  const r = await pass(z, null, { s, seed: o.seed });
+  const mean = r.colSum.map((v) => v / n);
+  const muZ = new Float64Array(l);
+  for (let j = 0; j < d; j++) for (let c = 0; c < l; c++) muZ[c] += mean[j] * z[j * l + c];
+  for (let i = 0; i < n; i++) for (let c = 0; c < l; c++) r.y[i * l + c] -= muZ[c];
+  const { q, rank } = orthonormalize(r.y, n, l);
+  // Ψ·1 (s) and Ψ·Q (s × l), regenerating Ψ's rows position by position.
+  const psiSum = new Float64Array(s);
+  const psiQ = new Float64Array(s * l);
+  const CHUNK = 4096;
+  for (let p0 = 0; p0 < n; p0 += CHUNK) {
+    const p1 = Math.min(n, p0 + CHUNK);
+    const rows = coRangeRows(p0, p1, s, o.seed);
+    for (let p = p0; p < p1; p++) {
+      const pr = (p - p0) * s;
+      for (let a = 0; a < s; a++) {
+        const v = rows[pr + a];
+        psiSum[a] += v;
+        for (let c = 0; c < l; c++) psiQ[a * l + c] += v * q[p * l + c];
+      }
+    }
+  }
+  // Centred co-range sketch, transposed: Wc (d × s) = W − μ·(Ψ·1)ᵀ.
+  const wc = r.w;
+  for (let j = 0; j < d; j++) for (let a = 0; a < s; a++) wc[j * s + a] -= mean[j] * psiSum[a];
+  // X = (Ψ·Q)⁺·Wcᵀ: with Ψ·Q·T = Qψ orthonormal, X = T·Qψᵀ·Wcᵀ; we need Xᵀ = Wc·Qψ·Tᵀ (d × l).
+  const { q: qpsi, t } = orthonormalize(psiQ, s, l);
+  const wq = new Float64Array(d * l);
+  for (let j = 0; j < d; j++) for (let c = 0; c < l; c++) { let acc = 0; for (let a = 0; a < s; a++) acc += wc[j * s + a] * qpsi[a * l + c]; wq[j * l + c] = acc; }
+  const xt = new Float64Array(d * l);
+  for (let j = 0; j < d; j++) for (let c = 0; c < l; c++) { let acc = 0; for (let e = 0; e < l; e++) acc += wq[j * l + e] * t[c * l + e]; xt[j * l + c] = acc; }
+  const svd = svdOfProjection(q, xt, n, d, l, k, rank);
+  let meanSq = 0;
+  for (let j = 0; j < d; j++) meanSq += mean[j] * mean[j];
+  const totalVariance = r.sumSq - n * meanSq;
+  const kk = svd.k;
+  const components = new Float64Array(kk * d);
+  const loadings = new Float64Array(kk * n);
+  for (let c = 0; c < kk; c++) {
+    for (let j = 0; j < d; j++) components[c * d + j] = svd.v[j * kk + c];
+    for (let i = 0; i < n; i++) loadings[c * n + i] = svd.u[i * kk + c] * svd.singularValues[c];
+  }
+  return {
+    singularValues: svd.singularValues,
+    explainedVarianceRatio: svd.singularValues.map((x) => (totalVariance > 0 ? (x * x) / totalVariance : 0)),
+    totalVariance, components, loadings, mean, k: kk, sketch: l, passes: 1, totalVarianceFrom: 'the uncentred sums of the only pass',
+  };
+}
+
 /** The pass over rows held in memory (n × d, row-major), in blocks of `blockRows`: the preview cube, tests. */
-export function inMemoryPass(a: Float64Array, n: number, d: number, blockRows = 256): (z: Float64Array, centre: Float64Array | null) => Promise<PassSums> {
-  return async (z, centre) => {
+export function inMemoryPass(a: Float64Array, n: number, d: number, blockRows = 256): PcaPass {
+  return async (z, centre, coRange) => {
     const l = z.length / d;
+    const wl = coRange ? coRange.s : l;
     const y = new Float64Array(n * l);
-    const w = new Float64Array(d * l);
+    const w = new Float64Array(d * wl);
     const colSum = new Float64Array(d);
     let sumSq = 0;
     for (let i0 = 0; i0 < n; i0 += blockRows) {
       const m = Math.min(blockRows, n - i0);
-      const b = rangeBlock(a.subarray(i0 * d, (i0 + m) * d), m, d, z, l, centre);
+      const b = rangeBlock(a.subarray(i0 * d, (i0 + m) * d), m, d, z, l, centre,
+        coRange ? { rows: coRangeRows(i0, i0 + m, coRange.s, coRange.seed), s: coRange.s } : undefined);
       y.set(b.y, i0 * l);
       for (let x = 0; x < w.length; x++) w[x] += b.w[x];
       for (let j = 0; j < d; j++) colSum[j] += b.colSum[j];

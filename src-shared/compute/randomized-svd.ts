@@ -43,6 +43,16 @@ function rotl(x: number, k: number): number {
   return ((x << k) | (x >>> (32 - k))) >>> 0;
 }
 
+/**
+ * Rows p0 … p1 − 1 of the co-range test matrix Ψᵀ (N × s) of the one-pass sketch: each position's
+ * row drawn from its own seed (seed, p), so any blocking of the rows gives the same matrix.
+ */
+export function coRangeRows(p0: number, p1: number, s: number, seed: number): Float64Array {
+  const out = new Float64Array((p1 - p0) * s);
+  for (let p = p0; p < p1; p++) out.set(gaussianMatrix(1, s, (Math.imul(seed + 1, 0x9e3779b1) ^ Math.imul(p + 1, 0x85ebca77)) >>> 0), (p - p0) * s);
+  return out;
+}
+
 /** What one block of rows adds in a pass. */
 export interface RangeBlock {
   /** The block's rows of Y = C·Z (n × l, row-major). */
@@ -60,11 +70,14 @@ export interface RangeBlock {
  * and its part of W = (a − 1·centreᵀ)ᵀ·Y. With `centre` null the block is taken as it is.
  * This is the plain reference of the hot loop.
  */
-export function rangeBlock(a: Float64Array, n: number, d: number, z: Float64Array, l: number, centre: Float64Array | null): RangeBlock {
+export function rangeBlock(a: Float64Array, n: number, d: number, z: Float64Array, l: number, centre: Float64Array | null,
+  /** One-pass sketch: W = aᵀ·psi (psi: n × s) instead of aᵀ·Y. */
+  psi?: { rows: Float64Array; s: number }): RangeBlock {
   if (a.length < n * d) throw new RangeError(`range block: ${a.length} values, expected ${n}×${d}`);
   if (z.length !== d * l) throw new RangeError(`range block: Z holds ${z.length} values, expected ${d}×${l}`);
   const y = new Float64Array(n * l);
-  const w = new Float64Array(d * l);
+  const wl = psi ? psi.s : l;
+  const w = new Float64Array(d * wl);
   const colSum = new Float64Array(d);
   const row = new Float64Array(d);
   let sumSq = 0;
@@ -84,11 +97,13 @@ export function rangeBlock(a: Float64Array, n: number, d: number, z: Float64Arra
       const zj = j * l;
       for (let k = 0; k < l; k++) y[yi + k] += c * z[zj + k];
     }
+    const right = psi ? psi.rows : y;
+    const ri = i * wl;
     for (let j = 0; j < d; j++) {
       const c = row[j];
       if (c === 0) continue;
-      const wj = j * l;
-      for (let k = 0; k < l; k++) w[wj + k] += c * y[yi + k];
+      const wj = j * wl;
+      for (let k = 0; k < wl; k++) w[wj + k] += c * right[ri + k];
     }
   }
   return { y, w, colSum, sumSq };
@@ -162,15 +177,24 @@ export interface RandomizedSvd {
 export function finishRandomizedSvd(y: Float64Array, w: Float64Array, n: number, d: number, l: number, k: number): RandomizedSvd {
   const { q, t, rank } = orthonormalize(y, n, l);
   // Bᵀ = W·T (d × l).
-  const bt = new Matrix(d, l);
+  const bt = new Float64Array(d * l);
   for (let j = 0; j < d; j++) {
     for (let c = 0; c < l; c++) {
       let s = 0;
       for (let r = 0; r < l; r++) s += w[j * l + r] * t[r * l + c];
-      bt.set(j, c, s);
+      bt[j * l + c] = s;
     }
   }
-  // Bᵀ = V·Σ·Ũᵀ.
+  return svdOfProjection(q, bt, n, d, l, k, rank);
+}
+
+/**
+ * The rank-k SVD of Q·B, with Q (n × l) orthonormal columns and Bᵀ given (d × l): Bᵀ = V·Σ·Ũᵀ,
+ * U = Q·Ũ; signs fixed so each right singular vector's largest-magnitude entry is positive.
+ */
+export function svdOfProjection(q: Float64Array, btValues: Float64Array, n: number, d: number, l: number, k: number, rank: number): RandomizedSvd {
+  const bt = new Matrix(d, l);
+  for (let j = 0; j < d; j++) for (let c = 0; c < l; c++) bt.set(j, c, btValues[j * l + c]);
   const svd = new SingularValueDecomposition(bt, { computeLeftSingularVectors: true, computeRightSingularVectors: true, autoTranspose: true });
   const sigma = svd.diagonal;
   const order = sigma.map((s, i) => [s, i] as const).sort((a, b) => b[0] - a[0]).map(([, i]) => i);

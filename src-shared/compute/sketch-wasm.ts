@@ -9,12 +9,14 @@ import { ensureMemoryBytes, PAGE_BYTES, roundUp } from './wasm-memory';
  */
 export interface SketchKernel {
   /** A view of n × d float64 values in kernel memory for the block's rows (room for l sketch columns is made too). */
-  rows(n: number, d: number, l: number): Float64Array;
+  rows(n: number, d: number, l: number, s?: number): Float64Array;
   /**
    * The products for the rows last written; `centre` (d values) is taken out of them first, in
    * place. With `into`, Y and W are written there (n × l and d × l) instead of fresh arrays.
    */
-  run(n: number, d: number, z: Float64Array, l: number, centre: Float64Array | null, into?: { y: Float64Array; w: Float64Array }): RangeBlock;
+  run(n: number, d: number, z: Float64Array, l: number, centre: Float64Array | null, into?: { y: Float64Array; w: Float64Array },
+    /** One-pass sketch: W = Cᵀ·psi (psi: n × s) instead of Cᵀ·Y. */
+    psi?: { rows: Float64Array; s: number }): RangeBlock;
 }
 
 export function createWasmSketchKernel(wasmModule: WebAssembly.Module): SketchKernel {
@@ -27,23 +29,25 @@ export function createWasmSketchKernel(wasmModule: WebAssembly.Module): SketchKe
     matmul(a: number, m: number, k: number, b: number, l: number, out: number, accumulate: number): void;
     matmulTransA(a: number, m: number, k: number, b: number, l: number, out: number, accumulate: number): void;
   };
-  const layout = (n: number, d: number, l: number) => {
+  const layout = (n: number, d: number, l: number, s = 0) => {
     const L = roundUp(Math.max(l, 1), 4);
+    const S = roundUp(s, 4);
+    const WL = Math.max(L, S);
     let at = PAGE_BYTES;
     const take = (bytes: number) => { const p = at; at = roundUp(at + bytes, 64); return p; };
-    const a = take(n * d * 8), z = take(d * L * 8), y = take(n * L * 8), w = take(d * L * 8);
+    const a = take(n * d * 8), z = take(d * L * 8), y = take(n * L * 8), w = take(d * WL * 8), psi = take(n * S * 8);
     const colSum = take(d * 8), centre = take(d * 8);
-    return { L, a, z, y, w, colSum, centre, end: at };
+    return { L, S, a, z, y, w, psi, colSum, centre, end: at };
   };
   return {
-    rows(n, d, l) {
-      const lay = layout(n, d, l);
+    rows(n, d, l, s = 0) {
+      const lay = layout(n, d, l, s);
       ensureMemoryBytes(memory, lay.end, 'sketch');
       return new Float64Array(memory.buffer, lay.a, n * d);
     },
-    run(n, d, z, l, centre, into) {
+    run(n, d, z, l, centre, into, psi) {
       if (z.length !== d * l) throw new RangeError(`sketch: Z holds ${z.length} values, expected ${d}×${l}`);
-      const lay = layout(n, d, l);
+      const lay = layout(n, d, l, psi?.s ?? 0);
       if (memory.buffer.byteLength < lay.end) throw new Error('sketch: rows(n, d, l) must be called before run');
       const { L } = lay;
       const buf = memory.buffer;
@@ -55,17 +59,28 @@ export function createWasmSketchKernel(wasmModule: WebAssembly.Module): SketchKe
       if (centre) new Float64Array(buf, lay.centre, d).set(centre);
       const sumSq = ex.centreRows(lay.a, n, d, centre ? lay.centre : 0, lay.colSum);
       ex.matmul(lay.a, n, d, lay.z, L, lay.y, 0);
-      ex.matmulTransA(lay.a, n, d, lay.y, L, lay.w, 0);
+      let wCols = L, wWant = l;
+      if (psi) {
+        // Ψᵀ rows padded to S columns.
+        const pp = new Float64Array(buf, lay.psi, n * lay.S);
+        if (lay.S === psi.s) pp.set(psi.rows.subarray(0, n * psi.s));
+        else { pp.fill(0); for (let i = 0; i < n; i++) pp.set(psi.rows.subarray(i * psi.s, (i + 1) * psi.s), i * lay.S); }
+        ex.matmulTransA(lay.a, n, d, lay.psi, lay.S, lay.w, 0);
+        wCols = lay.S;
+        wWant = psi.s;
+      } else {
+        ex.matmulTransA(lay.a, n, d, lay.y, L, lay.w, 0);
+      }
       const yv = new Float64Array(buf, lay.y, n * L);
-      const wv = new Float64Array(buf, lay.w, d * L);
-      const unpad = (v: Float64Array, rows: number, target?: Float64Array) => {
-        const o = target ?? new Float64Array(rows * l);
-        if (o.length !== rows * l) throw new RangeError(`sketch: output holds ${o.length} values, expected ${rows}×${l}`);
-        if (L === l) o.set(v);
-        else for (let i = 0; i < rows; i++) o.set(v.subarray(i * L, i * L + l), i * l);
+      const wv = new Float64Array(buf, lay.w, d * wCols);
+      const unpad = (v: Float64Array, rows: number, have: number, want: number, target?: Float64Array) => {
+        const o = target ?? new Float64Array(rows * want);
+        if (o.length !== rows * want) throw new RangeError(`sketch: output holds ${o.length} values, expected ${rows}×${want}`);
+        if (have === want) o.set(v);
+        else for (let i = 0; i < rows; i++) o.set(v.subarray(i * have, i * have + want), i * want);
         return o;
       };
-      return { y: unpad(yv, n, into?.y), w: unpad(wv, d, into?.w), colSum: new Float64Array(buf, lay.colSum, d).slice(), sumSq };
+      return { y: unpad(yv, n, L, l, into?.y), w: unpad(wv, d, wCols, wWant, into?.w), colSum: new Float64Array(buf, lay.colSum, d).slice(), sumSq };
     },
   };
 }

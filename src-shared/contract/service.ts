@@ -251,6 +251,11 @@ export interface PcaRequest extends JobOptions, FeatureOptions {
   oversample?: number;
   /** Power iterations (default 2): the data are read this many times plus one. */
   powerIterations?: number;
+  /**
+   * 1: a one-pass sketch (Tropp, Yurtsever, Udell & Cevher 2017) that reads the data once, less
+   * accurate than power iterations; default: powerIterations + 1 passes.
+   */
+  passes?: 1;
   /** Seed of the random sketch (default 0); the same input and seed give the same output. */
   seed?: number;
   /**

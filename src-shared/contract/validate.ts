@@ -98,6 +98,7 @@ const SCHEMAS: Record<ServiceMethod, z.ZodType> = {
     powerIterations: z.number().int().min(0).max(20, 'at most 20 power iterations (each reads the data once more)').optional(),
     seed: whole.optional(),
     preview: z.boolean().optional(),
+    passes: z.literal(1, { message: 'expected 1 (the one-pass sketch) or none' }).optional(),
     ...job,
   }).strict().refine((r) => !(r.normalize && r.scaling === 'poisson'), { message: 'normalize and Poisson scaling exclude each other (Poisson weighting needs counts)' }),
   kmeans: z.object({

@@ -77,6 +77,24 @@ describe('randomized PCA against NumPy', () => {
     expect(Array.from(again.components)).toEqual(Array.from(r.components));
   });
 
+  it('one pass (Tropp et al. 2017): planted components within 1 %, a decaying spectrum reported against the exact SVD', async () => {
+    const pl = load('planted.npy');
+    const [n, d] = pl.shape;
+    const exactP = load('planted.s.npy').data;
+    const one = await randomizedPca(inMemoryPass(pl.data, n, d), n, d, { components: 5, oversample: 10, powerIterations: 0, seed: 3, onePass: true });
+    expect(one.passes).toBe(1);
+    // reference: numpy.linalg.svd of the centred matrix (five planted directions over weak noise)
+    for (let i = 0; i < 5; i++) expect(Math.abs(one.singularValues[i] / exactP[i] - 1)).toBeLessThan(0.01);
+    const angle = largestPrincipalAngle(one.components, load('planted.basis.npy').data, 5, d);
+    expect(angle).toBeLessThan(1);
+    const dc = load('decay.npy');
+    const exact = load('decay.s.npy').data;
+    const r = await randomizedPca(inMemoryPass(dc.data, dc.shape[0], dc.shape[1]), dc.shape[0], dc.shape[1], { components: 10, oversample: 10, powerIterations: 0, seed: 7, onePass: true });
+    const errs = Array.from(r.singularValues, (x, i) => Math.abs(x / exact[i] - 1));
+    console.log(`one pass: planted components' largest principal angle ${angle.toFixed(3)}°; decaying spectrum, top 10 singular values within ${(100 * Math.max(...errs)).toFixed(2)} % (first ${(100 * errs[0]).toFixed(3)} %)`);
+    expect(errs[0]).toBeLessThan(0.01);
+  });
+
   it('more sketch columns than the data has directions: the dependent ones drop out, no NaN', async () => {
     // analytic: rank-2 data (two patterns mixed) in 50 features, asked for 5 components
     const n = 200, d = 50;
