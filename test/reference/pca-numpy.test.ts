@@ -95,6 +95,18 @@ describe('randomized PCA against NumPy', () => {
     expect(errs[0]).toBeLessThan(0.01);
   });
 
+  it('a periodic artefact (each pixel oscillating along the scan with its own phase) lands in a pair of equal components (common practice)', async () => {
+    // analytic: x_ij = b_j + a·cos(ω·i + φ_j) = b_j + a·cos(ωi)·cos φ_j − a·sin(ωi)·sin φ_j, with the phases
+    // spread evenly: two directions of equal variance, whose loadings are the cosine and sine of ω·i.
+    const n = 600, d = 40, omega = (2 * Math.PI) / 37;
+    const a = new Float64Array(n * d);
+    for (let i = 0; i < n; i++) for (let j = 0; j < d; j++) a[i * d + j] = 100 + j + 5 * Math.cos(omega * i + (2 * Math.PI * j) / d);
+    const r = await randomizedPca(inMemoryPass(a, n, d), n, d, { components: 4, oversample: 6, powerIterations: 2, seed: 5 });
+    expect(Math.abs(r.singularValues[1] / r.singularValues[0] - 1)).toBeLessThan(0.01);
+    expect(r.k).toBe(2);
+    expect(r.explainedVarianceRatio[0] + r.explainedVarianceRatio[1]).toBeCloseTo(1, 9);
+  });
+
   it('more sketch columns than the data has directions: the dependent ones drop out, no NaN', async () => {
     // analytic: rank-2 data (two patterns mixed) in 50 features, asked for 5 components
     const n = 200, d = 50;
