@@ -69,6 +69,11 @@ async function writeSummary(service: EngineService, out: OutputFile, r: FirstPas
     mean_pattern: { data: r.meanPattern, shape: [detY, detX], dims: ['det_y', 'det_x'], attrs: { units: 'counts per pattern' } },
     max_pattern: { data: r.maxPattern, shape: [detY, detX], dims: ['det_y', 'det_x'], attrs: { units: 'counts' } },
     total_intensity: { data: r.totalIntensity, shape: [scanY, scanX], dims: ['scan_y', 'scan_x'], attrs: { units: 'counts' } },
+    // The default images taken in the same pass: /bright_field, /annular_dark_field.
+    ...Object.fromEntries(r.defaultImages.map((im) => [im.label.replace(/ /g, '_'), {
+      data: im.image, shape: [scanY, scanX], dims: ['scan_y', 'scan_x'],
+      attrs: { units: 'counts', detector: JSON.stringify(im.detector.shape), note: 'detector from the bright-field disk found on 16 patterns sampled across the scan; bad pixels of that sample left out' },
+    }])),
   }, {
     ...provenance(r.descriptor, producer, { dataset: r.dataset }),
     non_finite_inputs: r.nonFiniteInputs,

@@ -133,7 +133,7 @@ export function planFirstPass(d: DatasetDescriptor, reader: ReaderFacts, limits:
   pv.bytes = previewBytes(d, detBin, scanBin);
   // Accumulators: sum+max (float64) on the main thread and in each worker's reply, totals image.
   // With COM sums: Σ I, Σ I·x, Σ I·y and the watched pixels' values per position, and the mask.
-  const com = comWatched === null ? 0 : 8 * scanY * scanX * (3 + comWatched) + 8 * pixels;
+  const com = comWatched === null ? 0 : 8 * scanY * scanX * (3 + 2 + comWatched) + 8 * pixels * 3;
   const accumulators = 16 * pixels * (limits.workers + 1) + 8 * scanY * scanX + com;
   return { detBin, scanBin, preview: pv, ...planTiles(d, reader, limits, pv.bytes + accumulators, scanBin) };
 }

@@ -163,7 +163,7 @@ export interface ComSumsOverGoodPixels {
  * back from their kept values. Null when a bad pixel was not watched and could have counts (a
  * pixel whose max and mean are 0, or never finite, adds nothing either way).
  */
-export function comSumsLessBadPixels(c: FirstPassComSums, bad: Uint8Array, mean: Float64Array, max: Float64Array, detX: number): ComSumsOverGoodPixels | null {
+export function comSumsLessBadPixels(c: Omit<FirstPassComSums, 'images'>, bad: Uint8Array, mean: Float64Array, max: Float64Array, detX: number): ComSumsOverGoodPixels | null {
   const watched = new Uint8Array(bad.length);
   for (const i of c.watch) watched[i] = 1;
   for (let i = 0; i < bad.length; i++) {

@@ -12,6 +12,7 @@ import type { DatasetDescriptor } from '../../src-shared/model/dataset';
 import type { BadPixels, BrightFieldDisk } from '../../src-shared/contract/service';
 import type { VacuumFinding } from '../../src-shared/compute/vacuum';
 import type { ComSumsOverGoodPixels } from './com-field';
+import type { DetectorSpec } from '../../src-shared/model/detectors';
 
 export interface CachedFirstPass {
   meanPattern: Float64Array;
@@ -26,11 +27,19 @@ export interface CachedFirstPass {
    * (what `com` computes with its defaults), taken in the same pass; null when they could not be.
    */
   com: ComSumsOverGoodPixels | null;
+  /** Default images taken in the pass (bright field, annular dark field), with their detectors. */
+  defaultImages: DefaultImage[];
+}
+
+export interface DefaultImage {
+  label: string;
+  detector: DetectorSpec;
+  image: Float64Array;
 }
 
 /** The cache keeps at most this much; the least recently used entries go first. */
 export const CACHE_LIMIT_BYTES = 256 * 2 ** 20;
-const FORMAT = 'scanfold-first-pass-2';
+const FORMAT = 'scanfold-first-pass-3';
 
 /** Where entries live: SCANFOLD_CACHE_DIR ('off' disables), else the user's cache folder. */
 export function defaultCacheDir(): string | null {
@@ -83,6 +92,7 @@ export function readCachedFirstPass(dir: string, key: string, d: DatasetDescript
     const badMask = u8(pixels);
     const vacuumMask = header.vacuum?.hasMask ? u8(positions) : null;
     const com = header.com ? { total: f64(positions), sumX: f64(positions), sumY: f64(positions), nonFinite: header.com.nonFinite } : null;
+    const defaultImages: DefaultImage[] = (header.defaultImages ?? []).map((d: { label: string; detector: DetectorSpec }) => ({ ...d, image: f64(positions) }));
     if (at !== buf.length) return null;
     // Touch it: the size limit drops the least recently used entries.
     const now = new Date();
@@ -93,6 +103,7 @@ export function readCachedFirstPass(dir: string, key: string, d: DatasetDescript
       disk: header.disk,
       vacuum: header.vacuum ? { mask: vacuumMask, positions: header.vacuum.positions, threshold: header.vacuum.threshold ?? NaN, gapSigmas: header.vacuum.gapSigmas } : null,
       com,
+      defaultImages,
     };
   } catch {
     return null; // damaged: treat as absent (it is rewritten after the next pass)
@@ -107,10 +118,12 @@ export function writeCachedFirstPass(dir: string, key: string, v: CachedFirstPas
       format: FORMAT, nonFinite: v.nonFinite, hot: v.badPixels.hot, dead: v.badPixels.dead, disk: v.disk,
       vacuum: v.vacuum ? { hasMask: v.vacuum.mask !== null, positions: v.vacuum.positions, threshold: v.vacuum.threshold, gapSigmas: v.vacuum.gapSigmas } : null,
       com: v.com ? { nonFinite: v.com.nonFinite } : null,
+      defaultImages: v.defaultImages.map((d) => ({ label: d.label, detector: d.detector })),
     }));
     const parts = [Buffer.alloc(4), header, ...[v.meanPattern, v.maxPattern, v.totalIntensity].map((a) => Buffer.from(a.buffer, a.byteOffset, a.byteLength)),
       Buffer.from(v.badPixels.mask), ...(v.vacuum?.mask ? [Buffer.from(v.vacuum.mask)] : []),
-      ...(v.com ? [v.com.total, v.com.sumX, v.com.sumY].map((a) => Buffer.from(a.buffer, a.byteOffset, a.byteLength)) : [])];
+      ...(v.com ? [v.com.total, v.com.sumX, v.com.sumY].map((a) => Buffer.from(a.buffer, a.byteOffset, a.byteLength)) : []),
+      ...v.defaultImages.map((d) => Buffer.from(d.image.buffer, d.image.byteOffset, d.image.byteLength))];
     parts[0].writeUInt32LE(header.length, 0);
     // Written aside and renamed: a reader never sees half an entry. The folder is ours alone.
     const tmp = path.join(dir, `.${key}.${process.pid}.${Date.now()}.tmp`);

@@ -52,6 +52,8 @@ export interface FirstPassComSums {
   watchValues: Float64Array;
   /** Non-finite values met inside the mask. */
   nonFinite: number;
+  /** The default images (one per planned detector, scanY × scanX each), taken along. */
+  images: Float64Array[];
 }
 
 /**
@@ -122,6 +124,7 @@ export function startFirstPass(pool: WorkerPool, spec: SourceSpec, limits: Engin
         com: com ? {
           total: new Float64Array(scanY * scanX), sumX: new Float64Array(scanY * scanX), sumY: new Float64Array(scanY * scanX),
           watch: com.watch, watchValues: new Float64Array(scanY * scanX * com.watch.length), nonFinite: 0,
+          images: com.images.map(() => new Float64Array(scanY * scanX)),
         } : null,
       };
     },
@@ -135,6 +138,8 @@ export function startFirstPass(pool: WorkerPool, spec: SourceSpec, limits: Engin
         s.com.sumY.set(r.com.sumY, at);
         s.com.watchValues.set(r.com.watchValues, at * s.com.watch.length);
         s.com.nonFinite += r.com.nonFinite;
+        const m = tile.nRows * s.geometry.scanX;
+        if (r.com.images) s.com.images.forEach((img, k) => img.set(r.com!.images!.subarray(k * m, (k + 1) * m), at));
       }
     },
     finish: (s, { descriptor: d, plan, totals, seconds }) => {

@@ -22,6 +22,7 @@ import { braggRingCandidates } from '../../src-shared/compute/radial-profile';
 import { Engine, type EngineOptions } from './engine';
 import { fmtBytes } from '../../src-shared/model/bytes';
 import type { FirstPassSummary } from './first-pass';
+import type { FirstPassComPlan } from '../workers/tile-worker';
 import type { Job } from './job';
 import { previewDetectorImages } from './preview';
 import { previewImages } from '../../src-shared/compute/preview-image';
@@ -226,7 +227,7 @@ export class EngineService implements ScanfoldService {
       }
     }
     const comPlan = await this.comPlanForPass(r);
-    const summary = await this.track(this.engine.firstPass(specOf(r), comPlan ?? undefined), jobId, label);
+    const summary = await this.track(this.engine.firstPass(specOf(r), comPlan ? { mask: comPlan.mask, watch: comPlan.watch, images: comPlan.images } : undefined), jobId, label);
     const { detY, detX, scanY, scanX } = summary.descriptor.shape;
     const found = aboutFile(summary.descriptor.path, () => findBadPixels(summary.meanPattern, summary.maxPattern, detY, detX, { patternCount: scanY * scanX }));
     const badPixels: BadPixels = { mask: found.mask, hot: found.hot.map(([y, x]) => [y, x]), dead: found.dead.map(([y, x]) => [y, x]) };
@@ -247,6 +248,9 @@ export class EngineService implements ScanfoldService {
       summary, seconds: summary.seconds, meanPattern: summary.meanPattern, maxPattern: summary.maxPattern,
       totalIntensity: summary.totalIntensity, nonFinite: summary.nonFinite, badPixels, disk, vacuum,
       com: summary.com ? comSumsLessBadPixels(summary.com, found.mask, summary.meanPattern, summary.maxPattern, detX) : null,
+      defaultImages: summary.com && comPlan ? comPlan.imageSpecs.map((spec, k) => ({
+        label: spec.label ?? describeDetector(spec), detector: spec, image: summary.com!.images[k],
+      })) : [],
     };
     if (key && this.cacheDir) writeCachedFirstPass(this.cacheDir, key, r.first);
     r.opened = { ...r.opened, version: r.opened.version + 1 };
@@ -260,7 +264,7 @@ export class EngineService implements ScanfoldService {
    * scan, whose values are kept per position so any that the pass clears can be added back.
    * Null when too many pixels look bad for their values to be kept.
    */
-  private async comPlanForPass(r: DatasetRecord): Promise<{ mask: CompiledDetector | null; watch: Uint32Array } | null> {
+  private async comPlanForPass(r: DatasetRecord): Promise<(FirstPassComPlan & { imageSpecs: DetectorSpec[] }) | null> {
     const { scanY, scanX, detY, detX } = r.opened.descriptor.shape;
     const side = Math.min(COM_SAMPLE_SIDE, scanY, scanX);
     const positions: [number, number][] = [];
@@ -286,7 +290,19 @@ export class EngineService implements ScanfoldService {
     const mask = watch.length
       ? this.compileDetectors(r, [{ shape: { kind: 'rectangle', x0: 0, y0: 0, x1: detX - 1, y1: detY - 1 } }], seen.mask)[0]
       : null;
-    return { mask, watch };
+    // Default images taken along: bright field (the disk found on the sample) and annular dark
+    // field (twice its radius out to the largest circle inside the detector), bad pixels left out.
+    const imageSpecs: DetectorSpec[] = [];
+    try {
+      const disk = findBrightFieldDisk(replaceBadPixels(mean, detY, detX, seen.mask), detY, detX, { excludePixels: seen.mask });
+      const edge = Math.min(disk.cx, disk.cy, detX - 1 - disk.cx, detY - 1 - disk.cy);
+      imageSpecs.push({ shape: { kind: 'disk', cx: disk.cx, cy: disk.cy, r: disk.r }, label: 'bright field' });
+      if (edge > 2 * disk.r + 1) imageSpecs.push({ shape: { kind: 'annulus', cx: disk.cx, cy: disk.cy, rInner: 2 * disk.r, rOuter: edge }, label: 'annular dark field' });
+    } catch (e) {
+      if (!isInputError(e)) throw e;
+    }
+    const images = imageSpecs.map((spec) => this.compileDetectors(r, [spec], seen.mask)[0]);
+    return { mask, watch, images, imageSpecs };
   }
 
   private async badPixelMask(r: DatasetRecord, mode: BadPixelsMode | undefined, jobId: string | undefined): Promise<{ mask: Uint8Array | undefined; count: number; list?: { hot: [number, number][]; dead: [number, number][] } }> {
@@ -306,7 +322,7 @@ export class EngineService implements ScanfoldService {
       const s = f.summary!;
       return {
         dataset: r.id, descriptor: s.descriptor, meanPattern: s.meanPattern, maxPattern: s.maxPattern, totalIntensity: s.totalIntensity,
-        nonFiniteInputs: s.nonFinite, seconds: s.seconds, badPixels: f.badPixels, brightFieldDisk: f.disk,
+        nonFiniteInputs: s.nonFinite, seconds: s.seconds, badPixels: f.badPixels, brightFieldDisk: f.disk, defaultImages: f.defaultImages,
         preview: { qY: s.preview.qY, qX: s.preview.qX, pY: s.preview.pY, pX: s.preview.pX, detBin: s.preview.detBin, scanBin: s.preview.scanBin },
       };
     });

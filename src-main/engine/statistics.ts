@@ -59,7 +59,8 @@ export function startPca(pool: WorkerPool, spec: SourceSpec, plan: FeaturePlan, 
     const perWorkerGroup = groupRows * scanX * (dim + l) * 8 + dim * l * 8 * 2;
     // On the main thread: Y, and at the end its orthonormal basis, U and the loadings (N × l each);
     // W, Z and the slots of partial W (D × l each); a few D-vectors.
-    const reserved = 4 * n * l * 8 + dim * (2 * l + 1) * 8 * (3 + 2 * (limits.workers + 1) * 4) + dim * 8 * 4 + limits.workers * perWorkerGroup;
+    const sketchCols = options.onePass ? Math.min(2 * l + 1, n) : l;
+    const reserved = 4 * n * l * 8 + dim * sketchCols * 8 * (3 + 2 * (limits.workers + 1) * 4) + dim * 8 * 4 + limits.workers * perWorkerGroup;
     const tp = planTiles(d, { rowAlignment, memory: { ...memory, tileCopies: memory.tileCopies + extraCopies } }, limits, reserved, groupRows);
     const dataBytes = tp.tiles.reduce((s, t) => s + t.bytes, 0);
     job.bytesTotal = dataBytes * (options.onePass ? 1 : options.powerIterations + 1);
@@ -72,7 +73,7 @@ export function startPca(pool: WorkerPool, spec: SourceSpec, plan: FeaturePlan, 
     const groupsPerTile = tp.tileRows / groupRows;
     const slotCount = 2 * (limits.workers + 1) * groupsPerTile;
     // A slot holds D × l values, or D × s for the one-pass sketch's co-range (s = 2l + 1).
-    const wCols = options.onePass ? Math.min(2 * l + 1, n) : l;
+    const wCols = sketchCols;
     const slots = new Float64Array(new SharedArrayBuffer(slotCount * dim * wCols * 8));
     const freeSlots = Array.from({ length: slotCount }, (_, i) => i);
     const pass = async (zLocal: Float64Array, centreLocal: Float64Array | null, coRange?: { s: number; seed: number }): Promise<PassSums> => {

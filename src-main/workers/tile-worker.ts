@@ -54,7 +54,7 @@ export interface TileTiming {
 
 export type FirstPassTileReply = Pick<FirstPassTileResult, 'sum' | 'max' | 'nonFinite'> & TileTiming & {
   /** With a COM plan: the tile's centre-of-mass sums and the watched pixels' values (pattern-major). */
-  com?: { total: Float64Array; sumX: Float64Array; sumY: Float64Array; nonFinite: number; watchValues: Float64Array };
+  com?: { total: Float64Array; sumX: Float64Array; sumY: Float64Array; nonFinite: number; watchValues: Float64Array; images: Float64Array | null };
 };
 
 /**
@@ -66,6 +66,8 @@ export type FirstPassTileReply = Pick<FirstPassTileResult, 'sum' | 'max' | 'nonF
 export interface FirstPassComPlan {
   mask: CompiledDetector | null;
   watch: Uint32Array;
+  /** Default virtual images taken along (bright field, annular dark field), or none. */
+  images: CompiledDetector[];
 }
 
 /** The whole preview cube (float32) and total-intensity image (float64), shared with the main thread. */
@@ -303,7 +305,17 @@ const api = {
       const view = ck.tileBuffer(dtype, n);
       if (copy) view.set(copy as never);
       const c = ck.run(dtype, nPatterns);
-      comReply = { total: c.total, sumX: c.sumX, sumY: c.sumY, nonFinite: c.nonFinite, watchValues: watchValues! };
+      // The default images, from the same tile (the kernels share the worker's memory).
+      let images: Float64Array | null = null;
+      if (com.images.length) {
+        const vk = kernelFor<VirtualImageKernel>('virtual-image', options);
+        vk.setDetectors(com.images);
+        const vview = vk.tileBuffer(dtype, n);
+        if (copy) vview.set(copy as never);
+        images = vk.run(dtype, nPatterns).images;
+        transfers.push(images.buffer as ArrayBuffer);
+      }
+      comReply = { total: c.total, sumX: c.sumX, sumY: c.sumY, nonFinite: c.nonFinite, watchValues: watchValues!, images };
       transfers.push(c.total.buffer as ArrayBuffer, c.sumX.buffer as ArrayBuffer, c.sumY.buffer as ArrayBuffer, watchValues!.buffer as ArrayBuffer);
     }
     const reply: FirstPassTileReply = {

@@ -62,6 +62,12 @@ export interface FirstPassResult {
   brightFieldDisk: BrightFieldDisk | { notFound: string };
   /** The preview cube stays in the engine; detector drags are answered from it (previewImages). */
   preview: { qY: number; qX: number; pY: number; pX: number; detBin: number; scanBin: number };
+  /**
+   * Exact virtual images taken in the same pass (scanY × scanX each): bright field over the disk
+   * found on a sample of patterns and annular dark field from twice its radius to the detector's
+   * edge, bad pixels of the sample left out; empty when no disk was found.
+   */
+  defaultImages: { label: string; detector: DetectorSpec; image: Float64Array }[];
 }
 
 export interface VirtualImagesRequest extends JobOptions {
