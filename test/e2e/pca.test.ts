@@ -124,6 +124,18 @@ describe('PCA through the service', () => {
     await refuse(service.pca({ dataset: d.id, components: 2, normalize: true, scaling: 'poisson' }), /normalize and Poisson scaling exclude each other/);
     await refuse(service.pca({ dataset: d.id, components: 2, crop: { x0: 0, y0: 0, x1: 99, y1: 5 } }), /crop: x1 = 99 is outside the 24×20 detector/);
     await service.close(d.id);
+    // All-zero data, and float data holding a NaN: a message, never NaN results handed on.
+    const { spawnSync } = await import('node:child_process');
+    const { PYTHON } = await import('../helpers/fixtures');
+    const w = spawnSync(PYTHON, ['-c', `import numpy as np, sys
+np.save(sys.argv[1], np.zeros((4, 5, 8, 8), np.uint16))
+a = np.random.default_rng(1).random((4, 5, 8, 8)).astype(np.float32); a[2, 3, 4, 4] = np.nan
+np.save(sys.argv[2], a)`, path.join(fx, 'zeros.npy'), path.join(fx, 'nan.npy')], { encoding: 'utf8' });
+    expect(w.status, w.stderr).toBe(0);
+    const z = await service.open({ path: path.join(fx, 'zeros.npy') });
+    await refuse(service.pca({ dataset: z.id, components: 2, badPixels: 'none', bin: 1 }), /every pattern's features sum to zero/);
+    const nan = await service.open({ path: path.join(fx, 'nan.npy') });
+    await refuse(service.pca({ dataset: nan.id, components: 2, badPixels: 'none', bin: 1 }), /1 NaN or ±Inf value/);
   });
 });
 
