@@ -148,6 +148,7 @@ method:
                           exact SVD at Q = 1 in our tests and within 8 % at Q = 0)
   --seed S                seed of the random sketch (default 0): the same input and seed give the
                           same output, whatever the workers or budget
+  --uncentred             leave the mean in (its first component is then about the mean pattern)
   --passes 1              read the data once: range and co-range sketches (Tropp et al. 2017),
                           less accurate than power iterations (see the README for figures)
   --preview               a quick look: PCA of the preview cube (binned scan and detector, see

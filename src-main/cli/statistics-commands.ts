@@ -40,7 +40,7 @@ function featureOptions(v: Flags): Pick<PcaRequest, 'bin' | 'crop' | 'scaling' |
 export async function cmdPca(args: string[], engineOptions: (v: Record<string, unknown>) => EngineOptions, engineFlags: EngineFlags): Promise<void> {
   const parsed = parseFlags(args, {
     ...SOURCE_OPTIONS, ...engineFlags, ...FEATURE_FLAGS, out: { type: 'string' }, components: { type: 'string' },
-    oversample: { type: 'string' }, 'power-iterations': { type: 'string' }, seed: { type: 'string' }, preview: { type: 'boolean' }, passes: { type: 'string' },
+    oversample: { type: 'string' }, 'power-iterations': { type: 'string' }, seed: { type: 'string' }, preview: { type: 'boolean' }, passes: { type: 'string' }, uncentred: { type: 'boolean' },
   });
   const v = parsed.values as Flags;
   rejectExtraPositionals(parsed.positionals, 'pca');
@@ -59,6 +59,7 @@ export async function cmdPca(args: string[], engineOptions: (v: Record<string, u
       ...(optional('power-iterations', 0) !== undefined ? { powerIterations: optional('power-iterations', 0) } : {}),
       ...(optional('seed', 0) !== undefined ? { seed: optional('seed', 0) } : {}),
       ...(v.preview === true ? { preview: true } : {}),
+      ...(v.uncentred === true ? { centre: false } : {}),
     };
     if (typeof v.passes === 'string') {
       if (v.passes !== '1') throw new InputError(`--passes ${v.passes}: expected 1 (the one-pass sketch); otherwise the passes are --power-iterations + 1`);
@@ -82,7 +83,8 @@ export async function cmdPca(args: string[], engineOptions: (v: Record<string, u
       oversample: r.method.oversample, sketch_columns: r.method.sketch, power_iterations: r.method.powerIterations, seed: r.method.seed,
       sketch_kind: r.method.passes === 1 && request.passes === 1 ? 'one pass: range and co-range sketches (Tropp, Yurtsever, Udell & Cevher 2017)' : 'range sketch with power iterations',
       passes_over_data: r.method.passes, total_variance_from: r.method.totalVarianceFrom, zero_total_patterns: r.zeroPatterns,
-      method: 'randomized SVD of the mean-centred features (Halko, Martinsson & Tropp 2011)',
+      method: `randomized SVD of the ${request.centre === false ? 'uncentred' : 'mean-centred'} features (Halko, Martinsson & Tropp 2011)`,
+      centred: request.centre === false ? 'no' : 'yes',
       ...(r.preview ? { preview: 'yes: PCA of the preview cube, not of the full data', preview_scan_bin: r.preview.scanBin, preview_detector_bin: r.preview.detBin } : {}),
       ...provenance(r.descriptor, 'scanfold pca', request), ...badPixelAttrs(r.badPixels),
     });

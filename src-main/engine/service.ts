@@ -552,7 +552,7 @@ export class EngineService implements ScanfoldService {
     if (req.components > Math.min(n, plan.nFeatures)) {
       throw new InputError(`${d.path}: ${req.components} components asked for, but the preview cube has ${n} positions of ${plan.nFeatures} features; expected at most ${Math.min(n, plan.nFeatures)}`, 'bad-request');
     }
-    const options = { components: req.components, oversample: req.oversample ?? 10, powerIterations: req.passes === 1 ? 0 : req.powerIterations ?? 2, seed: req.seed ?? 0, onePass: req.passes === 1 };
+    const options = { components: req.components, oversample: req.oversample ?? 10, powerIterations: req.passes === 1 ? 0 : req.powerIterations ?? 2, seed: req.seed ?? 0, onePass: req.passes === 1, centre: req.centre !== false };
     const { pca: p, zeroPatterns } = await previewPca(cube, plan, options);
     const bins = plan.outY * plan.outX;
     const components = new Float64Array(p.k * bins);
@@ -577,7 +577,7 @@ export class EngineService implements ScanfoldService {
       throw new InputError(`${d.path}: ${req.components} components asked for, but the data have ${n} patterns of ${plan.nFeatures} features ` +
         `(${plan.outY}×${plan.outX} bins${plan.binsLeftOut ? `, ${plan.binsLeftOut} left out` : ''}); expected at most ${Math.min(n, plan.nFeatures)}`, 'bad-request');
     }
-    const options = { components: req.components, oversample: req.oversample ?? 10, powerIterations: req.passes === 1 ? 0 : req.powerIterations ?? 2, seed: req.seed ?? 0, onePass: req.passes === 1 };
+    const options = { components: req.components, oversample: req.oversample ?? 10, powerIterations: req.passes === 1 ? 0 : req.powerIterations ?? 2, seed: req.seed ?? 0, onePass: req.passes === 1, centre: req.centre !== false };
     const job = await this.track(this.engine.pca(specOf(r), plan, options), req.jobId, 'PCA');
     const p = job.pca;
     const bins = plan.outY * plan.outX;

@@ -21,6 +21,8 @@ export interface PcaOptions {
    * Yurtsever, Udell & Cevher, SIAM J. Matrix Anal. Appl. 38(4), 2017); powerIterations is ignored.
    */
   onePass?: boolean;
+  /** false: the SVD of the data as they are, the mean left in (default true: mean-centred). */
+  centre?: boolean;
 }
 
 /** The whole-data sums of one pass: Y stacked over all rows (N × l), W summed (D × l). */
@@ -52,25 +54,29 @@ export async function randomizedPca(pass: PcaPass, n: number, d: number, o: PcaO
   if (o.onePass) return onePassPca(pass, n, d, o);
   const k = o.components;
   const l = Math.min(k + o.oversample, n, d);
+  const centred = o.centre !== false;
   let z = gaussianMatrix(d, l, o.seed);
   let r = await pass(z, null);
   const mean = r.colSum.map((s) => s / n);
-  // Take the mean out of the uncentred pass: C·Ω = A·Ω − 1·(μᵀΩ), CᵀC·Ω = AᵀA·Ω − N·μ·(μᵀΩ).
-  const muZ = new Float64Array(l);
-  for (let j = 0; j < d; j++) for (let c = 0; c < l; c++) muZ[c] += mean[j] * z[j * l + c];
-  for (let i = 0; i < n; i++) for (let c = 0; c < l; c++) r.y[i * l + c] -= muZ[c];
-  for (let j = 0; j < d; j++) for (let c = 0; c < l; c++) r.w[j * l + c] -= n * mean[j] * muZ[c];
   let meanSq = 0;
-  for (let j = 0; j < d; j++) meanSq += mean[j] * mean[j];
+  if (centred) {
+    // Take the mean out of the uncentred pass: C·Ω = A·Ω − 1·(μᵀΩ), CᵀC·Ω = AᵀA·Ω − N·μ·(μᵀΩ).
+    const muZ = new Float64Array(l);
+    for (let j = 0; j < d; j++) for (let c = 0; c < l; c++) muZ[c] += mean[j] * z[j * l + c];
+    for (let i = 0; i < n; i++) for (let c = 0; c < l; c++) r.y[i * l + c] -= muZ[c];
+    for (let j = 0; j < d; j++) for (let c = 0; c < l; c++) r.w[j * l + c] -= n * mean[j] * muZ[c];
+    for (let j = 0; j < d; j++) meanSq += mean[j] * mean[j];
+  }
+  // Uncentred, the "total variance" is the total sum of squares the components share.
   let totalVariance = r.sumSq - n * meanSq;
   let totalVarianceFrom: PcaResult['totalVarianceFrom'] = 'the uncentred sums of the only pass';
   let passes = 1;
   for (let it = 0; it < o.powerIterations; it++) {
     z = orthonormalize(r.w, d, l).q;
-    r = await pass(z, mean);
+    r = await pass(z, centred ? mean : null);
     passes++;
     totalVariance = r.sumSq;
-    totalVarianceFrom = 'a centred pass';
+    totalVarianceFrom = centred ? 'a centred pass' : 'the uncentred sums of the only pass';
   }
   const svd = finishRandomizedSvd(r.y, r.w, n, d, l, k);
   const kk = svd.k;
@@ -94,9 +100,12 @@ async function onePassPca(pass: PcaPass, n: number, d: number, o: PcaOptions): P
   const z = gaussianMatrix(d, l, o.seed);
   const r = await pass(z, null, { s, seed: o.seed });
   const mean = r.colSum.map((v) => v / n);
+  const centred = o.centre !== false;
   const muZ = new Float64Array(l);
-  for (let j = 0; j < d; j++) for (let c = 0; c < l; c++) muZ[c] += mean[j] * z[j * l + c];
-  for (let i = 0; i < n; i++) for (let c = 0; c < l; c++) r.y[i * l + c] -= muZ[c];
+  if (centred) {
+    for (let j = 0; j < d; j++) for (let c = 0; c < l; c++) muZ[c] += mean[j] * z[j * l + c];
+    for (let i = 0; i < n; i++) for (let c = 0; c < l; c++) r.y[i * l + c] -= muZ[c];
+  }
   const { q, rank } = orthonormalize(r.y, n, l);
   // Ψ·1 (s) and Ψ·Q (s × l), regenerating Ψ's rows position by position.
   const psiSum = new Float64Array(s);
@@ -116,7 +125,7 @@ async function onePassPca(pass: PcaPass, n: number, d: number, o: PcaOptions): P
   }
   // Centred co-range sketch, transposed: Wc (d × s) = W − μ·(Ψ·1)ᵀ.
   const wc = r.w;
-  for (let j = 0; j < d; j++) for (let a = 0; a < s; a++) wc[j * s + a] -= mean[j] * psiSum[a];
+  if (centred) for (let j = 0; j < d; j++) for (let a = 0; a < s; a++) wc[j * s + a] -= mean[j] * psiSum[a];
   // X = (Ψ·Q)⁺·Wcᵀ: with Ψ·Q·T = Qψ orthonormal, X = T·Qψᵀ·Wcᵀ; we need Xᵀ = Wc·Qψ·Tᵀ (d × l).
   const { q: qpsi, t } = orthonormalize(psiQ, s, l);
   const wq = new Float64Array(d * l);
@@ -125,7 +134,7 @@ async function onePassPca(pass: PcaPass, n: number, d: number, o: PcaOptions): P
   for (let j = 0; j < d; j++) for (let c = 0; c < l; c++) { let acc = 0; for (let e = 0; e < l; e++) acc += wq[j * l + e] * t[c * l + e]; xt[j * l + c] = acc; }
   const svd = svdOfProjection(q, xt, n, d, l, k, rank);
   let meanSq = 0;
-  for (let j = 0; j < d; j++) meanSq += mean[j] * mean[j];
+  if (centred) for (let j = 0; j < d; j++) meanSq += mean[j] * mean[j];
   const totalVariance = r.sumSq - n * meanSq;
   const kk = svd.k;
   const components = new Float64Array(kk * d);

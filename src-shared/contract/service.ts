@@ -262,6 +262,8 @@ export interface PcaRequest extends JobOptions, FeatureOptions {
    * accurate than power iterations; default: powerIterations + 1 passes.
    */
   passes?: 1;
+  /** false: PCA of the data as they are, the mean left in (its first component is then about the mean pattern). Default true. */
+  centre?: boolean;
   /** Seed of the random sketch (default 0); the same input and seed give the same output. */
   seed?: number;
   /**

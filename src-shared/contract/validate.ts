@@ -99,6 +99,7 @@ const SCHEMAS: Record<ServiceMethod, z.ZodType> = {
     seed: whole.optional(),
     preview: z.boolean().optional(),
     passes: z.literal(1, { message: 'expected 1 (the one-pass sketch) or none' }).optional(),
+    centre: z.boolean().optional(),
     ...job,
   }).strict().refine((r) => !(r.normalize && r.scaling === 'poisson'), { message: 'normalize and Poisson scaling exclude each other (Poisson weighting needs counts)' }),
   kmeans: z.object({

@@ -95,6 +95,16 @@ describe('randomized PCA against NumPy', () => {
     expect(errs[0]).toBeLessThan(0.01);
   });
 
+  it('uncentred, the first component is the average pattern (common practice)', async () => {
+    const a = load('decay.npy');
+    const [n, d] = a.shape;
+    const r = await randomizedPca(inMemoryPass(a.data, n, d), n, d, { components: 3, oversample: 10, powerIterations: 2, seed: 2, centre: false });
+    let dot = 0, norm = 0;
+    for (let j = 0; j < d; j++) { dot += r.components[j] * r.mean[j]; norm += r.mean[j] ** 2; }
+    // reference: the fixture's mean (5 + a NumPy normal vector per column) dominates its variation
+    expect(Math.abs(dot) / Math.sqrt(norm)).toBeGreaterThan(0.999);
+  });
+
   it('a periodic artefact (each pixel oscillating along the scan with its own phase) lands in a pair of equal components (common practice)', async () => {
     // analytic: x_ij = b_j + a·cos(ω·i + φ_j) = b_j + a·cos(ωi)·cos φ_j − a·sin(ωi)·sin φ_j, with the phases
     // spread evenly: two directions of equal variance, whose loadings are the cosine and sine of ω·i.
