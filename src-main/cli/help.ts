@@ -168,6 +168,9 @@ ${ENGINE}`,
   --clusters K            how many clusters
   --features pca:N        cluster each position's coordinates along the first N components (default pca:10)
   --restarts R            k-means++ starts; the lowest inertia is kept (default 10)
+  --algorithm lloyd|mini-batch
+                          full Lloyd iterations (default up to 2²⁰ positions) or mini-batches of
+                          4096 positions (Sculley 2010; the default for larger scans)
   --seed S                seed of the PCA sketch and of the starts (default 0)
   --power-iterations Q    of the PCA (default 1: clustering needs the leading components, not
                           their last digits; each iteration reads the data once more)

@@ -104,7 +104,7 @@ export async function cmdPca(args: string[], engineOptions: (v: Record<string, u
 export async function cmdKmeans(args: string[], engineOptions: (v: Record<string, unknown>) => EngineOptions, engineFlags: EngineFlags): Promise<void> {
   const parsed = parseFlags(args, {
     ...SOURCE_OPTIONS, ...engineFlags, ...FEATURE_FLAGS, out: { type: 'string' }, clusters: { type: 'string' }, features: { type: 'string' },
-    restarts: { type: 'string' }, seed: { type: 'string' }, 'power-iterations': { type: 'string' }, preview: { type: 'boolean' },
+    restarts: { type: 'string' }, seed: { type: 'string' }, 'power-iterations': { type: 'string' }, preview: { type: 'boolean' }, algorithm: { type: 'string' },
   });
   const v = parsed.values as Flags;
   rejectExtraPositionals(parsed.positionals, 'kmeans');
@@ -130,6 +130,10 @@ export async function cmdKmeans(args: string[], engineOptions: (v: Record<string
       ...(optional('power-iterations', 0) !== undefined ? { powerIterations: optional('power-iterations', 0) } : {}),
       ...(v.preview === true ? { preview: true } : {}),
     };
+    if (typeof v.algorithm === 'string') {
+      if (v.algorithm !== 'lloyd' && v.algorithm !== 'mini-batch') throw new InputError(`--algorithm ${v.algorithm}: expected lloyd or mini-batch`);
+      request.algorithm = v.algorithm;
+    }
     const r = await service.kmeans(request);
     const f = r.features;
     const pv = r.preview;
@@ -141,11 +145,12 @@ export async function cmdKmeans(args: string[], engineOptions: (v: Record<string
         attrs: { units: pv ? 'counts per detector bin (mean over the cluster, preview cube)' : 'counts per pattern (mean over the cluster, full resolution)' } },
       sizes: { data: Float64Array.from(r.sizes), shape: [r.k], dims: ['cluster'], attrs: { units: 'probe positions' } },
     }, {
-      clusters: r.k, inertia: r.inertia, iterations: r.iterations, restarts: r.method.restarts, restart_kept: r.method.restartKept, seed: r.method.seed,
+      clusters: r.k, inertia: r.inertia, iterations: r.iterations, algorithm: r.method.algorithm, restarts: r.method.restarts, restart_kept: r.method.restartKept, seed: r.method.seed,
       features_kind: 'pca', pca_components: f.components, pca_explained_variance: f.explainedVariance, pca_passes_over_data: r.method.pcaPasses,
       passes_over_data: pv ? 0 : r.method.pcaPasses + 1,
       bin: f.bin, crop_x0_y0_x1_y1: JSON.stringify([f.crop.x0, f.crop.y0, f.crop.x1, f.crop.y1]), scaling: f.scaling, normalize: f.normalize ? 'yes' : 'no', bad_pixels: f.badPixels,
-      method: 'k-means++ seeding (Arthur & Vassilvitskii 2007), Lloyd iterations, lowest inertia of the restarts',
+      method: r.method.algorithm === 'lloyd' ? 'k-means++ seeding (Arthur & Vassilvitskii 2007), Lloyd iterations, lowest inertia of the restarts'
+        : 'mini-batch k-means (Sculley 2010) from k-means++ centres on a sample',
       ...(pv ? { preview: 'yes: clusters of the preview cube, not of the full data', preview_scan_bin: pv.scanBin, preview_detector_bin: pv.detBin } : {}),
       ...provenance(r.descriptor, 'scanfold kmeans', request), ...badPixelAttrs(r.badPixels),
     });

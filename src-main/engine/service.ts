@@ -31,7 +31,7 @@ import { cacheKey, defaultCacheDir, readCachedFirstPass, writeCachedFirstPass, t
 import { findVacuum, type VacuumFinding } from '../../src-shared/compute/vacuum';
 import { featuresToImage, planFeatures } from '../../src-shared/compute/pattern-features';
 import { previewPca } from './statistics';
-import { kmeans } from '../../src-shared/compute/kmeans';
+import { kmeans, kmeansMiniBatch } from '../../src-shared/compute/kmeans';
 
 interface FirstResults extends CachedFirstPass {
   /** The pass itself, with its preview cube; null when the results came from the cache. */
@@ -54,6 +54,9 @@ function autoFeatureBin(detY: number, detX: number, crop?: { x0: number; y0: num
   for (const b of [1, 2, 4] as const) if (Math.floor(h / b) * Math.floor(w / b) <= 64 * 64) return b;
   return 8;
 }
+
+/** Positions above which k-means defaults to mini-batches (full Lloyd iterations over 2²⁰ points × restarts take minutes). */
+const MINI_BATCH_ABOVE = 2 ** 20;
 
 /** Patterns sampled (a side × side grid over the scan) to guess the bad pixels before the first pass. */
 const COM_SAMPLE_SIDE = 4;
@@ -656,7 +659,10 @@ export class EngineService implements ScanfoldService {
       const points = new Float64Array(m * k);
       for (let c = 0; c < k; c++) for (let i = 0; i < m; i++) points[i * k + c] = pca.loadings[c * m + i];
       const restarts = req.restarts ?? 10, seed = req.seed ?? 0;
-      const km = aboutFile(d.path, () => kmeans(points, m, k, req.clusters, { restarts, seed, maxIterations: 300, tol: 1e-4 }));
+      const algorithm = req.algorithm ?? (m > MINI_BATCH_ABOVE ? 'mini-batch' : 'lloyd');
+      const km = aboutFile(d.path, () => algorithm === 'mini-batch'
+        ? kmeansMiniBatch(points, m, k, req.clusters, { batch: 4096, iterations: 200, seed })
+        : kmeans(points, m, k, req.clusters, { restarts, seed, maxIterations: 300, tol: 1e-4 }));
       let clusterPatterns: Float64Array;
       let preview: KmeansResult['preview'];
       if (pca.preview) {
@@ -677,7 +683,7 @@ export class EngineService implements ScanfoldService {
         dataset: r.id, descriptor: d, k: req.clusters, labels: km.labels, centers: km.centers, clusterPatterns,
         sizes: km.sizes, inertia: km.inertia, iterations: km.iterations,
         features: { ...pca.features, kind: 'pca', components: k, explainedVariance: explained },
-        method: { restarts, seed, restartKept: km.restart, pcaPasses: pca.method.passes },
+        method: { algorithm, restarts: algorithm === 'lloyd' ? restarts : 1, seed, restartKept: km.restart, pcaPasses: pca.method.passes },
         ...(pca.badPixels ? { badPixels: pca.badPixels } : {}),
         ...(preview ? { preview } : {}),
         seconds: (performance.now() - t0) / 1000,

@@ -159,3 +159,46 @@ export function kmeans(points: Float64Array, n: number, f: number, k: number, o:
   }
   return best!;
 }
+
+export interface MiniBatchOptions {
+  batch: number;
+  iterations: number;
+  seed: number;
+}
+
+/**
+ * Mini-batch k-means (Sculley, WWW 2010) for scans too large for full Lloyd iterations: from
+ * k-means++ centres on a first batch, each iteration draws `batch` points, assigns each to its
+ * nearest centre and moves that centre towards it with a per-centre rate 1 / (points it has
+ * seen). Labels and inertia are then taken over all points. Deterministic for a given seed.
+ */
+export function kmeansMiniBatch(points: Float64Array, n: number, f: number, k: number, o: MiniBatchOptions): KmeansResult {
+  if (k > n) throw new InputError(`${k} clusters asked for, but there are only ${n} points; expected at most ${n}`, 'bad-request');
+  const random = generator(o.seed);
+  const b = Math.min(n, Math.max(k, o.batch));
+  const pick = () => Math.min(n - 1, Math.floor(random() * n));
+  // Seed on a sample of the points.
+  const sampleIdx = Array.from({ length: Math.min(n, Math.max(b, 10 * k)) }, pick);
+  const sample = new Float64Array(sampleIdx.length * f);
+  sampleIdx.forEach((p, i) => sample.set(points.subarray(p * f, (p + 1) * f), i * f));
+  const centers = kmeansPlusPlus(sample, sampleIdx.length, f, k, random);
+  const seen = new Float64Array(k);
+  for (let it = 0; it < o.iterations; it++) {
+    for (let q = 0; q < b; q++) {
+      const p = pick();
+      const c = nearestCenter(points, p, centers, k, f);
+      seen[c]++;
+      const eta = 1 / seen[c];
+      for (let x = 0; x < f; x++) centers[c * f + x] += eta * (points[p * f + x] - centers[c * f + x]);
+    }
+  }
+  const labels = new Int32Array(n);
+  const sizes = new Int32Array(k);
+  let inertia = 0;
+  for (let i = 0; i < n; i++) {
+    labels[i] = nearestCenter(points, i, centers, k, f);
+    sizes[labels[i]]++;
+    inertia += sqDist(points, i, centers, labels[i], f);
+  }
+  return { labels, centers, inertia, sizes, iterations: o.iterations, restart: 0 };
+}

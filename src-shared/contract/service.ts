@@ -316,6 +316,8 @@ export interface KmeansRequest extends JobOptions, FeatureOptions {
   powerIterations?: number;
   /** A preview from the preview cube alone (no read of the data): labels per scan bin, cluster patterns on the cube's binned detector. */
   preview?: boolean;
+  /** lloyd (full iterations, default up to 2²⁰ positions) or mini-batch (Sculley 2010; the default above). */
+  algorithm?: 'lloyd' | 'mini-batch';
 }
 
 export interface KmeansResult {
@@ -333,7 +335,7 @@ export interface KmeansResult {
   iterations: number;
   /** What was done, defaults included. */
   features: PcaResult['features'] & { kind: 'pca'; components: number; explainedVariance: number };
-  method: { restarts: number; seed: number; restartKept: number; pcaPasses: number };
+  method: { algorithm: 'lloyd' | 'mini-batch'; restarts: number; seed: number; restartKept: number; pcaPasses: number };
   badPixels?: { hot: [number, number][]; dead: [number, number][] };
   /** Set for a preview: labels are qY × qX (scan bins) and cluster patterns pY × pX (the cube's detector bins). */
   preview?: { qY: number; qX: number; pY: number; pX: number; scanBin: number; detBin: number };

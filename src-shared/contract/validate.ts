@@ -114,6 +114,7 @@ const SCHEMAS: Record<ServiceMethod, z.ZodType> = {
     restarts: z.number().int().min(1).max(1000).optional(),
     seed: whole.optional(),
     preview: z.boolean().optional(),
+    algorithm: z.enum(['lloyd', 'mini-batch']).optional(),
     powerIterations: z.number().int().min(0).max(20, 'at most 20 power iterations (each reads the data once more)').optional(),
     ...job,
   }).strict().refine((r) => !(r.normalize && r.scaling === 'poisson'), { message: 'normalize and Poisson scaling exclude each other (Poisson weighting needs counts)' }),

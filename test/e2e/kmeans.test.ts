@@ -42,3 +42,19 @@ print(json.dumps({'ari': adjusted_rand_score(truth.ravel(), labels.ravel()), 'dt
   expect(got.worst).toBeLessThan(1e-12);
   expect(got.passes).toBe(3);
 });
+
+it('kmeans --algorithm mini-batch gives the demo\'s grain map as well (ARI ≥ 0.90) and says which it ran', () => {
+  const demo = path.join(dir, 'demo.h5');
+  const out = path.join(dir, 'kmb.h5');
+  const r = scanfold('kmeans', demo, '--dataset', '/scan/frames', '--clusters', '5', '--scaling', 'sqrt', '--algorithm', 'mini-batch', '--out', out, '--quiet');
+  expect(r.status, r.stderr).toBe(0);
+  const p = spawnSync(PYTHON, ['-c', `import h5py, json, sys
+from sklearn.metrics import adjusted_rand_score
+f = h5py.File(sys.argv[1]); d = h5py.File(sys.argv[2])
+print(json.dumps({'ari': adjusted_rand_score(d['truth/grain_map'][()].ravel(), f['labels'][()].ravel()), 'algorithm': f.attrs['algorithm']}))`, out, demo], { encoding: 'utf8' });
+  expect(p.status, p.stderr).toBe(0);
+  const got = JSON.parse(p.stdout);
+  // reference: the generator's grain map, scored by sklearn.metrics.adjusted_rand_score
+  expect(got.ari).toBeGreaterThan(0.9);
+  expect(got.algorithm).toBe('mini-batch');
+});

@@ -3,7 +3,7 @@
 import fs from 'node:fs';
 import path from 'node:path';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
-import { kmeans, lloyd } from '../../src-shared/compute/kmeans';
+import { kmeans, kmeansMiniBatch, lloyd } from '../../src-shared/compute/kmeans';
 import { makeFixtures, readNpyF64 } from '../helpers/fixtures';
 
 let fx: string;
@@ -52,6 +52,20 @@ describe('k-means', () => {
     expect(r.inertia).toBeLessThanOrEqual(1.01 * sk.inertia_best_of_10);
     const again = kmeans(p.data, n, f, 6, { restarts: 10, seed: 0, maxIterations: 300, tol: 1e-4 });
     expect(Array.from(again.labels)).toEqual(Array.from(r.labels));
+  });
+
+  it('mini-batch k-means (Sculley 2010): blobs exact, the mixture within 2 % of scikit-learn\'s full k-means inertia', () => {
+    const p = readNpyF64(path.join(fx, 'blobs.npy'));
+    const truth = readNpyF64(path.join(fx, 'blobs.labels.npy')).data;
+    const b = kmeansMiniBatch(p.data, p.shape[0], p.shape[1], 3, { batch: 100, iterations: 50, seed: 3 });
+    // reference: the blob each point was drawn from
+    expect(adjustedRand(b.labels, truth)).toBe(1);
+    const m = readNpyF64(path.join(fx, 'mix.npy'));
+    const sk = JSON.parse(fs.readFileSync(path.join(fx, 'mix.json'), 'utf8'));
+    const r = kmeansMiniBatch(m.data, m.shape[0], m.shape[1], 6, { batch: 256, iterations: 100, seed: 0 });
+    console.log(`mixture, mini-batch: inertia ${r.inertia.toFixed(2)} against scikit-learn's full k-means ${sk.inertia_best_of_10.toFixed(2)}`);
+    // reference: KMeans(n_clusters=6, n_init=10).inertia_ (mini-batch trades a little inertia for speed)
+    expect(r.inertia).toBeLessThanOrEqual(1.02 * sk.inertia_best_of_10);
   });
 
   it('refuses what cannot be done', () => {
