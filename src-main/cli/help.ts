@@ -166,7 +166,11 @@ ${ENGINE}`,
   choice in attributes.
 
   --clusters K            how many clusters
-  --features pca:N        cluster each position's coordinates along the first N components (default pca:10)
+  --features pca:N|patterns
+                          pca:N (default pca:10): each position's coordinates along the first N
+                          principal components; patterns: the binned patterns themselves, streamed
+                          (k-means++ on 16 sampled scan rows, then one pass per Lloyd iteration)
+  --max-iterations M      with patterns: at most M iterations, each a pass over the data (default 30)
   --restarts R            k-means++ starts; the lowest inertia is kept (default 10)
   --algorithm lloyd|mini-batch
                           full Lloyd iterations (default up to 2²⁰ positions) or mini-batches of

@@ -105,6 +105,7 @@ export async function cmdKmeans(args: string[], engineOptions: (v: Record<string
   const parsed = parseFlags(args, {
     ...SOURCE_OPTIONS, ...engineFlags, ...FEATURE_FLAGS, out: { type: 'string' }, clusters: { type: 'string' }, features: { type: 'string' },
     restarts: { type: 'string' }, seed: { type: 'string' }, 'power-iterations': { type: 'string' }, preview: { type: 'boolean' }, algorithm: { type: 'string' },
+    'max-iterations': { type: 'string' },
   });
   const v = parsed.values as Flags;
   rejectExtraPositionals(parsed.positionals, 'kmeans');
@@ -112,10 +113,12 @@ export async function cmdKmeans(args: string[], engineOptions: (v: Record<string
   if (typeof v.clusters !== 'string') throw new InputError('kmeans needs --clusters K (how many clusters to find)');
   const clusters = wholeNumber('clusters', v.clusters, 1, 'a whole number ≥ 1');
   let pcaComponents: number | undefined;
+  let kind: 'pca' | 'patterns' | undefined;
   if (typeof v.features === 'string') {
     const m = /^pca:(\d+)$/.exec(v.features);
-    if (!m) throw new InputError(`--features ${v.features}: expected pca:N (the first N principal components of every pattern), e.g. pca:10`);
-    pcaComponents = wholeNumber('features', m[1], 1, 'pca:N with N ≥ 1');
+    if (v.features === 'patterns') kind = 'patterns';
+    else if (!m) throw new InputError(`--features ${v.features}: expected pca:N (the first N principal components of every pattern, e.g. pca:10) or patterns`);
+    else { kind = 'pca'; pcaComponents = wholeNumber('features', m[1], 1, 'pca:N with N ≥ 1'); }
   }
   const features = featureOptions(v);
   const optional = (flag: string, min: number) => (typeof v[flag] === 'string' ? wholeNumber(flag, v[flag] as string, min) : undefined);
@@ -124,10 +127,11 @@ export async function cmdKmeans(args: string[], engineOptions: (v: Record<string
     const opened = await openProtected(service, spec, out, { scan: 1, pattern: clusters });
     const { scanY, scanX, detY, detX } = opened.descriptor.shape;
     const request: KmeansRequest = {
-      dataset: opened.id, clusters, ...features, ...(pcaComponents !== undefined ? { pcaComponents } : {}),
+      dataset: opened.id, clusters, ...features, ...(pcaComponents !== undefined ? { pcaComponents } : {}), ...(kind ? { features: kind } : {}),
       ...(optional('restarts', 1) !== undefined ? { restarts: optional('restarts', 1) } : {}),
       ...(optional('seed', 0) !== undefined ? { seed: optional('seed', 0) } : {}),
       ...(optional('power-iterations', 0) !== undefined ? { powerIterations: optional('power-iterations', 0) } : {}),
+      ...(optional('max-iterations', 1) !== undefined ? { maxIterations: optional('max-iterations', 1) } : {}),
       ...(v.preview === true ? { preview: true } : {}),
     };
     if (typeof v.algorithm === 'string') {
@@ -140,14 +144,15 @@ export async function cmdKmeans(args: string[], engineOptions: (v: Record<string
     const [ly, lx, py, px] = pv ? [pv.qY, pv.qX, pv.pY, pv.pX] : [scanY, scanX, detY, detX];
     const written = await writeResults(service, out, {
       labels: { data: r.labels, shape: [ly, lx], dims: pv ? ['scan_y_binned', 'scan_x_binned'] : ['scan_y', 'scan_x'], attrs: { units: 'cluster index, 0 … k − 1' } },
-      centers: { data: r.centers, shape: [r.k, f.components], dims: ['cluster', 'component'], attrs: { units: 'coordinates along the principal components (feature units)' } },
+      centers: { data: r.centers, shape: [r.k, f.components], dims: ['cluster', f.kind === 'pca' ? 'component' : 'feature'],
+        attrs: { units: f.kind === 'pca' ? 'coordinates along the principal components (feature units)' : 'feature units (the binned detector, bins left out skipped)' } },
       cluster_patterns: { data: r.clusterPatterns, shape: [r.k, py, px], dims: pv ? ['cluster', 'det_y_binned', 'det_x_binned'] : ['cluster', 'det_y', 'det_x'],
         attrs: { units: pv ? 'counts per detector bin (mean over the cluster, preview cube)' : 'counts per pattern (mean over the cluster, full resolution)' } },
       sizes: { data: Float64Array.from(r.sizes), shape: [r.k], dims: ['cluster'], attrs: { units: 'probe positions' } },
     }, {
       clusters: r.k, inertia: r.inertia, iterations: r.iterations, algorithm: r.method.algorithm, restarts: r.method.restarts, restart_kept: r.method.restartKept, seed: r.method.seed,
-      features_kind: 'pca', pca_components: f.components, pca_explained_variance: f.explainedVariance, pca_passes_over_data: r.method.pcaPasses,
-      passes_over_data: pv ? 0 : r.method.pcaPasses + 1,
+      features_kind: f.kind, ...(f.kind === 'pca' ? { pca_components: f.components, pca_explained_variance: f.explainedVariance!, pca_passes_over_data: r.method.pcaPasses } : { features: f.components }),
+      passes_over_data: pv ? 0 : r.method.passes,
       bin: f.bin, crop_x0_y0_x1_y1: JSON.stringify([f.crop.x0, f.crop.y0, f.crop.x1, f.crop.y1]), scaling: f.scaling, normalize: f.normalize ? 'yes' : 'no', bad_pixels: f.badPixels,
       method: r.method.algorithm === 'lloyd' ? 'k-means++ seeding (Arthur & Vassilvitskii 2007), Lloyd iterations, lowest inertia of the restarts'
         : 'mini-batch k-means (Sculley 2010) from k-means++ centres on a sample',
@@ -157,7 +162,7 @@ export async function cmdKmeans(args: string[], engineOptions: (v: Record<string
     noteNonFiniteResults(written, ' (an empty cluster has a NaN mean pattern)');
     if (v.quiet !== true) {
       const where = pv ? ` (a preview: scan bins of ${pv.scanBin}×${pv.scanBin} positions from the preview cube, no pass over the data)` : ' positions';
-      process.stderr.write(`wrote ${written.path}: ${r.k} clusters of ${Array.from(r.sizes).join(', ')}${where}; inertia ${r.inertia.toPrecision(6)} on ${f.components} principal components\n`);
+      process.stderr.write(`wrote ${written.path}: ${r.k} clusters of ${Array.from(r.sizes).join(', ')}${where}; inertia ${r.inertia.toPrecision(6)} on ${f.kind === 'pca' ? `${f.components} principal components` : `the patterns (${f.components} features, ${r.iterations} iterations)`}\n`);
     }
   }, out);
 }

@@ -9,7 +9,7 @@ import type { Job } from './job';
 import { WorkerPool } from './worker-pool';
 import type { FirstPassComPlan, KernelKind } from '../workers/tile-worker';
 import { inspectSource, type Inspection } from '../io/index';
-import { startPca, startReferenceFit, type FitJobResult, type PcaJobResult } from './statistics';
+import { startPca, startReferenceFit, startStreamedKmeans, type FitJobResult, type PcaJobResult, type StreamedKmeansResult } from './statistics';
 import type { FeaturePlan } from '../../src-shared/compute/pattern-features';
 import type { PcaOptions } from '../../src-shared/compute/pca';
 
@@ -88,6 +88,11 @@ export class Engine {
   /** Reference fit of every pattern to the mean feature vectors of the given regions (two passes). */
   referenceFit(spec: SourceSpec, plan: FeaturePlan, regions: Uint8Array[], nonnegative: boolean): Job<FitJobResult> {
     return this.track(startReferenceFit(this.pool, spec, plan, regions, nonnegative, this.limits, this.kernel));
+  }
+
+  /** k-means on the feature vectors themselves, streamed (a sample pass, then one pass per iteration). */
+  streamedKmeans(spec: SourceSpec, plan: FeaturePlan, k: number, o: { restarts: number; seed: number; maxIterations: number; sampleRows: number }): Job<StreamedKmeansResult> {
+    return this.track(startStreamedKmeans(this.pool, spec, plan, k, o, this.limits, this.kernel));
   }
 
   /** The mean pattern of every cluster (labels: one per scan position, 0 … k − 1). */

@@ -639,6 +639,24 @@ export class EngineService implements ScanfoldService {
     });
   }
 
+  /** k-means on the feature vectors themselves, streamed; then each cluster's mean pattern. */
+  private async kmeansOfPatterns(r: DatasetRecord, req: KmeansRequest, t0: number): Promise<KmeansResult> {
+    if (req.preview) throw new InputError('kmeans: a preview clusters principal components of the preview cube; expected features pca with preview', 'bad-request');
+    const d = r.opened.descriptor;
+    const { plan, features, badPixels } = await this.featurePlan(r, req);
+    const restarts = req.restarts ?? 10, seed = req.seed ?? 0;
+    const km = await this.track(this.engine.streamedKmeans(specOf(r), plan, req.clusters, { restarts, seed, maxIterations: req.maxIterations ?? 30, sampleRows: 16 }), req.jobId, 'k-means');
+    const patterns = await this.track(this.engine.clusterPatterns(specOf(r), km.labels, req.clusters), req.jobId ? `${req.jobId}/cluster-patterns` : undefined, 'cluster patterns');
+    return {
+      dataset: r.id, descriptor: d, k: req.clusters, labels: km.labels, centers: km.centers, clusterPatterns: patterns.means,
+      sizes: km.sizes, inertia: km.inertia, iterations: km.iterations,
+      features: { ...features, kind: 'patterns', components: plan.nFeatures },
+      method: { algorithm: 'lloyd', restarts, seed, restartKept: 0, pcaPasses: 0, passes: km.passes + 1 },
+      ...(badPixels ? { badPixels } : {}),
+      seconds: (performance.now() - t0) / 1000,
+    };
+  }
+
   async kmeans(req: KmeansRequest): Promise<KmeansResult> {
     validateRequest('kmeans', req);
     return this.request(req.jobId, async () => {
@@ -647,6 +665,7 @@ export class EngineService implements ScanfoldService {
       const d = r.opened.descriptor;
       const n = d.shape.scanY * d.shape.scanX;
       if (req.clusters > n) throw new InputError(`${d.path}: ${req.clusters} clusters asked for, but the scan has ${n} positions; expected at most ${n}`, 'bad-request');
+      if (req.features === 'patterns') return this.kmeansOfPatterns(r, req, t0);
       const f = req.pcaComponents ?? 10;
       const pca = await this.runPca(r, {
         dataset: req.dataset, components: f, bin: req.bin, crop: req.crop, scaling: req.scaling, normalize: req.normalize, badPixels: req.badPixels,
@@ -683,7 +702,7 @@ export class EngineService implements ScanfoldService {
         dataset: r.id, descriptor: d, k: req.clusters, labels: km.labels, centers: km.centers, clusterPatterns,
         sizes: km.sizes, inertia: km.inertia, iterations: km.iterations,
         features: { ...pca.features, kind: 'pca', components: k, explainedVariance: explained },
-        method: { algorithm, restarts: algorithm === 'lloyd' ? restarts : 1, seed, restartKept: km.restart, pcaPasses: pca.method.passes },
+        method: { algorithm, restarts: algorithm === 'lloyd' ? restarts : 1, seed, restartKept: km.restart, pcaPasses: pca.method.passes, passes: pca.method.passes + (pca.preview ? 0 : 1) },
         ...(pca.badPixels ? { badPixels: pca.badPixels } : {}),
         ...(preview ? { preview } : {}),
         seconds: (performance.now() - t0) / 1000,

@@ -4,6 +4,7 @@ import { CancelledError, InputError } from '../../src-shared/model/errors';
 import type { FeaturePlan } from '../../src-shared/compute/pattern-features';
 import { randomizedPca, type PassSums, type PcaOptions, type PcaResult } from '../../src-shared/compute/pca';
 import { planFit } from '../../src-shared/compute/reference-fit';
+import { kmeans } from '../../src-shared/compute/kmeans';
 import { patternFeatures } from '../../src-shared/compute/pattern-features';
 import { coRangeRows } from '../../src-shared/compute/randomized-svd';
 import { createWasmSketchKernel } from '../../src-shared/compute/sketch-wasm';
@@ -255,4 +256,91 @@ export async function previewPca(cube: PreviewCube, plan: FeaturePlan, options: 
     return { y, w, colSum, sumSq };
   };
   return { pca: await randomizedPca(pass, n, dim, options), zeroPatterns };
+}
+
+export interface StreamedKmeansResult {
+  descriptor: DatasetDescriptor;
+  labels: Int32Array;
+  /** k × D */
+  centers: Float64Array;
+  sizes: Int32Array;
+  inertia: number;
+  /** Passes over the data: the sample, then one per Lloyd iteration. */
+  passes: number;
+  iterations: number;
+  seconds: number;
+}
+
+/**
+ * k-means on the feature vectors themselves, streamed: k-means++ (with restarts, the lowest
+ * inertia kept) on the patterns of a few evenly spaced scan rows read first, then Lloyd
+ * iterations, each a pass that assigns every pattern to its nearest centre and sums the
+ * clusters' vectors tile by tile (added in scan order), until no pattern changes cluster or
+ * `maxIterations` passes.
+ */
+export function startStreamedKmeans(pool: WorkerPool, spec: SourceSpec, plan: FeaturePlan, k: number,
+  o: { restarts: number; seed: number; maxIterations: number; sampleRows: number }, limits: EngineLimits, kernel: KernelKind): Job<StreamedKmeansResult> {
+  const job = new Job<StreamedKmeansResult>('kmeans', `k-means of the patterns of ${spec.path}`, 0);
+  (async () => {
+    const t0 = performance.now();
+    const { descriptor: d, rowAlignment, memory } = await pool.run((w) => w.open(spec));
+    if (job.cancelled) return;
+    const { scanY, scanX, detY, detX } = d.shape;
+    const n = scanY * scanX, dim = plan.nFeatures;
+    const patternBytes = detY * detX * DTYPE_BYTES[d.dtype];
+    const reserved = n * 4 * 2 + k * dim * 8 * (limits.workers + 3);
+    const tp = planTiles(d, { rowAlignment, memory: { ...memory, tileCopies: memory.tileCopies + 1.5 + (dim * 8) / patternBytes } }, limits, reserved);
+    const dataBytes = tp.tiles.reduce((s, t) => s + t.bytes, 0);
+    // The sample: evenly spaced scan rows, one tile each.
+    const rows = Math.min(scanY, o.sampleRows);
+    const sampleTiles = Array.from({ length: rows }, (_, i) => Math.floor(((i + 0.5) * scanY) / rows)).map((r) => ({ row0: r, nRows: 1, bytes: rowBytes(d) }));
+    job.bytesTotal = sampleTiles.length * rowBytes(d) + dataBytes * o.maxIterations;
+    const sample = new Float64Array(rows * scanX * dim);
+    let nonFinite = 0;
+    await runTiles({
+      pool, job, spec: d.spec, tiles: sampleTiles,
+      compute: (w, tile) => w.featureRowsTile(d.spec, tile.row0, 1, plan, kernel),
+      merge: (r, tile) => { sample.set(r.features, sampleTiles.findIndex((t) => t.row0 === tile.row0) * scanX * dim); nonFinite += r.nonFinite; },
+    });
+    if (job.cancelled) return;
+    if (nonFinite > 0) throw new InputError(`${d.path}: the data hold NaN or ±Inf values inside the features; expected finite data for k-means`, 'bad-input');
+    const start = kmeans(sample, rows * scanX, dim, k, { restarts: o.restarts, seed: o.seed, maxIterations: 100, tol: 1e-4 });
+    let centers = start.centers;
+    const labels = new Int32Array(new SharedArrayBuffer(n * 4)).fill(-1);
+    let inertia = 0, iterations = 0, sizes = new Int32Array(k);
+    for (; iterations < o.maxIterations; iterations++) {
+      const sums = new Float64Array(k * dim), counts = new Float64Array(k);
+      const parts = new Map<number, { sums: Float64Array; counts: Float64Array; inertia: number }>();
+      let next = 0, changed = 0;
+      inertia = 0;
+      const current = centers;
+      await runTiles({
+        pool, job, spec: d.spec, tiles: tp.tiles,
+        compute: (w, tile) => w.kmeansTile(d.spec, tile.row0, tile.nRows, plan, kernel, current, k, labels),
+        merge: (r, tile) => {
+          changed += r.changed;
+          parts.set(tile.row0, r);
+          for (let q = parts.get(tp.tiles[next]?.row0); q; q = parts.get(tp.tiles[next]?.row0)) {
+            for (let i = 0; i < sums.length; i++) sums[i] += q.sums[i];
+            for (let c = 0; c < k; c++) counts[c] += q.counts[c];
+            inertia += q.inertia;
+            parts.delete(tp.tiles[next++].row0);
+          }
+        },
+      });
+      if (job.cancelled) return;
+      sizes = Int32Array.from(counts);
+      // New centres; an empty cluster keeps its centre.
+      centers = Float64Array.from(sums, (v, i) => (counts[Math.floor(i / dim)] > 0 ? v / counts[Math.floor(i / dim)] : current[i]));
+      if (changed === 0) { iterations++; break; }
+    }
+    // The reported progress total assumed every iteration; finish it honestly.
+    job.bytesTotal = sampleTiles.length * rowBytes(d) + dataBytes * Math.max(1, iterations);
+    job.succeed({ descriptor: d, labels: Int32Array.from(labels), centers, sizes, inertia, passes: iterations + 1, iterations, seconds: (performance.now() - t0) / 1000 });
+  })().catch((e) => job.fail(e));
+  return job;
+}
+
+function rowBytes(d: DatasetDescriptor): number {
+  return d.shape.scanX * d.shape.detY * d.shape.detX * DTYPE_BYTES[d.dtype];
 }

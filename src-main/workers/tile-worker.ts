@@ -424,6 +424,45 @@ const api = {
     return Comlink.transfer(reply, [sums.buffer, counts.buffer]);
   },
 
+  /**
+   * One tile of a streamed k-means iteration on feature vectors: each pattern's nearest centre
+   * (written into the shared labels), and per cluster the sum of its vectors and its count.
+   */
+  async kmeansTile(spec: SourceSpec, row0: number, nRows: number, plan: FeaturePlan, kernel: KernelKind, centers: Float64Array, k: number,
+    labels: Int32Array): Promise<{ sums: Float64Array; counts: Float64Array; inertia: number; changed: number; nonFinite: number } & TileTiming> {
+    const src = await sourceFor(spec);
+    const f = featuresOfTile(src, row0, nRows, plan, kernel);
+    const t1 = performance.now();
+    const n = nRows * src.descriptor.shape.scanX, d = plan.nFeatures, at = row0 * src.descriptor.shape.scanX;
+    const sums = new Float64Array(k * d), counts = new Float64Array(k);
+    let inertia = 0, changed = 0;
+    for (let p = 0; p < n; p++) {
+      const off = p * d;
+      let best = 0, bestD = Infinity;
+      for (let c = 0; c < k; c++) {
+        let s2 = 0;
+        const co = c * d;
+        for (let x = 0; x < d; x++) { const v = f.features[off + x] - centers[co + x]; s2 += v * v; }
+        if (s2 < bestD) { bestD = s2; best = c; }
+      }
+      if (labels[at + p] !== best) { labels[at + p] = best; changed++; }
+      inertia += bestD;
+      counts[best]++;
+      for (let x = 0; x < d; x++) sums[best * d + x] += f.features[off + x];
+    }
+    const reply = { sums, counts, inertia, changed, nonFinite: f.nonFinite, row0, nRows, bytes: f.rawBytes, readMs: f.readMs, computeMs: f.computeMs + performance.now() - t1 };
+    return Comlink.transfer(reply, [sums.buffer, counts.buffer]);
+  },
+
+  /** The feature vectors of the patterns of rows [row0, row0+nRows) (a k-means sample). */
+  async featureRowsTile(spec: SourceSpec, row0: number, nRows: number, plan: FeaturePlan, kernel: KernelKind): Promise<{ features: Float64Array; nonFinite: number } & TileTiming> {
+    const src = await sourceFor(spec);
+    const f = featuresOfTile(src, row0, nRows, plan, kernel);
+    const features = f.features.slice(0, nRows * src.descriptor.shape.scanX * plan.nFeatures);
+    const reply = { features, nonFinite: f.nonFinite, row0, nRows, bytes: f.rawBytes, readMs: f.readMs, computeMs: f.computeMs };
+    return Comlink.transfer(reply, [features.buffer]);
+  },
+
   /** Sums of the feature vectors of the positions in each of r regions (masks r × the tile's positions), and their counts. */
   async regionFeatureSumsTile(spec: SourceSpec, row0: number, nRows: number, plan: FeaturePlan, kernel: KernelKind, masks: Uint8Array, r: number): Promise<FeatureSumsReply> {
     const src = await sourceFor(spec);

@@ -306,8 +306,12 @@ export interface KmeansRequest extends JobOptions, FeatureOptions {
   dataset: DatasetId;
   /** Clusters wanted (k ≥ 1). */
   clusters: number;
+  /** pca (default): each position's coordinates along the first pcaComponents principal components; patterns: the feature vectors themselves, streamed (one pass per iteration). */
+  features?: 'pca' | 'patterns';
   /** Each position's coordinates along the first N principal components (default 10). */
   pcaComponents?: number;
+  /** patterns: at most this many iterations, each a pass over the data (default 30). */
+  maxIterations?: number;
   /** k-means++ starts; the lowest inertia is kept (default 10). */
   restarts?: number;
   /** Seed of the PCA sketch and of the starts (default 0). */
@@ -334,8 +338,9 @@ export interface KmeansResult {
   inertia: number;
   iterations: number;
   /** What was done, defaults included. */
-  features: PcaResult['features'] & { kind: 'pca'; components: number; explainedVariance: number };
-  method: { algorithm: 'lloyd' | 'mini-batch'; restarts: number; seed: number; restartKept: number; pcaPasses: number };
+  /** kind pca: `components` principal components explaining `explainedVariance`; kind patterns: `components` = the number of features. */
+  features: PcaResult['features'] & { kind: 'pca' | 'patterns'; components: number; explainedVariance?: number };
+  method: { algorithm: 'lloyd' | 'mini-batch'; restarts: number; seed: number; restartKept: number; pcaPasses: number; passes: number };
   badPixels?: { hot: [number, number][]; dead: [number, number][] };
   /** Set for a preview: labels are qY × qX (scan bins) and cluster patterns pY × pX (the cube's detector bins). */
   preview?: { qY: number; qX: number; pY: number; pX: number; scanBin: number; detBin: number };

@@ -111,6 +111,8 @@ const SCHEMAS: Record<ServiceMethod, z.ZodType> = {
     normalize: z.boolean().optional(),
     badPixels,
     pcaComponents: positiveWhole.optional(),
+    features: z.enum(['pca', 'patterns']).optional(),
+    maxIterations: z.number().int().min(1).max(1000).optional(),
     restarts: z.number().int().min(1).max(1000).optional(),
     seed: whole.optional(),
     preview: z.boolean().optional(),

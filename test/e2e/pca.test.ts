@@ -98,6 +98,27 @@ describe('PCA through the service', () => {
     }
   });
 
+  it('k-means on the patterns themselves, streamed: inertia within 1 % of scikit-learn\'s KMeans on NumPy\'s features', async () => {
+    const { spawnSync } = await import('node:child_process');
+    const { PYTHON } = await import('../helpers/fixtures');
+    const d = await service.open({ path: path.join(fx, 'mix.npy') });
+    const r = await service.kmeans({ dataset: d.id, clusters: 3, features: 'patterns', bin: 2, badPixels: 'none' });
+    const p = spawnSync(PYTHON, ['-c', `import numpy as np, sys
+from sklearn.cluster import KMeans
+a = np.load(sys.argv[1]).astype(np.float64)
+sy, sx, ky, kx = a.shape
+f = a.reshape(sy, sx, ky // 2, 2, kx // 2, 2).sum(axis=(3, 5)).reshape(sy * sx, -1)
+print(KMeans(n_clusters=3, n_init=10, random_state=0).fit(f).inertia_)`, path.join(fx, 'mix.npy')], { encoding: 'utf8' });
+    expect(p.status, p.stderr).toBe(0);
+    // reference: sklearn.cluster.KMeans(3, n_init=10) on NumPy's 2 × 2-binned features
+    const sk = Number(p.stdout);
+    console.log(`mixture, k-means on the patterns: inertia ${r.inertia.toFixed(1)} in ${r.iterations} iteration(s), scikit-learn ${sk.toFixed(1)}`);
+    expect(r.inertia).toBeLessThanOrEqual(1.01 * sk);
+    expect(r.features.kind).toBe('patterns');
+    expect(r.centers.length).toBe(3 * r.features.nFeatures);
+    await service.close(d.id);
+  });
+
   it('a hot pixel left in takes a component of its own; with bad pixels auto it is left out (common practice)', async () => {
     const d = await service.open({ path: path.join(fx, 'mix-hot.npy') });
     const { detX } = d.descriptor.shape;
