@@ -193,7 +193,7 @@ export class EngineService implements ScanfoldService {
 
   private async track<T>(job: Job<T>, jobId: string | undefined, label: string): Promise<T> {
     const id = jobId ?? `job-${this.nextJob++}`;
-    if (jobId !== undefined && this.requests.get(jobId.split('/')[0])?.cancelled) job.cancel();
+    if (jobId !== undefined && [...this.requests].some(([id, req]) => req.cancelled && (jobId === id || jobId.startsWith(`${id}/`)))) job.cancel();
     if (this.running.has(id)) {
       job.cancel('duplicate job id');
       throw new InputError(`job id ${JSON.stringify(id)} is already running; expected a new id`, 'bad-request');
@@ -666,7 +666,8 @@ export class EngineService implements ScanfoldService {
       const n = d.shape.scanY * d.shape.scanX;
       if (req.clusters > n) throw new InputError(`${d.path}: ${req.clusters} clusters asked for, but the scan has ${n} positions; expected at most ${n}`, 'bad-request');
       if (req.features === 'patterns') return this.kmeansOfPatterns(r, req, t0);
-      const f = req.pcaComponents ?? 10;
+      // Not asked for: 10 components, or fewer when the data have fewer patterns or features.
+      const f = req.pcaComponents ?? Math.min(10, n, (await this.featurePlan(r, req)).plan.nFeatures);
       const pca = await this.runPca(r, {
         dataset: req.dataset, components: f, bin: req.bin, crop: req.crop, scaling: req.scaling, normalize: req.normalize, badPixels: req.badPixels,
         // One power iteration: clustering needs the leading subspace, not its last digits (one read fewer).

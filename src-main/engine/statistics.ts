@@ -50,7 +50,10 @@ export function startPca(pool: WorkerPool, spec: SourceSpec, plan: FeaturePlan, 
     const l = Math.min(options.components + options.oversample, n, dim);
     const patternBytes = detY * detX * DTYPE_BYTES[d.dtype];
     const rowBytes = scanX * patternBytes;
-    const groupRows = Math.max(1, Math.min(scanY, Math.floor(GROUP_BYTES / rowBytes)));
+    // Groups of whole rows, a multiple of the storage's row alignment (HDF5 chunks), so tiles of
+    // whole groups need no larger unit than other jobs'.
+    const align = Math.max(1, rowAlignment);
+    const groupRows = Math.min(scanY, align * Math.max(1, Math.floor(GROUP_BYTES / (rowBytes * align))));
     // Per worker beside its tile: with 8/16-bit data the tile sits in the bin kernel's memory
     // (half a tile of slack) which also holds the detector bins it writes (float32), copied out
     // once; a group's feature vectors (float64) and its Y and W in the sketch kernel.
@@ -58,25 +61,35 @@ export function startPca(pool: WorkerPool, spec: SourceSpec, plan: FeaturePlan, 
     const viaBins = kernel === 'wasm' && DTYPE_BYTES[d.dtype] <= 2 && !d.dtype.startsWith('float');
     const extraCopies = viaBins ? 0.5 + 2 * binsRatio : 0;
     const perWorkerGroup = groupRows * scanX * (dim + l) * 8 + dim * l * 8 * 2;
-    // On the main thread: Y, and at the end its orthonormal basis, U and the loadings (N × l each);
-    // W, Z and the slots of partial W (D × l each); a few D-vectors.
     const sketchCols = options.onePass ? Math.min(2 * l + 1, n) : l;
-    const reserved = 4 * n * l * 8 + dim * sketchCols * 8 * (3 + 2 * (limits.workers + 1) * 4) + dim * 8 * 4 + limits.workers * perWorkerGroup;
-    const tp = planTiles(d, { rowAlignment, memory: { ...memory, tileCopies: memory.tileCopies + extraCopies } }, limits, reserved, groupRows);
+    // Slots of partial W (D × sketch columns each) for every worker's tile in flight and one more
+    // tile's waiting to be added in scan order; a lane waits for a free slot rather than fail.
+    const slotBytes = dim * sketchCols * 8;
+    const slotsFor = (groupsPerTile: number) => (limits.workers + 1) * groupsPerTile;
+    // On the main thread: Y, and at the end its orthonormal basis, U and the loadings (N × l each);
+    // W, Z (D × sketch columns each), the slots; a few D-vectors; each worker's group.
+    const reservedFor = (groupsPerTile: number) => 4 * n * l * 8 + slotBytes * (3 + slotsFor(groupsPerTile)) + dim * 8 * 4 + limits.workers * perWorkerGroup;
+    const reader = { rowAlignment, memory: { ...memory, tileCopies: memory.tileCopies + extraCopies } };
+    let tp = planTiles(d, reader, limits, reservedFor(1), groupRows);
+    // The tiles' height sets how many groups a tile holds: plan again with their slots counted.
+    if (tp.tileRows / groupRows > 1) tp = planTiles(d, reader, limits, reservedFor(tp.tileRows / groupRows), groupRows);
     const dataBytes = tp.tiles.reduce((s, t) => s + t.bytes, 0);
     job.bytesTotal = dataBytes * (options.onePass ? 1 : options.powerIterations + 1);
     let zeroPatterns = 0;
     let passIndex = 0;
     // Y and the groups' partial W are written by the workers into shared memory, never sent in
-    // replies: fresh buffers per tile would pile up faster than the collector frees them. A group
-    // holds a slot of W until it is added in scan order; at most every worker's tile in flight
-    // and as many waiting for an earlier one hold slots.
+    // replies: fresh buffers per tile would pile up faster than the collector frees them.
     const groupsPerTile = tp.tileRows / groupRows;
-    const slotCount = 2 * (limits.workers + 1) * groupsPerTile;
-    // A slot holds D × l values, or D × s for the one-pass sketch's co-range (s = 2l + 1).
+    const slotCount = slotsFor(groupsPerTile);
     const wCols = sketchCols;
-    const slots = new Float64Array(new SharedArrayBuffer(slotCount * dim * wCols * 8));
+    const slots = new Float64Array(new SharedArrayBuffer(slotCount * slotBytes));
     const freeSlots = Array.from({ length: slotCount }, (_, i) => i);
+    const slotWaiters: (() => void)[] = [];
+    /** Slots for a tile's groups: at once if free, else after an earlier tile's groups are added. */
+    const takeSlots = async (groups: number): Promise<Int32Array> => {
+      while (freeSlots.length < groups) await new Promise<void>((resolve) => slotWaiters.push(resolve));
+      return Int32Array.from(freeSlots.splice(0, groups));
+    };
     const pass = async (zLocal: Float64Array, centreLocal: Float64Array | null, coRange?: { s: number; seed: number }): Promise<PassSums> => {
       passIndex++;
       // Z and the centre go to every tile: in shared memory they are not copied into each message.
@@ -93,10 +106,8 @@ export function startPca(pool: WorkerPool, spec: SourceSpec, plan: FeaturePlan, 
       let nextGroup = 0;
       await runTiles({
         pool, job, spec: d.spec, tiles: tp.tiles,
-        compute: (worker, tile) => {
-          const groups = Math.ceil(tile.nRows / groupRows);
-          if (freeSlots.length < groups) throw new Error('PCA: no free slot for partial sums (more tiles in flight than planned)');
-          const ids = Int32Array.from(freeSlots.splice(0, groups));
+        compute: async (worker, tile) => {
+          const ids = await takeSlots(Math.ceil(tile.nRows / groupRows));
           slotsOfTile.set(tile.row0, ids);
           return worker.pcaTile(d.spec, tile.row0, tile.nRows, groupRows, plan, z, l, centre, kernel, y, slots, ids, coRange);
         },
@@ -115,6 +126,7 @@ export function startPca(pool: WorkerPool, spec: SourceSpec, plan: FeaturePlan, 
             freeSlots.push(part.slot);
             pending.delete(nextGroup++);
           }
+          for (const wake of slotWaiters.splice(0)) wake();
           nonFinite += r.nonFinite;
           if (passIndex === 1) zeroPatterns += r.zeroPatterns;
         },

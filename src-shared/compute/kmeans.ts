@@ -92,11 +92,12 @@ export function lloyd(points: Float64Array, n: number, f: number, k: number, cen
       sizes[c]++;
       for (let x = 0; x < f; x++) sums[c * f + x] += points[i * f + x];
     }
-    // An empty cluster takes the point farthest from its centre.
+    // An empty cluster takes the point farthest from its centre, from a cluster that keeps another.
     for (let c = 0; c < k; c++) {
       if (sizes[c] > 0) continue;
-      let far = 0;
-      for (let i = 1; i < n; i++) if (dist[i] > dist[far]) far = i;
+      let far = -1;
+      for (let i = 0; i < n; i++) if (sizes[labels[i]] > 1 && (far < 0 || dist[i] > dist[far])) far = i;
+      if (far < 0) break;
       const old = labels[far];
       sizes[old]--;
       for (let x = 0; x < f; x++) { sums[old * f + x] -= points[far * f + x]; sums[c * f + x] = points[far * f + x]; }
@@ -131,16 +132,21 @@ function nearestCenter(points: Float64Array, i: number, centers: Float64Array, k
   return best;
 }
 
-export function kmeans(points: Float64Array, n: number, f: number, k: number, o: KmeansOptions): KmeansResult {
+/** What k-means cannot do, refused with a message: no clusters, more clusters than points or distinct points, non-finite features. */
+function checkKmeansInput(points: Float64Array, n: number, f: number, k: number): void {
   if (!Number.isInteger(k) || k < 1) throw new InputError(`clusters: expected a whole number ≥ 1, got ${k}`, 'bad-request');
   if (k > n) throw new InputError(`${k} clusters asked for, but there are only ${n} points; expected at most ${n}`, 'bad-request');
-  for (let i = 0; i < points.length; i++) {
+  for (let i = 0; i < n * f; i++) {
     if (!Number.isFinite(points[i])) throw new InputError('k-means: the features hold NaN or ±Inf values; expected finite features', 'bad-input');
   }
   // More clusters than distinct points cannot all be filled.
   const distinct = new Set<string>();
   for (let i = 0; i < n && distinct.size < k; i++) distinct.add(Array.from(points.subarray(i * f, (i + 1) * f)).join(','));
   if (distinct.size < k) throw new InputError(`${k} clusters asked for, but the features take only ${distinct.size} distinct value(s); expected at most ${distinct.size} clusters`, 'bad-request');
+}
+
+export function kmeans(points: Float64Array, n: number, f: number, k: number, o: KmeansOptions): KmeansResult {
+  checkKmeansInput(points, n, f, k);
   // Stop threshold relative to the data's variance (as common k-means implementations do).
   let variance = 0;
   for (let x = 0; x < f; x++) {
@@ -173,7 +179,7 @@ export interface MiniBatchOptions {
  * seen). Labels and inertia are then taken over all points. Deterministic for a given seed.
  */
 export function kmeansMiniBatch(points: Float64Array, n: number, f: number, k: number, o: MiniBatchOptions): KmeansResult {
-  if (k > n) throw new InputError(`${k} clusters asked for, but there are only ${n} points; expected at most ${n}`, 'bad-request');
+  checkKmeansInput(points, n, f, k);
   const random = generator(o.seed);
   const b = Math.min(n, Math.max(k, o.batch));
   const pick = () => Math.min(n - 1, Math.floor(random() * n));
@@ -199,6 +205,11 @@ export function kmeansMiniBatch(points: Float64Array, n: number, f: number, k: n
     labels[i] = nearestCenter(points, i, centers, k, f);
     sizes[labels[i]]++;
     inertia += sqDist(points, i, centers, labels[i], f);
+  }
+  // A centre that ended up nearest to no point is given one by a full Lloyd step.
+  if (sizes.some((x) => x === 0)) {
+    const r = lloyd(points, n, f, k, centers, 1, 0);
+    return { ...r, centers, iterations: o.iterations + 1, restart: 0 };
   }
   return { labels, centers, inertia, sizes, iterations: o.iterations, restart: 0 };
 }

@@ -79,13 +79,15 @@ export function planFit(references: Float64Array, r: number, d: number): FitPlan
 export function nnlsNormal(g: Float64Array, b: Float64Array, r: number): Float64Array {
   const x = new Float64Array(r);
   const passive = new Uint8Array(r);
+  // Gradient tolerance in b's units; coefficients leave the passive set only when they reach 0.
   const tol = 1e-12 * Math.max(1, ...Array.from(b, Math.abs));
+  const skip = new Uint8Array(r);
   for (let outer = 0; outer < 3 * r + 10; outer++) {
     // Gradient of the objective's negative half: w = b − G·x.
     const w = new Float64Array(r);
     for (let i = 0; i < r; i++) { let s = b[i]; for (let j = 0; j < r; j++) s -= g[i * r + j] * x[j]; w[i] = s; }
     let pick = -1, best = tol;
-    for (let i = 0; i < r; i++) if (!passive[i] && w[i] > best) { best = w[i]; pick = i; }
+    for (let i = 0; i < r; i++) if (!passive[i] && !skip[i] && w[i] > best) { best = w[i]; pick = i; }
     if (pick < 0) break;
     passive[pick] = 1;
     for (let inner = 0; inner < 3 * r + 10; inner++) {
@@ -96,10 +98,16 @@ export function nnlsNormal(g: Float64Array, b: Float64Array, r: number): Float64
       const lp = cholesky(gp, m, 0);
       const z = lp ? cholSolve(lp, m, bp) : new Float64Array(m);
       if (z.every((v) => v > 0)) { x.fill(0); idx.forEach((i, a) => { x[i] = z[a]; }); break; }
+      // The variable just added cannot rise (rounding): leave it out of this round.
+      const justAdded = idx.indexOf(pick);
+      if (inner === 0 && justAdded >= 0 && z[justAdded] <= 0) { passive[pick] = 0; skip[pick] = 1; break; }
       // Step towards z until a passive variable reaches zero; it leaves the passive set.
       let alpha = 1;
       idx.forEach((i, a) => { if (z[a] <= 0) alpha = Math.min(alpha, x[i] / (x[i] - z[a])); });
-      idx.forEach((i, a) => { x[i] += alpha * (z[a] - x[i]); if (x[i] <= tol) { x[i] = 0; passive[i] = 0; } });
+      // A coefficient that reached zero (to rounding, in the coefficients' own scale) leaves.
+      let scale = 0;
+      idx.forEach((i, a) => { scale = Math.max(scale, Math.abs(x[i]), Math.abs(z[a])); });
+      idx.forEach((i, a) => { x[i] += alpha * (z[a] - x[i]); if (z[a] <= 0 && x[i] <= 1e-12 * scale) { x[i] = 0; passive[i] = 0; } });
     }
   }
   return x;

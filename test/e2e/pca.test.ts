@@ -58,7 +58,7 @@ describe('PCA through the service', () => {
     await service.close(d.id);
   });
 
-  it('the same seed gives identical output with 1 or 2 workers and any budget', async () => {
+  it('the same seed gives identical output with 1, 2 or 8 workers and any budget', async () => {
     const one = new EngineService({ workers: 1, budgetBytes: 64 * 2 ** 20, cacheDir: null });
     try {
       const a = await one.open({ path: path.join(fx, 'mix.npy') });
@@ -68,6 +68,16 @@ describe('PCA through the service', () => {
       expect(Array.from(ra.singularValues)).toEqual(Array.from(rb.singularValues));
       expect(Array.from(ra.components)).toEqual(Array.from(rb.components));
       expect(Array.from(ra.loadings)).toEqual(Array.from(rb.loadings));
+      // Eight workers racing over one-row tiles: lanes wait for slots of partial sums, never fail.
+      const many = new EngineService({ workers: 8, budgetBytes: 256 * 2 ** 20, cacheDir: null });
+      try {
+        const c = await many.open({ path: path.join(fx, 'mix.npy') });
+        const rc = await many.pca({ dataset: c.id, components: 4, bin: 1, badPixels: 'none', seed: 11 });
+        expect(Array.from(rc.singularValues)).toEqual(Array.from(rb.singularValues));
+        expect(Array.from(rc.loadings)).toEqual(Array.from(rb.loadings));
+      } finally {
+        await many.shutdown();
+      }
       const other = await service.pca({ dataset: b.id, components: 4, bin: 1, badPixels: 'none', seed: 12 });
       expect(Array.from(other.components)).not.toEqual(Array.from(rb.components));
       await service.close(b.id);
