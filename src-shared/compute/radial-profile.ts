@@ -120,14 +120,21 @@ export function diskContrast(pattern: ArrayLike<number>, detY: number, detX: num
  */
 export function braggRingCandidates(pattern: ArrayLike<number>, detY: number, detX: number, cx: number, cy: number,
   diskR: number, exclude?: Uint8Array): RingCandidate[] {
-  const contrast = diskContrast(pattern, detY, detX, diskR, exclude);
-  const rMax = Math.ceil(Math.hypot(Math.max(cx, detX - 1 - cx), Math.max(cy, detY - 1 - cy))) + 1;
+  // The contrast costs (detector pixels) × (disk area): for large disks it is taken on a binned
+  // copy whose disks are at most MAX_BINNED_DISK_R px across, and only the disk centroids, which
+  // set the radii, use the full pattern.
+  const b = diskR > MAX_BINNED_DISK_R ? Math.ceil(diskR / MAX_BINNED_DISK_R) : 1;
+  const binned = b > 1 ? binPattern(pattern, detY, detX, b, exclude) : { pattern, detY, detX, exclude };
+  const [bY, bX] = [binned.detY, binned.detX];
+  const bcx = (cx - (b - 1) / 2) / b, bcy = (cy - (b - 1) / 2) / b;
+  const contrast = diskContrast(binned.pattern, bY, bX, diskR / b, binned.exclude);
+  const rMax = Math.ceil(Math.hypot(Math.max(bcx, bX - 1 - bcx), Math.max(bcy, bY - 1 - bcy))) + 1;
   const rings: number[][] = Array.from({ length: rMax + 1 }, () => []);
-  for (let y = 0; y < detY; y++) {
-    for (let x = 0; x < detX; x++) {
-      const i = y * detX + x;
-      if (exclude && exclude[i]) continue;
-      rings[Math.round(Math.hypot(x - cx, y - cy))].push(contrast[i]);
+  for (let y = 0; y < bY; y++) {
+    for (let x = 0; x < bX; x++) {
+      const i = y * bX + x;
+      if (binned.exclude && binned.exclude[i]) continue;
+      rings[Math.round(Math.hypot(x - bcx, y - bcy))].push(contrast[i]);
     }
   }
   const profile = new Float64Array(rMax + 1);
@@ -135,33 +142,54 @@ export function braggRingCandidates(pattern: ArrayLike<number>, detY: number, de
   rings.forEach((values, k) => {
     count[k] = values.length;
     if (values.length === 0) { profile[k] = Number.NaN; return; }
-    values.sort((a, b) => a - b);
+    values.sort((p, q) => p - q);
     profile[k] = values[Math.min(values.length - 1, Math.floor(0.95 * values.length))];
   });
-  const rMaxInside = Math.floor(Math.min(cx, cy, detX - 1 - cx, detY - 1 - cy));
+  const rMaxInside = Math.floor(Math.min(bcx, bcy, bX - 1 - bcx, bY - 1 - bcy));
   // Each ring's radius to a fraction of a pixel: the median distance of its disks' centres —
-  // local maxima of the contrast within 3 px of the ring that reach half its level, each placed
-  // by the centroid of the disk above its surroundings.
-  return peaksOfProfile(profile, count, 2.6 * diskR + 1, rMaxInside).map((c) => {
-    const level = 0.5 * profile[Math.round(c.radius)];
+  // local maxima of the contrast within 3 (binned) px of the ring that reach half its level,
+  // each placed by the centroid of the disk above its surroundings on the full pattern.
+  return peaksOfProfile(profile, count, (2.6 * diskR + 1) / b, rMaxInside).map((cb) => {
+    const level = 0.5 * profile[Math.round(cb.radius)];
     const distances: number[] = [];
-    for (let y = 1; y < detY - 1; y++) {
-      for (let x = 1; x < detX - 1; x++) {
-        const i = y * detX + x;
+    for (let y = 1; y < bY - 1; y++) {
+      for (let x = 1; x < bX - 1; x++) {
+        const i = y * bX + x;
         const v = contrast[i];
-        if (!(v >= level) || (exclude && exclude[i]) || Math.abs(Math.hypot(x - cx, y - cy) - c.radius) > 3) continue;
+        if (!(v >= level) || (binned.exclude && binned.exclude[i]) || Math.abs(Math.hypot(x - bcx, y - bcy) - cb.radius) > 3) continue;
         let isMax = true;
-        for (let dy = -1; dy <= 1 && isMax; dy++) for (let dx = -1; dx <= 1; dx++) if ((dy || dx) && contrast[i + dy * detX + dx] > v) { isMax = false; break; }
+        for (let dy = -1; dy <= 1 && isMax; dy++) for (let dx = -1; dx <= 1; dx++) if ((dy || dx) && contrast[i + dy * bX + dx] > v) { isMax = false; break; }
         if (!isMax) continue;
-        const centre = diskCentroid(pattern, detY, detX, x, y, diskR, exclude);
+        const centre = diskCentroid(pattern, detY, detX, x * b + (b - 1) / 2, y * b + (b - 1) / 2, diskR, exclude);
         distances.push(Math.hypot(centre.x - cx, centre.y - cy));
       }
     }
+    const c = { ...cb, radius: cb.radius * b };
     if (distances.length === 0) return c;
     distances.sort((p, q) => p - q);
     const mid = distances.length >> 1;
     return { ...c, radius: distances.length % 2 ? distances[mid] : 0.5 * (distances[mid - 1] + distances[mid]) };
   });
+}
+
+/** Disks larger than this (px) are searched on a binned copy of the pattern. */
+const MAX_BINNED_DISK_R = 12;
+
+/** Sums of b × b pixels (partial at the far edges); a bin is excluded when any of its pixels is. */
+function binPattern(pattern: ArrayLike<number>, detY: number, detX: number, b: number, exclude?: Uint8Array) {
+  const oy = Math.ceil(detY / b), ox = Math.ceil(detX / b);
+  const out = new Float64Array(oy * ox);
+  const ex = exclude ? new Uint8Array(oy * ox) : undefined;
+  for (let y = 0; y < detY; y++) {
+    for (let x = 0; x < detX; x++) {
+      const o = Math.floor(y / b) * ox + Math.floor(x / b);
+      const i = y * detX + x;
+      if (exclude && exclude[i]) { ex![o] = 1; continue; }
+      const v = pattern[i];
+      if (Number.isFinite(v)) out[o] += v;
+    }
+  }
+  return { pattern: out, detY: oy, detX: ox, exclude: ex };
 }
 
 /** The strongest ring beyond `rMin` (see ringCandidates). */
@@ -173,43 +201,47 @@ export function strongestRing(pattern: ArrayLike<number>, detY: number, detX: nu
 }
 
 /**
- * Centre of a disk of radius r near (x0, y0): the centroid of the pattern above the mean of the
- * ring r + 0.5 … 1.6 r + 0.5 around it, over the pixels within r, taken about the last estimate
- * three times so a start a pixel off converges.
+ * Centre of a disk of radius r near (x0, y0): the centroid of the pixels within 1.3 r that stand
+ * above half-way between the disk's top (its 90th percentile) and its surroundings (the median of
+ * the ring 1.3 r … 1.6 r + 0.5), re-taken about each estimate until it moves less than 0.005 px
+ * (at most 20 times). Thresholding rather than weighting by height keeps a sloping halo under
+ * the disk from pulling the centre towards its brighter side.
  */
 function diskCentroid(pattern: ArrayLike<number>, detY: number, detX: number, x0: number, y0: number, r: number, exclude?: Uint8Array): { x: number; y: number } {
   let x = x0, y = y0;
-  const outerR = 1.6 * r + 0.5;
-  for (let iter = 0; iter < 3; iter++) {
-    // Background: a plane a + b·dx + c·dy fitted to the ring around the disk (a halo's slope
-    // would otherwise pull the centroid towards the brighter side).
-    const m = new Float64Array(9), rhs = new Float64Array(3);
-    const pts: [number, number, number][] = [];
+  const innerR = 1.3 * r, outerR = 1.6 * r + 0.5;
+  for (let iter = 0; iter < 20; iter++) {
+    const inside: [number, number, number][] = [];
+    const ring: number[] = [];
     for (let yy = Math.max(0, Math.floor(y - outerR)); yy <= Math.min(detY - 1, Math.ceil(y + outerR)); yy++) {
       for (let xx = Math.max(0, Math.floor(x - outerR)); xx <= Math.min(detX - 1, Math.ceil(x + outerR)); xx++) {
         const i = yy * detX + xx;
         const v = pattern[i];
         if ((exclude && exclude[i]) || !Number.isFinite(v)) continue;
-        const dx = xx - x, dy = yy - y, d = Math.hypot(dx, dy);
-        if (d <= r) pts.push([xx, yy, v]);
-        else if (d > r + 0.5 && d <= outerR) {
-          const f = [1, dx, dy];
-          for (let a = 0; a < 3; a++) { rhs[a] += f[a] * v; for (let b = 0; b < 3; b++) m[a * 3 + b] += f[a] * f[b]; }
-        }
+        const d = Math.hypot(xx - x, yy - y);
+        if (d <= innerR) inside.push([xx, yy, v]);
+        else if (d <= outerR) ring.push(v);
       }
     }
-    const plane = solve3(m, rhs) ?? [m[0] > 0 ? rhs[0] / m[0] : 0, 0, 0];
-    let sw = 0, sx = 0, sy = 0;
-    for (const [xx, yy, v] of pts) {
-      const w = v - (plane[0] + plane[1] * (xx - x) + plane[2] * (yy - y));
-      if (w <= 0) continue;
-      sw += w; sx += w * xx; sy += w * yy;
-    }
-    if (sw <= 0) break;
-    x = sx / sw;
-    y = sy / sw;
+    if (inside.length === 0) break;
+    const top = quantile(inside.map((p) => p[2]), 0.9);
+    const floor = ring.length ? quantile(ring, 0.5) : Math.min(...inside.map((p) => p[2]));
+    const level = 0.5 * (top + floor);
+    let n = 0, sx = 0, sy = 0;
+    for (const [xx, yy, v] of inside) if (v >= level && v > floor) { n++; sx += xx; sy += yy; }
+    if (n === 0) break;
+    const nx = sx / n, ny = sy / n;
+    const moved = Math.hypot(nx - x, ny - y);
+    x = nx;
+    y = ny;
+    if (moved < 0.005) break;
   }
   return { x, y };
+}
+
+function quantile(values: number[], q: number): number {
+  const s = values.slice().sort((a, b) => a - b);
+  return s[Math.min(s.length - 1, Math.floor(q * s.length))];
 }
 
 /** Solve the 3×3 system m·v = rhs (row-major) by Cramer's rule; null when it is singular. */
