@@ -78,7 +78,7 @@ export async function randomizedPca(pass: PcaPass, n: number, d: number, o: PcaO
     totalVariance = r.sumSq;
     totalVarianceFrom = centred ? 'a centred pass' : 'the uncentred sums of the only pass';
   }
-  const svd = finishRandomizedSvd(r.y, r.w, n, d, l, k);
+  const svd = await finishRandomizedSvd(r.y, r.w, n, d, l, k);
   const kk = svd.k;
   const components = new Float64Array(kk * d);
   const loadings = new Float64Array(kk * n);
@@ -132,7 +132,7 @@ async function onePassPca(pass: PcaPass, n: number, d: number, o: PcaOptions): P
   for (let j = 0; j < d; j++) for (let c = 0; c < l; c++) { let acc = 0; for (let a = 0; a < s; a++) acc += wc[j * s + a] * qpsi[a * l + c]; wq[j * l + c] = acc; }
   const xt = new Float64Array(d * l);
   for (let j = 0; j < d; j++) for (let c = 0; c < l; c++) { let acc = 0; for (let e = 0; e < l; e++) acc += wq[j * l + e] * t[c * l + e]; xt[j * l + c] = acc; }
-  const svd = svdOfProjection(q, xt, n, d, l, k, rank);
+  const svd = await svdOfProjection(q, xt, n, d, l, k, rank);
   let meanSq = 0;
   if (centred) for (let j = 0; j < d; j++) meanSq += mean[j] * mean[j];
   const totalVariance = r.sumSq - n * meanSq;

@@ -16,7 +16,6 @@
  * full-rank blocks), tracking the map T with Q = Y·T, so B = (W·T)ᵀ needs no triangular solve
  * and columns that are linearly dependent (fewer independent directions than l) simply drop out.
  */
-import { Matrix, SingularValueDecomposition } from 'ml-matrix';
 
 /** Deterministic standard normal numbers: xoshiro128** seeded from `seed`, Box–Muller pairs. */
 export function gaussianMatrix(rows: number, cols: number, seed: number): Float64Array {
@@ -174,7 +173,7 @@ export interface RandomizedSvd {
  * B = Ũ·Σ·Vᵀ, U = Q·Ũ; the top k kept. Signs are fixed so each right singular vector's
  * entry of largest magnitude is positive.
  */
-export function finishRandomizedSvd(y: Float64Array, w: Float64Array, n: number, d: number, l: number, k: number): RandomizedSvd {
+export async function finishRandomizedSvd(y: Float64Array, w: Float64Array, n: number, d: number, l: number, k: number): Promise<RandomizedSvd> {
   const { q, t, rank } = orthonormalize(y, n, l);
   // Bᵀ = W·T (d × l).
   const bt = new Float64Array(d * l);
@@ -185,14 +184,16 @@ export function finishRandomizedSvd(y: Float64Array, w: Float64Array, n: number,
       bt[j * l + c] = s;
     }
   }
-  return svdOfProjection(q, bt, n, d, l, k, rank);
+  return await svdOfProjection(q, bt, n, d, l, k, rank);
 }
 
 /**
  * The rank-k SVD of Q·B, with Q (n × l) orthonormal columns and Bᵀ given (d × l): Bᵀ = V·Σ·Ũᵀ,
  * U = Q·Ũ; signs fixed so each right singular vector's largest-magnitude entry is positive.
  */
-export function svdOfProjection(q: Float64Array, btValues: Float64Array, n: number, d: number, l: number, k: number, rank: number): RandomizedSvd {
+export async function svdOfProjection(q: Float64Array, btValues: Float64Array, n: number, d: number, l: number, k: number, rank: number): Promise<RandomizedSvd> {
+  // Loaded when first needed: the workers and the commands that make no PCA never load it.
+  const { Matrix, SingularValueDecomposition } = await import('ml-matrix');
   const bt = new Matrix(d, l);
   for (let j = 0; j < d; j++) for (let c = 0; c < l; c++) bt.set(j, c, btValues[j * l + c]);
   const svd = new SingularValueDecomposition(bt, { computeLeftSingularVectors: true, computeRightSingularVectors: true, autoTranspose: true });
