@@ -187,7 +187,7 @@ ${SOURCE}
 
 ${ENGINE}`,
 
-  fit: `scanfold fit FILE [source flags] --reference-region X0,Y0,X1,Y1 [...] [flags] --out OUT.h5 [engine flags]
+  fit: `scanfold fit FILE [source flags] --reference-region X0,Y0,X1,Y1 [...] | --reference-clusters KMEANS.h5 [flags] --out OUT.h5 [engine flags]
   Every pattern fitted as a least-squares combination of reference patterns, each the mean pattern
   of a region of the scan (two passes): /coefficients (r, scan_y, scan_x: the weight of each
   reference), /residual (scan_y, scan_x: ‖pattern − fit‖ / ‖pattern‖, where no reference
@@ -196,6 +196,9 @@ ${ENGINE}`,
   --reference-region X0,Y0,X1,Y1
                           scan positions (x column, y row, inclusive) whose mean pattern is a
                           reference; repeat for each reference (1 to 16)
+  --reference-clusters KMEANS.h5
+                          every cluster of a scanfold kmeans output (its /labels) is a reference:
+                          the mean pattern of its positions
   --nonnegative           weights ≥ 0 (Lawson & Hanson's non-negative least squares)
   --bin, --crop, --scaling, --normalize, --bad-pixels
                           how patterns become vectors, as for pca (scanfold pca --help)

@@ -2,6 +2,8 @@
 // randomized SVD and its passes are the service's; this file only parses, asks and writes.
 import { InputError } from '../../src-shared/model/errors';
 import type { FitRequest, KmeansRequest, PcaRequest } from '../../src-shared/contract/service';
+import type { RegionShape } from '../../src-shared/model/detectors';
+import { readClusterLabels } from '../io/npy-array';
 import type { EngineOptions } from '../engine/engine';
 import { badPixelAttrs, noteNonFiniteResults, openProtected, provenance, withService, writeResults } from './analysis-commands';
 import { outputFlag, parseFlags, rectangleFlag, rejectExtraPositionals, SOURCE_OPTIONS, sourceSpecFromFlags, wholeNumber } from './source-flags';
@@ -170,16 +172,25 @@ export async function cmdKmeans(args: string[], engineOptions: (v: Record<string
 export async function cmdFit(args: string[], engineOptions: (v: Record<string, unknown>) => EngineOptions, engineFlags: EngineFlags): Promise<void> {
   const parsed = parseFlags(args, {
     ...SOURCE_OPTIONS, ...engineFlags, ...FEATURE_FLAGS, out: { type: 'string' }, 'reference-region': { type: 'string', multiple: true }, nonnegative: { type: 'boolean' },
+    'reference-clusters': { type: 'string' },
   });
   const v = parsed.values as Flags;
   rejectExtraPositionals(parsed.positionals, 'fit');
   const spec = sourceSpecFromFlags(parsed.positionals[0], v as Record<string, unknown>);
   const given = v['reference-region'];
   const list = Array.isArray(given) ? given : typeof given === 'string' ? [given] : [];
-  if (list.length === 0) throw new InputError('fit needs at least one --reference-region X0,Y0,X1,Y1 (scan positions whose mean pattern is a reference; repeat it for more)');
-  const references = list.map((s) => ({ kind: 'rectangle' as const, ...rectangleFlag('reference-region', String(s)) }));
+  const clusterFile = typeof v['reference-clusters'] === 'string' ? v['reference-clusters'] : null;
+  if (list.length === 0 && !clusterFile) {
+    throw new InputError('fit needs at least one --reference-region X0,Y0,X1,Y1 (scan positions whose mean pattern is a reference; repeat it for more) or --reference-clusters KMEANS.h5');
+  }
+  const references: RegionShape[] = list.map((s) => ({ kind: 'rectangle' as const, ...rectangleFlag('reference-region', String(s)) }));
+  if (clusterFile) {
+    // Every cluster of a kmeans output is a reference: its positions' mean pattern.
+    const c = await readClusterLabels(clusterFile);
+    for (let k = 0; k < c.clusters; k++) references.push({ kind: 'mask', width: c.width, height: c.height, values: Uint8Array.from(c.labels, (x) => (x === k ? 1 : 0)) });
+  }
   const features = featureOptions(v);
-  const out = outputFlag(v.out, 'fit', [spec.path]);
+  const out = outputFlag(v.out, 'fit', [spec.path, ...(clusterFile ? [clusterFile] : [])]);
   await withService(engineOptions(v as Record<string, unknown>), v.quiet === true, async (service) => {
     const opened = await openProtected(service, spec, out, { scan: references.length + 1, pattern: references.length });
     const { scanY, scanX } = opened.descriptor.shape;

@@ -1,3 +1,5 @@
+import { checkInputFile } from './input-file';
+import { getH5 } from './h5wasm-module';
 import fs from 'node:fs';
 import { DTYPE_BYTES, typedView } from '../../src-shared/model/dtype';
 import { InputError } from '../../src-shared/model/errors';
@@ -44,5 +46,30 @@ export function readNpy2D(file: string, what: string): SmallArray2D {
     return { height, width, values: Float64Array.from(typed) };
   } finally {
     fs.closeSync(f.fd);
+  }
+}
+
+/**
+ * The /labels dataset of a `scanfold kmeans` output (int32, scan_y × scan_x), read whole: it is
+ * scan-sized. Refused with a message when the file has none or it is not 2-D integers.
+ */
+export async function readClusterLabels(file: string): Promise<{ labels: Int32Array; height: number; width: number; clusters: number }> {
+  const abs = checkInputFile(file, 'an HDF5 file written by scanfold kmeans').path;
+  const { h5wasm } = await getH5();
+  const f = new h5wasm.File(abs, 'r');
+  try {
+    const d = f.get('labels') as { shape?: number[]; dtype?: string; value?: unknown } | null;
+    if (!d || !Array.isArray(d.shape) || d.shape.length !== 2) {
+      throw new InputError(`${abs}: no 2-D /labels dataset; expected the output of scanfold kmeans`, 'bad-input');
+    }
+    const values = Int32Array.from(d.value as ArrayLike<number>);
+    let clusters = 0;
+    for (const v of values) {
+      if (!Number.isInteger(v) || v < 0) throw new InputError(`${abs}: /labels holds ${v}; expected cluster indices 0, 1, 2, …`, 'bad-input');
+      clusters = Math.max(clusters, v + 1);
+    }
+    return { labels: values, height: d.shape[0], width: d.shape[1], clusters };
+  } finally {
+    f.close();
   }
 }

@@ -58,3 +58,31 @@ print(json.dumps({'ari': adjusted_rand_score(d['truth/grain_map'][()].ravel(), f
   expect(got.ari).toBeGreaterThan(0.9);
   expect(got.algorithm).toBe('mini-batch');
 });
+
+it('fit --reference-clusters takes every cluster of a kmeans output as a reference: NumPy\'s mean of its binned patterns', () => {
+  const demo = path.join(dir, 'demo.h5');
+  const km = path.join(dir, 'km.h5');
+  const out = path.join(dir, 'fit.h5');
+  const r = scanfold('fit', demo, '--dataset', '/scan/frames', '--reference-clusters', km, '--bin', '2', '--nonnegative', '--out', out, '--quiet');
+  expect(r.status, r.stderr).toBe(0);
+  const p = spawnSync(PYTHON, ['-c', `import h5py, json, sys, numpy as np
+f = h5py.File(sys.argv[1]); labels = h5py.File(sys.argv[2])['labels'][()]
+a = h5py.File(sys.argv[3])['scan/frames'][()].astype(np.float64)
+sy, sx, ky, kx = a.shape
+b = a.reshape(sy, sx, ky // 2, 2, kx // 2, 2).sum(axis=(3, 5))
+refs = f['references'][()]
+worst = 0.0
+for c in range(refs.shape[0]):
+    want = b[labels == c].mean(axis=0)
+    ok = np.isfinite(refs[c])
+    worst = max(worst, float(np.abs(refs[c][ok] - want[ok]).max() / np.abs(want).max()))
+own = [float(f['coefficients'][c][labels == c].mean()) for c in range(refs.shape[0])]
+print(json.dumps({'n': int(refs.shape[0]), 'worst': worst, 'own': own}))`, out, km, demo], { encoding: 'utf8', maxBuffer: 1 << 26 });
+  expect(p.status, p.stderr).toBe(0);
+  const got = JSON.parse(p.stdout);
+  expect(got.n).toBe(5);
+  // reference: NumPy's 2 × 2-binned mean pattern over each cluster's positions
+  expect(got.worst).toBeLessThan(1e-12);
+  // each cluster's positions are mostly their own reference
+  for (const w of got.own) expect(w).toBeGreaterThan(0.7);
+});
