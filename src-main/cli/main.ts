@@ -174,7 +174,13 @@ async function cmdDemo(args: string[]) {
     badDetectorPixels: { hot: r.badPixels.hot, dead: r.badPixels.dead },
     previewCube: { shape: [r.preview.qY, r.preview.qX, r.preview.pY, r.preview.pX], detBin: r.preview.detBin, scanBin: r.preview.scanBin },
     summaryFile: out.path,
-    ...('notFound' in disk ? {} : { next: `try: npx scanfold image ${file} --dataset /scan/frames --annulus ${disk.cx.toFixed(1)},${disk.cy.toFixed(1)},${Math.ceil(disk.r + 2)},40 --out ${path.join(dir, 'adf.h5')}` }),
+    defaultImages: r.defaultImages.map((im) => im.label),
+    next: [
+      ...('notFound' in disk ? [] : [`npx scanfold image ${file} --dataset /scan/frames --annulus ${disk.cx.toFixed(1)},${disk.cy.toFixed(1)},${Math.ceil(disk.r + 2)},40 --out ${path.join(dir, 'adf.h5')}`]),
+      `npx scanfold com ${file} --dataset /scan/frames --out ${path.join(dir, 'com.h5')}`,
+      `npx scanfold pca ${file} --dataset /scan/frames --components 8 --out ${path.join(dir, 'pca.h5')}`,
+      `npx scanfold kmeans ${file} --dataset /scan/frames --clusters 5 --scaling sqrt --out ${path.join(dir, 'clusters.h5')}`,
+    ],
     note: 'results are exploratory; validate quantitative claims yourself',
   }, null, 2) + '\n');
 }
