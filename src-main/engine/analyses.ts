@@ -139,7 +139,7 @@ export interface ClusterPatternsResult {
 }
 
 /** The mean pattern of every cluster, full resolution, in one streamed pass (labels: one per scan position). */
-export function startClusterPatterns(pool: WorkerPool, spec: SourceSpec, labels: Int32Array, k: number, limits: EngineLimits): Job<ClusterPatternsResult> {
+export function startClusterPatterns(pool: WorkerPool, spec: SourceSpec, labels: Int32Array, k: number, limits: EngineLimits, kernel: KernelKind = 'wasm'): Job<ClusterPatternsResult> {
   type Acc = { sums: Float64Array; counts: Float64Array };
   return streamingJob<ClusterPatternsResult, TilesPlan, Acc, ClusterTileReply>({
     pool, spec, kind: 'cluster-patterns', label: `mean pattern of each cluster of ${spec.path}`,
@@ -148,7 +148,7 @@ export function startClusterPatterns(pool: WorkerPool, spec: SourceSpec, labels:
       if (labels.length !== d.shape.scanY * d.shape.scanX) throw new InputError(`cluster labels: ${labels.length} values, but ${d.path} has ${d.shape.scanY * d.shape.scanX} positions`);
     },
     begin: (d) => ({ sums: new Float64Array(k * d.shape.detY * d.shape.detX), counts: new Float64Array(k) }),
-    compute: (w, tile, d) => w.clusterSumsTile(d.spec, tile.row0, tile.nRows, labels.slice(tile.row0 * d.shape.scanX, (tile.row0 + tile.nRows) * d.shape.scanX), k),
+    compute: (w, tile, d) => w.clusterSumsTile(d.spec, tile.row0, tile.nRows, labels.slice(tile.row0 * d.shape.scanX, (tile.row0 + tile.nRows) * d.shape.scanX), k, kernel),
     merge: (r, _tile, a) => {
       for (let i = 0; i < a.sums.length; i++) a.sums[i] += r.sums[i];
       for (let c = 0; c < k; c++) a.counts[c] += r.counts[c];

@@ -97,7 +97,7 @@ export class Engine {
 
   /** The mean pattern of every cluster (labels: one per scan position, 0 … k − 1). */
   clusterPatterns(spec: SourceSpec, labels: Int32Array, k: number): Job<ClusterPatternsResult> {
-    return this.track(startClusterPatterns(this.pool, spec, labels, k, this.limits));
+    return this.track(startClusterPatterns(this.pool, spec, labels, k, this.limits, this.kernel));
   }
 
   /** Mean and max pattern over a real-space region (mask of the scan's shape). */

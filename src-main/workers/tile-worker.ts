@@ -408,19 +408,29 @@ const api = {
   },
 
   /** Per-cluster sums of the patterns of rows [row0, row0+nRows), by the labels of their positions. */
-  async clusterSumsTile(spec: SourceSpec, row0: number, nRows: number, labels: Int32Array, k: number): Promise<ClusterTileReply> {
+  async clusterSumsTile(spec: SourceSpec, row0: number, nRows: number, labels: Int32Array, k: number, kernel: KernelKind = 'wasm'): Promise<ClusterTileReply> {
     const src = await sourceFor(spec);
     const { dtype, shape } = src.descriptor;
     const pixels = shape.detY * shape.detX;
+    const n = nRows * shape.scanX;
     const t0 = performance.now();
-    const raw = scratch('cluster-raw', dtype, nRows * shape.scanX * pixels);
+    // uint16 (the common detector type) in the WebAssembly kernel; other types in plain TypeScript.
+    const sk = kernel === 'wasm' && dtype === 'uint16' ? sketchKernel() : null;
+    const raw = sk ? sk.patternsU16(n, pixels, k) : scratch('cluster-raw', dtype, n * pixels);
     src.readRows(row0, nRows, raw);
     const readMs = performance.now() - t0;
     const t1 = performance.now();
-    const sums = new Float64Array(k * pixels);
+    let sums: Float64Array;
     const counts = new Float64Array(k);
-    const { nonFinite } = accumulateClusterSums(raw, nRows * shape.scanX, pixels, labels, k, sums, counts);
-    const reply: ClusterTileReply = { sums, counts, nonFinite, row0, nRows, bytes: raw.byteLength, readMs, computeMs: performance.now() - t1 };
+    let nonFinite = 0;
+    if (sk) {
+      sums = sk.clusterSums(n, pixels, labels, k);
+      for (let p = 0; p < n; p++) counts[labels[p]]++;
+    } else {
+      sums = new Float64Array(k * pixels);
+      nonFinite = accumulateClusterSums(raw, n, pixels, labels, k, sums, counts).nonFinite;
+    }
+    const reply: ClusterTileReply = { sums, counts, nonFinite, row0, nRows, bytes: n * pixels * DTYPE_BYTES[dtype], readMs, computeMs: performance.now() - t1 };
     return Comlink.transfer(reply, [sums.buffer, counts.buffer]);
   },
 

@@ -80,8 +80,15 @@ export function lloyd(points: Float64Array, n: number, f: number, k: number, cen
   for (; iterations < maxIterations; iterations++) {
     let changed = 0;
     for (let i = 0; i < n; i++) {
+      // The nearest centre, inlined: this loop is most of k-means' time.
+      const pi = i * f;
       let best = 0, bestD = Infinity;
-      for (let c = 0; c < k; c++) { const d = sqDist(points, i, centers, c, f); if (d < bestD) { bestD = d; best = c; } }
+      for (let c = 0; c < k; c++) {
+        const ci = c * f;
+        let d = 0;
+        for (let x = 0; x < f && d < bestD; x++) { const t = points[pi + x] - centers[ci + x]; d += t * t; }
+        if (d < bestD) { bestD = d; best = c; }
+      }
       if (labels[i] !== best) { labels[i] = best; changed++; }
       dist[i] = bestD;
     }

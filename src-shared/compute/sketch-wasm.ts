@@ -17,6 +17,10 @@ export interface SketchKernel {
   run(n: number, d: number, z: Float64Array, l: number, centre: Float64Array | null, into?: { y: Float64Array; w: Float64Array },
     /** One-pass sketch: W = Cᵀ·psi (psi: n × s) instead of Cᵀ·Y. */
     psi?: { rows: Float64Array; s: number }): RangeBlock;
+  /** A view for n uint16 patterns of nPix pixels in kernel memory, for clusterSums (read the tile into it). */
+  patternsU16(n: number, nPix: number, k: number): Uint16Array;
+  /** Per-cluster sums (k × nPix) of the patterns last written by patternsU16, by their labels (each 0 … k − 1). */
+  clusterSums(n: number, nPix: number, labels: Int32Array, k: number): Float64Array;
 }
 
 export function createWasmSketchKernel(wasmModule: WebAssembly.Module): SketchKernel {
@@ -28,6 +32,13 @@ export function createWasmSketchKernel(wasmModule: WebAssembly.Module): SketchKe
     centreRows(a: number, n: number, d: number, centre: number, colSum: number): number;
     matmul(a: number, m: number, k: number, b: number, l: number, out: number, accumulate: number): void;
     matmulTransA(a: number, m: number, k: number, b: number, l: number, out: number, accumulate: number): void;
+    clusterSumsU16(tile: number, n: number, nPix: number, labels: number, sums: number): void;
+  };
+  const clusterLayout = (n: number, nPix: number, k: number) => {
+    const tile = PAGE_BYTES;
+    const labels = roundUp(tile + n * nPix * 2, 64);
+    const sums = roundUp(labels + n * 4, 64);
+    return { tile, labels, sums, end: sums + k * nPix * 8 };
   };
   const layout = (n: number, d: number, l: number, s = 0) => {
     const L = roundUp(Math.max(l, 1), 4);
@@ -44,6 +55,20 @@ export function createWasmSketchKernel(wasmModule: WebAssembly.Module): SketchKe
       const lay = layout(n, d, l, s);
       ensureMemoryBytes(memory, lay.end, 'sketch');
       return new Float64Array(memory.buffer, lay.a, n * d);
+    },
+    patternsU16(n, nPix, k) {
+      const lay = clusterLayout(n, nPix, k);
+      ensureMemoryBytes(memory, lay.end, 'cluster sums');
+      return new Uint16Array(memory.buffer, lay.tile, n * nPix);
+    },
+    clusterSums(n, nPix, labels, k) {
+      const lay = clusterLayout(n, nPix, k);
+      if (memory.buffer.byteLength < lay.end) throw new Error('cluster sums: patternsU16(n, nPix, k) must be called first');
+      for (let i = 0; i < n; i++) if (!(labels[i] >= 0 && labels[i] < k)) throw new RangeError(`cluster sums: label ${labels[i]} outside 0 … ${k - 1}`);
+      new Int32Array(memory.buffer, lay.labels, n).set(labels.subarray(0, n));
+      new Float64Array(memory.buffer, lay.sums, k * nPix).fill(0);
+      ex.clusterSumsU16(lay.tile, n, nPix, lay.labels, lay.sums);
+      return new Float64Array(memory.buffer, lay.sums, k * nPix).slice();
     },
     run(n, d, z, l, centre, into, psi) {
       if (z.length !== d * l) throw new RangeError(`sketch: Z holds ${z.length} values, expected ${d}×${l}`);

@@ -145,3 +145,30 @@ export function matmulTransA(a: usize, m: i32, k: i32, b: usize, l: i32, out: us
   v128.store(p, lo);
   v128.store(p, hi, 16);
 }
+
+/**
+ * Per-cluster sums of uint16 patterns: sums (k × nPix, float64) gain each of the n patterns of
+ * `tile` (n × nPix) under its label (labels: n int32, each 0 … k − 1; the caller checks them).
+ * Eight pixels at a time: widened to 32-bit lanes, converted to float64 and added.
+ */
+export function clusterSumsU16(tile: usize, n: i32, nPix: i32, labels: usize, sums: usize): void {
+  for (let p = 0; p < n; p++) {
+    const c = load<i32>(labels + <usize>p * 4);
+    const src = tile + <usize>p * <usize>nPix * 2;
+    const dst = sums + <usize>c * <usize>nPix * 8;
+    let i = 0;
+    for (; i + 8 <= nPix; i += 8) {
+      const v = v128.load(src + <usize>i * 2);
+      const lo = i32x4.extend_low_i16x8_u(v), hi = i32x4.extend_high_i16x8_u(v);
+      const d = dst + <usize>i * 8;
+      v128.store(d, f64x2.add(v128.load(d), f64x2.convert_low_i32x4_u(lo)));
+      v128.store(d, f64x2.add(v128.load(d, 16), f64x2.convert_low_i32x4_u(v128.shuffle<i32>(lo, lo, 2, 3, 2, 3))), 16);
+      v128.store(d, f64x2.add(v128.load(d, 32), f64x2.convert_low_i32x4_u(hi)), 32);
+      v128.store(d, f64x2.add(v128.load(d, 48), f64x2.convert_low_i32x4_u(v128.shuffle<i32>(hi, hi, 2, 3, 2, 3))), 48);
+    }
+    for (; i < nPix; i++) {
+      const d = dst + <usize>i * 8;
+      store<f64>(d, load<f64>(d) + <f64>load<u16>(src + <usize>i * 2));
+    }
+  }
+}
