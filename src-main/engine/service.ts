@@ -48,6 +48,14 @@ interface DatasetRecord {
 
 type ServiceJobInfo = JobInfo & { jobId: string };
 
+/** An opened dataset as clients see it: the engine's internal read hint left out of its spec. */
+function publicOpened(o: OpenedDataset): OpenedDataset {
+  if (!o.descriptor.spec.hdf5Direct) return o;
+  const { hdf5Direct: _hint, ...spec } = o.descriptor.spec;
+  void _hint;
+  return { ...o, descriptor: { ...o.descriptor, spec } };
+}
+
 /** The least detector binning (1, 2, 4, 8) that brings the (cropped) detector to at most 64 × 64 bins. */
 function autoFeatureBin(detY: number, detX: number, crop?: { x0: number; y0: number; x1: number; y1: number }): 1 | 2 | 4 | 8 {
   const h = crop ? crop.y1 - crop.y0 + 1 : detY, w = crop ? crop.x1 - crop.x0 + 1 : detX;
@@ -150,7 +158,7 @@ export class EngineService implements ScanfoldService {
     const opened: OpenedDataset = { id, descriptor, version: 1 };
     this.records.set(id, { id, opened, first: null });
     this.emit({ kind: 'dataset', dataset: id, version: 1, change: 'opened' });
-    return opened;
+    return publicOpened(opened);
   }
 
   async close(dataset: DatasetId): Promise<void> {
@@ -163,7 +171,7 @@ export class EngineService implements ScanfoldService {
   }
 
   async datasets(): Promise<OpenedDataset[]> {
-    return [...this.records.values()].map((r) => r.opened);
+    return [...this.records.values()].map((r) => publicOpened(r.opened));
   }
 
   private record(dataset: DatasetId): DatasetRecord {

@@ -7,6 +7,11 @@
 // the filter pipeline (any filter: no direct path). Anything else answers null, and the caller
 // reads through the library as before. The caller also checks a few rows both ways.
 import fs from 'node:fs';
+import type { DatasetDescriptor, Hdf5DirectHint, SourceSpec } from '../../src-shared/model/dataset';
+import { DTYPE_BYTES } from '../../src-shared/model/dtype';
+import { InputError } from '../../src-shared/model/errors';
+import { openInputFile, readFullyAt } from './input-file';
+import { checkPatternRequest, checkRowRequest, type TileSource } from './tile-source';
 
 export type DirectLayout =
   | { kind: 'contiguous'; address: number }
@@ -306,4 +311,51 @@ function fixedArray(r: Reader, s: Sizes, header: number, nChunks: number): numbe
   const b = r.bytes(block, 6 + s.o + count * entryBytes);
   if (b.toString('latin1', 0, 4) !== 'FADB') throw new Error('fixed array data block');
   return Array.from({ length: count }, (_, i) => uint(b, 6 + s.o + i * entryBytes, s.o));
+}
+
+/**
+ * An HDF5 dataset read with the layout another worker found (SourceSpec.hdf5Direct), without the
+ * HDF5 library: the file must still have the size and modification time it had then.
+ */
+export function openHdf5Direct(spec: SourceSpec & { hdf5Direct: Hdf5DirectHint }): TileSource {
+  const hint = spec.hdf5Direct;
+  const f = openInputFile(spec.path, 'an HDF5 file');
+  const st = fs.fstatSync(f.fd);
+  if (st.size !== hint.size || st.mtimeMs !== hint.mtimeMs) {
+    fs.closeSync(f.fd);
+    throw new InputError(`${f.path}: the file changed while it was open (size or modification time); expected it unchanged during the analysis`, 'bad-input');
+  }
+  const d: DatasetDescriptor = { ...hint.descriptor, spec };
+  const { scanX, detY, detX } = d.shape;
+  const elementBytes = DTYPE_BYTES[d.dtype];
+  const rowBytes = scanX * detY * detX * elementBytes;
+  const patternBytes = detY * detX * elementBytes;
+  const layout = hint.layout;
+  const where = (row: number) => layout.kind === 'contiguous' ? layout.address + row * rowBytes
+    : layout.chunkAddress[Math.floor(row / layout.rowsPerChunk)] + (row % layout.rowsPerChunk) * rowBytes;
+  const what = `${d.path}:${d.datasetPath}`;
+  let fd: number | null = f.fd;
+  return {
+    descriptor: d,
+    memory: { tileCopies: 1, fixedBytes: 0 },
+    rowAlignment: layout.kind === 'chunked' ? layout.rowsPerChunk : 1,
+    readRows(row0, nRows, dest) {
+      if (fd === null) throw new Error(`readRows on ${d.path}: the source is closed`);
+      checkRowRequest(d.path, d.shape.scanY, scanX * detY * detX, d.dtype, row0, nRows, dest);
+      const bytes = new Uint8Array(dest.buffer, dest.byteOffset, nRows * rowBytes);
+      for (let r = row0; r < row0 + nRows;) {
+        const end = layout.kind === 'contiguous' ? row0 + nRows : Math.min(row0 + nRows, (Math.floor(r / layout.rowsPerChunk) + 1) * layout.rowsPerChunk);
+        readFullyAt(fd, bytes.subarray((r - row0) * rowBytes, (end - row0) * rowBytes), where(r), what);
+        r = end;
+      }
+    },
+    readPattern(y, x, dest) {
+      if (fd === null) throw new Error(`readPattern on ${d.path}: the source is closed`);
+      checkPatternRequest(d.path, d.shape, d.dtype, y, x, dest);
+      readFullyAt(fd, new Uint8Array(dest.buffer, dest.byteOffset, patternBytes), where(y) + x * patternBytes, what);
+    },
+    close() {
+      if (fd !== null) { fs.closeSync(fd); fd = null; }
+    },
+  };
 }

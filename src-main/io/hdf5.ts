@@ -1,6 +1,6 @@
 import * as fs from 'node:fs';
 import * as nodePath from 'node:path';
-import type { DatasetDescriptor, Hdf5DatasetInfo, Shape4D, SourceSpec } from '../../src-shared/model/dataset';
+import type { DatasetDescriptor, Hdf5DatasetInfo, Hdf5DirectHint, Shape4D, SourceSpec } from '../../src-shared/model/dataset';
 import { DTYPE_BYTES, DTYPES, isDType, typedView, type ByteOrder, type DType, type NumericArray } from '../../src-shared/model/dtype';
 import { InputError } from '../../src-shared/model/errors';
 import { fingerprint } from './fingerprint';
@@ -147,6 +147,8 @@ export async function openHdf5(spec: SourceSpec, options: Hdf5ReadOptions = {}):
       attributes: smallAttributes(h5, datasetPath),
     };
     source.descriptor = descriptor;
+    const hint = source.directHint();
+    if (hint) descriptor.spec = { ...descriptor.spec, hdf5Direct: hint };
     return source;
   } catch (e) {
     h5.close();
@@ -234,6 +236,15 @@ class Hdf5TileSource implements TileSource {
       fs.closeSync(fd);
       this.direct = null;
     }
+  }
+
+  /** The layout found for direct reads, with the descriptor, for other workers (see SourceSpec.hdf5Direct). */
+  directHint(): Hdf5DirectHint | null {
+    if (!this.direct) return null;
+    const st = fs.fstatSync(this.direct.fd);
+    const { spec: _spec, ...descriptor } = this.descriptor;
+    void _spec;
+    return { layout: this.direct.layout, descriptor, size: st.size, mtimeMs: st.mtimeMs };
   }
 
   private readDirect(row0: number, nRows: number, dest: NumericArray): void {

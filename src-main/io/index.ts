@@ -10,6 +10,7 @@ import type { TileSource } from './tile-source';
 import { openNpy } from './npy';
 import { openRaw } from './raw';
 import { listHdf5Datasets, openHdf5, type Hdf5ReadOptions } from './hdf5';
+import { openHdf5Direct } from './hdf5-direct';
 
 export type { TileSource } from './tile-source';
 
@@ -41,7 +42,7 @@ export async function openTileSource(spec: SourceSpec, options: Hdf5ReadOptions 
   switch (format) {
     case 'npy': return openNpy(resolved);
     case 'raw': return openRaw(resolved);
-    case 'hdf5': return openHdf5(resolved, options);
+    case 'hdf5': return resolved.hdf5Direct ? openHdf5Direct(resolved as SourceSpec & { hdf5Direct: NonNullable<SourceSpec['hdf5Direct']> }) : openHdf5(resolved, options);
   }
 }
 
@@ -58,7 +59,10 @@ export async function inspectSource(spec: SourceSpec): Promise<Inspection> {
   }
   const src = await openTileSource({ ...resolved, format });
   try {
-    return { kind: 'dataset', descriptor: src.descriptor };
+    // The engine's internal hint (chunk addresses) is no part of what a user is shown.
+    const { hdf5Direct: _hint, ...spec } = src.descriptor.spec;
+    void _hint;
+    return { kind: 'dataset', descriptor: { ...src.descriptor, spec } };
   } finally {
     src.close();
   }

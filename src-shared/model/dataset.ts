@@ -30,6 +30,20 @@ export interface SourceSpec {
   scanShape?: [number, number];
   /** Raw binary: required. */
   raw?: RawLayoutSpec;
+  /**
+   * Set by the engine, never by a client (the validator refuses it): where an uncompressed HDF5
+   * dataset's rows lie and its descriptor, found by the first worker that opened it, so the
+   * others read the rows straight from the file without starting the HDF5 library.
+   */
+  hdf5Direct?: Hdf5DirectHint;
+}
+
+export interface Hdf5DirectHint {
+  layout: { kind: 'contiguous'; address: number } | { kind: 'chunked'; rowsPerChunk: number; chunkAddress: number[] };
+  descriptor: Omit<DatasetDescriptor, 'spec'>;
+  /** The file's size and modification time when the layout was read: another file, another layout. */
+  size: number;
+  mtimeMs: number;
 }
 
 /** How the bytes are stored, for the readers. */

@@ -57,4 +57,29 @@ describe('direct HDF5 layout', () => {
       }
     }
   });
+
+  it('other workers read with the layout the first one found, without the HDF5 library, and refuse a changed file', async () => {
+    const want = readNpyF64(path.join(fx, 'data.npy'));
+    const file = path.join(fx, 'rows-earliest.h5');
+    const first = await openTileSource({ path: file, datasetPath: '/frames' } as never);
+    const spec = first.descriptor.spec;
+    first.close();
+    expect(spec.hdf5Direct).toBeDefined();
+    const other = await openTileSource(spec);
+    try {
+      expect(other.descriptor.shape).toEqual(first.descriptor.shape);
+      const rows = new Uint16Array(2 * rowElements);
+      other.readRows(4, 2, rows);
+      // reference: the array NumPy wrote
+      expect(Array.from(rows)).toEqual(Array.from(want.data.subarray(4 * rowElements, 6 * rowElements)));
+      const pattern = new Uint16Array(8 * 7);
+      other.readPattern(3, 2, pattern);
+      expect(Array.from(pattern)).toEqual(Array.from(want.data.subarray((3 * 5 + 2) * 56, (3 * 5 + 3) * 56)));
+    } finally {
+      other.close();
+    }
+    const later = new Date(Date.now() + 10_000);
+    fs.utimesSync(file, later, later);
+    await expect(openTileSource(spec)).rejects.toThrow(/changed while it was open/);
+  });
 });
