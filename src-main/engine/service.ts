@@ -29,7 +29,7 @@ import { previewImages } from '../../src-shared/compute/preview-image';
 import { comDefaults, comFieldFromSums, comSumsLessBadPixels } from './com-field';
 import { cacheKey, defaultCacheDir, readCachedFirstPass, writeCachedFirstPass, type CachedFirstPass } from './first-pass-cache';
 import { findVacuum, type VacuumFinding } from '../../src-shared/compute/vacuum';
-import { featuresToImage, planFeatures } from '../../src-shared/compute/pattern-features';
+import { featuresToImage, planFeatures, type FeaturePlan } from '../../src-shared/compute/pattern-features';
 import { previewPca } from './statistics';
 import { kmeans, kmeansMiniBatch } from '../../src-shared/compute/kmeans';
 
@@ -47,6 +47,14 @@ interface DatasetRecord {
 }
 
 type ServiceJobInfo = JobInfo & { jobId: string };
+
+/** What was done to make the features, defaults included, as results report it. */
+function featureSummary(plan: FeaturePlan, badPixels: BadPixelsMode): PcaResult['features'] {
+  return {
+    bin: plan.bin, crop: plan.crop, outY: plan.outY, outX: plan.outX, nFeatures: plan.nFeatures,
+    binsLeftOut: plan.binsLeftOut, scaling: plan.scaling, normalize: plan.normalize, badPixels,
+  };
+}
 
 /** An opened dataset as clients see it: the engine's internal read hint left out of its spec. */
 function publicOpened(o: OpenedDataset): OpenedDataset {
@@ -571,7 +579,7 @@ export class EngineService implements ScanfoldService {
     return {
       dataset: r.id, descriptor: d, k: p.k, singularValues: p.singularValues, explainedVarianceRatio: p.explainedVarianceRatio,
       totalVariance: p.totalVariance, components, loadings: p.loadings, meanPattern: featuresToImage(p.mean, plan),
-      features: { bin: plan.bin, crop: plan.crop, outY: plan.outY, outX: plan.outX, nFeatures: plan.nFeatures, binsLeftOut: plan.binsLeftOut, scaling, normalize: plan.normalize, badPixels: badMode },
+      features: featureSummary(plan, badMode),
       method: { oversample: options.oversample, sketch: p.sketch, powerIterations: options.powerIterations, seed: options.seed, passes: 0, totalVarianceFrom: p.totalVarianceFrom },
       ...(badMode === 'auto' ? { badPixels: { hot: f.badPixels.hot, dead: f.badPixels.dead } } : {}),
       zeroPatterns, preview: { qY: cube.qY, qX: cube.qX, scanBin: cube.scanBin, detBin: cube.detBin }, seconds: (performance.now() - t0) / 1000,
@@ -615,7 +623,7 @@ export class EngineService implements ScanfoldService {
       ? await this.ensureFirstPass(r, req.jobId ? `${req.jobId}/first-pass` : undefined, 'first pass') : null;
     const plan = aboutFile(d.path, () => planFeatures({ bin, crop: req.crop, scaling, normalize: req.normalize ?? false }, detY, detX,
       badMode === 'auto' ? first!.badPixels.mask : null, first?.meanPattern ?? null));
-    const features: PcaResult['features'] = { bin: plan.bin, crop: plan.crop, outY: plan.outY, outX: plan.outX, nFeatures: plan.nFeatures, binsLeftOut: plan.binsLeftOut, scaling, normalize: plan.normalize, badPixels: badMode };
+    const features = featureSummary(plan, badMode);
     const badPixels = first && badMode === 'auto' ? { hot: first.badPixels.hot, dead: first.badPixels.dead } : undefined;
     return { plan, features, badPixels };
   }

@@ -23,6 +23,23 @@ export interface PcaJobResult {
   seconds: number;
 }
 
+/**
+ * Folds parts in the order of `keys` (scan order), whatever order they arrive in, so sums do not
+ * depend on which tile finished first. Returns the function that hands in the part for a key.
+ */
+function inScanOrder<T>(keys: readonly number[], fold: (part: T) => void): (key: number, part: T) => void {
+  const waiting = new Map<number, T>();
+  let next = 0;
+  return (key, part) => {
+    waiting.set(key, part);
+    while (next < keys.length && waiting.has(keys[next])) {
+      const p = waiting.get(keys[next])!;
+      waiting.delete(keys[next++]);
+      fold(p);
+    }
+  };
+}
+
 function shared(a: Float64Array): Float64Array {
   const s = new Float64Array(new SharedArrayBuffer(a.byteLength));
   s.set(a);
@@ -84,6 +101,7 @@ export function startPca(pool: WorkerPool, spec: SourceSpec, plan: FeaturePlan, 
     const wCols = sketchCols;
     const slots = new Float64Array(new SharedArrayBuffer(slotCount * slotBytes));
     const freeSlots = Array.from({ length: slotCount }, (_, i) => i);
+    const groupKeys = Array.from({ length: Math.ceil(scanY / groupRows) }, (_, g) => g);
     const slotWaiters: (() => void)[] = [];
     /** Slots for a tile's groups: at once if free, else after an earlier tile's groups are added. */
     const takeSlots = async (groups: number): Promise<Int32Array> => {
@@ -101,9 +119,14 @@ export function startPca(pool: WorkerPool, spec: SourceSpec, plan: FeaturePlan, 
       const colSum = new Float64Array(dim);
       let sumSq = 0;
       let nonFinite = 0;
-      const pending = new Map<number, { slot: number; colSum: Float64Array; sumSq: number }>();
       const slotsOfTile = new Map<number, Int32Array>();
-      let nextGroup = 0;
+      const addGroup = inScanOrder<{ slot: number; colSum: Float64Array; sumSq: number }>(groupKeys, (part) => {
+        const from = part.slot * dim * wl;
+        for (let x = 0; x < w.length; x++) w[x] += slots[from + x];
+        for (let j = 0; j < dim; j++) colSum[j] += part.colSum[j];
+        sumSq += part.sumSq;
+        freeSlots.push(part.slot);
+      });
       await runTiles({
         pool, job, spec: d.spec, tiles: tp.tiles,
         compute: async (worker, tile) => {
@@ -116,15 +139,7 @@ export function startPca(pool: WorkerPool, spec: SourceSpec, plan: FeaturePlan, 
           slotsOfTile.delete(tile.row0);
           const g0 = tile.row0 / groupRows;
           for (let g = 0; g < ids.length; g++) {
-            pending.set(g0 + g, { slot: ids[g], colSum: r.groupColSum.subarray(g * dim, (g + 1) * dim), sumSq: r.groupSumSq[g] });
-          }
-          for (let part = pending.get(nextGroup); part; part = pending.get(nextGroup)) {
-            const from = part.slot * dim * wl;
-            for (let x = 0; x < w.length; x++) w[x] += slots[from + x];
-            for (let j = 0; j < dim; j++) colSum[j] += part.colSum[j];
-            sumSq += part.sumSq;
-            freeSlots.push(part.slot);
-            pending.delete(nextGroup++);
+            addGroup(g0 + g, { slot: ids[g], colSum: r.groupColSum.subarray(g * dim, (g + 1) * dim), sumSq: r.groupSumSq[g] });
           }
           for (const wake of slotWaiters.splice(0)) wake();
           nonFinite += r.nonFinite;
@@ -189,9 +204,10 @@ export function startReferenceFit(pool: WorkerPool, spec: SourceSpec, plan: Feat
     job.bytesTotal = touched.reduce((s, t) => s + t.bytes, 0) + tp.tiles.reduce((s, t) => s + t.bytes, 0);
     // Pass 1: each region's feature sums (added in scan order, so any tiling gives the same references).
     const sums = new Float64Array(r * dim), counts = new Float64Array(r);
-    const parts = new Map<number, { sums: Float64Array; counts: Float64Array }>();
-    const order = touched.map((t) => t.row0);
-    let next = 0;
+    const addTile = inScanOrder<{ sums: Float64Array; counts: Float64Array }>(touched.map((t) => t.row0), (q) => {
+      for (let i = 0; i < sums.length; i++) sums[i] += q.sums[i];
+      for (let i = 0; i < r; i++) counts[i] += q.counts[i];
+    });
     let nonFinite = 0;
     await runTiles({
       pool, job, spec: d.spec, tiles: touched,
@@ -203,12 +219,7 @@ export function startReferenceFit(pool: WorkerPool, spec: SourceSpec, plan: Feat
       },
       merge: (p, tile) => {
         nonFinite += p.nonFinite;
-        parts.set(tile.row0, p);
-        for (let q = parts.get(order[next]); q; q = parts.get(order[next])) {
-          for (let i = 0; i < sums.length; i++) sums[i] += q.sums[i];
-          for (let i = 0; i < r; i++) counts[i] += q.counts[i];
-          parts.delete(order[next++]);
-        }
+        addTile(tile.row0, p);
       },
     });
     if (job.cancelled) return;
@@ -322,22 +333,20 @@ export function startStreamedKmeans(pool: WorkerPool, spec: SourceSpec, plan: Fe
     let inertia = 0, iterations = 0, sizes = new Int32Array(k);
     for (; iterations < o.maxIterations; iterations++) {
       const sums = new Float64Array(k * dim), counts = new Float64Array(k);
-      const parts = new Map<number, { sums: Float64Array; counts: Float64Array; inertia: number }>();
-      let next = 0, changed = 0;
+      let changed = 0;
       inertia = 0;
+      const addTile = inScanOrder<{ sums: Float64Array; counts: Float64Array; inertia: number }>(tp.tiles.map((t) => t.row0), (q) => {
+        for (let i = 0; i < sums.length; i++) sums[i] += q.sums[i];
+        for (let c = 0; c < k; c++) counts[c] += q.counts[c];
+        inertia += q.inertia;
+      });
       const current = centers;
       await runTiles({
         pool, job, spec: d.spec, tiles: tp.tiles,
         compute: (w, tile) => w.kmeansTile(d.spec, tile.row0, tile.nRows, plan, kernel, current, k, labels),
         merge: (r, tile) => {
           changed += r.changed;
-          parts.set(tile.row0, r);
-          for (let q = parts.get(tp.tiles[next]?.row0); q; q = parts.get(tp.tiles[next]?.row0)) {
-            for (let i = 0; i < sums.length; i++) sums[i] += q.sums[i];
-            for (let c = 0; c < k; c++) counts[c] += q.counts[c];
-            inertia += q.inertia;
-            parts.delete(tp.tiles[next++].row0);
-          }
+          addTile(tile.row0, r);
         },
       });
       if (job.cancelled) return;

@@ -189,7 +189,13 @@ function sketchKernel(): SketchKernel {
 }
 
 /** The feature vectors of a tile's patterns (nPatterns × nFeatures, in a reused scratch array). */
-function featuresOfTile(src: TileSource, row0: number, nRows: number, plan: FeaturePlan, kernel: KernelKind) {
+/**
+ * A tile read for feature vectors: for 8/16-bit data through the first-pass kernel, whose
+ * detector bins are exact sums (float32 holds 64 × 65535 < 2²⁴) and only the kept bins are then
+ * gathered; otherwise the raw tile, binned in plain TypeScript. `features(p0, p1, out)` writes
+ * the feature vectors of the tile's patterns p0 … p1 − 1 into `out`.
+ */
+function readForFeatures(src: TileSource, row0: number, nRows: number, plan: FeaturePlan, kernel: KernelKind) {
   const { dtype, shape } = src.descriptor;
   const nPix = shape.detY * shape.detX;
   const nPatterns = nRows * shape.scanX;
@@ -201,17 +207,24 @@ function featuresOfTile(src: TileSource, row0: number, nRows: number, plan: Feat
   src.readRows(row0, nRows, raw);
   const readMs = performance.now() - t0;
   const t1 = performance.now();
-  const features = scratch('features', 'float64', nPatterns * plan.nFeatures) as Float64Array;
-  let f: { nonFinite: number; zeroPatterns: number };
-  if (fk) {
-    const pY = Math.ceil(shape.detY / plan.bin), pX = Math.ceil(shape.detX / plan.bin);
-    const bins = fk.run(dtype, nRows, { scanX: shape.scanX, detY: shape.detY, detX: shape.detX, detBin: plan.bin, scanBin: 1 },
-      { preview: scratch('feature-bins', 'float32', nPatterns * pY * pX) as Float32Array, total: scratch('feature-totals', 'float64', nPatterns) as Float64Array }).preview;
-    f = { nonFinite: 0, ...featuresFromBins(bins, nPatterns, pY, pX, plan, features) };
-  } else {
-    f = patternFeatures(raw, nPatterns, plan, features);
-  }
-  return { features, ...f, readMs, computeMs: performance.now() - t1, rawBytes: nElements * DTYPE_BYTES[dtype] };
+  const pY = Math.ceil(shape.detY / plan.bin), pX = Math.ceil(shape.detX / plan.bin);
+  // Into reused arrays: fresh ones per tile would pile up faster than the collector frees them.
+  const bins = fk ? fk.run(dtype, nRows, { scanX: shape.scanX, detY: shape.detY, detX: shape.detX, detBin: plan.bin, scanBin: 1 },
+    { preview: scratch('feature-bins', 'float32', nPatterns * pY * pX) as Float32Array, total: scratch('feature-totals', 'float64', nPatterns) as Float64Array }).preview : null;
+  const binMs = performance.now() - t1;
+  const features = (p0: number, p1: number, out: Float64Array): { nonFinite: number; zeroPatterns: number } => bins
+    ? { nonFinite: 0, ...featuresFromBins(bins.subarray(p0 * pY * pX, p1 * pY * pX), p1 - p0, pY, pX, plan, out) }
+    : patternFeatures(raw.subarray(p0 * nPix, p1 * nPix), p1 - p0, plan, out);
+  return { features, nPatterns, readMs, binMs, rawBytes: nElements * DTYPE_BYTES[dtype] };
+}
+
+/** The feature vectors of a tile's patterns (nPatterns × nFeatures, in a reused scratch array). */
+function featuresOfTile(src: TileSource, row0: number, nRows: number, plan: FeaturePlan, kernel: KernelKind) {
+  const t = readForFeatures(src, row0, nRows, plan, kernel);
+  const t1 = performance.now();
+  const features = scratch('features', 'float64', t.nPatterns * plan.nFeatures) as Float64Array;
+  const f = t.features(0, t.nPatterns, features);
+  return { features, ...f, readMs: t.readMs, computeMs: t.binMs + performance.now() - t1, rawBytes: t.rawBytes };
 }
 
 /** Buffers a worker reuses between tiles of plain-TypeScript work (grown, never shrunk; dropped with the kernels). */
@@ -354,25 +367,11 @@ const api = {
   async pcaTile(spec: SourceSpec, row0: number, nRows: number, groupRows: number, plan: FeaturePlan, z: Float64Array, l: number, centre: Float64Array | null,
     kernel: KernelKind, yAll: Float64Array, wSlots: Float64Array, slotIds: Int32Array, coRange?: { s: number; seed: number }): Promise<PcaTileReply> {
     const src = await sourceFor(spec);
-    const { dtype, shape } = src.descriptor;
-    const nPix = shape.detY * shape.detX;
+    const { shape } = src.descriptor;
     const d = plan.nFeatures;
-    const t0 = performance.now();
-    const nPatterns = nRows * shape.scanX;
-    const nElements = nPatterns * nPix;
-    // Fast path: the first-pass kernel's detector bins (exact sums in float32 for data of at most
-    // 16 bits: 64 × 65535 < 2²⁴), then only the kept bins are gathered.
-    const viaBins = kernel === 'wasm' && SMALL_INTEGER_DTYPES.has(dtype) && binsAlignWithCrop(plan);
-    const fk = viaBins ? kernelFor<FirstPassKernel>('first-pass', { kernel: 'wasm', maxTileBytes: nElements * DTYPE_BYTES[dtype] }) : null;
-    const raw = fk ? fk.tileBuffer(dtype, nElements) : scratch('pca-raw', dtype, nElements);
-    src.readRows(row0, nRows, raw);
-    const rawBytes = nElements * DTYPE_BYTES[dtype];
-    const readMs = performance.now() - t0;
-    const t1 = performance.now();
-    const pY = Math.ceil(shape.detY / plan.bin), pX = Math.ceil(shape.detX / plan.bin);
-    // Into reused arrays: fresh ones per tile would pile up faster than the collector frees them.
-    const bins = fk ? fk.run(dtype, nRows, { scanX: shape.scanX, detY: shape.detY, detX: shape.detX, detBin: plan.bin, scanBin: 1 },
-      { preview: scratch('pca-bins', 'float32', nPatterns * pY * pX) as Float32Array, total: scratch('pca-totals', 'float64', nPatterns) as Float64Array }).preview : null;
+    const tile = readForFeatures(src, row0, nRows, plan, kernel);
+    const { nPatterns, readMs, rawBytes } = tile;
+    const t1 = performance.now() - tile.binMs;
     const sk = kernel === 'wasm' ? sketchKernel() : null;
     const groups = Math.ceil(nRows / groupRows);
     // Y rows and each group's W go straight into the shared arrays (see PcaTileReply).
@@ -386,8 +385,7 @@ const api = {
       const m = p1 - p0;
       // Features go straight into the kernel's memory (or a scratch array for the reference).
       const rows = sk ? sk.rows(m, d, l, coRange?.s ?? 0) : scratch('pca-features', 'float64', m * d) as Float64Array;
-      const f = bins ? { nonFinite: 0, ...featuresFromBins(bins.subarray(p0 * pY * pX, p1 * pY * pX), m, pY, pX, plan, rows) }
-        : patternFeatures(raw.subarray(p0 * nPix, p1 * nPix), m, plan, rows);
+      const f = tile.features(p0, p1, rows);
       nonFinite += f.nonFinite;
       zeroPatterns += f.zeroPatterns;
       const wl = coRange ? coRange.s : l;

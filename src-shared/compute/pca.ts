@@ -5,7 +5,7 @@
  * W, column sums and sum of squares. The same driver runs over the preview cube in memory and
  * over a dataset on disk through the worker pool.
  */
-import { coRangeRows, finishRandomizedSvd, gaussianMatrix, orthonormalize, rangeBlock, svdOfProjection, type RangeBlock } from './randomized-svd';
+import { coRangeRows, finishRandomizedSvd, gaussianMatrix, orthonormalize, rangeBlock, svdOfProjection, type RandomizedSvd, type RangeBlock } from './randomized-svd';
 
 export interface PcaOptions {
   /** Components wanted (k). */
@@ -79,6 +79,12 @@ export async function randomizedPca(pass: PcaPass, n: number, d: number, o: PcaO
     totalVarianceFrom = centred ? 'a centred pass' : 'the uncentred sums of the only pass';
   }
   const svd = await finishRandomizedSvd(r.y, r.w, n, d, l, k);
+  return pcaFromSvd(svd, n, d, mean, totalVariance, { sketch: l, passes, totalVarianceFrom });
+}
+
+/** Components (k × D), loadings U·σ (k × N) and explained variance from the rank-k SVD. */
+function pcaFromSvd(svd: RandomizedSvd, n: number, d: number, mean: Float64Array, totalVariance: number,
+  how: Pick<PcaResult, 'sketch' | 'passes' | 'totalVarianceFrom'>): PcaResult {
   const kk = svd.k;
   const components = new Float64Array(kk * d);
   const loadings = new Float64Array(kk * n);
@@ -88,8 +94,8 @@ export async function randomizedPca(pass: PcaPass, n: number, d: number, o: PcaO
   }
   return {
     singularValues: svd.singularValues,
-    explainedVarianceRatio: svd.singularValues.map((s) => (totalVariance > 0 ? (s * s) / totalVariance : 0)),
-    totalVariance, components, loadings, mean, k: kk, sketch: l, passes, totalVarianceFrom,
+    explainedVarianceRatio: svd.singularValues.map((x) => (totalVariance > 0 ? (x * x) / totalVariance : 0)),
+    totalVariance, components, loadings, mean, k: kk, ...how,
   };
 }
 
@@ -136,18 +142,7 @@ async function onePassPca(pass: PcaPass, n: number, d: number, o: PcaOptions): P
   let meanSq = 0;
   if (centred) for (let j = 0; j < d; j++) meanSq += mean[j] * mean[j];
   const totalVariance = r.sumSq - n * meanSq;
-  const kk = svd.k;
-  const components = new Float64Array(kk * d);
-  const loadings = new Float64Array(kk * n);
-  for (let c = 0; c < kk; c++) {
-    for (let j = 0; j < d; j++) components[c * d + j] = svd.v[j * kk + c];
-    for (let i = 0; i < n; i++) loadings[c * n + i] = svd.u[i * kk + c] * svd.singularValues[c];
-  }
-  return {
-    singularValues: svd.singularValues,
-    explainedVarianceRatio: svd.singularValues.map((x) => (totalVariance > 0 ? (x * x) / totalVariance : 0)),
-    totalVariance, components, loadings, mean, k: kk, sketch: l, passes: 1, totalVarianceFrom: 'the uncentred sums of the only pass',
-  };
+  return pcaFromSvd(svd, n, d, mean, totalVariance, { sketch: l, passes: 1, totalVarianceFrom: 'the uncentred sums of the only pass' });
 }
 
 /** The pass over rows held in memory (n × d, row-major), in blocks of `blockRows`: the preview cube, tests. */

@@ -54,6 +54,17 @@ const dataset = z.string().min(1, 'expected a dataset id from open');
 const job = { jobId: z.string().min(1).max(200).optional() };
 const badPixels = z.enum(['auto', 'none']).optional();
 
+/** How patterns become feature vectors: the same fields for pca, kmeans and fit. */
+const featureFields = {
+  bin: z.custom<1 | 2 | 4 | 8 | 'auto'>((v) => [1, 2, 4, 8, 'auto'].includes(v as never), { message: 'expected 1, 2, 4, 8 or auto' }).optional(),
+  crop: rectangle.optional(),
+  scaling: z.enum(['none', 'sqrt', 'poisson']).optional(),
+  normalize: z.boolean().optional(),
+  badPixels,
+};
+const scalingAgrees = (r: { normalize?: boolean; scaling?: string }) => !(r.normalize && r.scaling === 'poisson');
+const scalingMessage = { message: 'normalize and Poisson scaling exclude each other (Poisson weighting needs counts)' };
+
 const SCHEMAS: Record<ServiceMethod, z.ZodType> = {
   inspect: sourceSpec,
   open: sourceSpec,
@@ -89,11 +100,7 @@ const SCHEMAS: Record<ServiceMethod, z.ZodType> = {
   pca: z.object({
     dataset,
     components: positiveWhole,
-    bin: z.custom<1 | 2 | 4 | 8 | 'auto'>((v) => [1, 2, 4, 8, 'auto'].includes(v as never), { message: 'expected 1, 2, 4, 8 or auto' }).optional(),
-    crop: rectangle.optional(),
-    scaling: z.enum(['none', 'sqrt', 'poisson']).optional(),
-    normalize: z.boolean().optional(),
-    badPixels,
+    ...featureFields,
     oversample: whole.optional(),
     powerIterations: z.number().int().min(0).max(20, 'at most 20 power iterations (each reads the data once more)').optional(),
     seed: whole.optional(),
@@ -101,15 +108,11 @@ const SCHEMAS: Record<ServiceMethod, z.ZodType> = {
     passes: z.literal(1, { message: 'expected 1 (the one-pass sketch) or none' }).optional(),
     centre: z.boolean().optional(),
     ...job,
-  }).strict().refine((r) => !(r.normalize && r.scaling === 'poisson'), { message: 'normalize and Poisson scaling exclude each other (Poisson weighting needs counts)' }),
+  }).strict().refine(scalingAgrees, scalingMessage),
   kmeans: z.object({
     dataset,
     clusters: positiveWhole,
-    bin: z.custom<1 | 2 | 4 | 8 | 'auto'>((v) => [1, 2, 4, 8, 'auto'].includes(v as never), { message: 'expected 1, 2, 4, 8 or auto' }).optional(),
-    crop: rectangle.optional(),
-    scaling: z.enum(['none', 'sqrt', 'poisson']).optional(),
-    normalize: z.boolean().optional(),
-    badPixels,
+    ...featureFields,
     pcaComponents: positiveWhole.optional(),
     features: z.enum(['pca', 'patterns']).optional(),
     maxIterations: z.number().int().min(1).max(1000).optional(),
@@ -119,18 +122,14 @@ const SCHEMAS: Record<ServiceMethod, z.ZodType> = {
     algorithm: z.enum(['lloyd', 'mini-batch']).optional(),
     powerIterations: z.number().int().min(0).max(20, 'at most 20 power iterations (each reads the data once more)').optional(),
     ...job,
-  }).strict().refine((r) => !(r.normalize && r.scaling === 'poisson'), { message: 'normalize and Poisson scaling exclude each other (Poisson weighting needs counts)' }),
+  }).strict().refine(scalingAgrees, scalingMessage),
   fit: z.object({
     dataset,
     references: z.array(regionShape).min(1, 'expected at least one reference region').max(16, 'at most 16 references'),
     nonnegative: z.boolean().optional(),
-    bin: z.custom<1 | 2 | 4 | 8 | 'auto'>((v) => [1, 2, 4, 8, 'auto'].includes(v as never), { message: 'expected 1, 2, 4, 8 or auto' }).optional(),
-    crop: rectangle.optional(),
-    scaling: z.enum(['none', 'sqrt', 'poisson']).optional(),
-    normalize: z.boolean().optional(),
-    badPixels,
+    ...featureFields,
     ...job,
-  }).strict().refine((r) => !(r.normalize && r.scaling === 'poisson'), { message: 'normalize and Poisson scaling exclude each other (Poisson weighting needs counts)' }),
+  }).strict().refine(scalingAgrees, scalingMessage),
   patternAt: z.object({ dataset, y: whole, x: whole }).strict(),
   previewImages: z.object({ dataset, detectors: z.array(detectorSpec).min(1, 'expected at least one detector') }).strict(),
   filesRead: z.undefined(),
