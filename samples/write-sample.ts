@@ -4,7 +4,7 @@
 // The frames go through h5wasm in blocks of scan rows, because its heap is capped at 2 GiB
 // and never shrinks.
 import type h5wasm from 'h5wasm/node';
-import { writeHdf5 } from '../src-main/io/write-results';
+import { getH5 } from '../src-main/io/h5wasm-module';
 import { OutputFile } from '../src-main/io/output-file';
 import type { Shape4D } from '../src-shared/model/dataset';
 import { CancelledError, InputError } from '../src-shared/model/errors';
@@ -67,6 +67,27 @@ export async function writeSample(opts: WriteSampleOptions): Promise<{ path: str
 }
 
 type H5File = InstanceType<typeof h5wasm.File>;
+
+/**
+ * Write through the HDF5 library (chunked, compressed frames need it; results use our own
+ * writer) into the output's temporary file, renamed onto its target at the end.
+ */
+async function writeHdf5(out: OutputFile, fill: (f: H5File) => Promise<void>): Promise<string> {
+  const { h5wasm: lib } = await getH5();
+  return out.write(async (tmp) => {
+    const f = new lib.File(tmp, 'w');
+    let open = true;
+    try {
+      await fill(f);
+      open = false;
+      f.close();
+    } finally {
+      if (open) {
+        try { f.close(); } catch { /* the write already failed; report that failure */ }
+      }
+    }
+  });
+}
 type H5Group = InstanceType<typeof h5wasm.Group>;
 type H5Dataset = InstanceType<typeof h5wasm.Dataset>;
 

@@ -13,7 +13,6 @@ import { readNpy2D } from '../io/npy-array';
 import { canonicalPath, physicalPath } from '../io/input-file';
 import { followJobs } from './progress';
 import { SCANFOLD_VERSION } from '../engine/version';
-import { getH5 } from '../io/h5wasm-module';
 import { decimalNumber, numberList, outputFlag, parseFlags, rectangleFlag, rejectExtraPositionals, SOURCE_OPTIONS, sourceSpecFromFlags } from './source-flags';
 
 type Flags = Record<string, string | boolean | (string | boolean)[] | undefined>;
@@ -94,9 +93,6 @@ function checkMaskValues(file: string, values: ArrayLike<number>, width: number)
 export async function withService<T>(options: EngineOptions, quiet: boolean, fn: (s: EngineService) => Promise<T>, out?: OutputFile): Promise<T> {
   try {
     const service = new EngineService(options);
-    // The HDF5 library the results are written with takes ~0.2 s to load: load it while the
-    // workers read, not after (a failure here surfaces again, with its message, when writing).
-    if (out) getH5().catch(() => undefined);
     for (const note of service.notes) process.stderr.write(`note: ${note}\n`);
     const stop = followJobs(service, quiet);
     try { return await fn(service); } finally { stop(); await service.shutdown(); }

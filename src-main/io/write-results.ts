@@ -1,28 +1,5 @@
-import { getH5, type H5Lib } from './h5wasm-module';
+import { writeHdf5File, type H5DatasetInput } from './hdf5-writer';
 import type { OutputFile } from './output-file';
-
-export type H5File = InstanceType<H5Lib['File']>;
-
-/**
- * Write a new HDF5 file through `fill` into the output's temporary file; the output renames it
- * onto its target at the end, so a failure (or a cancel) leaves nothing behind.
- */
-export async function writeHdf5(out: OutputFile, fill: (f: H5File, h5wasm: H5Lib) => Promise<void> | void): Promise<string> {
-  const { h5wasm } = await getH5();
-  return out.write(async (tmp) => {
-    const f = new h5wasm.File(tmp, 'w');
-    let open = true;
-    try {
-      await fill(f, h5wasm);
-      open = false;
-      f.close();
-    } finally {
-      if (open) {
-        try { f.close(); } catch { /* the write already failed; report that failure */ }
-      }
-    }
-  });
-}
 
 export interface ResultArray {
   /** float64, or int32 for labels. */
@@ -52,17 +29,13 @@ export async function writeFloat64Results(out: OutputFile, arrays: Record<string
     if (n > 0) nonFiniteResults[name] = n;
     total += n;
   }
-  const path = await writeHdf5(out, (f) => {
-    for (const [k, v] of Object.entries(rootAttrs)) writeAttr(f, k, v);
-    writeAttr(f, 'non_finite_results', total);
-    for (const [name, a] of Object.entries(arrays)) {
-      // '<d' is h5wasm's spelling of float64 (it reads '<f8' as float32); '<i' is int32.
-      const ds = f.create_dataset({ name, data: a.data, shape: a.shape, dtype: a.data instanceof Int32Array ? '<i' : '<d' });
-      for (const [k, v] of Object.entries(a.attrs ?? {})) writeAttr(ds, k, v);
-      (a.dims ?? []).forEach((label, i) => ds.set_dimension_label(i, label));
-      writeAttr(ds, 'non_finite_results', nonFiniteResults[name] ?? 0);
-    }
-  });
+  // Numbers are written as float64 whatever their value (a whole number is not guessed to be an
+  // integer), so an attribute's type never depends on its value.
+  const datasets: Record<string, H5DatasetInput> = {};
+  for (const [name, a] of Object.entries(arrays)) {
+    datasets[name] = { data: a.data, shape: a.shape, dims: a.dims, attrs: { ...(a.attrs ?? {}), non_finite_results: nonFiniteResults[name] ?? 0 } };
+  }
+  const path = await out.write((tmp) => writeHdf5File(tmp, { attrs: { ...rootAttrs, non_finite_results: total }, datasets }));
   return { path, nonFiniteResults };
 }
 
@@ -70,13 +43,4 @@ export function countNonFinite(a: ArrayLike<number>): number {
   let n = 0;
   for (let i = 0; i < a.length; i++) if (!Number.isFinite(a[i])) n++;
   return n;
-}
-
-/**
- * Numbers are written as float64 whatever their value: h5wasm would guess int32 for whole
- * numbers, which wraps large counts and makes an attribute's type depend on its value.
- */
-function writeAttr(target: { create_attribute: H5File['create_attribute'] }, key: string, value: string | number): void {
-  if (typeof value === 'number') target.create_attribute(key, value, null, '<d');
-  else target.create_attribute(key, value);
 }
