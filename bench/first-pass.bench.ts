@@ -103,16 +103,24 @@ async function timedFirstPass(spec: Parameters<Engine['firstPass']>[0], workers:
   }
 }
 
-export async function runBenchmark(opts: { dir: string; workers: number }): Promise<void> {
+export async function runBenchmark(opts: { dir: string; workers: number; parts: Set<string> }): Promise<void> {
   const { h5, raw, shape } = await ensureLarge(opts.dir);
+  const [sy, sx, ky, kx] = shape;
+  // Warm the page cache (and check the files are readable) before any timing.
+  plainRead(raw); plainRead(h5);
+  const reads = [plainRead(raw), plainRead(raw), plainRead(raw)].sort((a, b) => a.seconds - b.seconds);
+  const readRate = reads[1].bytes / reads[1].seconds;
+  if (opts.parts.has('first-pass')) await firstPassBenchmark({ h5, raw, shape, workers: opts.workers, read: reads[1] });
+  if (opts.parts.has('analyses')) await runAnalysesBenchmark({ raw, shape, workers: opts.workers, readRate });
+  if (opts.parts.has('commands')) runCommandsBenchmark({ raw, shape, workers: opts.workers });
+  if (opts.parts.has('pca')) runPcaBenchmark({ h5, shape, workers: opts.workers });
+}
+
+async function firstPassBenchmark(opts: { h5: string; raw: string; shape: number[]; workers: number; read: { seconds: number; bytes: number } }): Promise<void> {
+  const { h5, raw, shape, read } = opts;
   const [sy, sx, ky, kx] = shape;
   const rawSpec = { path: raw, format: 'raw' as const, raw: { shape: { scanY: sy, scanX: sx, detY: ky, detX: kx }, dtype: 'uint16' as const, byteOrder: 'little' as const, offset: 0 } };
   const h5Spec = { path: h5, datasetPath: '/scan/frames' };
-  // Warm the page cache (and check the files are readable) before any timing.
-  plainRead(raw); plainRead(h5);
-  // The plain read is noisy here; take the median of three.
-  const reads = [plainRead(raw), plainRead(raw), plainRead(raw)].sort((a, b) => a.seconds - b.seconds);
-  const read = reads[1];
   const fpRaw = await timedFirstPass(rawSpec, opts.workers);
   const fpH5 = await timedFirstPass(h5Spec, opts.workers);
   const bytes = fpRaw.descriptor.byteSize;
@@ -142,7 +150,4 @@ export async function runBenchmark(opts: { dir: string; workers: number }): Prom
   }
   const detail = `worker time split (raw): read ${(fpRaw.readMs / 1000).toFixed(2)} s, compute ${(fpRaw.computeMs / 1000).toFixed(2)} s (summed over workers); tiles of ${fpRaw.plan.tileRows} rows, preview ${fpRaw.preview.qY}×${fpRaw.preview.qX}×${fpRaw.preview.pY}×${fpRaw.preview.pX}`;
   console.log(detail);
-  await runAnalysesBenchmark({ raw, shape, workers: opts.workers, readRate });
-  runCommandsBenchmark({ raw, shape, workers: opts.workers });
-  runPcaBenchmark({ h5, shape, workers: opts.workers });
 }
