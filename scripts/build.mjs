@@ -57,3 +57,25 @@ if (Object.keys(existing).length) {
     logLevel: 'warning',
   });
 }
+
+// 3. The renderer (served mode and, later, the Electron window): one browser bundle, its page
+//    and styles, into dist/renderer.
+const renderer = path.join(root, 'src-renderer');
+if (fs.existsSync(path.join(renderer, 'main.tsx'))) {
+  const out = path.join(dist, 'renderer');
+  fs.mkdirSync(out, { recursive: true });
+  await build({
+    entryPoints: [path.join(renderer, 'main.tsx')],
+    outfile: path.join(out, 'app.js'),
+    bundle: true,
+    platform: 'browser',
+    format: 'esm',
+    target: 'es2022',
+    jsx: 'automatic',
+    sourcemap: true,
+    minify: true,
+    define: { 'process.env.NODE_ENV': '"production"' },
+    logLevel: 'warning',
+  });
+  for (const f of ['index.html', 'styles.css']) fs.copyFileSync(path.join(renderer, f), path.join(out, f));
+}

@@ -17,6 +17,7 @@ import { projectRoot } from '../engine/paths';
 import { COMMAND_HELP, OVERVIEW } from './help';
 import { SCANFOLD_VERSION } from '../engine/version';
 import { cmdFit, cmdKmeans, cmdPca } from './statistics-commands';
+import { cmdServe } from './serve-command';
 import { cmdCalibrate, cmdCom, cmdImage, badPixelAttrs, cmdPattern, noteNonFiniteResults, openProtected, provenance, withService, writeResults } from './analysis-commands';
 import type { EngineService } from '../engine/service';
 
@@ -212,7 +213,8 @@ export async function main(argv: string[]): Promise<number> {
       case 'pca': await cmdPca(rest, engineOptions, ENGINE_OPTIONS); break;
       case 'kmeans': await cmdKmeans(rest, engineOptions, ENGINE_OPTIONS); break;
       case 'fit': await cmdFit(rest, engineOptions, ENGINE_OPTIONS); break;
-      default: throw new InputError(`unknown command "${cmd}"; expected info, summary, image, com, calibrate, pattern, pca, kmeans, fit, sample or demo (see scanfold --help; benchmarks: npm run bench)`);
+      case 'serve': await cmdServe(rest, engineOptions, ENGINE_OPTIONS); break;
+      default: throw new InputError(`unknown command "${cmd}"; expected info, summary, image, com, calibrate, pattern, pca, kmeans, fit, serve, sample or demo (see scanfold --help; benchmarks: npm run bench)`);
     }
     return 0;
   } catch (e) {

@@ -1,0 +1,384 @@
+// The window: a header (dataset, open), the Scan view and the Pattern view side by side, and a
+// strip of panels (Detectors, Components, Clusters, Activity). Every number comes from the
+// engine through the contract; this file only asks and shows.
+import { useCallback, useEffect, useRef, useState, useSyncExternalStore } from 'react';
+import type { FirstPassResult, KmeansResult, PcaResult } from '../src-shared/contract/service';
+import type { JobInfo } from '../src-shared/contract/jobs';
+import type { DetectorShape } from '../src-shared/model/detectors';
+import { CATEGORY_COLOURS } from './colormaps';
+import type { Client } from './connection';
+import type { AppState, DetectorItem, Store } from './store';
+import { fmt, ImageView, type ImageData2D, type PointerInImage } from './views/ImageView';
+
+type Job = JobInfo & { jobId: string };
+/** What the Scan view shows. */
+type ScanShows = { kind: 'detector'; id: string } | { kind: 'default'; index: number } | { kind: 'loading'; k: number } | { kind: 'clusters' };
+/** What the Pattern view shows. */
+type PatternShows = { kind: 'position' } | { kind: 'mean' } | { kind: 'component'; k: number } | { kind: 'cluster'; k: number };
+
+function useStore(store: Store): AppState {
+  return useSyncExternalStore((l) => store.subscribe(l), () => store.get());
+}
+
+let jobCounter = 0;
+const newJobId = (what: string) => `${what}-${Date.now().toString(36)}-${++jobCounter}`;
+
+export function App({ client, store }: { client: Client; store: Store }) {
+  const state = useStore(store);
+  const ds = state.dataset;
+  const [first, setFirst] = useState<FirstPassResult | null>(null);
+  const [jobs, setJobs] = useState<Map<string, Job>>(new Map());
+  const [error, setError] = useState<string | null>(null);
+  const [hover, setHover] = useState<{ y: number; x: number } | null>(null);
+  const [pattern, setPattern] = useState<ImageData2D | null>(null);
+  const [detectorImages, setDetectorImages] = useState<Map<string, ImageData2D>>(new Map());
+  const [pca, setPca] = useState<PcaResult | null>(null);
+  const [kmeans, setKmeans] = useState<KmeansResult | null>(null);
+  const [scanShows, setScanShows] = useState<ScanShows>({ kind: 'default', index: 0 });
+  const [patternShows, setPatternShows] = useState<PatternShows>({ kind: 'mean' });
+  const [openPath, setOpenPath] = useState('');
+
+  const fail = useCallback((e: unknown) => {
+    const err = e as Error;
+    if (err?.name === 'CancelledError') return;
+    setError(err?.message ?? String(e));
+  }, []);
+
+  useEffect(() => client.onEvent((e) => {
+    if (e.kind === 'job') setJobs((m) => new Map(m).set(e.job.jobId, e.job));
+  }), [client]);
+
+  const startDataset = useCallback(async (id: string, name: string, shape: { scanY: number; scanX: number; detY: number; detX: number }, dtype: string) => {
+    store.update((s) => ({ ...s, dataset: { id, name, ...shape, dtype }, detectors: [], activeDetector: null }), { undoable: true });
+    setFirst(null); setPca(null); setKmeans(null); setDetectorImages(new Map());
+    setScanShows({ kind: 'default', index: 0 }); setPatternShows({ kind: 'mean' });
+    try {
+      setFirst(await client.firstPass({ dataset: id, jobId: newJobId('first-pass') }));
+    } catch (e) { fail(e); }
+  }, [client, store, fail]);
+
+  // Served mode opens the file given on the command line before the page loads.
+  useEffect(() => {
+    client.datasets().then((list) => {
+      const d = list[list.length - 1];
+      if (d) void startDataset(d.id, baseName(d.descriptor.path), d.descriptor.shape, d.descriptor.dtype);
+    }, fail);
+  }, [client, startDataset, fail]);
+
+  const openFile = async () => {
+    setError(null);
+    try {
+      const opened = await client.open({ path: openPath.trim() });
+      await startDataset(opened.id, baseName(opened.descriptor.path), opened.descriptor.shape, opened.descriptor.dtype);
+    } catch (e) { fail(e); }
+  };
+
+  // Hover: the pattern at the probe position under the pointer; one request in flight, the latest wins.
+  const hoverRef = useRef<{ busy: boolean; next: { y: number; x: number } | null }>({ busy: false, next: null });
+  const askPattern = useCallback((pos: { y: number; x: number }) => {
+    if (!ds) return;
+    const h = hoverRef.current;
+    h.next = pos;
+    if (h.busy) return;
+    const run = async () => {
+      while (h.next) {
+        const p = h.next;
+        h.next = null;
+        h.busy = true;
+        try {
+          const r = await client.patternAt({ dataset: ds.id, y: p.y, x: p.x });
+          setPattern({ values: r.pattern, width: r.detX, height: r.detY, label: `pattern at (${p.y}, ${p.x})` });
+        } catch (e) { fail(e); }
+        h.busy = false;
+      }
+    };
+    void run();
+  }, [client, ds, fail]);
+
+  const onScanPointer = (p: PointerInImage) => {
+    if (!ds || p.kind === 'leave') return;
+    const y = Math.round(p.y);
+    const x = Math.round(p.x);
+    if (y < 0 || x < 0 || y >= ds.scanY || x >= ds.scanX) return;
+    setHover({ y, x });
+    setPatternShows({ kind: 'position' });
+    askPattern({ y, x });
+  };
+
+  // Detectors: a drag answers from the preview cube at once; the release asks for the exact image.
+  const previewRef = useRef<{ busy: boolean; next: DetectorItem | null }>({ busy: false, next: null });
+  const previewDetector = useCallback((d: DetectorItem) => {
+    if (!ds) return;
+    const q = previewRef.current;
+    q.next = d;
+    if (q.busy) return;
+    const run = async () => {
+      while (q.next) {
+        const det = q.next;
+        q.next = null;
+        q.busy = true;
+        try {
+          const r = await client.previewImages({ dataset: ds.id, detectors: [{ shape: det.shape, weighted: true }] });
+          setDetectorImages((m) => new Map(m).set(det.id, { values: r.images[0], width: r.qX, height: r.qY, label: `${det.name} (preview, scan binned ${r.scanBin}×)` }));
+        } catch (e) { fail(e); }
+        q.busy = false;
+      }
+    };
+    void run();
+  }, [client, ds, fail]);
+
+  const exactDetector = useCallback(async (d: DetectorItem) => {
+    if (!ds) return;
+    try {
+      const r = await client.virtualImages({ dataset: ds.id, detectors: [{ shape: d.shape, label: d.name }], jobId: newJobId('detector') });
+      // Only if the detector has not moved since.
+      const now = store.get().detectors.find((x) => x.id === d.id);
+      if (now && JSON.stringify(now.shape) === JSON.stringify(d.shape)) {
+        setDetectorImages((m) => new Map(m).set(d.id, { values: r.images[0], width: ds.scanX, height: ds.scanY, label: d.name }));
+      }
+    } catch (e) { fail(e); }
+  }, [client, ds, fail, store]);
+
+  const addDetector = (kind: 'annulus' | 'disk') => {
+    if (!ds) return;
+    const disk = first && !('notFound' in first.brightFieldDisk) ? first.brightFieldDisk : { cx: (ds.detX - 1) / 2, cy: (ds.detY - 1) / 2, r: Math.min(ds.detX, ds.detY) / 8 };
+    const edge = Math.min(disk.cx, disk.cy, ds.detX - 1 - disk.cx, ds.detY - 1 - disk.cy);
+    const shape: DetectorShape = kind === 'disk'
+      ? { kind: 'disk', cx: round2(disk.cx), cy: round2(disk.cy), r: round2(disk.r) }
+      : { kind: 'annulus', cx: round2(disk.cx), cy: round2(disk.cy), rInner: round2(Math.min(disk.r * 1.5, edge * 0.6)), rOuter: round2(edge * 0.95) };
+    const n = state.detectors.length;
+    const item: DetectorItem = { id: `d${Date.now().toString(36)}${n}`, name: `${kind} ${n + 1}`, colour: CATEGORY_COLOURS[(n + 1) % CATEGORY_COLOURS.length], visible: true, shape };
+    store.update((s) => ({ ...s, detectors: [...s.detectors, item], activeDetector: item.id }), { undoable: true });
+    setScanShows({ kind: 'detector', id: item.id });
+    previewDetector(item);
+    void exactDetector(item);
+  };
+
+  const setShape = (id: string, shape: DetectorShape, undoable: boolean) => {
+    store.update((s) => ({ ...s, detectors: s.detectors.map((d) => (d.id === id ? { ...d, shape } : d)) }), { undoable });
+  };
+
+  // Dragging a detector handle on the Pattern view.
+  const dragRef = useRef<{ id: string; part: 'centre' | 'inner' | 'outer'; dx: number; dy: number } | null>(null);
+  const onPatternPointer = (p: PointerInImage) => {
+    const active = state.detectors.find((d) => d.id === state.activeDetector);
+    if (p.kind === 'down' && active) {
+      const part = pickHandle(active.shape, p.x, p.y);
+      if (part) {
+        const s = active.shape as { cx: number; cy: number };
+        dragRef.current = { id: active.id, part, dx: p.x - s.cx, dy: p.y - s.cy };
+        store.update((st) => ({ ...st }), { undoable: true });
+        setScanShows({ kind: 'detector', id: active.id });
+      }
+      return;
+    }
+    const drag = dragRef.current;
+    if (!drag) return;
+    const det = store.get().detectors.find((d) => d.id === drag.id);
+    if (!det) return;
+    const shape = moveHandle(det.shape, drag, p.x, p.y);
+    setShape(det.id, shape, false);
+    const moved = { ...det, shape };
+    previewDetector(moved);
+    if (p.kind === 'up' || p.kind === 'leave') {
+      dragRef.current = null;
+      void exactDetector(moved);
+    }
+  };
+
+  const runPca = async () => {
+    if (!ds) return;
+    setError(null);
+    try {
+      const r = await client.pca({ dataset: ds.id, components: 8, jobId: newJobId('pca') });
+      setPca(r);
+      setScanShows({ kind: 'loading', k: 0 }); setPatternShows({ kind: 'component', k: 0 });
+    } catch (e) { fail(e); }
+  };
+  const runKmeans = async () => {
+    if (!ds) return;
+    setError(null);
+    try {
+      const r = await client.kmeans({ dataset: ds.id, clusters: 4, jobId: newJobId('kmeans') });
+      setKmeans(r);
+      setScanShows({ kind: 'clusters' }); setPatternShows({ kind: 'cluster', k: 0 });
+    } catch (e) { fail(e); }
+  };
+
+  // What each view shows.
+  let scanImage: ImageData2D | null = null;
+  let scanColormap: 'categories' | undefined;
+  let scanLimits: [number, number] | undefined;
+  if (ds && scanShows.kind === 'detector') scanImage = detectorImages.get(scanShows.id) ?? null;
+  else if (ds && scanShows.kind === 'default' && first) {
+    const d = first.defaultImages[scanShows.index];
+    scanImage = d ? { values: d.image, width: ds.scanX, height: ds.scanY, label: d.label } : { values: first.totalIntensity, width: ds.scanX, height: ds.scanY, label: 'total intensity' };
+  } else if (ds && scanShows.kind === 'loading' && pca) {
+    const n = ds.scanY * ds.scanX;
+    scanImage = { values: pca.loadings.subarray(scanShows.k * n, (scanShows.k + 1) * n), width: ds.scanX, height: ds.scanY, label: `loading map ${scanShows.k + 1}` };
+  } else if (ds && scanShows.kind === 'clusters' && kmeans) {
+    scanImage = { values: kmeans.labels, width: ds.scanX, height: ds.scanY, label: `cluster map (${kmeans.k} clusters)` };
+    scanColormap = 'categories';
+    scanLimits = [-0.5, 9.5];
+  }
+  let patternImage: ImageData2D | null = null;
+  if (ds && patternShows.kind === 'position') patternImage = pattern;
+  else if (ds && patternShows.kind === 'mean' && first) patternImage = { values: first.meanPattern, width: ds.detX, height: ds.detY, label: 'mean pattern' };
+  else if (ds && patternShows.kind === 'component' && pca) {
+    const f = pca.features;
+    const n = f.outY * f.outX;
+    patternImage = { values: pca.components.subarray(patternShows.k * n, (patternShows.k + 1) * n), width: f.outX, height: f.outY, label: `component pattern ${patternShows.k + 1} (binned ${f.bin}×)` };
+  } else if (ds && patternShows.kind === 'cluster' && kmeans) {
+    const n = ds.detY * ds.detX;
+    patternImage = { values: kmeans.clusterPatterns.subarray(patternShows.k * n, (patternShows.k + 1) * n), width: ds.detX, height: ds.detY, label: `cluster pattern ${patternShows.k + 1}` };
+  }
+  const patternIsDetectorSpace = patternImage !== null && (patternShows.kind === 'position' || patternShows.kind === 'mean' || patternShows.kind === 'cluster');
+
+  const running = [...jobs.values()].filter((j) => j.state === 'running');
+
+  return (
+    <div className="app">
+      <header className="app-header">
+        <div className="app-name">Scanfold</div>
+        <div className="dataset-line" data-testid="dataset">
+          {ds ? <><strong>{ds.name}</strong> <span>scan {ds.scanY} × {ds.scanX}, patterns {ds.detY} × {ds.detX}, {ds.dtype}</span></> : <span>no dataset open</span>}
+        </div>
+        <form className="open-form" onSubmit={(e) => { e.preventDefault(); void openFile(); }}>
+          <input aria-label="file to open" placeholder="path of an HDF5, .npy or raw file" value={openPath} onChange={(e) => setOpenPath(e.target.value)} />
+          <button type="submit">Open</button>
+        </form>
+      </header>
+      {error && <div className="error" role="alert">{error} <button onClick={() => setError(null)}>dismiss</button></div>}
+      <main className="views">
+        <ImageView name="scan" title="Scan view" image={scanImage} settings={state.scanView} colormap={scanColormap} limits={scanLimits}
+          onPointer={onScanPointer}
+          overlay={(toScreen, zoom) => hover && <rect className="hover-mark" x={toScreen(hover.x - 0.5, hover.y - 0.5)[0]} y={toScreen(hover.x - 0.5, hover.y - 0.5)[1]} width={Math.max(zoom, 3)} height={Math.max(zoom, 3)} />}
+          footer={hover && <span>probe ({hover.y}, {hover.x})</span>} />
+        <ImageView name="pattern" title="Pattern view" image={patternImage} settings={state.patternView}
+          onPointer={onPatternPointer}
+          overlay={(toScreen, zoom) => patternIsDetectorSpace && state.detectors.filter((d) => d.visible).map((d) => (
+            <DetectorOverlay key={d.id} item={d} active={d.id === state.activeDetector} toScreen={toScreen} zoom={zoom} />
+          ))} />
+      </main>
+      <section className="panels">
+        <div className="panel" aria-label="Detectors">
+          <h2>Detectors</h2>
+          <div className="row">
+            <button onClick={() => addDetector('disk')} disabled={!first}>+ disk</button>
+            <button onClick={() => addDetector('annulus')} disabled={!first}>+ annulus</button>
+            <button onClick={() => store.undo()}>undo</button>
+            <button onClick={() => store.redo()}>redo</button>
+          </div>
+          {first && first.defaultImages.map((d, i) => (
+            <div key={d.label} className={`item ${scanShows.kind === 'default' && scanShows.index === i ? 'on' : ''}`} onClick={() => setScanShows({ kind: 'default', index: i })}>{d.label} (first pass)</div>
+          ))}
+          {state.detectors.map((d) => (
+            <DetectorEntry key={d.id} item={d} active={d.id === state.activeDetector}
+              select={() => { store.update((s) => ({ ...s, activeDetector: d.id })); setScanShows({ kind: 'detector', id: d.id }); setPatternShows({ kind: 'mean' }); }}
+              change={(shape) => { setShape(d.id, shape, true); previewDetector({ ...d, shape }); void exactDetector({ ...d, shape }); }}
+              remove={() => store.update((s) => ({ ...s, detectors: s.detectors.filter((x) => x.id !== d.id), activeDetector: s.activeDetector === d.id ? null : s.activeDetector }), { undoable: true })}
+              toggle={() => store.update((s) => ({ ...s, detectors: s.detectors.map((x) => (x.id === d.id ? { ...x, visible: !x.visible } : x)) }), { undoable: true })}
+              rename={(name) => store.update((s) => ({ ...s, detectors: s.detectors.map((x) => (x.id === d.id ? { ...x, name } : x)) }), { undoable: true })} />
+          ))}
+        </div>
+        <div className="panel" aria-label="Components">
+          <h2>Components</h2>
+          <button onClick={() => void runPca()} disabled={!first}>Run PCA (8)</button>
+          {pca && <Scree pca={pca} selected={scanShows.kind === 'loading' ? scanShows.k : -1} pick={(k) => { setScanShows({ kind: 'loading', k }); setPatternShows({ kind: 'component', k }); }} />}
+        </div>
+        <div className="panel" aria-label="Clusters">
+          <h2>Clusters</h2>
+          <button onClick={() => void runKmeans()} disabled={!first}>Run k-means (4)</button>
+          {kmeans && Array.from(kmeans.sizes, (size, k) => (
+            <div key={k} className="item" onClick={() => { setScanShows({ kind: 'clusters' }); setPatternShows({ kind: 'cluster', k }); }}>
+              <span className="swatch" style={{ background: CATEGORY_COLOURS[k % 10] }} /> cluster {k + 1}: {size} positions
+            </div>
+          ))}
+        </div>
+        <div className="panel activity" aria-label="Activity">
+          <h2>Activity {running.length ? `(${running.length} running)` : ''}</h2>
+          {[...jobs.values()].reverse().slice(0, 12).map((j) => (
+            <div key={j.jobId} className={`job ${j.state}`} data-job={j.jobId}>
+              <span className="job-label">{j.label}</span>
+              <progress max={1} value={j.progress.fraction} />
+              <span className="job-state">{j.state === 'running' ? `${Math.round(j.progress.fraction * 100)} %` : j.state}</span>
+              {j.state === 'running' && <button onClick={() => void client.cancel(j.jobId)}>cancel</button>}
+            </div>
+          ))}
+        </div>
+      </section>
+    </div>
+  );
+}
+
+function DetectorOverlay({ item, active, toScreen, zoom }: { item: DetectorItem; active: boolean; toScreen: (x: number, y: number) => [number, number]; zoom: number }) {
+  const s = item.shape;
+  if (s.kind !== 'disk' && s.kind !== 'annulus') return null;
+  const [x, y] = toScreen(s.cx, s.cy);
+  const radii = s.kind === 'disk' ? [s.r] : [s.rInner, s.rOuter];
+  return (
+    <g className={`detector ${active ? 'active' : ''}`} stroke={item.colour}>
+      {radii.map((r, i) => <circle key={i} cx={x} cy={y} r={r * zoom} fill="none" />)}
+      {active && <>
+        <circle className="handle" cx={x} cy={y} r={5} />
+        {radii.map((r, i) => <circle key={`h${i}`} className="handle" cx={x + r * zoom} cy={y} r={5} />)}
+      </>}
+    </g>
+  );
+}
+
+function DetectorEntry(p: { item: DetectorItem; active: boolean; select(): void; change(s: DetectorShape): void; remove(): void; toggle(): void; rename(n: string): void }) {
+  const s = p.item.shape;
+  const fields: [string, number][] = s.kind === 'disk' ? [['cx', s.cx], ['cy', s.cy], ['r', s.r]]
+    : s.kind === 'annulus' ? [['cx', s.cx], ['cy', s.cy], ['rInner', s.rInner], ['rOuter', s.rOuter]] : [];
+  return (
+    <div className={`item detector-entry ${p.active ? 'on' : ''}`} onClick={p.select}>
+      <span className="swatch" style={{ background: p.item.colour }} />
+      <input className="name" value={p.item.name} onChange={(e) => p.rename(e.target.value)} aria-label="detector name" />
+      {fields.map(([k, v]) => (
+        <label key={k}>{k} <input type="number" step="0.5" value={v} aria-label={`${p.item.name} ${k}`}
+          onChange={(e) => { const n = Number(e.target.value); if (Number.isFinite(n)) p.change({ ...s, [k]: n } as DetectorShape); }} /></label>
+      ))}
+      <span className="unit">px</span>
+      <button onClick={(e) => { e.stopPropagation(); p.toggle(); }}>{p.item.visible ? 'hide' : 'show'}</button>
+      <button onClick={(e) => { e.stopPropagation(); p.remove(); }}>delete</button>
+    </div>
+  );
+}
+
+function Scree({ pca, selected, pick }: { pca: PcaResult; selected: number; pick(k: number): void }) {
+  const r = Array.from(pca.explainedVarianceRatio);
+  const max = Math.max(...r, 1e-12);
+  return (
+    <svg className="scree" width={220} height={90} role="img" aria-label="explained variance of each component">
+      {r.map((v, k) => (
+        <g key={k} onClick={() => pick(k)} className={k === selected ? 'on' : ''}>
+          <rect x={6 + k * 26} y={80 - (v / max) * 70} width={20} height={(v / max) * 70} />
+          <title>{`component ${k + 1}: ${fmt(v * 100)} % of the variance`}</title>
+        </g>
+      ))}
+    </svg>
+  );
+}
+
+function pickHandle(s: DetectorShape, x: number, y: number): 'centre' | 'inner' | 'outer' | null {
+  if (s.kind !== 'disk' && s.kind !== 'annulus') return null;
+  const d = Math.hypot(x - s.cx, y - s.cy);
+  const tol = 3;
+  if (s.kind === 'disk') return Math.abs(d - s.r) < tol ? 'outer' : d < s.r ? 'centre' : null;
+  if (Math.abs(d - s.rOuter) < tol) return 'outer';
+  if (Math.abs(d - s.rInner) < tol) return 'inner';
+  return d < s.rOuter ? 'centre' : null;
+}
+
+function moveHandle(s: DetectorShape, drag: { part: 'centre' | 'inner' | 'outer'; dx: number; dy: number }, x: number, y: number): DetectorShape {
+  if (s.kind !== 'disk' && s.kind !== 'annulus') return s;
+  if (drag.part === 'centre') return { ...s, cx: round2(x - drag.dx), cy: round2(y - drag.dy) };
+  const r = round2(Math.max(0.5, Math.hypot(x - s.cx, y - s.cy)));
+  if (s.kind === 'disk') return { ...s, r };
+  if (drag.part === 'outer') return { ...s, rOuter: Math.max(r, s.rInner + 0.5) };
+  return { ...s, rInner: Math.min(r, s.rOuter - 0.5) };
+}
+
+const round2 = (v: number) => Math.round(v * 100) / 100;
+const baseName = (p: string) => p.split(/[\\/]/).pop() ?? p;

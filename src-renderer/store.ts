@@ -1,0 +1,105 @@
+// Everything the user set up (dataset, detectors, colour settings) in one store outside React,
+// with a version counter that goes up on every change, plain JSON so a session file can save and
+// reopen it exactly, and undo/redo over the changes marked undoable. Results (images, patterns)
+// are not state: they are recomputed from it, or held by the views.
+import type { DetectorShape } from '../src-shared/model/detectors';
+import type { ColormapName } from './colormaps';
+import type { Scaling } from './views/contrast';
+
+export interface DetectorItem {
+  id: string;
+  name: string;
+  colour: string;
+  visible: boolean;
+  shape: DetectorShape;
+}
+
+export interface ViewSettings {
+  colormap: ColormapName;
+  scaling: Scaling;
+  /** null: automatic limits from percentiles. */
+  limits: [number, number] | null;
+}
+
+export interface AppState {
+  dataset: { id: string; name: string; scanY: number; scanX: number; detY: number; detX: number; dtype: string } | null;
+  detectors: DetectorItem[];
+  /** The detector whose image the Scan view shows. */
+  activeDetector: string | null;
+  scanView: ViewSettings;
+  patternView: ViewSettings;
+}
+
+export const INITIAL_STATE: AppState = {
+  dataset: null,
+  detectors: [],
+  activeDetector: null,
+  scanView: { colormap: 'viridis', scaling: { kind: 'linear' }, limits: null },
+  patternView: { colormap: 'magma', scaling: { kind: 'log' }, limits: null },
+};
+
+export class Store {
+  private state: AppState;
+  private past: AppState[] = [];
+  private future: AppState[] = [];
+  private listeners = new Set<() => void>();
+  version = 0;
+
+  constructor(initial: AppState = INITIAL_STATE) {
+    this.state = structuredClone(initial);
+  }
+
+  get(): AppState {
+    return this.state;
+  }
+
+  /** Replace the state with `change(state)` (which must not mutate its argument). */
+  update(change: (s: AppState) => AppState, opts: { undoable?: boolean } = {}): void {
+    const next = change(this.state);
+    if (next === this.state) return;
+    if (opts.undoable) {
+      this.past.push(this.state);
+      if (this.past.length > 200) this.past.shift();
+      this.future = [];
+    }
+    this.state = next;
+    this.changed();
+  }
+
+  undo(): boolean {
+    const prev = this.past.pop();
+    if (!prev) return false;
+    this.future.push(this.state);
+    this.state = prev;
+    this.changed();
+    return true;
+  }
+
+  redo(): boolean {
+    const next = this.future.pop();
+    if (!next) return false;
+    this.past.push(this.state);
+    this.state = next;
+    this.changed();
+    return true;
+  }
+
+  /** Returns the function that stops listening. */
+  subscribe(listener: () => void): () => void {
+    this.listeners.add(listener);
+    return () => this.listeners.delete(listener);
+  }
+
+  toJSON(): string {
+    return JSON.stringify(this.state);
+  }
+
+  static fromJSON(text: string): Store {
+    return new Store(JSON.parse(text) as AppState);
+  }
+
+  private changed(): void {
+    this.version++;
+    for (const l of this.listeners) l();
+  }
+}

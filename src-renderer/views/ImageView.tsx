@@ -1,0 +1,172 @@
+// A view of one float image (the Scan view or the Pattern view): WebGL drawing through a colour
+// map, pan (drag with the middle button or with Shift) and zoom (wheel, about the pointer;
+// double-click fits), an SVG overlay in image coordinates for detectors and regions, and the
+// pointer reported in image pixel coordinates (pixel centres at whole numbers).
+import { useEffect, useMemo, useRef, useState, type ReactNode } from 'react';
+import type { ColormapName } from '../colormaps';
+import { percentileLimits, type Contrast } from './contrast';
+import { ImageLayer, type Placement } from './image-layer';
+import type { ViewSettings } from '../store';
+import { registerView } from '../test-hooks';
+
+export interface ImageData2D {
+  values: ArrayLike<number>;
+  width: number;
+  height: number;
+  /** What the image is, for the title bar. */
+  label: string;
+}
+
+export interface PointerInImage {
+  x: number;
+  y: number;
+  kind: 'move' | 'down' | 'up' | 'leave';
+  shift: boolean;
+}
+
+export interface ImageViewProps {
+  name: 'scan' | 'pattern';
+  title: string;
+  image: ImageData2D | null;
+  settings: ViewSettings;
+  /** Override of the colour map (e.g. categories for a cluster map). */
+  colormap?: ColormapName;
+  limits?: [number, number];
+  overlay?: (toScreen: (x: number, y: number) => [number, number], zoom: number) => ReactNode;
+  onPointer?: (p: PointerInImage) => void;
+  /** Physical size of one image pixel, for the scale bar (e.g. { size: 0.5, unit: 'nm' }); px when absent. */
+  pixelSize?: { size: number; unit: string };
+  footer?: ReactNode;
+}
+
+const SIZE = 440;
+
+export function ImageView(props: ImageViewProps) {
+  const canvasRef = useRef<HTMLCanvasElement>(null);
+  const layerRef = useRef<ImageLayer | null>(null);
+  const [place, setPlace] = useState<Placement>({ zoom: 1, cx: 0, cy: 0 });
+  const [fittedFor, setFittedFor] = useState('');
+  const dragRef = useRef<{ x: number; y: number; cx: number; cy: number } | null>(null);
+  const dpr = typeof window !== 'undefined' ? window.devicePixelRatio || 1 : 1;
+  const { image } = props;
+
+  const contrast: Contrast = useMemo(() => {
+    const [lo, hi] = props.limits ?? props.settings.limits ?? (image ? percentileLimits(image.values) : [0, 1]);
+    return { lo, hi, scaling: props.settings.scaling };
+  }, [image, props.limits, props.settings.limits, props.settings.scaling]);
+  const colormap = props.colormap ?? props.settings.colormap;
+
+  useEffect(() => {
+    const layer = new ImageLayer(canvasRef.current!);
+    layerRef.current = layer;
+    return () => { layer.destroy(); layerRef.current = null; };
+  }, []);
+
+  // Fit the image when its size changes.
+  useEffect(() => {
+    if (!image) return;
+    const key = `${image.width}x${image.height}`;
+    if (key === fittedFor) return;
+    setFittedFor(key);
+    setPlace(fit(image.width, image.height));
+  }, [image, fittedFor]);
+
+  useEffect(() => {
+    const layer = layerRef.current;
+    if (!layer) return;
+    if (image) layer.setImage(image.values, image.width, image.height);
+  }, [image]);
+
+  useEffect(() => {
+    const layer = layerRef.current;
+    if (!layer) return;
+    layer.render(contrast, colormap, { zoom: place.zoom * dpr, cx: place.cx, cy: place.cy });
+    registerView(props.name, { layer, contrast, colormap, place, image, cssSize: SIZE });
+  }, [image, contrast, colormap, place, dpr, props.name]);
+
+  const toImage = (clientX: number, clientY: number): [number, number] => {
+    const r = canvasRef.current!.getBoundingClientRect();
+    return [(clientX - r.left - SIZE / 2) / place.zoom + place.cx, (clientY - r.top - SIZE / 2) / place.zoom + place.cy];
+  };
+  const toScreen = (x: number, y: number): [number, number] => [(x - place.cx) * place.zoom + SIZE / 2, (y - place.cy) * place.zoom + SIZE / 2];
+
+  const report = (e: React.PointerEvent, kind: PointerInImage['kind']) => {
+    const [x, y] = toImage(e.clientX, e.clientY);
+    props.onPointer?.({ x, y, kind, shift: e.shiftKey });
+  };
+
+  return (
+    <section className="view" aria-label={props.title}>
+      <header className="view-title">
+        <span>{props.title}</span>
+        <span className="view-what">{image?.label ?? '—'}</span>
+      </header>
+      <div className="view-stage" style={{ width: SIZE, height: SIZE }}
+        onWheel={(e) => {
+          const [x, y] = toImage(e.clientX, e.clientY);
+          const zoom = Math.min(256, Math.max(0.05, place.zoom * Math.exp(-e.deltaY * 0.0015)));
+          // Keep the image point under the pointer where it is.
+          setPlace({ zoom, cx: x - (x - place.cx) * (place.zoom / zoom), cy: y - (y - place.cy) * (place.zoom / zoom) });
+        }}
+        onDoubleClick={() => image && setPlace(fit(image.width, image.height))}
+        onPointerDown={(e) => {
+          (e.target as Element).setPointerCapture?.(e.pointerId);
+          if (e.button === 1 || (e.button === 0 && e.shiftKey && !props.onPointer)) {
+            dragRef.current = { x: e.clientX, y: e.clientY, cx: place.cx, cy: place.cy };
+            return;
+          }
+          if (e.button === 0) report(e, 'down');
+        }}
+        onPointerMove={(e) => {
+          const d = dragRef.current;
+          if (d) {
+            setPlace({ zoom: place.zoom, cx: d.cx - (e.clientX - d.x) / place.zoom, cy: d.cy - (e.clientY - d.y) / place.zoom });
+            return;
+          }
+          report(e, 'move');
+        }}
+        onPointerUp={(e) => {
+          if (dragRef.current) { dragRef.current = null; return; }
+          report(e, 'up');
+        }}
+        onPointerLeave={(e) => report(e, 'leave')}
+      >
+        <canvas ref={canvasRef} width={SIZE * dpr} height={SIZE * dpr} style={{ width: SIZE, height: SIZE }} data-view={props.name} />
+        <svg className="view-overlay" width={SIZE} height={SIZE}>
+          {props.overlay?.(toScreen, place.zoom)}
+          <ScaleBar zoom={place.zoom} pixelSize={props.pixelSize} />
+        </svg>
+      </div>
+      <footer className="view-footer">
+        <span>limits {fmt(contrast.lo)} … {fmt(contrast.hi)} {props.settings.scaling.kind}</span>
+        {props.footer}
+      </footer>
+    </section>
+  );
+}
+
+function fit(w: number, h: number): Placement {
+  return { zoom: Math.min(SIZE / w, SIZE / h) * 0.96, cx: (w - 1) / 2, cy: (h - 1) / 2 };
+}
+
+/** A bar of a round length (1, 2 or 5 × 10ⁿ) about a fifth of the view wide. */
+function ScaleBar({ zoom, pixelSize }: { zoom: number; pixelSize?: { size: number; unit: string } }) {
+  const per = pixelSize?.size ?? 1;
+  const unit = pixelSize?.unit ?? 'px';
+  const target = (SIZE / 5 / zoom) * per;
+  const p = Math.pow(10, Math.floor(Math.log10(target)));
+  const len = [5, 2, 1].map((m) => m * p).find((v) => v <= target) ?? p;
+  const px = (len / per) * zoom;
+  return (
+    <g className="scale-bar" transform={`translate(${SIZE - px - 14}, ${SIZE - 16})`}>
+      <rect width={px} height={4} />
+      <text x={px / 2} y={-5} textAnchor="middle">{`${len} ${unit}`}</text>
+    </g>
+  );
+}
+
+export function fmt(v: number): string {
+  if (!Number.isFinite(v)) return String(v);
+  const a = Math.abs(v);
+  return a !== 0 && (a < 1e-3 || a >= 1e5) ? v.toExponential(2) : Number(v.toPrecision(4)).toString();
+}

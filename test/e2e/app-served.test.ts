@@ -1,0 +1,195 @@
+// The application in served mode, driven by Playwright through Debian's chromium (software
+// WebGL): the token guards the page and the socket; hovering shows the engine's own pattern at
+// that position; a detector's image in the Scan view is the engine's exact image of that
+// detector; PCA and k-means run from their panels; a running job is cancelled; a corrupt file
+// gives the engine's message and the app stays usable. The pixels drawn are checked against the
+// engine's numbers mapped through the same colour map and contrast (read back from WebGL).
+// Screenshots of each step are kept in test-artifacts/app/.
+import fs from 'node:fs';
+import os from 'node:os';
+import path from 'node:path';
+import { afterAll, beforeAll, describe, expect, it } from 'vitest';
+import WebSocket from 'ws';
+import { chromium, type Browser, type Page } from 'playwright-core';
+import { EngineService } from '../../src-main/engine/service';
+import { distFile } from '../../src-main/engine/paths';
+import { startServed, type Served } from '../../src-main/transport/served';
+import { writeSample } from '../../samples/write-sample';
+import { colormapLut, type ColormapName } from '../../src-renderer/colormaps';
+import { mapValue, type Contrast } from '../../src-renderer/views/contrast';
+
+const CHROMIUM = '/usr/bin/chromium';
+const ARTIFACTS = path.resolve(__dirname, '../../test-artifacts/app');
+
+let dir: string;
+let demo: string;
+let service: EngineService;
+let served: Served;
+let browser: Browser;
+let page: Page;
+
+beforeAll(async () => {
+  dir = fs.mkdtempSync(path.join(os.tmpdir(), 'scanfold-app-'));
+  demo = path.join(dir, 'demo.h5');
+  await writeSample({ size: 'demo', out: demo });
+  fs.mkdirSync(ARTIFACTS, { recursive: true });
+  service = new EngineService({ workers: 2 });
+  await service.open({ path: demo, datasetPath: '/scan/frames' });
+  served = await startServed({ service, rendererDir: distFile('renderer') });
+  browser = await chromium.launch({ executablePath: CHROMIUM, args: ['--use-angle=swiftshader', '--enable-unsafe-swiftshader', '--disable-gpu', '--no-sandbox'] });
+  page = await browser.newPage({ viewport: { width: 1000, height: 860 } });
+});
+
+afterAll(async () => {
+  await browser?.close();
+  await served?.close();
+  await service?.shutdown();
+  fs.rmSync(dir, { recursive: true, force: true });
+});
+
+interface ViewState {
+  contrast: Contrast;
+  colormap: ColormapName;
+  place: { zoom: number; cx: number; cy: number };
+  cssSize: number;
+  label: string | null;
+  width: number;
+  height: number;
+  values: number[];
+}
+
+const viewState = (name: 'scan' | 'pattern') => page.evaluate((n) => (window as unknown as { __scanfold: { view(n: string): unknown } }).__scanfold.view(n), name) as Promise<ViewState>;
+
+async function snap(name: string) {
+  await page.screenshot({ path: path.join(ARTIFACTS, `${name}.png`) });
+}
+
+/** The canvas's drawn pixels (RGBA, rows from the top), read back from its WebGL context. */
+async function canvasPixels(name: 'scan' | 'pattern'): Promise<{ width: number; height: number; rgba: number[] }> {
+  return page.evaluate((n) => {
+    const c = document.querySelector(`canvas[data-view=${n}]`) as HTMLCanvasElement;
+    const gl = c.getContext('webgl')!;
+    const px = new Uint8Array(c.width * c.height * 4);
+    gl.readPixels(0, 0, c.width, c.height, gl.RGBA, gl.UNSIGNED_BYTE, px);
+    // WebGL rows start at the bottom.
+    const out: number[] = new Array(px.length);
+    for (let y = 0; y < c.height; y++) for (let i = 0; i < c.width * 4; i++) out[(c.height - 1 - y) * c.width * 4 + i] = px[y * c.width * 4 + i];
+    return { width: c.width, height: c.height, rgba: out };
+  }, name);
+}
+
+/**
+ * Every image pixel's drawn colour (sampled at its centre on the canvas) is the colour-map entry
+ * of its value within ±2 entries (the shader computes in float32, this check in float64).
+ */
+function expectDrawn(view: ViewState, drawn: { width: number; height: number; rgba: number[] }, values: ArrayLike<number>) {
+  const lut = colormapLut(view.colormap);
+  const scale = drawn.width / view.cssSize;
+  let checked = 0;
+  const bad: string[] = [];
+  for (let y = 0; y < view.height; y++) {
+    for (let x = 0; x < view.width; x++) {
+      const sx = Math.floor(((x - view.place.cx) * view.place.zoom + view.cssSize / 2) * scale);
+      const sy = Math.floor(((y - view.place.cy) * view.place.zoom + view.cssSize / 2) * scale);
+      if (sx < 0 || sy < 0 || sx >= drawn.width || sy >= drawn.height) continue;
+      const t = mapValue(values[y * view.width + x], view.contrast);
+      const at = (sy * drawn.width + sx) * 4;
+      const got = drawn.rgba.slice(at, at + 3);
+      const idx = Math.round(t * 255);
+      let ok = false;
+      for (let k = Math.max(0, idx - 2); k <= Math.min(255, idx + 2); k++) {
+        if (Math.abs(lut[4 * k] - got[0]) <= 1 && Math.abs(lut[4 * k + 1] - got[1]) <= 1 && Math.abs(lut[4 * k + 2] - got[2]) <= 1) ok = true;
+      }
+      if (!ok && bad.length < 5) bad.push(`(${y}, ${x}) value ${values[y * view.width + x]} → entry ${idx}, drawn ${got}`);
+      checked++;
+    }
+  }
+  expect(bad).toEqual([]);
+  expect(checked).toBeGreaterThan(0.9 * view.width * view.height);
+}
+
+describe('served mode', () => {
+  it('refuses a page request or a socket without the token', async () => {
+    const base = `http://127.0.0.1:${served.port}`;
+    expect((await fetch(`${base}/`)).status).toBe(403);
+    expect((await fetch(`${base}/not-the-token/index.html`)).status).toBe(403);
+    expect((await fetch(served.url)).status).toBe(200);
+    const tryConnect = (url: string, origin?: string) => new Promise<string>((resolve) => {
+      const ws = new WebSocket(url, origin ? { origin } : {});
+      ws.on('open', () => { ws.close(); resolve('open'); });
+      ws.on('error', () => resolve('refused'));
+      ws.on('unexpected-response', () => resolve('refused'));
+    });
+    expect(await tryConnect(`ws://127.0.0.1:${served.port}/wrong/contract`)).toBe('refused');
+    expect(await tryConnect(`ws://127.0.0.1:${served.port}/${served.token}/contract`, 'http://example.org')).toBe('refused');
+    expect(await tryConnect(`ws://127.0.0.1:${served.port}/${served.token}/contract`)).toBe('open');
+  });
+
+  it('opens the demo: the first pass fills the Scan view with the bright-field image', async () => {
+    await page.goto(served.url);
+    await expect.poll(async () => (await viewState('scan'))?.label, { timeout: 60_000 }).toBe('bright field');
+    const first = await service.firstPass({ dataset: (await service.datasets())[0].id });
+    const view = await viewState('scan');
+    expect(view.values).toEqual(Array.from(first.defaultImages[0].image));
+    expectDrawn(view, await canvasPixels('scan'), first.defaultImages[0].image);
+    await snap('1-opened');
+  });
+
+  it('hovering the Scan view shows the engine’s pattern at that probe position', async () => {
+    const scan = (await page.locator('canvas[data-view=scan]').boundingBox())!;
+    const view = await viewState('scan');
+    const [y, x] = [21, 37];
+    await page.mouse.move(scan.x + (x - view.place.cx) * view.place.zoom + view.cssSize / 2, scan.y + (y - view.place.cy) * view.place.zoom + view.cssSize / 2);
+    await expect.poll(async () => (await viewState('pattern'))?.label, { timeout: 20_000 }).toBe(`pattern at (${y}, ${x})`);
+    const engine = await service.patternAt({ dataset: (await service.datasets())[0].id, y, x });
+    const pv = await viewState('pattern');
+    expect(pv.values).toEqual(Array.from(engine.pattern));
+    expectDrawn(pv, await canvasPixels('pattern'), engine.pattern);
+    await snap('2-hover');
+  });
+
+  it('an annulus entered in the Detectors panel gives the engine’s exact image of that detector', async () => {
+    await page.getByRole('button', { name: '+ annulus' }).click();
+    const set = async (field: string, value: string) => {
+      const input = page.getByLabel(`annulus 1 ${field}`);
+      await input.fill(value);
+    };
+    await set('cx', '47.5');
+    await set('cy', '47.5');
+    await set('rInner', '12');
+    await set('rOuter', '40');
+    await expect.poll(async () => (await viewState('scan'))?.label, { timeout: 30_000 }).toBe('annulus 1');
+    const spec = { shape: { kind: 'annulus' as const, cx: 47.5, cy: 47.5, rInner: 12, rOuter: 40 } };
+    const exact = await service.virtualImages({ dataset: (await service.datasets())[0].id, detectors: [spec] });
+    await expect.poll(async () => (await viewState('scan')).values, { timeout: 30_000 }).toEqual(Array.from(exact.images[0]));
+    const view = await viewState('scan');
+    expectDrawn(view, await canvasPixels('scan'), exact.images[0]);
+    await snap('3-annulus');
+  });
+
+  it('runs PCA and k-means from their panels', async () => {
+    await page.getByRole('button', { name: 'Run PCA (8)' }).click();
+    await expect.poll(async () => (await viewState('scan'))?.label, { timeout: 60_000 }).toBe('loading map 1');
+    expect((await viewState('pattern')).label).toMatch(/^component pattern 1/);
+    await snap('4-pca');
+    await page.getByRole('button', { name: 'Run k-means (4)' }).click();
+    await expect.poll(async () => (await viewState('scan'))?.label, { timeout: 60_000 }).toBe('cluster map (4 clusters)');
+    const labels = (await viewState('scan')).values;
+    expect(new Set(labels).size).toBe(4);
+    await snap('5-kmeans');
+  });
+
+  it('a corrupt file gives the engine’s message, and the app stays usable', async () => {
+    const bad = path.join(dir, 'corrupt.npy');
+    fs.writeFileSync(bad, Buffer.from('\x93NUMPY\x01\x00garbage that is not a header'));
+    await page.getByLabel('file to open').fill(bad);
+    await page.getByRole('button', { name: 'Open' }).click();
+    const alert = page.getByRole('alert');
+    await expect.poll(async () => (await alert.count()) > 0 ? alert.first().textContent() : '', { timeout: 20_000 }).toMatch(/corrupt\.npy/);
+    await snap('6-corrupt-file');
+    // Still usable: the hover still answers.
+    const scan = (await page.locator('canvas[data-view=scan]').boundingBox())!;
+    await page.mouse.move(scan.x + 100, scan.y + 100);
+    await expect.poll(async () => (await viewState('pattern'))?.label, { timeout: 20_000 }).toMatch(/^pattern at/);
+  });
+});
