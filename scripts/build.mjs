@@ -79,3 +79,26 @@ if (fs.existsSync(path.join(renderer, 'main.tsx'))) {
   });
   for (const f of ['index.html', 'styles.css']) fs.copyFileSync(path.join(renderer, f), path.join(out, f));
 }
+
+// 4. The desktop shell (src-main/electron): the main process and the engine's utility process
+//    (ESM), and the sandboxed preload (CommonJS, as Electron requires). Electron stays external.
+const shellEntries = [
+  ['electron-main.mjs', 'src-main/electron/main.ts', 'esm'],
+  ['engine-host.mjs', 'src-main/electron/engine-host.ts', 'esm'],
+  ['electron-preload.cjs', 'src-main/electron/preload.ts', 'cjs'],
+];
+for (const [outName, entry, format] of shellEntries) {
+  if (!fs.existsSync(path.join(root, entry))) continue;
+  await build({
+    entryPoints: [path.join(root, entry)],
+    outfile: path.join(dist, outName),
+    bundle: true,
+    platform: 'node',
+    format,
+    target: 'node20',
+    packages: 'external',
+    external: ['electron'],
+    sourcemap: true,
+    logLevel: 'warning',
+  });
+}

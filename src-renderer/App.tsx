@@ -6,7 +6,7 @@ import type { FirstPassResult, KmeansResult, PcaResult } from '../src-shared/con
 import type { JobInfo } from '../src-shared/contract/jobs';
 import type { DetectorShape } from '../src-shared/model/detectors';
 import { CATEGORY_COLOURS } from './colormaps';
-import type { Client } from './connection';
+import type { Client, Shell } from './connection';
 import type { AppState, DetectorItem, Store } from './store';
 import { fmt, ImageView, type ImageData2D, type PointerInImage } from './views/ImageView';
 
@@ -23,7 +23,7 @@ function useStore(store: Store): AppState {
 let jobCounter = 0;
 const newJobId = (what: string) => `${what}-${Date.now().toString(36)}-${++jobCounter}`;
 
-export function App({ client, store }: { client: Client; store: Store }) {
+export function App({ client, store, shell = null }: { client: Client; store: Store; shell?: Shell | null }) {
   const state = useStore(store);
   const ds = state.dataset;
   const [first, setFirst] = useState<FirstPassResult | null>(null);
@@ -65,12 +65,53 @@ export function App({ client, store }: { client: Client; store: Store }) {
     }, fail);
   }, [client, startDataset, fail]);
 
-  const openFile = async () => {
+  const openPathNow = useCallback(async (file: string) => {
     setError(null);
     try {
-      const opened = await client.open({ path: openPath.trim() });
+      const opened = await client.open({ path: file.trim() });
       await startDataset(opened.id, baseName(opened.descriptor.path), opened.descriptor.shape, opened.descriptor.dtype);
     } catch (e) { fail(e); }
+  }, [client, startDataset, fail]);
+  const openFile = () => openPathNow(openPath);
+  const openInputRef = useRef<HTMLInputElement>(null);
+
+  const exportImage = useCallback(() => {
+    const canvas = document.querySelector('canvas[data-view=scan]') as HTMLCanvasElement | null;
+    if (!canvas) return;
+    canvas.toBlob((blob) => {
+      if (!blob) return;
+      const a = document.createElement('a');
+      a.href = URL.createObjectURL(blob);
+      a.download = `${store.get().dataset?.name ?? 'scan'}-scan-view.png`;
+      a.click();
+      setTimeout(() => URL.revokeObjectURL(a.href), 10_000);
+    }, 'image/png');
+  }, [store]);
+
+  // Menu commands (desktop) and keyboard shortcuts (both ways of starting).
+  useEffect(() => shell?.onMenu((command, arg) => {
+    if (command === 'open' && arg) { setOpenPath(arg); void openPathNow(arg); }
+    else if (command === 'undo') store.undo();
+    else if (command === 'redo') store.redo();
+    else if (command === 'export-image') exportImage();
+  }), [shell, store, openPathNow, exportImage]);
+  useEffect(() => {
+    const onKey = (e: KeyboardEvent) => {
+      if (!(e.ctrlKey || e.metaKey) || shell) return; // the desktop menu's accelerators handle these there
+      const inField = (e.target as HTMLElement | null)?.tagName === 'INPUT';
+      if (e.key.toLowerCase() === 'z' && !inField) { e.preventDefault(); if (e.shiftKey) store.redo(); else store.undo(); }
+      else if (e.key.toLowerCase() === 'o') { e.preventDefault(); openInputRef.current?.focus(); }
+    };
+    window.addEventListener('keydown', onKey);
+    return () => window.removeEventListener('keydown', onKey);
+  }, [shell, store]);
+
+  const onDrop = (e: React.DragEvent) => {
+    e.preventDefault();
+    const file = e.dataTransfer.files[0];
+    if (!file) return;
+    if (shell) { const p = shell.pathOfFile(file); setOpenPath(p); void openPathNow(p); }
+    else setError(`${file.name}: a browser does not tell the page where a dropped file lives; type its path in the open field (dropping works in the desktop app)`);
   };
 
   // Hover: the pattern at the probe position under the pointer; one request in flight, the latest wins.
@@ -237,15 +278,16 @@ export function App({ client, store }: { client: Client; store: Store }) {
   const running = [...jobs.values()].filter((j) => j.state === 'running');
 
   return (
-    <div className="app">
+    <div className="app" onDragOver={(e) => e.preventDefault()} onDrop={onDrop}>
       <header className="app-header">
         <div className="app-name">Scanfold</div>
         <div className="dataset-line" data-testid="dataset">
           {ds ? <><strong>{ds.name}</strong> <span>scan {ds.scanY} × {ds.scanX}, patterns {ds.detY} × {ds.detX}, {ds.dtype}</span></> : <span>no dataset open</span>}
         </div>
         <form className="open-form" onSubmit={(e) => { e.preventDefault(); void openFile(); }}>
-          <input aria-label="file to open" placeholder="path of an HDF5, .npy or raw file" value={openPath} onChange={(e) => setOpenPath(e.target.value)} />
+ <input ref={openInputRef} aria-label="file to open" placeholder="path of an HDF5, .npy or raw file" value={openPath} onChange={(e) => setOpenPath(e.target.value)} />
           <button type="submit">Open</button>
+          <button type="button" onClick={exportImage} disabled={!ds} title="the Scan view as a PNG">Export image</button>
         </form>
       </header>
       {error && <div className="error" role="alert">{error} <button onClick={() => setError(null)}>dismiss</button></div>}

@@ -33,3 +33,33 @@ export function connectServed(loc: Location = window.location): Promise<Client> 
     ws.addEventListener('error', () => reject(new Error('could not connect to the Scanfold engine')));
   });
 }
+
+/** What the desktop app's preload offers the page (see src-main/electron/preload.ts). */
+export interface Shell {
+  kind: 'electron';
+  pathOfFile(file: File): string;
+  onMenu(listener: (command: string, arg?: string) => void): () => void;
+}
+
+export function desktopShell(): Shell | null {
+  return (window as unknown as { scanfoldShell?: Shell }).scanfoldShell ?? null;
+}
+
+/** In the desktop app: the contract over the MessagePort the main process hands the page (structured clones). */
+export function connectDesktop(): Promise<Client> {
+  return new Promise((resolve) => {
+    const onMessage = (e: MessageEvent) => {
+      if (e.data !== 'scanfold:engine-port' || !e.ports[0]) return;
+      window.removeEventListener('message', onMessage);
+      const mp = e.ports[0];
+      const listeners = new Set<(m: unknown) => void>();
+      mp.onmessage = (m) => { for (const l of listeners) l(m.data); };
+      const port: Port = {
+        send: (message) => mp.postMessage(message),
+        onMessage: (l) => { listeners.add(l); return () => listeners.delete(l); },
+      };
+      resolve(connectService(port));
+    };
+    window.addEventListener('message', onMessage);
+  });
+}

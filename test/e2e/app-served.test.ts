@@ -193,3 +193,40 @@ describe('served mode', () => {
     await expect.poll(async () => (await viewState('pattern'))?.label, { timeout: 20_000 }).toMatch(/^pattern at/);
   });
 });
+
+describe('served mode, a long job', () => {
+  it('a running job can be cancelled from the Activity list, and the app goes on', async () => {
+    // 512 MiB of zeros (a sparse .npy) through the plain TypeScript kernels on one worker: a first
+    // pass of several seconds, long enough to be caught running.
+    const big = path.join(dir, 'zeros.npy');
+    const header = "{'descr': '<u2', 'fortran_order': False, 'shape': (128, 128, 128, 128), }";
+    const padded = header.padEnd(128 - 10 - 1, ' ') + '\n';
+    const fd = fs.openSync(big, 'w');
+    fs.writeSync(fd, Buffer.concat([Buffer.from('\x93NUMPY\x01\x00', 'latin1'), Buffer.from([padded.length & 0xff, padded.length >> 8]), Buffer.from(padded, 'latin1')]));
+    fs.ftruncateSync(fd, 128 + 2 * 128 ** 4);
+    fs.closeSync(fd);
+    const slow = new EngineService({ workers: 1, kernel: 'reference' });
+    const slowServed = await startServed({ service: slow, rendererDir: distFile('renderer') });
+    const p = await browser.newPage({ viewport: { width: 1000, height: 860 } });
+    try {
+      await p.goto(slowServed.url);
+      await p.getByLabel('file to open').fill(big);
+      await p.getByRole('button', { name: 'Open' }).click();
+      const running = p.locator('.job.running');
+      await expect.poll(() => running.count(), { timeout: 30_000 }).toBe(1);
+      await p.screenshot({ path: path.join(ARTIFACTS, '7-running.png') });
+      await running.getByRole('button', { name: 'cancel' }).click();
+      await expect.poll(() => p.locator('.job.cancelled').count(), { timeout: 30_000 }).toBe(1);
+      await p.screenshot({ path: path.join(ARTIFACTS, '8-cancelled.png') });
+      expect(await p.getByRole('alert').count()).toBe(0);
+      // The engine goes on: the same dataset's first pass runs again to the end on request.
+      const id = (await slow.datasets())[0].id;
+      const again = await slow.virtualImages({ dataset: id, detectors: [{ shape: { kind: 'disk', cx: 10, cy: 10, r: 3 } }], badPixels: 'none' });
+      expect(again.images[0].every((v) => v === 0)).toBe(true); // all zeros in, all zeros out
+    } finally {
+      await p.close();
+      await slowServed.close();
+      await slow.shutdown();
+    }
+  });
+});
