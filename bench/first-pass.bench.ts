@@ -14,6 +14,7 @@ import { allocTyped } from '../src-shared/model/dtype';
 import { runAnalysesBenchmark } from './analyses.bench';
 import { runCommandsBenchmark } from './commands.bench';
 import { runPcaBenchmark } from './pca.bench';
+import { runAppBenchmark } from './app.bench';
 
 const PY = '/usr/bin/python3';
 
@@ -114,6 +115,10 @@ export async function runBenchmark(opts: { dir: string; workers: number; parts: 
   if (opts.parts.has('analyses')) await runAnalysesBenchmark({ raw, shape, workers: opts.workers, readRate });
   if (opts.parts.has('commands')) runCommandsBenchmark({ raw, shape, workers: opts.workers });
   if (opts.parts.has('pca')) runPcaBenchmark({ h5, shape, workers: opts.workers });
+  if (opts.parts.has('app')) {
+    const read = [plainRead(h5), plainRead(h5), plainRead(h5)].sort((a, b) => a.seconds - b.seconds)[1];
+    await runAppBenchmark({ h5, workers: opts.workers, plainReadSeconds: read.seconds });
+  }
 }
 
 async function firstPassBenchmark(opts: { h5: string; raw: string; shape: number[]; workers: number; read: { seconds: number; bytes: number } }): Promise<void> {

@@ -1,7 +1,7 @@
 // The window: a header (dataset, open), the Scan view and the Pattern view side by side, and a
 // strip of panels (Detectors, Components, Clusters, Activity). Every number comes from the
 // engine through the contract; this file only asks and shows.
-import { useCallback, useEffect, useRef, useState, useSyncExternalStore } from 'react';
+import { useCallback, useEffect, useMemo, useRef, useState, useSyncExternalStore } from 'react';
 import type { FirstPassResult, KmeansResult, PcaResult } from '../src-shared/contract/service';
 import type { JobInfo } from '../src-shared/contract/jobs';
 import type { DetectorShape } from '../src-shared/model/detectors';
@@ -9,6 +9,7 @@ import { CATEGORY_COLOURS } from './colormaps';
 import type { Client, Shell } from './connection';
 import type { AppState, DetectorItem, Store } from './store';
 import { fmt, ImageView, type ImageData2D, type PointerInImage } from './views/ImageView';
+import { startTiming } from './test-hooks';
 
 type Job = JobInfo & { jobId: string };
 /** What the Scan view shows. */
@@ -44,13 +45,25 @@ export function App({ client, store, shell = null }: { client: Client; store: St
     setError(err?.message ?? String(e));
   }, []);
 
+  // The first pass's bright-field image as it streams in, row by row.
+  const [filling, setFilling] = useState<{ dataset: string; label: string; values: Float64Array; rows: number; scanY: number; scanX: number } | null>(null);
+  const datasetRef = useRef<string | null>(null);
+  datasetRef.current = ds?.id ?? null;
   useEffect(() => client.onEvent((e) => {
     if (e.kind === 'job') setJobs((m) => new Map(m).set(e.job.jobId, e.job));
+    else if (e.kind === 'image-rows' && e.dataset === datasetRef.current) {
+      setFilling((f) => {
+        const same = f && f.dataset === e.dataset && f.label === e.label && f.values.length === e.scanY * e.scanX;
+        const values = same ? f.values : new Float64Array(e.scanY * e.scanX).fill(NaN);
+        values.set(e.values, e.row0 * e.scanX);
+        return { dataset: e.dataset, label: e.label, values, rows: (same ? f.rows : 0) + e.nRows, scanY: e.scanY, scanX: e.scanX };
+      });
+    }
   }), [client]);
 
   const startDataset = useCallback(async (id: string, name: string, shape: { scanY: number; scanX: number; detY: number; detX: number }, dtype: string) => {
     store.update((s) => ({ ...s, dataset: { id, name, ...shape, dtype }, detectors: [], activeDetector: null }), { undoable: true });
-    setFirst(null); setPca(null); setKmeans(null); setDetectorImages(new Map());
+    setFirst(null); setPca(null); setKmeans(null); setDetectorImages(new Map()); setFilling(null);
     setScanShows({ kind: 'default', index: 0 }); setPatternShows({ kind: 'mean' });
     try {
       setFirst(await client.firstPass({ dataset: id, jobId: newJobId('first-pass') }));
@@ -128,7 +141,7 @@ export function App({ client, store, shell = null }: { client: Client; store: St
         h.busy = true;
         try {
           const r = await client.patternAt({ dataset: ds.id, y: p.y, x: p.x });
-          setPattern({ values: r.pattern, width: r.detX, height: r.detY, label: `pattern at (${p.y}, ${p.x})` });
+          setPattern({ values: r.pattern, width: r.detX, height: r.detY, label: `pattern at (${p.y}, ${p.x})`, token: `hover ${p.y},${p.x}` });
         } catch (e) { fail(e); }
         h.busy = false;
       }
@@ -141,26 +154,29 @@ export function App({ client, store, shell = null }: { client: Client; store: St
     const y = Math.round(p.y);
     const x = Math.round(p.x);
     if (y < 0 || x < 0 || y >= ds.scanY || x >= ds.scanX) return;
+    startTiming(`hover ${y},${x}`, p.timeStamp);
     setHover({ y, x });
     setPatternShows({ kind: 'position' });
     askPattern({ y, x });
   };
 
   // Detectors: a drag answers from the preview cube at once; the release asks for the exact image.
-  const previewRef = useRef<{ busy: boolean; next: DetectorItem | null }>({ busy: false, next: null });
-  const previewDetector = useCallback((d: DetectorItem) => {
+  const previewRef = useRef<{ busy: boolean; next: DetectorItem | null; token: string | undefined }>({ busy: false, next: null, token: undefined });
+  const previewDetector = useCallback((d: DetectorItem, token?: string) => {
     if (!ds) return;
     const q = previewRef.current;
     q.next = d;
+    q.token = token;
     if (q.busy) return;
     const run = async () => {
       while (q.next) {
         const det = q.next;
+        const token = q.token;
         q.next = null;
         q.busy = true;
         try {
           const r = await client.previewImages({ dataset: ds.id, detectors: [{ shape: det.shape, weighted: true }] });
-          setDetectorImages((m) => new Map(m).set(det.id, { values: r.images[0], width: r.qX, height: r.qY, label: `${det.name} (preview, scan binned ${r.scanBin}×)` }));
+          setDetectorImages((m) => new Map(m).set(det.id, { values: r.images[0], width: r.qX, height: r.qY, label: `${det.name} (preview, scan binned ${r.scanBin}×)`, token }));
         } catch (e) { fail(e); }
         q.busy = false;
       }
@@ -201,6 +217,7 @@ export function App({ client, store, shell = null }: { client: Client; store: St
 
   // Dragging a detector handle on the Pattern view.
   const dragRef = useRef<{ id: string; part: 'centre' | 'inner' | 'outer'; dx: number; dy: number } | null>(null);
+  const dragSeq = useRef(0);
   const onPatternPointer = (p: PointerInImage) => {
     const active = state.detectors.find((d) => d.id === state.activeDetector);
     if (p.kind === 'down' && active) {
@@ -220,7 +237,9 @@ export function App({ client, store, shell = null }: { client: Client; store: St
     const shape = moveHandle(det.shape, drag, p.x, p.y);
     setShape(det.id, shape, false);
     const moved = { ...det, shape };
-    previewDetector(moved);
+    const token = `drag ${++dragSeq.current}`;
+    startTiming(token, p.timeStamp);
+    previewDetector(moved, token);
     if (p.kind === 'up' || p.kind === 'leave') {
       dragRef.current = null;
       void exactDetector(moved);
@@ -246,33 +265,41 @@ export function App({ client, store, shell = null }: { client: Client; store: St
     } catch (e) { fail(e); }
   };
 
-  // What each view shows.
-  let scanImage: ImageData2D | null = null;
-  let scanColormap: 'categories' | undefined;
-  let scanLimits: [number, number] | undefined;
-  if (ds && scanShows.kind === 'detector') scanImage = detectorImages.get(scanShows.id) ?? null;
-  else if (ds && scanShows.kind === 'default' && first) {
-    const d = first.defaultImages[scanShows.index];
-    scanImage = d ? { values: d.image, width: ds.scanX, height: ds.scanY, label: d.label } : { values: first.totalIntensity, width: ds.scanX, height: ds.scanY, label: 'total intensity' };
-  } else if (ds && scanShows.kind === 'loading' && pca) {
-    const n = ds.scanY * ds.scanX;
-    scanImage = { values: pca.loadings.subarray(scanShows.k * n, (scanShows.k + 1) * n), width: ds.scanX, height: ds.scanY, label: `loading map ${scanShows.k + 1}` };
-  } else if (ds && scanShows.kind === 'clusters' && kmeans) {
-    scanImage = { values: kmeans.labels, width: ds.scanX, height: ds.scanY, label: `cluster map (${kmeans.k} clusters)` };
-    scanColormap = 'categories';
-    scanLimits = [-0.5, 9.5];
-  }
-  let patternImage: ImageData2D | null = null;
-  if (ds && patternShows.kind === 'position') patternImage = pattern;
-  else if (ds && patternShows.kind === 'mean' && first) patternImage = { values: first.meanPattern, width: ds.detX, height: ds.detY, label: 'mean pattern' };
-  else if (ds && patternShows.kind === 'component' && pca) {
-    const f = pca.features;
-    const n = f.outY * f.outX;
-    patternImage = { values: pca.components.subarray(patternShows.k * n, (patternShows.k + 1) * n), width: f.outX, height: f.outY, label: `component pattern ${patternShows.k + 1} (binned ${f.bin}×)` };
-  } else if (ds && patternShows.kind === 'cluster' && kmeans) {
-    const n = ds.detY * ds.detX;
-    patternImage = { values: kmeans.clusterPatterns.subarray(patternShows.k * n, (patternShows.k + 1) * n), width: ds.detX, height: ds.detY, label: `cluster pattern ${patternShows.k + 1}` };
-  }
+  // What each view shows; memoised, so an unchanged image is neither uploaded nor rescaled again.
+  const scanView = useMemo((): { image: ImageData2D | null; colormap?: 'categories'; limits?: [number, number] } => {
+    if (!ds) return { image: null };
+    if (scanShows.kind === 'detector') return { image: detectorImages.get(scanShows.id) ?? null };
+    if (scanShows.kind === 'default' && !first && filling && filling.dataset === ds.id) {
+      return { image: { values: filling.values, width: filling.scanX, height: filling.scanY, label: `${filling.label} (first pass: ${filling.rows} of ${filling.scanY} rows)` } };
+    }
+    if (scanShows.kind === 'default' && first) {
+      const d = first.defaultImages[scanShows.index];
+      return { image: d ? { values: d.image, width: ds.scanX, height: ds.scanY, label: d.label } : { values: first.totalIntensity, width: ds.scanX, height: ds.scanY, label: 'total intensity' } };
+    }
+    if (scanShows.kind === 'loading' && pca) {
+      const n = ds.scanY * ds.scanX;
+      return { image: { values: pca.loadings.subarray(scanShows.k * n, (scanShows.k + 1) * n), width: ds.scanX, height: ds.scanY, label: `loading map ${scanShows.k + 1}` } };
+    }
+    if (scanShows.kind === 'clusters' && kmeans) {
+      return { image: { values: kmeans.labels, width: ds.scanX, height: ds.scanY, label: `cluster map (${kmeans.k} clusters)` }, colormap: 'categories', limits: [-0.5, 9.5] };
+    }
+    return { image: null };
+  }, [ds, scanShows, detectorImages, first, pca, kmeans, filling]);
+  const patternImage = useMemo((): ImageData2D | null => {
+    if (!ds) return null;
+    if (patternShows.kind === 'position') return pattern;
+    if (patternShows.kind === 'mean' && first) return { values: first.meanPattern, width: ds.detX, height: ds.detY, label: 'mean pattern' };
+    if (patternShows.kind === 'component' && pca) {
+      const f = pca.features;
+      const n = f.outY * f.outX;
+      return { values: pca.components.subarray(patternShows.k * n, (patternShows.k + 1) * n), width: f.outX, height: f.outY, label: `component pattern ${patternShows.k + 1} (binned ${f.bin}×)` };
+    }
+    if (patternShows.kind === 'cluster' && kmeans) {
+      const n = ds.detY * ds.detX;
+      return { values: kmeans.clusterPatterns.subarray(patternShows.k * n, (patternShows.k + 1) * n), width: ds.detX, height: ds.detY, label: `cluster pattern ${patternShows.k + 1}` };
+    }
+    return null;
+  }, [ds, patternShows, pattern, first, pca, kmeans]);
   const patternIsDetectorSpace = patternImage !== null && (patternShows.kind === 'position' || patternShows.kind === 'mean' || patternShows.kind === 'cluster');
 
   const running = [...jobs.values()].filter((j) => j.state === 'running');
@@ -292,7 +319,7 @@ export function App({ client, store, shell = null }: { client: Client; store: St
       </header>
       {error && <div className="error" role="alert">{error} <button onClick={() => setError(null)}>dismiss</button></div>}
       <main className="views">
-        <ImageView name="scan" title="Scan view" image={scanImage} settings={state.scanView} colormap={scanColormap} limits={scanLimits}
+        <ImageView name="scan" title="Scan view" image={scanView.image} settings={state.scanView} colormap={scanView.colormap} limits={scanView.limits}
           onPointer={onScanPointer}
           overlay={(toScreen, zoom) => hover && <rect className="hover-mark" x={toScreen(hover.x - 0.5, hover.y - 0.5)[0]} y={toScreen(hover.x - 0.5, hover.y - 0.5)[1]} width={Math.max(zoom, 3)} height={Math.max(zoom, 3)} />}
           footer={hover && <span>probe ({hover.y}, {hover.x})</span>} />

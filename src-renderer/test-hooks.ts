@@ -15,6 +15,21 @@ interface ViewRecord {
 
 const views = new Map<string, ViewRecord>();
 
+/** Pointer-to-drawn latencies: started at a pointer event, ended when the image it asked for is drawn. */
+const started = new Map<string, number>();
+const latencies: { token: string; ms: number }[] = [];
+
+export function startTiming(token: string, at = performance.now()): void {
+  if (!started.has(token)) started.set(token, at);
+}
+
+export function endTiming(token: string): void {
+  const t0 = started.get(token);
+  if (t0 === undefined) return;
+  started.delete(token);
+  latencies.push({ token, ms: performance.now() - t0 });
+}
+
 export function registerView(name: string, record: ViewRecord): void {
   views.set(name, record);
 }
@@ -25,6 +40,7 @@ declare global {
 
 if (typeof window !== 'undefined') {
   window.__scanfold = {
+    latencies: () => latencies.splice(0),
     view(name: string) {
       const v = views.get(name);
       if (!v) return null;

@@ -4,6 +4,7 @@
 import { EngineService } from '../engine/service';
 import type { EngineOptions } from '../engine/engine';
 import { distFile } from '../engine/paths';
+import { APP_PREVIEW_BUDGET_BYTES } from '../engine/budget';
 import { startServed } from '../transport/served';
 import { InputError } from '../../src-shared/model/errors';
 import { parseFlags, rejectExtraPositionals, SOURCE_OPTIONS, sourceSpecFromFlags, wholeNumber } from './source-flags';
@@ -11,8 +12,6 @@ import { parseFlags, rejectExtraPositionals, SOURCE_OPTIONS, sourceSpecFromFlags
 type EngineOptionsOf = (v: Record<string, unknown>) => EngineOptions;
 type EngineFlags = Record<string, { type: 'string' | 'boolean' }>;
 
-/** The app's preview cube: detector drags are answered from it, so it is larger than a command's. */
-const APP_PREVIEW_BUDGET_BYTES = 512 * 2 ** 20;
 
 export async function cmdServe(args: string[], engineOptions: EngineOptionsOf, engineFlags: EngineFlags): Promise<void> {
   const parsed = parseFlags(args, { ...SOURCE_OPTIONS, ...engineFlags, port: { type: 'string' } });
@@ -24,7 +23,11 @@ export async function cmdServe(args: string[], engineOptions: EngineOptionsOf, e
   if (typeof v['preview-budget'] !== 'string') options.previewBudgetBytes = APP_PREVIEW_BUDGET_BYTES;
   const service = new EngineService(options);
   try {
-    if (parsed.positionals[0] !== undefined) await service.open(sourceSpecFromFlags(parsed.positionals[0], v));
+    if (parsed.positionals[0] !== undefined) {
+      const opened = await service.open(sourceSpecFromFlags(parsed.positionals[0], v));
+      // The page will want the first pass: start it now, while the browser loads the page.
+      service.firstPass({ dataset: opened.id }).catch((e: Error) => process.stderr.write(`scanfold: first pass: ${e.message}\n`));
+    }
     const served = await startServed({ service, rendererDir: distFile('renderer'), port });
     process.stdout.write(`Scanfold is served at ${served.url}\n(open it in a browser on this machine, or through an SSH tunnel to port ${served.port}; Ctrl-C stops)\n`);
     await new Promise<void>((resolve) => {

@@ -3,6 +3,7 @@
 // MessagePort; the contract is served over it, and every request is validated by the service.
 import { serveService, type Port } from '../../src-shared/contract/channel';
 import { EngineService } from '../engine/service';
+import { APP_PREVIEW_BUDGET_BYTES } from '../engine/budget';
 
 interface PortMain {
   on(event: 'message', l: (e: { data: unknown }) => void): void;
@@ -13,7 +14,7 @@ interface PortMain {
 const parentPort = (process as unknown as { parentPort?: { on(event: 'message', l: (e: { data: unknown; ports: PortMain[] }) => void): void } }).parentPort;
 if (!parentPort) throw new Error('engine-host: run as an Electron utility process');
 
-const service = new EngineService({ previewBudgetBytes: 512 * 2 ** 20 });
+const service = new EngineService({ previewBudgetBytes: APP_PREVIEW_BUDGET_BYTES });
 parentPort.on('message', (e) => {
   if (e.data !== 'scanfold:connect' || !e.ports[0]) return;
   const p = e.ports[0];

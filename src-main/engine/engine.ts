@@ -1,7 +1,7 @@
 import type { DatasetDescriptor, SourceSpec } from '../../src-shared/model/dataset';
 import type { JobInfo } from '../../src-shared/contract/jobs';
 import { memoryPerWorker, resolveEngineLimits, type EngineLimits } from './budget';
-import { PreviewPool, startFirstPass, type FirstPassSummary } from './first-pass';
+import { PreviewPool, startFirstPass, type FirstPassSummary, type ImageRowsListener } from './first-pass';
 import { startClusterPatterns, startComSums, startRegionPattern, startVirtualImages, type ClusterPatternsResult, type ComSumsResult, type RegionPatternResult, type VirtualImagesResult } from './analyses';
 import type { CompiledDetector } from '../../src-shared/model/detectors';
 import type { ComOptions } from '../../src-shared/compute/tile-kernels-types';
@@ -59,8 +59,8 @@ export class Engine {
   }
 
   /** The first streaming pass: mean/max pattern, total intensity, preview cube. */
-  firstPass(spec: SourceSpec, com?: FirstPassComPlan): Job<FirstPassSummary> {
-    return this.track(startFirstPass(this.pool, spec, this.limits, this.kernel, this.previews, com));
+  firstPass(spec: SourceSpec, com?: FirstPassComPlan, onImageRows?: ImageRowsListener): Job<FirstPassSummary> {
+    return this.track(startFirstPass(this.pool, spec, this.limits, this.kernel, this.previews, com, onImageRows));
   }
 
   /** Give back a first-pass result that is no longer shown; its preview cube's memory is reused. */

@@ -85,7 +85,11 @@ export class PreviewPool {
   clear(): void { this.spare = null; }
 }
 
-export function startFirstPass(pool: WorkerPool, spec: SourceSpec, limits: EngineLimits, kernel: KernelKind, previews = new PreviewPool(), com?: FirstPassComPlan): Job<FirstPassSummary> {
+/** Rows of the default images as tiles finish (views: copy what you keep). */
+export type ImageRowsListener = (row0: number, nRows: number, rows: Float64Array[]) => void;
+
+export function startFirstPass(pool: WorkerPool, spec: SourceSpec, limits: EngineLimits, kernel: KernelKind, previews = new PreviewPool(), com?: FirstPassComPlan,
+  onImageRows?: ImageRowsListener): Job<FirstPassSummary> {
   interface State {
     com: FirstPassComSums | null;
     geometry: FirstPassGeometry;
@@ -139,7 +143,10 @@ export function startFirstPass(pool: WorkerPool, spec: SourceSpec, limits: Engin
         s.com.watchValues.set(r.com.watchValues, at * s.com.watch.length);
         s.com.nonFinite += r.com.nonFinite;
         const m = tile.nRows * s.geometry.scanX;
-        if (r.com.images) s.com.images.forEach((img, k) => img.set(r.com!.images!.subarray(k * m, (k + 1) * m), at));
+        if (r.com.images) {
+          s.com.images.forEach((img, k) => img.set(r.com!.images!.subarray(k * m, (k + 1) * m), at));
+          onImageRows?.(tile.row0, tile.nRows, s.com.images.map((img) => img.subarray(at, at + m)));
+        }
       }
     },
     finish: (s, { descriptor: d, plan, totals, seconds }) => {

@@ -44,6 +44,8 @@ interface DatasetRecord {
   opened: OpenedDataset;
   /** The last first pass's results (from a pass, with its preview cube, or from the cache, without). */
   first: FirstResults | null;
+  /** The first pass running now, if one is. */
+  firstPending?: Promise<FirstResults> | null;
 }
 
 type ServiceJobInfo = JobInfo & { jobId: string };
@@ -245,8 +247,28 @@ export class EngineService implements ScanfoldService {
         return r.first;
       }
     }
+    // One pass per dataset at a time: a request arriving while one runs (the app asks as soon as
+    // its page loads, the engine may have started at open) waits for it.
+    if (r.firstPending) return r.firstPending;
+    const pending = this.runFirstPass(r, key, jobId, label);
+    r.firstPending = pending;
+    try {
+      return await pending;
+    } finally {
+      if (r.firstPending === pending) r.firstPending = null;
+    }
+  }
+
+  private async runFirstPass(r: DatasetRecord, key: string | null, jobId: string | undefined, label: string): Promise<FirstResults> {
     const comPlan = await this.comPlanForPass(r);
-    const summary = await this.track(this.engine.firstPass(specOf(r), comPlan ? { mask: comPlan.mask, watch: comPlan.watch, images: comPlan.images } : undefined), jobId, label);
+    // The first default image (bright field) goes out row by row as tiles finish, so a view can fill in.
+    const { scanY: sy, scanX: sx } = r.opened.descriptor.shape;
+    const rows = comPlan?.imageSpecs.length
+      ? (row0: number, nRows: number, images: Float64Array[]) => this.emit({
+        kind: 'image-rows', dataset: r.id, label: comPlan.imageSpecs[0].label ?? 'bright field', row0, nRows, scanY: sy, scanX: sx, values: images[0].slice(),
+      })
+      : undefined;
+    const summary = await this.track(this.engine.firstPass(specOf(r), comPlan ? { mask: comPlan.mask, watch: comPlan.watch, images: comPlan.images } : undefined, rows), jobId, label);
     const { detY, detX, scanY, scanX } = summary.descriptor.shape;
     const found = aboutFile(summary.descriptor.path, () => findBadPixels(summary.meanPattern, summary.maxPattern, detY, detX, { patternCount: scanY * scanX }));
     const badPixels: BadPixels = { mask: found.mask, hot: found.hot.map(([y, x]) => [y, x]), dead: found.dead.map(([y, x]) => [y, x]) };

@@ -7,7 +7,7 @@ import type { ColormapName } from '../colormaps';
 import { percentileLimits, type Contrast } from './contrast';
 import { ImageLayer, type Placement } from './image-layer';
 import type { ViewSettings } from '../store';
-import { registerView } from '../test-hooks';
+import { endTiming, registerView } from '../test-hooks';
 
 export interface ImageData2D {
   values: ArrayLike<number>;
@@ -15,6 +15,8 @@ export interface ImageData2D {
   height: number;
   /** What the image is, for the title bar. */
   label: string;
+  /** Names the pointer event that asked for it (latency measurement, test-hooks.ts). */
+  token?: string;
 }
 
 export interface PointerInImage {
@@ -22,6 +24,8 @@ export interface PointerInImage {
   y: number;
   kind: 'move' | 'down' | 'up' | 'leave';
   shift: boolean;
+  /** When the pointer event happened (performance.now() clock). */
+  timeStamp: number;
 }
 
 export interface ImageViewProps {
@@ -82,6 +86,7 @@ export function ImageView(props: ImageViewProps) {
     if (!layer) return;
     layer.render(contrast, colormap, { zoom: place.zoom * dpr, cx: place.cx, cy: place.cy });
     registerView(props.name, { layer, contrast, colormap, place, image, cssSize: SIZE });
+    if (image?.token) endTiming(image.token);
   }, [image, contrast, colormap, place, dpr, props.name]);
 
   const toImage = (clientX: number, clientY: number): [number, number] => {
@@ -92,7 +97,7 @@ export function ImageView(props: ImageViewProps) {
 
   const report = (e: React.PointerEvent, kind: PointerInImage['kind']) => {
     const [x, y] = toImage(e.clientX, e.clientY);
-    props.onPointer?.({ x, y, kind, shift: e.shiftKey });
+    props.onPointer?.({ x, y, kind, shift: e.shiftKey, timeStamp: e.timeStamp });
   };
 
   return (

@@ -10,18 +10,48 @@ export interface Contrast {
   scaling: Scaling;
 }
 
-/** The p-th and (100 − p)-th percentiles of the finite values (nearest rank), or [0, 1] when there are none. */
+/**
+ * The p-th and (100 − p)-th percentiles of the finite values (nearest rank), or [0, 1] when there
+ * are none. Found by selection, not by sorting: the limits follow a dragged detector's image.
+ */
 export function percentileLimits(values: ArrayLike<number>, p = 0.5): [number, number] {
-  const finite: number[] = [];
-  for (let i = 0; i < values.length; i++) if (Number.isFinite(values[i])) finite.push(values[i]);
-  if (!finite.length) return [0, 1];
-  const sorted = Float64Array.from(finite).sort();
-  const at = (q: number) => sorted[Math.min(sorted.length - 1, Math.max(0, Math.round((q / 100) * (sorted.length - 1))))];
-  let lo = at(p);
-  let hi = at(100 - p);
-  if (!(hi > lo)) { lo = sorted[0]; hi = sorted[sorted.length - 1]; }
+  const finite = new Float64Array(values.length);
+  let n = 0;
+  for (let i = 0; i < values.length; i++) if (Number.isFinite(values[i])) finite[n++] = values[i];
+  if (!n) return [0, 1];
+  const a = finite.subarray(0, n);
+  const rank = (q: number) => Math.min(n - 1, Math.max(0, Math.round((q / 100) * (n - 1))));
+  let lo = select(a, rank(p));
+  let hi = select(a, rank(100 - p));
+  if (!(hi > lo)) {
+    let min = Infinity, max = -Infinity;
+    for (let i = 0; i < n; i++) { if (a[i] < min) min = a[i]; if (a[i] > max) max = a[i]; }
+    lo = min; hi = max;
+  }
   if (!(hi > lo)) hi = lo + 1;
   return [lo, hi];
+}
+
+/** The k-th smallest value of `a` (0-based), reordering `a` (Hoare's selection, median-of-three pivots). */
+export function select(a: Float64Array, k: number): number {
+  let left = 0;
+  let right = a.length - 1;
+  while (right > left) {
+    const mid = (left + right) >>> 1;
+    // Median of three as the pivot keeps sorted or constant runs from going quadratic.
+    const x = a[left], y = a[mid], z = a[right];
+    const pivot = x < y ? (y < z ? y : x < z ? z : x) : (x < z ? x : y < z ? z : y);
+    let i = left, j = right;
+    while (i <= j) {
+      while (a[i] < pivot) i++;
+      while (a[j] > pivot) j--;
+      if (i <= j) { const t = a[i]; a[i] = a[j]; a[j] = t; i++; j--; }
+    }
+    if (k <= j) right = j;
+    else if (k >= i) left = i;
+    else return a[k];
+  }
+  return a[k];
 }
 
 /** Position on the colour map, 0…1 (clamped), of a value; NaN for a non-finite value. */

@@ -70,6 +70,10 @@ export class ImageLayer {
       primitive: 'triangle strip',
       count: 4,
     });
+    // Compile the shaders now, while the page waits for its first image (software WebGL takes
+    // a noticeable time over it), by drawing the 1 × 1 placeholder once.
+    this.draw({ rect: [-1, -1, -1, -1], lo: 0, hi: 1, mode: 0, gamma: 1 });
+    this.regl.clear({ color: [0.09, 0.1, 0.12, 1] });
   }
 
   /** Upload row-major values (row 0 at the top). */

@@ -380,7 +380,9 @@ export interface FitResult {
 export type ServiceEvent =
   /** A job started, progressed, finished, failed or was cancelled. */
   | { kind: 'job'; job: JobInfo & { jobId: string } }
-  | { kind: 'dataset'; dataset: DatasetId; version: number; change: 'opened' | 'first-pass' | 'closed' };
+  | { kind: 'dataset'; dataset: DatasetId; version: number; change: 'opened' | 'first-pass' | 'closed' }
+  /** Rows row0 … row0 + nRows − 1 of an image still being computed (the first pass's bright field, tile by tile). */
+  | { kind: 'image-rows'; dataset: DatasetId; label: string; row0: number; nRows: number; scanY: number; scanX: number; values: Float64Array };
 
 /** The engine service. Long requests run as jobs (events of kind 'job'); the promise settles with the result. */
 export interface ScanfoldService {

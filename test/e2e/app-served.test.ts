@@ -108,6 +108,31 @@ function expectDrawn(view: ViewState, drawn: { width: number; height: number; rg
   expect(checked).toBeGreaterThan(0.9 * view.width * view.height);
 }
 
+describe('first pass, row by row', () => {
+  it('the engine sends the bright-field image tile by tile, every row once, adding up to the final image', async () => {
+    const svc = new EngineService({ workers: 2, budgetBytes: 100 * 2 ** 20 });
+    try {
+      const seen: { row0: number; nRows: number; values: Float64Array; label: string }[] = [];
+      svc.onEvent((e) => { if (e.kind === 'image-rows') seen.push(e); });
+      const o = await svc.open({ path: demo, datasetPath: '/scan/frames' });
+      const first = await svc.firstPass({ dataset: o.id });
+      const { scanY, scanX } = o.descriptor.shape;
+      expect(seen.length).toBeGreaterThan(1); // more than one tile: the view fills in
+      const assembled = new Float64Array(scanY * scanX).fill(NaN);
+      const rows = new Uint8Array(scanY);
+      for (const e of seen) {
+        expect(e.label).toBe(first.defaultImages[0].label);
+        assembled.set(e.values, e.row0 * scanX);
+        for (let r = e.row0; r < e.row0 + e.nRows; r++) rows[r]++;
+      }
+      expect(Array.from(rows).every((n) => n === 1)).toBe(true);
+      expect(assembled).toEqual(first.defaultImages[0].image);
+    } finally {
+      await svc.shutdown();
+    }
+  });
+});
+
 describe('served mode', () => {
   it('refuses a page request or a socket without the token', async () => {
     const base = `http://127.0.0.1:${served.port}`;
