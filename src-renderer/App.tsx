@@ -321,10 +321,12 @@ export function App({ client, store, shell = null }: { client: Client; store: St
       <main className="views">
         <ImageView name="scan" title="Scan view" image={scanView.image} settings={state.scanView} colormap={scanView.colormap} limits={scanView.limits}
           onPointer={onScanPointer}
+          onSettings={(v) => store.update((s) => ({ ...s, scanView: v }), { undoable: true })}
           overlay={(toScreen, zoom) => hover && <rect className="hover-mark" x={toScreen(hover.x - 0.5, hover.y - 0.5)[0]} y={toScreen(hover.x - 0.5, hover.y - 0.5)[1]} width={Math.max(zoom, 3)} height={Math.max(zoom, 3)} />}
           footer={hover && <span>probe ({hover.y}, {hover.x})</span>} />
         <ImageView name="pattern" title="Pattern view" image={patternImage} settings={state.patternView}
           onPointer={onPatternPointer}
+          onSettings={(v) => store.update((s) => ({ ...s, patternView: v }), { undoable: true })}
           overlay={(toScreen, zoom) => patternIsDetectorSpace && state.detectors.filter((d) => d.visible).map((d) => (
             <DetectorOverlay key={d.id} item={d} active={d.id === state.activeDetector} toScreen={toScreen} zoom={zoom} />
           ))} />

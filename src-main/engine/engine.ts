@@ -6,7 +6,7 @@ import { startClusterPatterns, startComSums, startRegionPattern, startVirtualIma
 import type { CompiledDetector } from '../../src-shared/model/detectors';
 import type { ComOptions } from '../../src-shared/compute/tile-kernels-types';
 import type { Job } from './job';
-import { WorkerPool } from './worker-pool';
+import { WorkerPool, type TileWorker } from './worker-pool';
 import type { FirstPassComPlan, KernelKind } from '../workers/tile-worker';
 import { inspectSource, type Inspection } from '../io/index';
 import { startPca, startReferenceFit, startStreamedKmeans, type FitJobResult, type PcaJobResult, type StreamedKmeansResult } from './statistics';
@@ -36,6 +36,8 @@ export class Engine {
   private readonly running = new Set<Job<any>>();
   private readonly finished: JobInfo[] = [];
   private readonly previews = new PreviewPool();
+  /** One more worker for the pointer's requests (the pattern under it), so they never queue behind a job's tiles; started on first use. */
+  private quickPool: WorkerPool | null = null;
 
   constructor(options: EngineOptions = {}) {
     const { limits, notes } = resolveEngineLimits(options);
@@ -124,9 +126,21 @@ export class Engine {
     return true;
   }
 
+  /** The worker that answers the pointer (see quickPool). */
+  get quick(): WorkerPool {
+    this.quickPool ??= new WorkerPool({ size: 1, memoryPerWorkerBytes: memoryPerWorker(this.limits) });
+    return this.quickPool;
+  }
+
+  /** Run `task` on every worker, the quick one included once started (e.g. the files they read). */
+  async eachWorker<T>(task: (worker: TileWorker, index: number) => Promise<T>): Promise<T[]> {
+    const [main, quick] = await Promise.all([this.pool.each(task), this.quickPool ? this.quickPool.each(task) : Promise.resolve([] as T[])]);
+    return [...main, ...quick];
+  }
+
   async close(): Promise<void> {
     for (const j of this.running) j.cancel('engine closing');
     this.previews.clear();
-    await this.pool.close();
+    await Promise.all([this.pool.close(), this.quickPool?.close()]);
   }
 }

@@ -770,7 +770,8 @@ export class EngineService implements ScanfoldService {
     if (req.y >= scanY || req.x >= scanX) {
       throw new InputError(`patternAt: position (y ${req.y}, x ${req.x}) is outside the ${scanY}×${scanX} scan of ${r.opened.descriptor.path}`, 'bad-request');
     }
-    const pattern = await this.engine.pool.run((w) => w.readPattern(specOf(r), req.y, req.x));
+    // On the engine's quick worker: a job's tiles never hold it up.
+    const pattern = await this.engine.quick.run((w) => w.readPattern(specOf(r), req.y, req.x));
     return { detY, detX, pattern };
   }
 
@@ -784,7 +785,7 @@ export class EngineService implements ScanfoldService {
 
   async filesRead(): Promise<{ path: string; dev: number; ino: number }[]> {
     const seen = new Map<string, { path: string; dev: number; ino: number }>();
-    for (const list of await this.engine.pool.each((w) => w.filesRead())) {
+    for (const list of await this.engine.eachWorker((w) => w.filesRead())) {
       for (const f of list) seen.set(`${f.dev}:${f.ino}`, f);
     }
     return [...seen.values()];

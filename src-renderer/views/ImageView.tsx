@@ -3,7 +3,7 @@
 // double-click fits), an SVG overlay in image coordinates for detectors and regions, and the
 // pointer reported in image pixel coordinates (pixel centres at whole numbers).
 import { useEffect, useMemo, useRef, useState, type ReactNode } from 'react';
-import type { ColormapName } from '../colormaps';
+import { COLORMAP_NAMES, type ColormapName } from '../colormaps';
 import { percentileLimits, type Contrast } from './contrast';
 import { ImageLayer, type Placement } from './image-layer';
 import type { ViewSettings } from '../store';
@@ -41,6 +41,8 @@ export interface ImageViewProps {
   /** Physical size of one image pixel, for the scale bar (e.g. { size: 0.5, unit: 'nm' }); px when absent. */
   pixelSize?: { size: number; unit: string };
   footer?: ReactNode;
+  /** Change this view's colour settings (colour map, scaling, limits); without it they are fixed. */
+  onSettings?: (s: ViewSettings) => void;
 }
 
 const SIZE = 440;
@@ -146,6 +148,9 @@ export function ImageView(props: ImageViewProps) {
         <span>limits {fmt(contrast.lo)} … {fmt(contrast.hi)} {props.settings.scaling.kind}</span>
         {props.footer}
       </footer>
+      {props.onSettings && !props.colormap && (
+        <ContrastControls name={props.name} settings={props.settings} contrast={contrast} values={image?.values ?? null} onSettings={props.onSettings} />
+      )}
     </section>
   );
 }
@@ -174,4 +179,61 @@ export function fmt(v: number): string {
   if (!Number.isFinite(v)) return String(v);
   const a = Math.abs(v);
   return a !== 0 && (a < 1e-3 || a >= 1e5) ? v.toExponential(2) : Number(v.toPrecision(4)).toString();
+}
+
+/** Colour map, scaling and limits of a view, with a histogram of its values and the limits on it. */
+function ContrastControls({ name, settings, contrast, values, onSettings }: { name: string; settings: ViewSettings; contrast: Contrast; values: ArrayLike<number> | null; onSettings: (s: ViewSettings) => void }) {
+  const hist = useMemo(() => (values ? histogram(values, 48, contrast.lo, contrast.hi) : null), [values, contrast.lo, contrast.hi]);
+  const [lo, setLo] = useState('');
+  const [hi, setHi] = useState('');
+  useEffect(() => { setLo(fmt(contrast.lo)); setHi(fmt(contrast.hi)); }, [contrast.lo, contrast.hi]);
+  const applyLimits = () => {
+    const a = Number(lo), b = Number(hi);
+    if (Number.isFinite(a) && Number.isFinite(b) && b > a) onSettings({ ...settings, limits: [a, b] });
+    else { setLo(fmt(contrast.lo)); setHi(fmt(contrast.hi)); }
+  };
+  const scaling = settings.scaling;
+  return (
+    <div className="contrast" aria-label={`${name} contrast`}>
+      <select aria-label={`${name} colour map`} value={settings.colormap} onChange={(e) => onSettings({ ...settings, colormap: e.target.value as ColormapName })}>
+        {COLORMAP_NAMES.filter((c) => c !== 'categories').map((c) => <option key={c} value={c}>{c}</option>)}
+      </select>
+      <select aria-label={`${name} scaling`} value={scaling.kind}
+        onChange={(e) => onSettings({ ...settings, scaling: e.target.value === 'gamma' ? { kind: 'gamma', gamma: 0.5 } : { kind: e.target.value as 'linear' | 'log' } })}>
+        <option value="linear">linear</option><option value="log">log</option><option value="gamma">gamma</option>
+      </select>
+      {scaling.kind === 'gamma' && (
+        <input aria-label={`${name} gamma`} type="number" step="0.1" min="0.05" value={scaling.gamma}
+          onChange={(e) => { const g = Number(e.target.value); if (g > 0) onSettings({ ...settings, scaling: { kind: 'gamma', gamma: g } }); }} />
+      )}
+      <input aria-label={`${name} lower limit`} className="limit" value={lo} onChange={(e) => setLo(e.target.value)} onBlur={applyLimits} onKeyDown={(e) => e.key === 'Enter' && applyLimits()} />
+      {hist && <Histogram hist={hist} lo={contrast.lo} hi={contrast.hi} />}
+      <input aria-label={`${name} upper limit`} className="limit" value={hi} onChange={(e) => setHi(e.target.value)} onBlur={applyLimits} onKeyDown={(e) => e.key === 'Enter' && applyLimits()} />
+      <button disabled={settings.limits === null} onClick={() => onSettings({ ...settings, limits: null })} title="limits from the 0.5 and 99.5 percentiles">auto</button>
+    </div>
+  );
+}
+
+/** Counts over the limits and a tenth of their span either side (values beyond go to the end bins). */
+function histogram(values: ArrayLike<number>, bins: number, lo: number, hi: number): { min: number; max: number; counts: Uint32Array } | null {
+  if (!(hi > lo)) return null;
+  const min = lo - 0.1 * (hi - lo), max = hi + 0.1 * (hi - lo);
+  const counts = new Uint32Array(bins);
+  const w = (max - min) / bins || 1;
+  for (let i = 0; i < values.length; i++) { const v = values[i]; if (Number.isFinite(v)) counts[Math.min(bins - 1, Math.max(0, Math.floor((v - min) / w)))]++; }
+  return { min, max, counts };
+}
+
+function Histogram({ hist, lo, hi }: { hist: { min: number; max: number; counts: Uint32Array }; lo: number; hi: number }) {
+  const W = 110, H = 22;
+  const top = Math.log1p(Math.max(...hist.counts));
+  const x = (v: number) => ((v - hist.min) / ((hist.max - hist.min) || 1)) * W;
+  const bw = W / hist.counts.length;
+  return (
+    <svg className="histogram" width={W} height={H} role="img" aria-label="histogram of the values (log counts) with the limits">
+      {Array.from(hist.counts, (c, i) => <rect key={i} x={i * bw} y={H - (Math.log1p(c) / (top || 1)) * H} width={bw} height={(Math.log1p(c) / (top || 1)) * H} />)}
+      <line className="lim" x1={x(lo)} x2={x(lo)} y1={0} y2={H} />
+      <line className="lim" x1={x(hi)} x2={x(hi)} y1={0} y2={H} />
+    </svg>
+  );
 }

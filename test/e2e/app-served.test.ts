@@ -192,6 +192,24 @@ describe('served mode', () => {
     await snap('3-annulus');
   });
 
+  it('the contrast controls (colour map, gamma, manual limits) change the drawn pixels as they say, and undo restores them', async () => {
+    await page.getByLabel('scan colour map').selectOption('cividis');
+    await page.getByLabel('scan scaling').selectOption('gamma');
+    await page.getByLabel('scan gamma').fill('0.5');
+    await page.getByLabel('scan lower limit').fill('1000');
+    await page.getByLabel('scan upper limit').fill('9000');
+    await page.getByLabel('scan upper limit').press('Enter');
+    await expect.poll(async () => (await viewState('scan')).contrast, { timeout: 10_000 }).toEqual({ lo: 1000, hi: 9000, scaling: { kind: 'gamma', gamma: 0.5 } });
+    const view = await viewState('scan');
+    expect(view.colormap).toBe('cividis');
+    expectDrawn(view, await canvasPixels('scan'), view.values);
+    await snap('3b-contrast');
+    await page.getByRole('button', { name: 'auto' }).first().click();
+    await expect.poll(async () => (await viewState('scan')).contrast.lo, { timeout: 10_000 }).not.toBe(1000);
+    await page.getByRole('button', { name: 'undo' }).click();
+    await expect.poll(async () => (await viewState('scan')).contrast.lo, { timeout: 10_000 }).toBe(1000);
+  });
+
   it('runs PCA and k-means from their panels', async () => {
     await page.getByRole('button', { name: 'Run PCA (8)' }).click();
     await expect.poll(async () => (await viewState('scan'))?.label, { timeout: 60_000 }).toBe('loading map 1');
@@ -240,6 +258,12 @@ describe('served mode, a long job', () => {
       const running = p.locator('.job.running');
       await expect.poll(() => running.count(), { timeout: 30_000 }).toBe(1);
       await p.screenshot({ path: path.join(ARTIFACTS, '7-running.png') });
+      // The pointer keeps answering while the job runs: the pattern under it comes from a worker
+      // of its own, not from behind the job's tiles.
+      const scan = (await p.locator('canvas[data-view=scan]').boundingBox())!;
+      await p.mouse.move(scan.x + scan.width / 2 + 3, scan.y + scan.height / 2 + 3);
+      await expect.poll(() => p.evaluate(() => (window as unknown as { __scanfold: { view(n: string): { label: string | null } } }).__scanfold.view('pattern').label), { timeout: 10_000 }).toMatch(/^pattern at/);
+      expect(await running.count()).toBe(1);
       await running.getByRole('button', { name: 'cancel' }).click();
       await expect.poll(() => p.locator('.job.cancelled').count(), { timeout: 30_000 }).toBe(1);
       await p.screenshot({ path: path.join(ARTIFACTS, '8-cancelled.png') });
