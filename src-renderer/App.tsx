@@ -2,10 +2,11 @@
 // strip of panels (Detectors, Components, Clusters, Activity). Every number comes from the
 // engine through the contract; this file only asks and shows.
 import { useCallback, useEffect, useMemo, useRef, useState, useSyncExternalStore } from 'react';
-import type { FirstPassResult, KmeansResult, PcaResult } from '../src-shared/contract/service';
+import type { ComFieldResult, FirstPassResult, KmeansResult, PcaResult } from '../src-shared/contract/service';
 import type { JobInfo } from '../src-shared/contract/jobs';
 import type { DetectorShape } from '../src-shared/model/detectors';
-import { CATEGORY_COLOURS } from './colormaps';
+import { CATEGORY_COLOURS, colormapLut, type ColormapName } from './colormaps';
+import { wheelColour } from './views/contrast';
 import type { Client, Shell } from './connection';
 import type { AppState, DetectorItem, Store } from './store';
 import { fmt, ImageView, type ImageData2D, type PointerInImage } from './views/ImageView';
@@ -13,7 +14,10 @@ import { startTiming } from './test-hooks';
 
 type Job = JobInfo & { jobId: string };
 /** What the Scan view shows. */
-type ScanShows = { kind: 'detector'; id: string } | { kind: 'default'; index: number } | { kind: 'loading'; k: number } | { kind: 'clusters' };
+type ScanShows = { kind: 'detector'; id: string } | { kind: 'default'; index: number } | { kind: 'loading'; k: number } | { kind: 'clusters' } | { kind: 'field'; map: string };
+
+/** The field's maps the panel offers, in order; 'direction' is drawn on the colour wheel with the magnitude as brightness. */
+const FIELD_MAPS = ['direction', 'magnitude', 'divergence', 'curl', 'phase', 'com_x', 'com_y'] as const;
 /** What the Pattern view shows. */
 type PatternShows = { kind: 'position' } | { kind: 'mean' } | { kind: 'component'; k: number } | { kind: 'cluster'; k: number };
 
@@ -35,6 +39,9 @@ export function App({ client, store, shell = null }: { client: Client; store: St
   const [detectorImages, setDetectorImages] = useState<Map<string, ImageData2D>>(new Map());
   const [pca, setPca] = useState<PcaResult | null>(null);
   const [kmeans, setKmeans] = useState<KmeansResult | null>(null);
+  const [field, setField] = useState<ComFieldResult | null>(null);
+  const [rotationText, setRotationText] = useState('');
+  const [flip, setFlip] = useState(false);
   const [scanShows, setScanShows] = useState<ScanShows>({ kind: 'default', index: 0 });
   const [patternShows, setPatternShows] = useState<PatternShows>({ kind: 'mean' });
   const [openPath, setOpenPath] = useState('');
@@ -63,7 +70,7 @@ export function App({ client, store, shell = null }: { client: Client; store: St
 
   const startDataset = useCallback(async (id: string, name: string, shape: { scanY: number; scanX: number; detY: number; detX: number }, dtype: string) => {
     store.update((s) => ({ ...s, dataset: { id, name, ...shape, dtype }, detectors: [], activeDetector: null }), { undoable: true });
-    setFirst(null); setPca(null); setKmeans(null); setDetectorImages(new Map()); setFilling(null);
+    setFirst(null); setPca(null); setKmeans(null); setField(null); setDetectorImages(new Map()); setFilling(null);
     setScanShows({ kind: 'default', index: 0 }); setPatternShows({ kind: 'mean' });
     try {
       setFirst(await client.firstPass({ dataset: id, jobId: newJobId('first-pass') }));
@@ -255,6 +262,17 @@ export function App({ client, store, shell = null }: { client: Client; store: St
       setScanShows({ kind: 'loading', k: 0 }); setPatternShows({ kind: 'component', k: 0 });
     } catch (e) { fail(e); }
   };
+  const runField = async (rotation: 'auto' | { degrees: number; flip: boolean } = 'auto') => {
+    if (!ds) return;
+    setError(null);
+    try {
+      const r = await client.comField({ dataset: ds.id, rotation, jobId: newJobId('field') });
+      setField(r);
+      setRotationText(String(Math.round(r.rotation.degrees * 100) / 100));
+      setFlip(r.rotation.flip);
+      setScanShows({ kind: 'field', map: 'direction' });
+    } catch (e) { fail(e); }
+  };
   const runKmeans = async () => {
     if (!ds) return;
     setError(null);
@@ -266,7 +284,7 @@ export function App({ client, store, shell = null }: { client: Client; store: St
   };
 
   // What each view shows; memoised, so an unchanged image is neither uploaded nor rescaled again.
-  const scanView = useMemo((): { image: ImageData2D | null; colormap?: 'categories'; limits?: [number, number] } => {
+  const scanView = useMemo((): { image: ImageData2D | null; colormap?: ColormapName; limits?: [number, number] } => {
     if (!ds) return { image: null };
     if (scanShows.kind === 'detector') return { image: detectorImages.get(scanShows.id) ?? null };
     if (scanShows.kind === 'default' && !first && filling && filling.dataset === ds.id) {
@@ -280,11 +298,19 @@ export function App({ client, store, shell = null }: { client: Client; store: St
       const n = ds.scanY * ds.scanX;
       return { image: { values: pca.loadings.subarray(scanShows.k * n, (scanShows.k + 1) * n), width: ds.scanX, height: ds.scanY, label: `loading map ${scanShows.k + 1}` } };
     }
+    if (scanShows.kind === 'field' && field) {
+      const m = field.maps[scanShows.map];
+      if (!m) return { image: null };
+      if (scanShows.map === 'direction') {
+        return { image: { values: m.data, lengths: field.maps.magnitude.data, width: field.scanX, height: field.scanY, label: 'COM direction (colour) and magnitude (brightness)' }, colormap: 'sinebow' };
+      }
+      return { image: { values: m.data, width: field.scanX, height: field.scanY, label: `COM ${scanShows.map.replace('_', ' ')} (${m.units})` } };
+    }
     if (scanShows.kind === 'clusters' && kmeans) {
       return { image: { values: kmeans.labels, width: ds.scanX, height: ds.scanY, label: `cluster map (${kmeans.k} clusters)` }, colormap: 'categories', limits: [-0.5, 9.5] };
     }
     return { image: null };
-  }, [ds, scanShows, detectorImages, first, pca, kmeans, filling]);
+  }, [ds, scanShows, detectorImages, first, pca, kmeans, filling, field]);
   const patternImage = useMemo((): ImageData2D | null => {
     if (!ds) return null;
     if (patternShows.kind === 'position') return pattern;
@@ -319,12 +345,12 @@ export function App({ client, store, shell = null }: { client: Client; store: St
       </header>
       {error && <div className="error" role="alert">{error} <button onClick={() => setError(null)}>dismiss</button></div>}
       <main className="views">
-        <ImageView name="scan" title="Scan view" image={scanView.image} settings={state.scanView} colormap={scanView.colormap} limits={scanView.limits}
+        <ImageView name="scan" title="Scan view" image={scanView.image} imageKey={JSON.stringify(scanShows)} settings={state.scanView} colormap={scanView.colormap} limits={scanView.limits}
           onPointer={onScanPointer}
           onSettings={(v) => store.update((s) => ({ ...s, scanView: v }), { undoable: true })}
           overlay={(toScreen, zoom) => hover && <rect className="hover-mark" x={toScreen(hover.x - 0.5, hover.y - 0.5)[0]} y={toScreen(hover.x - 0.5, hover.y - 0.5)[1]} width={Math.max(zoom, 3)} height={Math.max(zoom, 3)} />}
           footer={hover && <span>probe ({hover.y}, {hover.x})</span>} />
-        <ImageView name="pattern" title="Pattern view" image={patternImage} settings={state.patternView}
+        <ImageView name="pattern" title="Pattern view" image={patternImage} imageKey={JSON.stringify(patternShows)} settings={state.patternView}
           onPointer={onPatternPointer}
           onSettings={(v) => store.update((s) => ({ ...s, patternView: v }), { undoable: true })}
           overlay={(toScreen, zoom) => patternIsDetectorSpace && state.detectors.filter((d) => d.visible).map((d) => (
@@ -351,6 +377,30 @@ export function App({ client, store, shell = null }: { client: Client; store: St
               toggle={() => store.update((s) => ({ ...s, detectors: s.detectors.map((x) => (x.id === d.id ? { ...x, visible: !x.visible } : x)) }), { undoable: true })}
               rename={(name) => store.update((s) => ({ ...s, detectors: s.detectors.map((x) => (x.id === d.id ? { ...x, name } : x)) }), { undoable: true })} />
           ))}
+        </div>
+        <div className="panel" aria-label="Field">
+          <h2>Field (COM)</h2>
+          <button onClick={() => void runField()} disabled={!first}>Compute field</button>
+          {field && <>
+            <div className="field-maps">
+              {FIELD_MAPS.filter((k) => field.maps[k]).map((k) => (
+                <button key={k} className={scanShows.kind === 'field' && scanShows.map === k ? 'on' : ''} onClick={() => setScanShows({ kind: 'field', map: k })}>{k.replace('_', ' ')}</button>
+              ))}
+            </div>
+            {scanShows.kind === 'field' && scanShows.map === 'direction' && <ColourWheel />}
+            <div className="facts">
+              <div>rotation {fmt(field.rotation.degrees)}° ({field.rotation.source}){field.rotation.flip ? ', flipped' : ''}</div>
+              {field.rotation.halfTurnDetermined === false && <div className="warn">half-turn not settled by vacuum: {field.rotation.halfTurnRule}</div>}
+              <div>descan: {field.descan}; vacuum: {field.vacuum.source === 'none' ? 'none' : `${field.vacuum.positions} positions (${field.vacuum.source})`}</div>
+              {field.notes.map((n) => <div key={n} className="warn">{n}</div>)}
+            </div>
+            <form className="row" onSubmit={(e) => { e.preventDefault(); const d = Number(rotationText); if (Number.isFinite(d)) void runField({ degrees: d, flip }); }}>
+              <label>rotation <input aria-label="field rotation" type="number" step="0.5" value={rotationText} onChange={(e) => setRotationText(e.target.value)} />°</label>
+              <label><input type="checkbox" aria-label="field flip" checked={flip} onChange={(e) => setFlip(e.target.checked)} /> flip</label>
+              <button type="submit">apply</button>
+              <button type="button" onClick={() => void runField('auto')}>estimate</button>
+            </form>
+          </>}
         </div>
         <div className="panel" aria-label="Components">
           <h2>Components</h2>
@@ -453,3 +503,32 @@ function moveHandle(s: DetectorShape, drag: { part: 'centre' | 'inner' | 'outer'
 
 const round2 = (v: number) => Math.round(v * 100) / 100;
 const baseName = (p: string) => p.split(/[\\/]/).pop() ?? p;
+
+/** The legend of a direction image: the colour of each direction, dark at zero length. */
+function ColourWheel() {
+  const ref = useRef<HTMLCanvasElement>(null);
+  useEffect(() => {
+    const c = ref.current;
+    const ctx = c?.getContext('2d');
+    if (!c || !ctx) return;
+    const n = c.width;
+    const img = ctx.createImageData(n, n);
+    const lut = colormapLut('sinebow');
+    for (let y = 0; y < n; y++) {
+      for (let x = 0; x < n; x++) {
+        const dx = x + 0.5 - n / 2, dy = y + 0.5 - n / 2;
+        const r = Math.hypot(dx, dy) / (n / 2);
+        const o = (y * n + x) * 4;
+        if (r > 1) continue;
+        // Screen y points down, as the scan's rows do: the angle is atan2(dy, dx), as the engine's.
+        const [R, G, B] = wheelColour(Math.atan2(dy, dx), r, 1, lut);
+        img.data.set([R, G, B, 255], o);
+      }
+    }
+    ctx.putImageData(img, 0, 0);
+  }, []);
+  return (
+    <div className="wheel"><canvas ref={ref} width={64} height={64} aria-label="colour wheel: direction of the COM shift (+x to the right, +y down), brightness its length" />
+      <span>→ +x, ↓ +y</span></div>
+  );
+}

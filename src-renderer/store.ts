@@ -19,6 +19,8 @@ export interface ViewSettings {
   scaling: Scaling;
   /** null: automatic limits from percentiles. */
   limits: [number, number] | null;
+  /** Which image the limits were set on (they hold for it only; any other gets automatic limits). */
+  limitsFor?: string | null;
 }
 
 export interface AppState {

@@ -9,7 +9,7 @@ interface ViewRecord {
   contrast: Contrast;
   colormap: ColormapName;
   place: Placement;
-  image: { values: ArrayLike<number>; width: number; height: number; label: string } | null;
+  image: { values: ArrayLike<number>; width: number; height: number; label: string; lengths?: ArrayLike<number> } | null;
   cssSize: number;
 }
 
@@ -45,7 +45,8 @@ if (typeof window !== 'undefined') {
       const v = views.get(name);
       if (!v) return null;
       return { contrast: v.contrast, colormap: v.colormap, place: v.place, cssSize: v.cssSize, label: v.image?.label ?? null,
-        width: v.image?.width ?? 0, height: v.image?.height ?? 0, values: v.image ? Array.from(v.image.values) : [] };
+        width: v.image?.width ?? 0, height: v.image?.height ?? 0, values: v.image ? Array.from(v.image.values) : [],
+        ...(v.image?.lengths ? { lengths: Array.from(v.image.lengths) } : {}) };
     },
   };
 }

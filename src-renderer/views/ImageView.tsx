@@ -17,6 +17,8 @@ export interface ImageData2D {
   label: string;
   /** Names the pointer event that asked for it (latency measurement, test-hooks.ts). */
   token?: string;
+  /** A direction image (radians): its lengths, drawn as brightness on a cyclic map. */
+  lengths?: ArrayLike<number>;
 }
 
 export interface PointerInImage {
@@ -43,6 +45,8 @@ export interface ImageViewProps {
   footer?: ReactNode;
   /** Change this view's colour settings (colour map, scaling, limits); without it they are fixed. */
   onSettings?: (s: ViewSettings) => void;
+  /** Names what the view shows (manual limits hold for one such key). */
+  imageKey?: string;
 }
 
 const SIZE = 440;
@@ -57,9 +61,11 @@ export function ImageView(props: ImageViewProps) {
   const { image } = props;
 
   const contrast: Contrast = useMemo(() => {
-    const [lo, hi] = props.limits ?? props.settings.limits ?? (image ? percentileLimits(image.values) : [0, 1]);
+    // A direction image's limits are those of its lengths (0 … the 99.5th percentile).
+    const manual = props.settings.limits && (props.settings.limitsFor ?? null) === (props.imageKey ?? null) ? props.settings.limits : null;
+    const [lo, hi] = props.limits ?? manual ?? (image?.lengths ? [0, percentileLimits(image.lengths)[1]] : image ? percentileLimits(image.values) : [0, 1]);
     return { lo, hi, scaling: props.settings.scaling };
-  }, [image, props.limits, props.settings.limits, props.settings.scaling]);
+  }, [image, props.limits, props.settings.limits, props.settings.limitsFor, props.imageKey, props.settings.scaling]);
   const colormap = props.colormap ?? props.settings.colormap;
 
   useEffect(() => {
@@ -80,13 +86,13 @@ export function ImageView(props: ImageViewProps) {
   useEffect(() => {
     const layer = layerRef.current;
     if (!layer) return;
-    if (image) layer.setImage(image.values, image.width, image.height);
+    if (image) layer.setImage(image.values, image.width, image.height, image.lengths);
   }, [image]);
 
   useEffect(() => {
     const layer = layerRef.current;
     if (!layer) return;
-    layer.render(contrast, colormap, { zoom: place.zoom * dpr, cx: place.cx, cy: place.cy });
+    layer.render(contrast, colormap, { zoom: place.zoom * dpr, cx: place.cx, cy: place.cy }, image?.lengths !== undefined);
     registerView(props.name, { layer, contrast, colormap, place, image, cssSize: SIZE });
     if (image?.token) endTiming(image.token);
   }, [image, contrast, colormap, place, dpr, props.name]);
@@ -149,7 +155,7 @@ export function ImageView(props: ImageViewProps) {
         {props.footer}
       </footer>
       {props.onSettings && !props.colormap && (
-        <ContrastControls name={props.name} settings={props.settings} contrast={contrast} values={image?.values ?? null} onSettings={props.onSettings} />
+        <ContrastControls name={props.name} settings={props.settings} contrast={contrast} values={image?.values ?? null} onSettings={props.onSettings} imageKey={props.imageKey ?? null} />
       )}
     </section>
   );
@@ -182,14 +188,14 @@ export function fmt(v: number): string {
 }
 
 /** Colour map, scaling and limits of a view, with a histogram of its values and the limits on it. */
-function ContrastControls({ name, settings, contrast, values, onSettings }: { name: string; settings: ViewSettings; contrast: Contrast; values: ArrayLike<number> | null; onSettings: (s: ViewSettings) => void }) {
+function ContrastControls({ name, settings, contrast, values, onSettings, imageKey }: { name: string; settings: ViewSettings; contrast: Contrast; values: ArrayLike<number> | null; onSettings: (s: ViewSettings) => void; imageKey: string | null }) {
   const hist = useMemo(() => (values ? histogram(values, 48, contrast.lo, contrast.hi) : null), [values, contrast.lo, contrast.hi]);
   const [lo, setLo] = useState('');
   const [hi, setHi] = useState('');
   useEffect(() => { setLo(fmt(contrast.lo)); setHi(fmt(contrast.hi)); }, [contrast.lo, contrast.hi]);
   const applyLimits = () => {
     const a = Number(lo), b = Number(hi);
-    if (Number.isFinite(a) && Number.isFinite(b) && b > a) onSettings({ ...settings, limits: [a, b] });
+    if (Number.isFinite(a) && Number.isFinite(b) && b > a) onSettings({ ...settings, limits: [a, b], limitsFor: imageKey });
     else { setLo(fmt(contrast.lo)); setHi(fmt(contrast.hi)); }
   };
   const scaling = settings.scaling;
@@ -209,7 +215,7 @@ function ContrastControls({ name, settings, contrast, values, onSettings }: { na
       <input aria-label={`${name} lower limit`} className="limit" value={lo} onChange={(e) => setLo(e.target.value)} onBlur={applyLimits} onKeyDown={(e) => e.key === 'Enter' && applyLimits()} />
       {hist && <Histogram hist={hist} lo={contrast.lo} hi={contrast.hi} />}
       <input aria-label={`${name} upper limit`} className="limit" value={hi} onChange={(e) => setHi(e.target.value)} onBlur={applyLimits} onKeyDown={(e) => e.key === 'Enter' && applyLimits()} />
-      <button disabled={settings.limits === null} onClick={() => onSettings({ ...settings, limits: null })} title="limits from the 0.5 and 99.5 percentiles">auto</button>
+      <button disabled={settings.limits === null || (settings.limitsFor ?? null) !== imageKey} onClick={() => onSettings({ ...settings, limits: null, limitsFor: null })} title="limits from the 0.5 and 99.5 percentiles">auto</button>
     </div>
   );
 }

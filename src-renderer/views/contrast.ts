@@ -54,6 +54,17 @@ export function select(a: Float64Array, k: number): number {
   return a[k];
 }
 
+/**
+ * A direction image's colour: the cyclic map's entry at the direction (radians, −π…π, as a
+ * fraction of a turn from −π) times the brightness, the length over the upper limit (clamped).
+ */
+export function wheelColour(direction: number, length: number, hi: number, lut: Uint8Array): [number, number, number] {
+  const turn = Math.min(1, Math.max(0, (direction + Math.PI) / (2 * Math.PI)));
+  const i = Math.round(turn * 255);
+  const b = Math.min(1, Math.max(0, length / Math.max(hi, 1e-30)));
+  return [lut[4 * i] * b, lut[4 * i + 1] * b, lut[4 * i + 2] * b];
+}
+
 /** Position on the colour map, 0…1 (clamped), of a value; NaN for a non-finite value. */
 export function mapValue(v: number, c: Contrast): number {
   if (!Number.isFinite(v)) return NaN;

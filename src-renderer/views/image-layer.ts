@@ -1,6 +1,9 @@
 // One float image drawn through a colour map with WebGL (regl): the values go up as a float
-// texture (a second channel marks the non-finite ones, drawn grey), the colour map as a 256-entry
+// texture (a channel marks the non-finite ones, drawn grey), the colour map as a 256-entry
 // lookup texture, and the fragment shader applies the view's contrast (contrast.ts, mapValue).
+// A direction image (a vector field) carries a second channel, the length: its colour is the
+// cyclic map at the direction, darkened towards black as the length falls from the upper limit
+// to zero (contrast.ts, wheelColour).
 import createRegl from 'regl';
 import { colormapLut, LUT_SIZE, type ColormapName } from '../colormaps';
 import type { Contrast } from './contrast';
@@ -24,7 +27,7 @@ export class ImageLayer {
 
   constructor(readonly canvas: HTMLCanvasElement) {
     this.regl = createRegl({ canvas, extensions: ['OES_texture_float'], attributes: { preserveDrawingBuffer: true, antialias: false, premultipliedAlpha: false } });
-    this.data = this.regl.texture({ width: 1, height: 1, format: 'luminance alpha', type: 'float', data: new Float32Array(2) });
+    this.data = this.regl.texture({ width: 1, height: 1, format: 'rgba', type: 'float', data: new Float32Array(4) });
     this.lut = this.regl.texture({ width: LUT_SIZE, height: 1, data: colormapLut('viridis'), mag: 'nearest', min: 'nearest' });
     this.draw = this.regl({
       vert: `
@@ -47,6 +50,14 @@ export class ImageLayer {
           if (s.a < 0.5) { gl_FragColor = vec4(0.5, 0.5, 0.5, 1.0); return; }
           float v = s.r;
           float t;
+          if (mode == 3.0) {
+            // Direction (radians, −π…π) as the position on the cyclic map; length as brightness.
+            float turn = clamp((v + 3.14159265358979) / 6.28318530717959, 0.0, 1.0);
+            vec4 c = texture2D(lut, vec2((floor(turn * 255.0 + 0.5) + 0.5) / 256.0, 0.5));
+            float b = clamp(s.g / max(hi, 1e-30), 0.0, 1.0);
+            gl_FragColor = vec4(c.rgb * b, 1.0);
+            return;
+          }
           if (mode == 1.0) {
             t = log(1.0 + max(v - lo, 0.0)) / log(1.0 + max(hi - lo, 1e-30));
           } else {
@@ -76,26 +87,29 @@ export class ImageLayer {
     this.regl.clear({ color: [0.09, 0.1, 0.12, 1] });
   }
 
-  /** Upload row-major values (row 0 at the top). */
-  setImage(values: ArrayLike<number>, width: number, height: number): void {
-    const packed = new Float32Array(width * height * 2);
+  /** Upload row-major values (row 0 at the top), and for a direction image the lengths. */
+  setImage(values: ArrayLike<number>, width: number, height: number, lengths?: ArrayLike<number>): void {
+    const packed = new Float32Array(width * height * 4);
     // Texture row 0 is drawn at the bottom of the quad (uv.y = 0): flip rows as they go up.
     for (let y = 0; y < height; y++) {
       const src = y * width;
-      const dst = (height - 1 - y) * width * 2;
+      const dst = (height - 1 - y) * width * 4;
       for (let x = 0; x < width; x++) {
         const v = values[src + x];
-        const ok = Number.isFinite(v);
-        packed[dst + 2 * x] = ok ? v : 0;
-        packed[dst + 2 * x + 1] = ok ? 1 : 0;
+        const m = lengths ? lengths[src + x] : 0;
+        const ok = Number.isFinite(v) && Number.isFinite(m);
+        packed[dst + 4 * x] = ok ? v : 0;
+        packed[dst + 4 * x + 1] = ok ? m : 0;
+        packed[dst + 4 * x + 3] = ok ? 1 : 0;
       }
     }
-    this.data({ width, height, format: 'luminance alpha', type: 'float', data: packed, mag: 'nearest', min: 'nearest', wrapS: 'clamp', wrapT: 'clamp' });
+    this.data({ width, height, format: 'rgba', type: 'float', data: packed, mag: 'nearest', min: 'nearest', wrapS: 'clamp', wrapT: 'clamp' });
     this.width = width;
     this.height = height;
   }
 
-  render(contrast: Contrast, colormap: ColormapName, place: Placement): void {
+  /** `wheel`: the image is a direction with lengths (setImage's second array), limits 0…hi on the length. */
+  render(contrast: Contrast, colormap: ColormapName, place: Placement, wheel = false): void {
     if (this.lutName !== colormap) {
       this.lut({ width: LUT_SIZE, height: 1, data: colormapLut(colormap), mag: 'nearest', min: 'nearest' });
       this.lutName = colormap;
@@ -109,7 +123,7 @@ export class ImageLayer {
     const toClipY = (y: number) => 1 - (((y - place.cy) * place.zoom + H / 2) / H) * 2;
     // uv (0,0) is the bottom-left corner: image row height-1's bottom edge.
     const rect = [toClipX(-0.5), toClipY(this.height - 0.5), toClipX(this.width - 0.5), toClipY(-0.5)];
-    const mode = contrast.scaling.kind === 'log' ? 1 : contrast.scaling.kind === 'gamma' ? 2 : 0;
+    const mode = wheel ? 3 : contrast.scaling.kind === 'log' ? 1 : contrast.scaling.kind === 'gamma' ? 2 : 0;
     const gamma = contrast.scaling.kind === 'gamma' ? contrast.scaling.gamma : 1;
     this.draw({ rect, lo: contrast.lo, hi: contrast.hi, mode, gamma });
   }

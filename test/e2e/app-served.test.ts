@@ -16,7 +16,7 @@ import { distFile } from '../../src-main/engine/paths';
 import { startServed, type Served } from '../../src-main/transport/served';
 import { writeSample } from '../../samples/write-sample';
 import { colormapLut, type ColormapName } from '../../src-renderer/colormaps';
-import { mapValue, type Contrast } from '../../src-renderer/views/contrast';
+import { mapValue, wheelColour, type Contrast } from '../../src-renderer/views/contrast';
 
 const CHROMIUM = '/usr/bin/chromium';
 const ARTIFACTS = path.resolve(__dirname, '../../test-artifacts/app');
@@ -56,6 +56,7 @@ interface ViewState {
   width: number;
   height: number;
   values: number[];
+  lengths?: number[];
 }
 
 const viewState = (name: 'scan' | 'pattern') => page.evaluate((n) => (window as unknown as { __scanfold: { view(n: string): unknown } }).__scanfold.view(n), name) as Promise<ViewState>;
@@ -208,6 +209,45 @@ describe('served mode', () => {
     await expect.poll(async () => (await viewState('scan')).contrast.lo, { timeout: 10_000 }).not.toBe(1000);
     await page.getByRole('button', { name: 'undo' }).click();
     await expect.poll(async () => (await viewState('scan')).contrast.lo, { timeout: 10_000 }).toBe(1000);
+  });
+
+  it('the Field panel shows the engine’s COM field: direction on the colour wheel with magnitude as brightness, and each map', async () => {
+    await page.getByRole('button', { name: 'Compute field' }).click();
+    await expect.poll(async () => (await viewState('scan'))?.label, { timeout: 60_000 }).toMatch(/^COM direction/);
+    const field = await service.comField({ dataset: (await service.datasets())[0].id });
+    const view = await viewState('scan');
+    expect(view.values).toEqual(Array.from(field.maps.direction.data));
+    expect(view.lengths).toEqual(Array.from(field.maps.magnitude.data));
+    // Every pixel: the cyclic map at its direction times its brightness (±2 entries, ±2 levels).
+    const drawn = await canvasPixels('scan');
+    const lut = colormapLut('sinebow');
+    const scale = drawn.width / view.cssSize;
+    const bad: string[] = [];
+    for (let y = 0; y < view.height; y++) {
+      for (let x = 0; x < view.width; x++) {
+        const i = y * view.width + x;
+        const sx = Math.floor(((x - view.place.cx) * view.place.zoom + view.cssSize / 2) * scale);
+        const sy = Math.floor(((y - view.place.cy) * view.place.zoom + view.cssSize / 2) * scale);
+        const at = (sy * drawn.width + sx) * 4;
+        const got = drawn.rgba.slice(at, at + 3);
+        let ok = false;
+        for (const d of [-0.03, 0, 0.03]) {
+          const want = wheelColour(view.values[i] + d, view.lengths![i], view.contrast.hi, lut);
+          if (want.every((w, c) => Math.abs(w - got[c]) <= 2.5 + 0.02 * w)) ok = true;
+        }
+        if (!ok && bad.length < 5) bad.push(`(${y}, ${x}) direction ${view.values[i]} length ${view.lengths![i]} drawn ${got}`);
+      }
+    }
+    expect(bad).toEqual([]);
+    await snap('4a-field');
+    await page.getByRole('button', { name: 'phase', exact: true }).click();
+    await expect.poll(async () => (await viewState('scan'))?.label, { timeout: 10_000 }).toMatch(/^COM phase/);
+    expect((await viewState('scan')).values).toEqual(Array.from(field.maps.phase.data));
+    // A given rotation: the engine's field with that rotation.
+    await page.getByLabel('field rotation').fill('30');
+    await page.getByRole('button', { name: 'apply' }).click();
+    const turned = await service.comField({ dataset: (await service.datasets())[0].id, rotation: { degrees: 30, flip: field.rotation.flip } });
+    await expect.poll(async () => (await viewState('scan')).values, { timeout: 60_000 }).toEqual(Array.from(turned.maps.direction.data));
   });
 
   it('runs PCA and k-means from their panels', async () => {
