@@ -2,24 +2,25 @@
 // strip of panels (Detectors, Components, Clusters, Activity). Every number comes from the
 // engine through the contract; this file only asks and shows.
 import { useCallback, useEffect, useMemo, useRef, useState, useSyncExternalStore } from 'react';
-import type { ComFieldResult, FirstPassResult, KmeansResult, PcaResult } from '../src-shared/contract/service';
+import type { ComFieldResult, FirstPassResult, FitResult, KmeansResult, PcaResult, RegionPatternResult } from '../src-shared/contract/service';
 import type { JobInfo } from '../src-shared/contract/jobs';
 import type { DetectorShape } from '../src-shared/model/detectors';
 import { CATEGORY_COLOURS, colormapLut, type ColormapName } from './colormaps';
 import { wheelColour } from './views/contrast';
 import type { Client, Shell } from './connection';
-import type { AppState, DetectorItem, Store } from './store';
+import type { AppState, DetectorItem, RegionItem, RegionItemShape, Store } from './store';
 import { fmt, ImageView, type ImageData2D, type PointerInImage } from './views/ImageView';
 import { startTiming } from './test-hooks';
 
 type Job = JobInfo & { jobId: string };
 /** What the Scan view shows. */
-type ScanShows = { kind: 'detector'; id: string } | { kind: 'default'; index: number } | { kind: 'loading'; k: number } | { kind: 'clusters' } | { kind: 'field'; map: string };
+type ScanShows = { kind: 'detector'; id: string } | { kind: 'default'; index: number } | { kind: 'loading'; k: number } | { kind: 'clusters' } | { kind: 'field'; map: string }
+  | { kind: 'fit'; k: number } | { kind: 'residual' };
 
 /** The field's maps the panel offers, in order; 'direction' is drawn on the colour wheel with the magnitude as brightness. */
 const FIELD_MAPS = ['direction', 'magnitude', 'divergence', 'curl', 'phase', 'com_x', 'com_y'] as const;
 /** What the Pattern view shows. */
-type PatternShows = { kind: 'position' } | { kind: 'mean' } | { kind: 'component'; k: number } | { kind: 'cluster'; k: number };
+type PatternShows = { kind: 'position' } | { kind: 'mean' } | { kind: 'component'; k: number } | { kind: 'cluster'; k: number } | { kind: 'region'; id: string; stat: 'mean' | 'max' };
 
 function useStore(store: Store): AppState {
   return useSyncExternalStore((l) => store.subscribe(l), () => store.get());
@@ -40,6 +41,10 @@ export function App({ client, store, shell = null }: { client: Client; store: St
   const [pca, setPca] = useState<PcaResult | null>(null);
   const [kmeans, setKmeans] = useState<KmeansResult | null>(null);
   const [field, setField] = useState<ComFieldResult | null>(null);
+  const [fit, setFit] = useState<(FitResult & { names: string[] }) | null>(null);
+  const [regionPatterns, setRegionPatterns] = useState<Map<string, RegionPatternResult>>(new Map());
+  /** A rectangle being drawn on the Scan view (Shift-drag), scan px. */
+  const [drawing, setDrawing] = useState<{ x0: number; y0: number; x1: number; y1: number } | null>(null);
   const [rotationText, setRotationText] = useState('');
   const [flip, setFlip] = useState(false);
   const [scanShows, setScanShows] = useState<ScanShows>({ kind: 'default', index: 0 });
@@ -70,7 +75,8 @@ export function App({ client, store, shell = null }: { client: Client; store: St
 
   const startDataset = useCallback(async (id: string, name: string, shape: { scanY: number; scanX: number; detY: number; detX: number }, dtype: string) => {
     store.update((s) => ({ ...s, dataset: { id, name, ...shape, dtype }, detectors: [], activeDetector: null }), { undoable: true });
-    setFirst(null); setPca(null); setKmeans(null); setField(null); setDetectorImages(new Map()); setFilling(null);
+    setFirst(null); setPca(null); setKmeans(null); setField(null); setFit(null); setRegionPatterns(new Map()); setDetectorImages(new Map()); setFilling(null);
+    store.update((s) => ({ ...s, regions: [] }));
     setScanShows({ kind: 'default', index: 0 }); setPatternShows({ kind: 'mean' });
     try {
       setFirst(await client.firstPass({ dataset: id, jobId: newJobId('first-pass') }));
@@ -156,8 +162,37 @@ export function App({ client, store, shell = null }: { client: Client; store: St
     void run();
   }, [client, ds, fail]);
 
+  const addRegion = async (shape: RegionItemShape, name?: string) => {
+    if (!ds) return;
+    const n = store.get().regions.length;
+    const item: RegionItem = { id: `r${Date.now().toString(36)}${n}`, name: name ?? `region ${n + 1}`, colour: CATEGORY_COLOURS[(n + 4) % CATEGORY_COLOURS.length], visible: true, shape };
+    store.update((s) => ({ ...s, regions: [...s.regions, item] }), { undoable: true });
+    await showRegion(item);
+  };
+  const showRegion = async (item: RegionItem, stat: 'mean' | 'max' = 'mean') => {
+    if (!ds) return;
+    setPatternShows({ kind: 'region', id: item.id, stat });
+    if (regionPatterns.has(item.id)) return;
+    try {
+      const r = await client.regionPattern({ dataset: ds.id, region: item.shape, jobId: newJobId('region') });
+      setRegionPatterns((m) => new Map(m).set(item.id, r));
+    } catch (e) { fail(e); }
+  };
+
   const onScanPointer = (p: PointerInImage) => {
     if (!ds || p.kind === 'leave') return;
+    const clampY = (v: number) => Math.min(ds.scanY - 1, Math.max(0, Math.round(v)));
+    const clampX = (v: number) => Math.min(ds.scanX - 1, Math.max(0, Math.round(v)));
+    // Shift-drag draws a rectangular region.
+    if (p.kind === 'down' && p.shift) { setDrawing({ x0: clampX(p.x), y0: clampY(p.y), x1: clampX(p.x), y1: clampY(p.y) }); return; }
+    if (drawing) {
+      const next = { ...drawing, x1: clampX(p.x), y1: clampY(p.y) };
+      if (p.kind === 'up') {
+        setDrawing(null);
+        void addRegion({ kind: 'rectangle', x0: Math.min(next.x0, next.x1), y0: Math.min(next.y0, next.y1), x1: Math.max(next.x0, next.x1), y1: Math.max(next.y0, next.y1) });
+      } else setDrawing(next);
+      return;
+    }
     const y = Math.round(p.y);
     const x = Math.round(p.x);
     if (y < 0 || x < 0 || y >= ds.scanY || x >= ds.scanX) return;
@@ -273,6 +308,16 @@ export function App({ client, store, shell = null }: { client: Client; store: St
       setScanShows({ kind: 'field', map: 'direction' });
     } catch (e) { fail(e); }
   };
+  const runFit = async () => {
+    if (!ds) return;
+    const regions = store.get().regions;
+    setError(null);
+    try {
+      const r = await client.fit({ dataset: ds.id, references: regions.map((g) => g.shape), nonnegative: true, jobId: newJobId('fit') });
+      setFit({ ...r, names: regions.map((g) => g.name) });
+      setScanShows({ kind: 'fit', k: 0 });
+    } catch (e) { fail(e); }
+  };
   const runKmeans = async () => {
     if (!ds) return;
     setError(null);
@@ -306,11 +351,16 @@ export function App({ client, store, shell = null }: { client: Client; store: St
       }
       return { image: { values: m.data, width: field.scanX, height: field.scanY, label: `COM ${scanShows.map.replace('_', ' ')} (${m.units})` } };
     }
+    if (scanShows.kind === 'fit' && fit) {
+      const n = ds.scanY * ds.scanX;
+      return { image: { values: fit.coefficients.subarray(scanShows.k * n, (scanShows.k + 1) * n), width: ds.scanX, height: ds.scanY, label: `fit weight of ${fit.names[scanShows.k]}` } };
+    }
+    if (scanShows.kind === 'residual' && fit) return { image: { values: fit.residual, width: ds.scanX, height: ds.scanY, label: 'fit residual (fraction of each pattern no reference explains)' } };
     if (scanShows.kind === 'clusters' && kmeans) {
       return { image: { values: kmeans.labels, width: ds.scanX, height: ds.scanY, label: `cluster map (${kmeans.k} clusters)` }, colormap: 'categories', limits: [-0.5, 9.5] };
     }
     return { image: null };
-  }, [ds, scanShows, detectorImages, first, pca, kmeans, filling, field]);
+  }, [ds, scanShows, detectorImages, first, pca, kmeans, filling, field, fit]);
   const patternImage = useMemo((): ImageData2D | null => {
     if (!ds) return null;
     if (patternShows.kind === 'position') return pattern;
@@ -320,13 +370,19 @@ export function App({ client, store, shell = null }: { client: Client; store: St
       const n = f.outY * f.outX;
       return { values: pca.components.subarray(patternShows.k * n, (patternShows.k + 1) * n), width: f.outX, height: f.outY, label: `component pattern ${patternShows.k + 1} (binned ${f.bin}×)` };
     }
+    if (patternShows.kind === 'region') {
+      const r = regionPatterns.get(patternShows.id);
+      const item = state.regions.find((g) => g.id === patternShows.id);
+      if (!r || !item) return null;
+      return { values: patternShows.stat === 'mean' ? r.mean : r.max, width: ds.detX, height: ds.detY, label: `${patternShows.stat} pattern of ${item.name} (${r.count} positions)` };
+    }
     if (patternShows.kind === 'cluster' && kmeans) {
       const n = ds.detY * ds.detX;
       return { values: kmeans.clusterPatterns.subarray(patternShows.k * n, (patternShows.k + 1) * n), width: ds.detX, height: ds.detY, label: `cluster pattern ${patternShows.k + 1}` };
     }
     return null;
-  }, [ds, patternShows, pattern, first, pca, kmeans]);
-  const patternIsDetectorSpace = patternImage !== null && (patternShows.kind === 'position' || patternShows.kind === 'mean' || patternShows.kind === 'cluster');
+  }, [ds, patternShows, pattern, first, pca, kmeans, regionPatterns, state.regions]);
+  const patternIsDetectorSpace = patternImage !== null && patternShows.kind !== 'component';
 
   const running = [...jobs.values()].filter((j) => j.state === 'running');
 
@@ -348,7 +404,18 @@ export function App({ client, store, shell = null }: { client: Client; store: St
         <ImageView name="scan" title="Scan view" image={scanView.image} imageKey={JSON.stringify(scanShows)} settings={state.scanView} colormap={scanView.colormap} limits={scanView.limits}
           onPointer={onScanPointer}
           onSettings={(v) => store.update((s) => ({ ...s, scanView: v }), { undoable: true })}
-          overlay={(toScreen, zoom) => hover && <rect className="hover-mark" x={toScreen(hover.x - 0.5, hover.y - 0.5)[0]} y={toScreen(hover.x - 0.5, hover.y - 0.5)[1]} width={Math.max(zoom, 3)} height={Math.max(zoom, 3)} />}
+          overlay={(toScreen, zoom) => <>
+            {state.regions.filter((g) => g.visible && g.shape.kind === 'rectangle').map((g) => {
+              const s = g.shape as { x0: number; y0: number; x1: number; y1: number };
+              const [x, y] = toScreen(s.x0 - 0.5, s.y0 - 0.5);
+              return <rect key={g.id} className="region" stroke={g.colour} x={x} y={y} width={(s.x1 - s.x0 + 1) * zoom} height={(s.y1 - s.y0 + 1) * zoom} />;
+            })}
+            {drawing && (() => {
+              const [x, y] = toScreen(Math.min(drawing.x0, drawing.x1) - 0.5, Math.min(drawing.y0, drawing.y1) - 0.5);
+              return <rect className="region drawing" x={x} y={y} width={(Math.abs(drawing.x1 - drawing.x0) + 1) * zoom} height={(Math.abs(drawing.y1 - drawing.y0) + 1) * zoom} />;
+            })()}
+            {hover && <rect className="hover-mark" x={toScreen(hover.x - 0.5, hover.y - 0.5)[0]} y={toScreen(hover.x - 0.5, hover.y - 0.5)[1]} width={Math.max(zoom, 3)} height={Math.max(zoom, 3)} />}
+          </>}
           footer={hover && <span>probe ({hover.y}, {hover.x})</span>} />
         <ImageView name="pattern" title="Pattern view" image={patternImage} imageKey={JSON.stringify(patternShows)} settings={state.patternView}
           onPointer={onPatternPointer}
@@ -376,6 +443,19 @@ export function App({ client, store, shell = null }: { client: Client; store: St
               remove={() => store.update((s) => ({ ...s, detectors: s.detectors.filter((x) => x.id !== d.id), activeDetector: s.activeDetector === d.id ? null : s.activeDetector }), { undoable: true })}
               toggle={() => store.update((s) => ({ ...s, detectors: s.detectors.map((x) => (x.id === d.id ? { ...x, visible: !x.visible } : x)) }), { undoable: true })}
               rename={(name) => store.update((s) => ({ ...s, detectors: s.detectors.map((x) => (x.id === d.id ? { ...x, name } : x)) }), { undoable: true })} />
+          ))}
+        </div>
+        <div className="panel" aria-label="Regions">
+          <h2>Regions</h2>
+          <div className="hint">Shift-drag on the Scan view draws one.</div>
+          {state.regions.map((g) => (
+            <div key={g.id} className={`item ${patternShows.kind === 'region' && patternShows.id === g.id ? 'on' : ''}`} onClick={() => void showRegion(g)}>
+              <span className="swatch" style={{ background: g.colour }} />
+              <input className="name" value={g.name} aria-label="region name" onChange={(e) => store.update((s) => ({ ...s, regions: s.regions.map((x) => (x.id === g.id ? { ...x, name: e.target.value } : x)) }), { undoable: true })} />
+              <span className="unit">{g.shape.kind === 'rectangle' ? `${g.shape.x0},${g.shape.y0} – ${g.shape.x1},${g.shape.y1}` : 'mask'}</span>
+              <button onClick={(e) => { e.stopPropagation(); void showRegion(g, 'max'); }}>max</button>
+              <button onClick={(e) => { e.stopPropagation(); store.update((s) => ({ ...s, regions: s.regions.filter((x) => x.id !== g.id) }), { undoable: true }); }}>delete</button>
+            </div>
           ))}
         </div>
         <div className="panel" aria-label="Field">
@@ -413,12 +493,24 @@ export function App({ client, store, shell = null }: { client: Client; store: St
           {kmeans && Array.from(kmeans.sizes, (size, k) => (
             <div key={k} className="item" onClick={() => { setScanShows({ kind: 'clusters' }); setPatternShows({ kind: 'cluster', k }); }}>
               <span className="swatch" style={{ background: CATEGORY_COLOURS[k % 10] }} /> cluster {k + 1}: {size} positions
+              <button onClick={(e) => { e.stopPropagation(); void addRegion({ kind: 'mask', width: ds!.scanX, height: ds!.scanY, values: Array.from(kmeans.labels, (l) => (l === k ? 1 : 0)) }, `cluster ${k + 1}`); }}>as region</button>
             </div>
           ))}
         </div>
+        <div className="panel" aria-label="Fit">
+          <h2>Fit</h2>
+          <div className="hint">Every pattern as a non-negative mix of the regions’ mean patterns.</div>
+          <button onClick={() => void runFit()} disabled={!first || state.regions.length === 0}>Fit with {state.regions.length} region{state.regions.length === 1 ? '' : 's'}</button>
+          {fit && <>
+            {fit.names.map((name, k) => (
+              <div key={k} className={`item ${scanShows.kind === 'fit' && scanShows.k === k ? 'on' : ''}`} onClick={() => setScanShows({ kind: 'fit', k })} title={fit.regions[k]}>weight of {name} ({fit.counts[k]} positions)</div>
+            ))}
+            <div className={`item ${scanShows.kind === 'residual' ? 'on' : ''}`} onClick={() => setScanShows({ kind: 'residual' })}>residual</div>
+          </>}
+        </div>
         <div className="panel activity" aria-label="Activity">
           <h2>Activity {running.length ? `(${running.length} running)` : ''}</h2>
-          {[...jobs.values()].reverse().slice(0, 12).map((j) => (
+          {[...jobs.values()].reverse().slice(0, 8).map((j) => (
             <div key={j.jobId} className={`job ${j.state}`} data-job={j.jobId}>
               <span className="job-label">{j.label}</span>
               <progress max={1} value={j.progress.fraction} />

@@ -3,6 +3,19 @@
 // reopen it exactly, and undo/redo over the changes marked undoable. Results (images, patterns)
 // are not state: they are recomputed from it, or held by the views.
 import type { DetectorShape } from '../src-shared/model/detectors';
+
+/** A region of the scan: a rectangle drawn on the Scan view (scan px, corners inclusive) or a cluster's positions. */
+export type RegionItemShape =
+  | { kind: 'rectangle'; x0: number; y0: number; x1: number; y1: number }
+  | { kind: 'mask'; width: number; height: number; values: number[] };
+
+export interface RegionItem {
+  id: string;
+  name: string;
+  colour: string;
+  visible: boolean;
+  shape: RegionItemShape;
+}
 import type { ColormapName } from './colormaps';
 import type { Scaling } from './views/contrast';
 
@@ -26,6 +39,7 @@ export interface ViewSettings {
 export interface AppState {
   dataset: { id: string; name: string; scanY: number; scanX: number; detY: number; detX: number; dtype: string } | null;
   detectors: DetectorItem[];
+  regions: RegionItem[];
   /** The detector whose image the Scan view shows. */
   activeDetector: string | null;
   scanView: ViewSettings;
@@ -35,6 +49,7 @@ export interface AppState {
 export const INITIAL_STATE: AppState = {
   dataset: null,
   detectors: [],
+  regions: [],
   activeDetector: null,
   scanView: { colormap: 'viridis', scaling: { kind: 'linear' }, limits: null },
   patternView: { colormap: 'magma', scaling: { kind: 'log' }, limits: null },

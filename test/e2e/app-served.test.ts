@@ -262,6 +262,38 @@ describe('served mode', () => {
     await snap('5-kmeans');
   });
 
+  it('a region drawn on the Scan view shows its mean pattern; a cluster becomes a region; the fit uses both', async () => {
+    await page.evaluate(() => window.scrollTo(0, 0));
+    const scan = (await page.locator('canvas[data-view=scan]').boundingBox())!;
+    const view = await viewState('scan');
+    const at = (x: number, y: number) => [scan.x + (x - view.place.cx) * view.place.zoom + view.cssSize / 2, scan.y + (y - view.place.cy) * view.place.zoom + view.cssSize / 2];
+    const [ax, ay] = at(4, 6);
+    const [bx, by] = at(9, 20);
+    await page.keyboard.down('Shift');
+    await page.mouse.move(ax, ay);
+    await page.mouse.down();
+    await page.mouse.move((ax + bx) / 2, (ay + by) / 2);
+    await page.mouse.move(bx, by);
+    await page.mouse.up();
+    await page.keyboard.up('Shift');
+    await expect.poll(async () => (await viewState('pattern'))?.label, { timeout: 20_000 }).toBe('mean pattern of region 1 (90 positions)');
+    const id = (await service.datasets())[0].id;
+    const rect = { kind: 'rectangle' as const, x0: 4, y0: 6, x1: 9, y1: 20 };
+    const engine = await service.regionPattern({ dataset: id, region: rect });
+    expect((await viewState('pattern')).values).toEqual(Array.from(engine.mean));
+    await snap('6a-region');
+    // Cluster 1 of the k-means run as a second region, then the fit with both.
+    await page.getByRole('button', { name: 'as region' }).first().click();
+    await expect.poll(async () => (await viewState('pattern'))?.label, { timeout: 20_000 }).toMatch(/^mean pattern of cluster 1/);
+    await page.getByRole('button', { name: 'Fit with 2 regions' }).click();
+    await expect.poll(async () => (await viewState('scan'))?.label, { timeout: 60_000 }).toMatch(/^fit weight of/);
+    const km = await service.kmeans({ dataset: id, clusters: 4 });
+    const mask = { kind: 'mask' as const, width: 64, height: 64, values: Array.from(km.labels, (l) => (l === 0 ? 1 : 0)) };
+    const want = await service.fit({ dataset: id, references: [rect, mask], nonnegative: true });
+    expect((await viewState('scan')).values).toEqual(Array.from(want.coefficients.subarray(0, 64 * 64)));
+    await snap('6b-fit');
+  });
+
   it('a corrupt file gives the engine’s message, and the app stays usable', async () => {
     const bad = path.join(dir, 'corrupt.npy');
     fs.writeFileSync(bad, Buffer.from('\x93NUMPY\x01\x00garbage that is not a header'));
@@ -271,6 +303,7 @@ describe('served mode', () => {
     await expect.poll(async () => (await alert.count()) > 0 ? alert.first().textContent() : '', { timeout: 20_000 }).toMatch(/corrupt\.npy/);
     await snap('6-corrupt-file');
     // Still usable: the hover still answers.
+    await page.evaluate(() => window.scrollTo(0, 0));
     const scan = (await page.locator('canvas[data-view=scan]').boundingBox())!;
     await page.mouse.move(scan.x + 100, scan.y + 100);
     await expect.poll(async () => (await viewState('pattern'))?.label, { timeout: 20_000 }).toMatch(/^pattern at/);
