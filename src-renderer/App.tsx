@@ -2,13 +2,13 @@
 // strip of panels (Detectors, Components, Clusters, Activity). Every number comes from the
 // engine through the contract; this file only asks and shows.
 import { useCallback, useEffect, useMemo, useRef, useState, useSyncExternalStore } from 'react';
-import type { ComFieldResult, FirstPassResult, FitResult, KmeansResult, PcaResult, RegionPatternResult } from '../src-shared/contract/service';
+import type { CalibrationResult, ComFieldResult, FirstPassResult, FitResult, KmeansResult, PcaResult, RegionPatternResult } from '../src-shared/contract/service';
 import type { JobInfo } from '../src-shared/contract/jobs';
 import type { DetectorShape } from '../src-shared/model/detectors';
 import { CATEGORY_COLOURS, colormapLut, type ColormapName } from './colormaps';
 import { wheelColour } from './views/contrast';
 import type { Client, Shell } from './connection';
-import type { AppState, DetectorItem, RegionItem, RegionItemShape, Store } from './store';
+import type { AppState, CalibrationInput, DetectorItem, RegionItem, RegionItemShape, Store } from './store';
 import { fmt, ImageView, type ImageData2D, type PointerInImage } from './views/ImageView';
 import { startTiming } from './test-hooks';
 
@@ -42,6 +42,7 @@ export function App({ client, store, shell = null }: { client: Client; store: St
   const [kmeans, setKmeans] = useState<KmeansResult | null>(null);
   const [field, setField] = useState<ComFieldResult | null>(null);
   const [fit, setFit] = useState<(FitResult & { names: string[] }) | null>(null);
+  const [calibration, setCalibration] = useState<CalibrationResult | null>(null);
   const [regionPatterns, setRegionPatterns] = useState<Map<string, RegionPatternResult>>(new Map());
   /** A rectangle being drawn on the Scan view (Shift-drag), scan px. */
   const [drawing, setDrawing] = useState<{ x0: number; y0: number; x1: number; y1: number } | null>(null);
@@ -75,12 +76,17 @@ export function App({ client, store, shell = null }: { client: Client; store: St
 
   const startDataset = useCallback(async (id: string, name: string, shape: { scanY: number; scanX: number; detY: number; detX: number }, dtype: string) => {
     store.update((s) => ({ ...s, dataset: { id, name, ...shape, dtype }, detectors: [], activeDetector: null }), { undoable: true });
-    setFirst(null); setPca(null); setKmeans(null); setField(null); setFit(null); setRegionPatterns(new Map()); setDetectorImages(new Map()); setFilling(null);
-    store.update((s) => ({ ...s, regions: [] }));
+    setFirst(null); setPca(null); setKmeans(null); setField(null); setFit(null); setRegionPatterns(new Map()); setDetectorImages(new Map()); setFilling(null); setCalibration(null);
+    store.update((s) => ({ ...s, regions: [], calibration: {} }));
     setScanShows({ kind: 'default', index: 0 }); setPatternShows({ kind: 'mean' });
     try {
       setFirst(await client.firstPass({ dataset: id, jobId: newJobId('first-pass') }));
-    } catch (e) { fail(e); }
+    } catch (e) { fail(e); return; }
+    // Calibration from the file's attributes, when it has them (a form fills in what is missing).
+    try {
+      const c = await client.calibrate({ dataset: id });
+      setCalibration(c);
+    } catch { /* no attributes to go by: the form says what is needed */ }
   }, [client, store, fail]);
 
   // Served mode opens the file given on the command line before the page loads.
@@ -297,11 +303,21 @@ export function App({ client, store, shell = null }: { client: Client; store: St
       setScanShows({ kind: 'loading', k: 0 }); setPatternShows({ kind: 'component', k: 0 });
     } catch (e) { fail(e); }
   };
+  const applyCalibration = async (input: CalibrationInput) => {
+    if (!ds) return;
+    setError(null);
+    store.update((s) => ({ ...s, calibration: input }), { undoable: true });
+    try {
+      setCalibration(await client.calibrate({ dataset: ds.id, ...input, jobId: newJobId('calibration') }));
+    } catch (e) { fail(e); }
+  };
+
   const runField = async (rotation: 'auto' | { degrees: number; flip: boolean } = 'auto') => {
     if (!ds) return;
     setError(null);
     try {
-      const r = await client.comField({ dataset: ds.id, rotation, jobId: newJobId('field') });
+      const cal = calibration?.scanStepNm ? { mradPerPixel: calibration.mradPerPixel, energyKeV: calibration.energyKeV, scanStepNm: calibration.scanStepNm } : undefined;
+      const r = await client.comField({ dataset: ds.id, rotation, jobId: newJobId('field'), ...(cal ? { calibration: cal } : {}) });
       setField(r);
       setRotationText(String(Math.round(r.rotation.degrees * 100) / 100));
       setFlip(r.rotation.flip);
@@ -393,6 +409,7 @@ export function App({ client, store, shell = null }: { client: Client; store: St
         <div className="dataset-line" data-testid="dataset">
           {ds ? <><strong>{ds.name}</strong> <span>scan {ds.scanY} × {ds.scanX}, patterns {ds.detY} × {ds.detX}, {ds.dtype}</span></> : <span>no dataset open</span>}
         </div>
+        {ds && <CalibrationForm result={calibration} input={state.calibration} apply={(c) => void applyCalibration(c)} />}
         <form className="open-form" onSubmit={(e) => { e.preventDefault(); void openFile(); }}>
  <input ref={openInputRef} aria-label="file to open" placeholder="path of an HDF5, .npy or raw file" value={openPath} onChange={(e) => setOpenPath(e.target.value)} />
           <button type="submit">Open</button>
@@ -404,6 +421,7 @@ export function App({ client, store, shell = null }: { client: Client; store: St
         <ImageView name="scan" title="Scan view" image={scanView.image} imageKey={JSON.stringify(scanShows)} settings={state.scanView} colormap={scanView.colormap} limits={scanView.limits}
           onPointer={onScanPointer}
           onSettings={(v) => store.update((s) => ({ ...s, scanView: v }), { undoable: true })}
+          pixelSize={calibration?.scanStepNm && scanView.image && ds && scanView.image.width === ds.scanX ? { size: calibration.scanStepNm, unit: 'nm' } : undefined}
           overlay={(toScreen, zoom) => <>
             {state.regions.filter((g) => g.visible && g.shape.kind === 'rectangle').map((g) => {
               const s = g.shape as { x0: number; y0: number; x1: number; y1: number };
@@ -420,6 +438,7 @@ export function App({ client, store, shell = null }: { client: Client; store: St
         <ImageView name="pattern" title="Pattern view" image={patternImage} imageKey={JSON.stringify(patternShows)} settings={state.patternView}
           onPointer={onPatternPointer}
           onSettings={(v) => store.update((s) => ({ ...s, patternView: v }), { undoable: true })}
+          pixelSize={calibration && patternImage && ds && patternImage.width === ds.detX ? { size: calibration.mradPerPixel, unit: 'mrad' } : undefined}
           overlay={(toScreen, zoom) => patternIsDetectorSpace && state.detectors.filter((d) => d.visible).map((d) => (
             <DetectorOverlay key={d.id} item={d} active={d.id === state.activeDetector} toScreen={toScreen} zoom={zoom} />
           ))} />
@@ -440,6 +459,7 @@ export function App({ client, store, shell = null }: { client: Client; store: St
             <DetectorEntry key={d.id} item={d} active={d.id === state.activeDetector}
               select={() => { store.update((s) => ({ ...s, activeDetector: d.id })); setScanShows({ kind: 'detector', id: d.id }); setPatternShows({ kind: 'mean' }); }}
               change={(shape) => { setShape(d.id, shape, true); previewDetector({ ...d, shape }); void exactDetector({ ...d, shape }); }}
+              mradPerPixel={calibration?.mradPerPixel}
               remove={() => store.update((s) => ({ ...s, detectors: s.detectors.filter((x) => x.id !== d.id), activeDetector: s.activeDetector === d.id ? null : s.activeDetector }), { undoable: true })}
               toggle={() => store.update((s) => ({ ...s, detectors: s.detectors.map((x) => (x.id === d.id ? { ...x, visible: !x.visible } : x)) }), { undoable: true })}
               rename={(name) => store.update((s) => ({ ...s, detectors: s.detectors.map((x) => (x.id === d.id ? { ...x, name } : x)) }), { undoable: true })} />
@@ -540,7 +560,7 @@ function DetectorOverlay({ item, active, toScreen, zoom }: { item: DetectorItem;
   );
 }
 
-function DetectorEntry(p: { item: DetectorItem; active: boolean; select(): void; change(s: DetectorShape): void; remove(): void; toggle(): void; rename(n: string): void }) {
+function DetectorEntry(p: { item: DetectorItem; active: boolean; select(): void; change(s: DetectorShape): void; remove(): void; toggle(): void; rename(n: string): void; mradPerPixel?: number }) {
   const s = p.item.shape;
   const fields: [string, number][] = s.kind === 'disk' ? [['cx', s.cx], ['cy', s.cy], ['r', s.r]]
     : s.kind === 'annulus' ? [['cx', s.cx], ['cy', s.cy], ['rInner', s.rInner], ['rOuter', s.rOuter]] : [];
@@ -552,7 +572,8 @@ function DetectorEntry(p: { item: DetectorItem; active: boolean; select(): void;
         <label key={k}>{k} <input type="number" step="0.5" value={v} aria-label={`${p.item.name} ${k}`}
           onChange={(e) => { const n = Number(e.target.value); if (Number.isFinite(n)) p.change({ ...s, [k]: n } as DetectorShape); }} /></label>
       ))}
-      <span className="unit">px</span>
+      <span className="unit">px{p.mradPerPixel && (s.kind === 'disk' || s.kind === 'annulus')
+        ? ` (${s.kind === 'disk' ? fmt(s.r * p.mradPerPixel) : `${fmt(s.rInner * p.mradPerPixel)}–${fmt(s.rOuter * p.mradPerPixel)}`} mrad)` : ''}</span>
       <button onClick={(e) => { e.stopPropagation(); p.toggle(); }}>{p.item.visible ? 'hide' : 'show'}</button>
       <button onClick={(e) => { e.stopPropagation(); p.remove(); }}>delete</button>
     </div>
@@ -622,5 +643,45 @@ function ColourWheel() {
   return (
     <div className="wheel"><canvas ref={ref} width={64} height={64} aria-label="colour wheel: direction of the COM shift (+x to the right, +y down), brightness its length" />
       <span>→ +x, ↓ +y</span></div>
+  );
+}
+
+/** The calibration in the header: what it is, and a form for what the file does not say. */
+function CalibrationForm({ result, input, apply }: { result: CalibrationResult | null; input: CalibrationInput; apply(c: CalibrationInput): void }) {
+  const [open, setOpen] = useState(false);
+  const [draft, setDraft] = useState<Record<string, string>>({});
+  useEffect(() => {
+    setDraft({
+      energyKeV: input.energyKeV?.toString() ?? '', convergenceMrad: input.convergenceMrad?.toString() ?? '',
+      latticeSpacingAngstrom: input.latticeSpacingAngstrom?.toString() ?? '', scanStepNm: input.scanStepNm?.toString() ?? '',
+    });
+  }, [input]);
+  const field = (key: string, label: string) => (
+    <label key={key}>{label} <input aria-label={label} type="number" step="any" value={draft[key] ?? ''} placeholder={result?.valueSources[key] ? 'from the file' : ''}
+      onChange={(e) => setDraft({ ...draft, [key]: e.target.value })} /></label>
+  );
+  const summary = result
+    ? `${fmt(result.energyKeV)} keV · ${fmt(result.mradPerPixel)} mrad/px${result.scanStepNm ? ` · ${fmt(result.scanStepNm)} nm/step` : ''}`
+    : 'not calibrated';
+  return (
+    <div className="calibration">
+      <button type="button" onClick={() => setOpen(!open)} aria-expanded={open} title="beam energy, convergence semi-angle or a lattice spacing, scan step">{summary}</button>
+      {open && (
+        <form className="calibration-form" onSubmit={(e) => {
+          e.preventDefault();
+          const num = (k: string) => (draft[k] && Number.isFinite(Number(draft[k])) ? Number(draft[k]) : undefined);
+          const c: CalibrationInput = { energyKeV: num('energyKeV'), convergenceMrad: num('convergenceMrad'), latticeSpacingAngstrom: num('latticeSpacingAngstrom'), scanStepNm: num('scanStepNm') };
+          apply(Object.fromEntries(Object.entries(c).filter(([, v]) => v !== undefined)) as CalibrationInput);
+          setOpen(false);
+        }}>
+          {field('energyKeV', 'beam energy (keV)')}
+          {field('convergenceMrad', 'convergence semi-angle (mrad)')}
+          {field('latticeSpacingAngstrom', 'or a lattice spacing (Å)')}
+          {field('scanStepNm', 'scan step (nm)')}
+          {result && <div className="hint">{Object.entries(result.valueSources).map(([k, v]) => `${k}: ${v}`).join('; ')}</div>}
+          <button type="submit">calibrate</button>
+        </form>
+      )}
+    </div>
   );
 }

@@ -36,10 +36,19 @@ export interface ViewSettings {
   limitsFor?: string | null;
 }
 
+/** What the user gave (or the file's attributes gave) for the calibration; empty fields are read from the file. */
+export interface CalibrationInput {
+  energyKeV?: number;
+  convergenceMrad?: number;
+  latticeSpacingAngstrom?: number;
+  scanStepNm?: number;
+}
+
 export interface AppState {
   dataset: { id: string; name: string; scanY: number; scanX: number; detY: number; detX: number; dtype: string } | null;
   detectors: DetectorItem[];
   regions: RegionItem[];
+  calibration: CalibrationInput;
   /** The detector whose image the Scan view shows. */
   activeDetector: string | null;
   scanView: ViewSettings;
@@ -50,6 +59,7 @@ export const INITIAL_STATE: AppState = {
   dataset: null,
   detectors: [],
   regions: [],
+  calibration: {},
   activeDetector: null,
   scanView: { colormap: 'viridis', scaling: { kind: 'linear' }, limits: null },
   patternView: { colormap: 'magma', scaling: { kind: 'log' }, limits: null },

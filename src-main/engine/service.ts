@@ -542,6 +542,7 @@ export class EngineService implements ScanfoldService {
           : { source: 'lattice-spacing', energyKeV, latticeSpacingAngstrom: lattice, braggDistancePx: braggPx!, scanStepNm });
         return {
           dataset: r.id,
+          energyKeV,
           wavelengthPm: cal.wavelengthPm,
           disk,
           mradPerPixel: cal.mradPerPixel,

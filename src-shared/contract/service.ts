@@ -175,6 +175,8 @@ export interface CalibrationRequest extends JobOptions {
 
 export interface CalibrationResult {
   dataset: DatasetId;
+  /** The beam energy used (given, or read from the dataset's attributes). */
+  energyKeV: number;
   wavelengthPm: number;
   disk: BrightFieldDisk;
   mradPerPixel: number;

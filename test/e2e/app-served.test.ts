@@ -161,6 +161,22 @@ describe('served mode', () => {
     await snap('1-opened');
   });
 
+  it('calibrates from the file’s attributes, shows mrad and nm on the scale bars, and takes values from the form', async () => {
+    const id = (await service.datasets())[0].id;
+    const c = await service.calibrate({ dataset: id });
+    const summary = page.locator('.calibration > button');
+    const fmt = (v: number) => Number(v.toPrecision(4)).toString();
+    await expect.poll(() => summary.textContent(), { timeout: 20_000 }).toBe(`${fmt(c.energyKeV)} keV · ${fmt(c.mradPerPixel)} mrad/px · ${fmt(c.scanStepNm!)} nm/step`);
+    expect(await page.locator('[aria-label="Pattern view"] .scale-bar text').textContent()).toMatch(/ mrad$/);
+    expect(await page.locator('[aria-label="Scan view"] .scale-bar text').textContent()).toMatch(/ nm$/);
+    await summary.click();
+    await page.getByLabel('convergence semi-angle (mrad)').fill('25');
+    await page.getByRole('button', { name: 'calibrate' }).click();
+    const given = await service.calibrate({ dataset: id, convergenceMrad: 25 });
+    expect(given.mradPerPixel).not.toBeCloseTo(c.mradPerPixel, 3);
+    await expect.poll(() => summary.textContent(), { timeout: 20_000 }).toContain(`${fmt(given.mradPerPixel)} mrad/px`);
+  });
+
   it('hovering the Scan view shows the engine’s pattern at that probe position', async () => {
     const scan = (await page.locator('canvas[data-view=scan]').boundingBox())!;
     const view = await viewState('scan');
