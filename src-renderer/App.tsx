@@ -29,7 +29,20 @@ function useStore(store: Store): AppState {
 let jobCounter = 0;
 const newJobId = (what: string) => `${what}-${Date.now().toString(36)}-${++jobCounter}`;
 
+/** Both views at the same size, as large as the window allows beside each other above the panels. */
+function useViewSize(): number {
+  const measure = () => Math.max(300, Math.min(760, Math.floor((window.innerWidth - 40) / 2), window.innerHeight - 330));
+  const [size, setSize] = useState(measure);
+  useEffect(() => {
+    const onResize = () => setSize(measure());
+    window.addEventListener('resize', onResize);
+    return () => window.removeEventListener('resize', onResize);
+  }, []);
+  return size;
+}
+
 export function App({ client, store, shell = null }: { client: Client; store: Store; shell?: Shell | null }) {
+  const viewSize = useViewSize();
   const state = useStore(store);
   const ds = state.dataset;
   const [first, setFirst] = useState<FirstPassResult | null>(null);
@@ -418,7 +431,7 @@ export function App({ client, store, shell = null }: { client: Client; store: St
       </header>
       {error && <div className="error" role="alert">{error} <button onClick={() => setError(null)}>dismiss</button></div>}
       <main className="views">
-        <ImageView name="scan" title="Scan view" image={scanView.image} imageKey={JSON.stringify(scanShows)} settings={state.scanView} colormap={scanView.colormap} limits={scanView.limits}
+        <ImageView name="scan" title="Scan view" size={viewSize} image={scanView.image} imageKey={JSON.stringify(scanShows)} settings={state.scanView} colormap={scanView.colormap} limits={scanView.limits}
           onPointer={onScanPointer}
           onSettings={(v) => store.update((s) => ({ ...s, scanView: v }), { undoable: true })}
           pixelSize={calibration?.scanStepNm && scanView.image && ds && scanView.image.width === ds.scanX ? { size: calibration.scanStepNm, unit: 'nm' } : undefined}
@@ -435,7 +448,7 @@ export function App({ client, store, shell = null }: { client: Client; store: St
             {hover && <rect className="hover-mark" x={toScreen(hover.x - 0.5, hover.y - 0.5)[0]} y={toScreen(hover.x - 0.5, hover.y - 0.5)[1]} width={Math.max(zoom, 3)} height={Math.max(zoom, 3)} />}
           </>}
           footer={hover && <span>probe ({hover.y}, {hover.x})</span>} />
-        <ImageView name="pattern" title="Pattern view" image={patternImage} imageKey={JSON.stringify(patternShows)} settings={state.patternView}
+        <ImageView name="pattern" title="Pattern view" size={viewSize} image={patternImage} imageKey={JSON.stringify(patternShows)} settings={state.patternView}
           onPointer={onPatternPointer}
           onSettings={(v) => store.update((s) => ({ ...s, patternView: v }), { undoable: true })}
           pixelSize={calibration && patternImage && ds && patternImage.width === ds.detX ? { size: calibration.mradPerPixel, unit: 'mrad' } : undefined}

@@ -47,11 +47,15 @@ export interface ImageViewProps {
   onSettings?: (s: ViewSettings) => void;
   /** Names what the view shows (manual limits hold for one such key). */
   imageKey?: string;
+  /** Side of the (square) view, CSS px. */
+  size?: number;
 }
 
-const SIZE = 440;
+/** The default side of a view, CSS px. */
+export const DEFAULT_VIEW_SIZE = 440;
 
 export function ImageView(props: ImageViewProps) {
+  const SIZE = props.size ?? DEFAULT_VIEW_SIZE;
   const canvasRef = useRef<HTMLCanvasElement>(null);
   const layerRef = useRef<ImageLayer | null>(null);
   const [place, setPlace] = useState<Placement>({ zoom: 1, cx: 0, cy: 0 });
@@ -77,11 +81,11 @@ export function ImageView(props: ImageViewProps) {
   // Fit the image when its size changes.
   useEffect(() => {
     if (!image) return;
-    const key = `${image.width}x${image.height}`;
+    const key = `${image.width}x${image.height}@${SIZE}`;
     if (key === fittedFor) return;
     setFittedFor(key);
-    setPlace(fit(image.width, image.height));
-  }, [image, fittedFor]);
+    setPlace(fit(image.width, image.height, SIZE));
+  }, [image, fittedFor, SIZE]);
 
   useEffect(() => {
     const layer = layerRef.current;
@@ -95,7 +99,7 @@ export function ImageView(props: ImageViewProps) {
     layer.render(contrast, colormap, { zoom: place.zoom * dpr, cx: place.cx, cy: place.cy }, image?.lengths !== undefined);
     registerView(props.name, { layer, contrast, colormap, place, image, cssSize: SIZE });
     if (image?.token) endTiming(image.token);
-  }, [image, contrast, colormap, place, dpr, props.name]);
+  }, [image, contrast, colormap, place, dpr, props.name, SIZE]);
 
   const toImage = (clientX: number, clientY: number): [number, number] => {
     const r = canvasRef.current!.getBoundingClientRect();
@@ -109,7 +113,7 @@ export function ImageView(props: ImageViewProps) {
   };
 
   return (
-    <section className="view" aria-label={props.title}>
+    <section className="view" aria-label={props.title} style={{ width: SIZE + 2 }}>
       <header className="view-title">
         <span>{props.title}</span>
         <span className="view-what">{image?.label ?? '—'}</span>
@@ -121,7 +125,7 @@ export function ImageView(props: ImageViewProps) {
           // Keep the image point under the pointer where it is.
           setPlace({ zoom, cx: x - (x - place.cx) * (place.zoom / zoom), cy: y - (y - place.cy) * (place.zoom / zoom) });
         }}
-        onDoubleClick={() => image && setPlace(fit(image.width, image.height))}
+        onDoubleClick={() => image && setPlace(fit(image.width, image.height, SIZE))}
         onPointerDown={(e) => {
           (e.target as Element).setPointerCapture?.(e.pointerId);
           if (e.button === 1 || (e.button === 0 && e.shiftKey && !props.onPointer)) {
@@ -147,7 +151,7 @@ export function ImageView(props: ImageViewProps) {
         <canvas ref={canvasRef} width={SIZE * dpr} height={SIZE * dpr} style={{ width: SIZE, height: SIZE }} data-view={props.name} />
         <svg className="view-overlay" width={SIZE} height={SIZE}>
           {props.overlay?.(toScreen, place.zoom)}
-          <ScaleBar zoom={place.zoom} pixelSize={props.pixelSize} />
+          <ScaleBar zoom={place.zoom} pixelSize={props.pixelSize} size={SIZE} />
         </svg>
       </div>
       <footer className="view-footer">
@@ -161,12 +165,12 @@ export function ImageView(props: ImageViewProps) {
   );
 }
 
-function fit(w: number, h: number): Placement {
-  return { zoom: Math.min(SIZE / w, SIZE / h) * 0.96, cx: (w - 1) / 2, cy: (h - 1) / 2 };
+function fit(w: number, h: number, size: number): Placement {
+  return { zoom: Math.min(size / w, size / h) * 0.96, cx: (w - 1) / 2, cy: (h - 1) / 2 };
 }
 
 /** A bar of a round length (1, 2 or 5 × 10ⁿ) about a fifth of the view wide. */
-function ScaleBar({ zoom, pixelSize }: { zoom: number; pixelSize?: { size: number; unit: string } }) {
+function ScaleBar({ zoom, pixelSize, size: SIZE }: { zoom: number; pixelSize?: { size: number; unit: string }; size: number }) {
   const per = pixelSize?.size ?? 1;
   const unit = pixelSize?.unit ?? 'px';
   const target = (SIZE / 5 / zoom) * per;
