@@ -8,19 +8,14 @@ import type { DetectorShape } from '../src-shared/model/detectors';
 import { CATEGORY_COLOURS, colormapLut, type ColormapName } from './colormaps';
 import { wheelColour } from './views/contrast';
 import type { Client, Shell } from './connection';
-import type { AppState, CalibrationInput, DetectorItem, RegionItem, RegionItemShape, Store } from './store';
+import type { AppState, CalibrationInput, DetectorItem, PatternShows, RegionItem, RegionItemShape, ScanShows, Store } from './store';
 import { fmt, ImageView, type ImageData2D, type PointerInImage } from './views/ImageView';
 import { startTiming } from './test-hooks';
 
 type Job = JobInfo & { jobId: string };
-/** What the Scan view shows. */
-type ScanShows = { kind: 'detector'; id: string } | { kind: 'default'; index: number } | { kind: 'loading'; k: number } | { kind: 'clusters' } | { kind: 'field'; map: string }
-  | { kind: 'fit'; k: number } | { kind: 'residual' };
 
 /** The field's maps the panel offers, in order; 'direction' is drawn on the colour wheel with the magnitude as brightness. */
 const FIELD_MAPS = ['direction', 'magnitude', 'divergence', 'curl', 'phase', 'com_x', 'com_y'] as const;
-/** What the Pattern view shows. */
-type PatternShows = { kind: 'position' } | { kind: 'mean' } | { kind: 'component'; k: number } | { kind: 'cluster'; k: number } | { kind: 'region'; id: string; stat: 'mean' | 'max' };
 
 function useStore(store: Store): AppState {
   return useSyncExternalStore((l) => store.subscribe(l), () => store.get());
@@ -61,8 +56,12 @@ export function App({ client, store, shell = null }: { client: Client; store: St
   const [drawing, setDrawing] = useState<{ x0: number; y0: number; x1: number; y1: number } | null>(null);
   const [rotationText, setRotationText] = useState('');
   const [flip, setFlip] = useState(false);
-  const [scanShows, setScanShows] = useState<ScanShows>({ kind: 'default', index: 0 });
-  const [patternShows, setPatternShows] = useState<PatternShows>({ kind: 'mean' });
+  // What each view shows lives in the store (a session reopens it), outside undo.
+  const scanShows = state.shows.scan;
+  const patternShows = state.shows.pattern;
+  const setScanShows = useCallback((v: ScanShows) => store.update((s) => ({ ...s, shows: { ...s.shows, scan: v } })), [store]);
+  const setPatternShows = useCallback((v: PatternShows) => store.update((s) => ({ ...s, shows: { ...s.shows, pattern: v } })), [store]);
+  const setAnalyses = (change: Partial<AppState['analyses']>) => store.update((s) => ({ ...s, analyses: { ...s.analyses, ...change } }), { undoable: true });
   const [openPath, setOpenPath] = useState('');
 
   const fail = useCallback((e: unknown) => {
@@ -311,7 +310,7 @@ export function App({ client, store, shell = null }: { client: Client; store: St
     if (!ds) return;
     setError(null);
     try {
-      const r = await client.pca({ dataset: ds.id, components: 8, jobId: newJobId('pca') });
+      const r = await client.pca({ dataset: ds.id, components: store.get().analyses.pcaComponents, jobId: newJobId('pca') });
       setPca(r);
       setScanShows({ kind: 'loading', k: 0 }); setPatternShows({ kind: 'component', k: 0 });
     } catch (e) { fail(e); }
@@ -325,12 +324,15 @@ export function App({ client, store, shell = null }: { client: Client; store: St
     } catch (e) { fail(e); }
   };
 
-  const runField = async (rotation: 'auto' | { degrees: number; flip: boolean } = 'auto') => {
+  const runField = async (rotation: 'auto' | { degrees: number; flip: boolean } = store.get().analyses.fieldRotation) => {
     if (!ds) return;
     setError(null);
+    setAnalyses({ fieldRotation: rotation });
+    const descanRegion = store.get().regions.find((g) => g.id === store.get().analyses.descanRegion && g.shape.kind === 'rectangle');
+    const descan = descanRegion ? { descan: { kind: 'reference' as const, region: descanRegion.shape as { x0: number; y0: number; x1: number; y1: number } } } : {};
     try {
       const cal = calibration?.scanStepNm ? { mradPerPixel: calibration.mradPerPixel, energyKeV: calibration.energyKeV, scanStepNm: calibration.scanStepNm } : undefined;
-      const r = await client.comField({ dataset: ds.id, rotation, jobId: newJobId('field'), ...(cal ? { calibration: cal } : {}) });
+      const r = await client.comField({ dataset: ds.id, rotation, jobId: newJobId('field'), ...descan, ...(cal ? { calibration: cal } : {}) });
       setField(r);
       setRotationText(String(Math.round(r.rotation.degrees * 100) / 100));
       setFlip(r.rotation.flip);
@@ -351,7 +353,7 @@ export function App({ client, store, shell = null }: { client: Client; store: St
     if (!ds) return;
     setError(null);
     try {
-      const r = await client.kmeans({ dataset: ds.id, clusters: 4, jobId: newJobId('kmeans') });
+      const r = await client.kmeans({ dataset: ds.id, clusters: store.get().analyses.kmeansClusters, jobId: newJobId('kmeans') });
       setKmeans(r);
       setScanShows({ kind: 'clusters' }); setPatternShows({ kind: 'cluster', k: 0 });
     } catch (e) { fail(e); }
@@ -493,6 +495,12 @@ export function App({ client, store, shell = null }: { client: Client; store: St
         </div>
         <div className="panel" aria-label="Field">
           <h2>Field (COM)</h2>
+          <div className="row">
+            <label>descan <select aria-label="descan reference" value={state.analyses.descanRegion ?? ''} onChange={(e) => setAnalyses({ descanRegion: e.target.value || null })}>
+              <option value="">vacuum found, else the mean</option>
+              {state.regions.filter((g) => g.shape.kind === 'rectangle').map((g) => <option key={g.id} value={g.id}>{g.name}</option>)}
+            </select></label>
+          </div>
           <button onClick={() => void runField()} disabled={!first}>Compute field</button>
           {field && <>
             <div className="field-maps">
@@ -517,12 +525,20 @@ export function App({ client, store, shell = null }: { client: Client; store: St
         </div>
         <div className="panel" aria-label="Components">
           <h2>Components</h2>
-          <button onClick={() => void runPca()} disabled={!first}>Run PCA (8)</button>
+          <div className="row">
+            <label>components <input type="number" min={1} max={64} aria-label="PCA components" value={state.analyses.pcaComponents}
+              onChange={(e) => { const n = Math.round(Number(e.target.value)); if (n >= 1 && n <= 64) setAnalyses({ pcaComponents: n }); }} /></label>
+            <button onClick={() => void runPca()} disabled={!first}>Run PCA</button>
+          </div>
           {pca && <Scree pca={pca} selected={scanShows.kind === 'loading' ? scanShows.k : -1} pick={(k) => { setScanShows({ kind: 'loading', k }); setPatternShows({ kind: 'component', k }); }} />}
         </div>
         <div className="panel" aria-label="Clusters">
           <h2>Clusters</h2>
-          <button onClick={() => void runKmeans()} disabled={!first}>Run k-means (4)</button>
+          <div className="row">
+            <label>clusters <input type="number" min={2} max={10} aria-label="k-means clusters" value={state.analyses.kmeansClusters}
+              onChange={(e) => { const n = Math.round(Number(e.target.value)); if (n >= 2 && n <= 10) setAnalyses({ kmeansClusters: n }); }} /></label>
+            <button onClick={() => void runKmeans()} disabled={!first}>Run k-means</button>
+          </div>
           {kmeans && Array.from(kmeans.sizes, (size, k) => (
             <div key={k} className="item" onClick={() => { setScanShows({ kind: 'clusters' }); setPatternShows({ kind: 'cluster', k }); }}>
               <span className="swatch" style={{ background: CATEGORY_COLOURS[k % 10] }} /> cluster {k + 1}: {size} positions

@@ -44,11 +44,29 @@ export interface CalibrationInput {
   scanStepNm?: number;
 }
 
+/** What the Scan view shows. */
+export type ScanShows = { kind: 'detector'; id: string } | { kind: 'default'; index: number } | { kind: 'loading'; k: number } | { kind: 'clusters' }
+  | { kind: 'field'; map: string } | { kind: 'fit'; k: number } | { kind: 'residual' };
+/** What the Pattern view shows. */
+export type PatternShows = { kind: 'position' } | { kind: 'mean' } | { kind: 'component'; k: number } | { kind: 'cluster'; k: number }
+  | { kind: 'region'; id: string; stat: 'mean' | 'max' };
+
+/** The parameters of the analyses, as the panels set them. */
+export interface AnalysisSettings {
+  pcaComponents: number;
+  kmeansClusters: number;
+  /** The rectangle region whose COM is the descan reference, or null: the engine's default (vacuum found, else the mean). */
+  descanRegion: string | null;
+  fieldRotation: 'auto' | { degrees: number; flip: boolean };
+}
+
 export interface AppState {
   dataset: { id: string; name: string; scanY: number; scanX: number; detY: number; detX: number; dtype: string } | null;
   detectors: DetectorItem[];
   regions: RegionItem[];
   calibration: CalibrationInput;
+  analyses: AnalysisSettings;
+  shows: { scan: ScanShows; pattern: PatternShows };
   /** The detector whose image the Scan view shows. */
   activeDetector: string | null;
   scanView: ViewSettings;
@@ -60,6 +78,8 @@ export const INITIAL_STATE: AppState = {
   detectors: [],
   regions: [],
   calibration: {},
+  analyses: { pcaComponents: 8, kmeansClusters: 4, descanRegion: null, fieldRotation: 'auto' },
+  shows: { scan: { kind: 'default', index: 0 }, pattern: { kind: 'mean' } },
   activeDetector: null,
   scanView: { colormap: 'viridis', scaling: { kind: 'linear' }, limits: null },
   patternView: { colormap: 'magma', scaling: { kind: 'log' }, limits: null },
@@ -97,7 +117,8 @@ export class Store {
     const prev = this.past.pop();
     if (!prev) return false;
     this.future.push(this.state);
-    this.state = prev;
+    // What the views show is a choice of the moment, not an edit: undo leaves it.
+    this.state = { ...prev, shows: this.state.shows };
     this.changed();
     return true;
   }
@@ -106,7 +127,7 @@ export class Store {
     const next = this.future.pop();
     if (!next) return false;
     this.past.push(this.state);
-    this.state = next;
+    this.state = { ...next, shows: this.state.shows };
     this.changed();
     return true;
   }

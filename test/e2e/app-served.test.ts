@@ -267,11 +267,11 @@ describe('served mode', () => {
   });
 
   it('runs PCA and k-means from their panels', async () => {
-    await page.getByRole('button', { name: 'Run PCA (8)' }).click();
+    await page.getByRole('button', { name: 'Run PCA' }).click();
     await expect.poll(async () => (await viewState('scan'))?.label, { timeout: 60_000 }).toBe('loading map 1');
     expect((await viewState('pattern')).label).toMatch(/^component pattern 1/);
     await snap('4-pca');
-    await page.getByRole('button', { name: 'Run k-means (4)' }).click();
+    await page.getByRole('button', { name: 'Run k-means' }).click();
     await expect.poll(async () => (await viewState('scan'))?.label, { timeout: 60_000 }).toBe('cluster map (4 clusters)');
     const labels = (await viewState('scan')).values;
     expect(new Set(labels).size).toBe(4);
@@ -308,6 +308,14 @@ describe('served mode', () => {
     const want = await service.fit({ dataset: id, references: [rect, mask], nonnegative: true });
     expect((await viewState('scan')).values).toEqual(Array.from(want.coefficients.subarray(0, 64 * 64)));
     await snap('6b-fit');
+    // The drawn region as the field's descan reference (the rotation stays the one given before).
+    await page.getByLabel('descan reference').selectOption({ label: 'region 1' });
+    const flip = await page.getByLabel('field flip').isChecked();
+    await page.getByRole('button', { name: 'Compute field' }).click();
+    const descanned = await service.comField({ dataset: id, rotation: { degrees: 30, flip }, descan: { kind: 'reference', region: { x0: 4, y0: 6, x1: 9, y1: 20 } } });
+    expect(descanned.descan).toMatch(/region given/);
+    await expect.poll(async () => (await viewState('scan')).values, { timeout: 60_000 }).toEqual(Array.from(descanned.maps.direction.data));
+    await expect.poll(() => page.locator('.facts').textContent()).toMatch(/descan: reference \(region given\)/);
   });
 
   it('a corrupt file gives the engine’s message, and the app stays usable', async () => {

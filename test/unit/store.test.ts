@@ -47,3 +47,17 @@ describe('store', () => {
     expect(new Store().get()).toEqual(INITIAL_STATE);
   });
 });
+
+describe('store, views', () => {
+  it('undo and redo leave what the views show as it is', () => {
+    const s = new Store();
+    s.update((st) => ({ ...st, detectors: [annulus] }), { undoable: true });
+    s.update((st) => ({ ...st, shows: { ...st.shows, scan: { kind: 'detector', id: 'd1' } } }));
+    s.undo();
+    expect(s.get().detectors).toEqual([]);
+    expect(s.get().shows.scan).toEqual({ kind: 'detector', id: 'd1' });
+    s.redo();
+    expect(s.get().detectors).toEqual([annulus]);
+    expect(s.get().shows.scan).toEqual({ kind: 'detector', id: 'd1' });
+  });
+});
