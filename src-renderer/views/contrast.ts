@@ -1,6 +1,7 @@
 // How a view turns values into a position on its colour map: limits (automatic from percentiles
 // of the finite values, or the user's), then linear, log or gamma scaling. The same function
 // runs in the fragment shader (image-layer.ts) and in tests, so both agree on every pixel.
+import { selectKth } from '../../src-shared/compute/select';
 
 export type Scaling = { kind: 'linear' } | { kind: 'log' } | { kind: 'gamma'; gamma: number };
 
@@ -21,8 +22,8 @@ export function percentileLimits(values: ArrayLike<number>, p = 0.5): [number, n
   if (!n) return [0, 1];
   const a = finite.subarray(0, n);
   const rank = (q: number) => Math.min(n - 1, Math.max(0, Math.round((q / 100) * (n - 1))));
-  let lo = select(a, rank(p));
-  let hi = select(a, rank(100 - p));
+  let lo = selectKth(a, rank(p));
+  let hi = selectKth(a, rank(100 - p));
   if (!(hi > lo)) {
     let min = Infinity, max = -Infinity;
     for (let i = 0; i < n; i++) { if (a[i] < min) min = a[i]; if (a[i] > max) max = a[i]; }
@@ -30,28 +31,6 @@ export function percentileLimits(values: ArrayLike<number>, p = 0.5): [number, n
   }
   if (!(hi > lo)) hi = lo + 1;
   return [lo, hi];
-}
-
-/** The k-th smallest value of `a` (0-based), reordering `a` (Hoare's selection, median-of-three pivots). */
-export function select(a: Float64Array, k: number): number {
-  let left = 0;
-  let right = a.length - 1;
-  while (right > left) {
-    const mid = (left + right) >>> 1;
-    // Median of three as the pivot keeps sorted or constant runs from going quadratic.
-    const x = a[left], y = a[mid], z = a[right];
-    const pivot = x < y ? (y < z ? y : x < z ? z : x) : (x < z ? x : y < z ? z : y);
-    let i = left, j = right;
-    while (i <= j) {
-      while (a[i] < pivot) i++;
-      while (a[j] > pivot) j--;
-      if (i <= j) { const t = a[i]; a[i] = a[j]; a[j] = t; i++; j--; }
-    }
-    if (k <= j) right = j;
-    else if (k >= i) left = i;
-    else return a[k];
-  }
-  return a[k];
 }
 
 /**

@@ -1,5 +1,6 @@
 import { InputError } from '../model/errors';
 import { replaceBadPixels } from './bad-pixels';
+import { median3, selectKth } from './select';
 
 /**
  * Centre and radius of the bright-field disk on a mean pattern, to sub-pixel accuracy.
@@ -228,30 +229,10 @@ function median3x3(image: Float64Array, detY: number, detX: number): Float64Arra
   return out;
 }
 
-/** The q-quantile (nearest rank) of the values, by quickselect on a copy. */
+/** The q-quantile (nearest rank) of the values, by selection on a copy. */
 function quantile(values: Float64Array, q: number): number {
   const a = Float64Array.from(values);
-  const k = Math.min(a.length - 1, Math.max(0, Math.floor(q * (a.length - 1))));
-  let lo = 0, hi = a.length - 1;
-  while (lo < hi) {
-    const mid = (lo + hi) >> 1;
-    // Median-of-three pivot keeps sorted or constant inputs from going quadratic.
-    const p = median3(a[lo], a[mid], a[hi]);
-    let i = lo, j = hi;
-    while (i <= j) {
-      while (a[i] < p) i++;
-      while (a[j] > p) j--;
-      if (i <= j) { const t = a[i]; a[i] = a[j]; a[j] = t; i++; j--; }
-    }
-    if (k <= j) hi = j;
-    else if (k >= i) lo = i;
-    else return a[k];
-  }
-  return a[k];
-}
-
-function median3(a: number, b: number, c: number): number {
-  return a < b ? (b < c ? b : a < c ? c : a) : (a < c ? a : b < c ? c : b);
+  return selectKth(a, Math.min(a.length - 1, Math.max(0, Math.floor(q * (a.length - 1)))));
 }
 
 interface Region { area: number; sumX: number; sumY: number }

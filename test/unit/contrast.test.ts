@@ -3,7 +3,8 @@
 // the value-to-colour-map mapping of each scaling.
 import { spawnSync } from 'node:child_process';
 import { describe, expect, it } from 'vitest';
-import { mapValue, percentileLimits, select } from '../../src-renderer/views/contrast';
+import { mapValue, percentileLimits } from '../../src-renderer/views/contrast';
+import { selectKth as select } from '../../src-shared/compute/select';
 import { PYTHON } from '../helpers/fixtures';
 
 function lcg(seed: number) {
