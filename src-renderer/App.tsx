@@ -244,10 +244,17 @@ export function App({ client, store, shell = null }: { client: Client; store: St
     void run();
   }, [client, ds, fail]);
 
+  // The exact image of a detector: a new request for the same detector cancels the one before it.
+  const exactJobs = useRef(new Map<string, string>());
   const exactDetector = useCallback(async (d: DetectorItem) => {
     if (!ds) return;
+    const jobId = newJobId('detector');
+    const before = exactJobs.current.get(d.id);
+    if (before) void client.cancel(before);
+    exactJobs.current.set(d.id, jobId);
     try {
-      const r = await client.virtualImages({ dataset: ds.id, detectors: [{ shape: d.shape, label: d.name }], jobId: newJobId('detector') });
+      const r = await client.virtualImages({ dataset: ds.id, detectors: [{ shape: d.shape, label: d.name }], jobId });
+      if (exactJobs.current.get(d.id) === jobId) exactJobs.current.delete(d.id);
       // Only if the detector has not moved since.
       const now = store.get().detectors.find((x) => x.id === d.id);
       if (now && JSON.stringify(now.shape) === JSON.stringify(d.shape)) {

@@ -49,7 +49,7 @@ export function desktopShell(): Shell | null {
 export function connectDesktop(): Promise<Client> {
   return new Promise((resolve) => {
     const onMessage = (e: MessageEvent) => {
-      if (e.data !== 'scanfold:engine-port' || !e.ports[0]) return;
+      if (e.source !== window || e.data !== 'scanfold:engine-port' || !e.ports[0]) return;
       window.removeEventListener('message', onMessage);
       const mp = e.ports[0];
       const listeners = new Set<(m: unknown) => void>();

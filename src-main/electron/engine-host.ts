@@ -24,6 +24,7 @@ parentPort.on('message', (e) => {
     send: (m) => p.postMessage(m),
     onMessage: (l) => { listeners.add(l); return () => listeners.delete(l); },
   };
-  serveService(service, port);
+  const stop = serveService(service, port);
+  (p as unknown as { on(event: 'close', l: () => void): void }).on('close', () => { stop(); listeners.clear(); });
   p.start();
 });

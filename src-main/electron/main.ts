@@ -71,19 +71,28 @@ function buildMenu(): void {
   Menu.setApplicationMenu(Menu.buildFromTemplate(template));
 }
 
+let quitting = false;
+
 function startEngine(): Electron.UtilityProcess {
   const engine = utilityProcess.fork(distFile('engine-host.mjs'), [], { serviceName: 'Scanfold engine', stdio: 'inherit' });
   engine.on('exit', (code) => {
-    if (code !== 0 && win) dialog.showErrorBox('Scanfold', `The engine stopped (exit code ${code}); restart Scanfold. Your files are untouched.`);
+    if (code !== 0 && win && !quitting) dialog.showErrorBox('Scanfold', `The engine stopped (exit code ${code}); restart Scanfold. Your files are untouched.`);
   });
   return engine;
 }
+
+// Every web contents, this window's or any other, may go nowhere and open nothing.
+app.on('web-contents-created', (_e, contents) => {
+  contents.setWindowOpenHandler(() => ({ action: 'deny' }));
+  contents.on('will-navigate', (e, url) => { if (!isAppUrl(url)) e.preventDefault(); });
+  contents.on('will-redirect', (e, url) => { if (!isAppUrl(url)) e.preventDefault(); });
+});
 
 app.whenReady().then(() => {
   const rendererDir = distFile('renderer');
   protocol.handle(APP_SCHEME, async (request) => {
     const file = rendererFileFor(request.url, rendererDir, path.join);
-    if (!file || !fs.existsSync(file)) return new Response('not found', { status: 404 });
+    if (!file || !fs.existsSync(file) || !fs.statSync(file).isFile()) return new Response('not found', { status: 404 });
     const res = await net.fetch(pathToFileURL(file).toString());
     const headers = new Headers(res.headers);
     headers.set('Content-Security-Policy', APP_CSP);
@@ -101,14 +110,19 @@ app.whenReady().then(() => {
   });
   contents.on('will-navigate', (e, url) => { if (!isAppUrl(url)) e.preventDefault(); });
   contents.session.setPermissionRequestHandler((_wc, _permission, callback) => callback(false));
+  contents.session.setPermissionCheckHandler(() => false);
+  // Each load of the page (a reload too) gets a fresh channel to the engine; the file named on
+  // the command line is opened on the first load only.
+  let argvFile: string | undefined = process.argv.slice(app.isPackaged ? 1 : 2).find((a) => !a.startsWith('-') && fs.existsSync(a) && fs.statSync(a).isFile());
   contents.on('did-finish-load', () => {
     const { port1, port2 } = new MessageChannelMain();
     engine.postMessage('scanfold:connect', [port1]);
     contents.postMessage('scanfold:engine-port', null, [port2]);
-    const file = process.argv.slice(app.isPackaged ? 1 : 2).find((a) => !a.startsWith('-') && fs.existsSync(a));
-    if (file) send('open', path.resolve(file));
+    if (argvFile) { send('open', path.resolve(argvFile)); argvFile = undefined; }
   });
   win.once('ready-to-show', () => win?.show());
   void win.loadURL(APP_URL);
-  app.on('window-all-closed', () => { engine.kill(); app.quit(); });
+  win.on('closed', () => { win = null; });
+  app.on('before-quit', () => { quitting = true; });
+  app.on('window-all-closed', () => { quitting = true; engine.kill(); app.quit(); });
 });

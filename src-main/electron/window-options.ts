@@ -63,8 +63,14 @@ export function isAppUrl(url: string): boolean {
 /** The file of the built renderer a request of the app's scheme names, or null (outside it, or not a plain path). */
 export function rendererFileFor(url: string, rendererDir: string, join: (a: string, b: string) => string): string | null {
   if (!isAppUrl(url)) return null;
-  const p = decodeURIComponent(new URL(url).pathname).replace(/^\/+/, '');
-  if (p === '' ) return join(rendererDir, 'index.html');
-  if (p.split('/').some((part) => part === '..' || part === '' || part.startsWith('.'))) return null;
+  let p: string;
+  try {
+    p = decodeURIComponent(new URL(url).pathname).replace(/^\/+/, '');
+  } catch {
+    return null;
+  }
+  if (p === '') return join(rendererDir, 'index.html');
+  // Plain names only: no parent steps, hidden names, drive letters, backslashes (Windows separators) or NULs.
+  if (/[\\:\0]/.test(p) || p.split('/').some((part) => part === '..' || part === '' || part.startsWith('.'))) return null;
   return join(rendererDir, p);
 }

@@ -2,7 +2,9 @@
 // random token that is part of every path (http://127.0.0.1:PORT/TOKEN/). A request or a
 // connection without the token is refused, so another user of the machine (or a web page in the
 // user's own browser, which cannot learn the token) cannot reach the engine; a user may still
-// reach it from elsewhere through an SSH tunnel to the port.
+// reach it from elsewhere through an SSH tunnel to the port. Requests must name a loopback host
+// (no DNS rebinding) and a socket's Origin must be the page's own. Nothing a client sends can
+// stop the server: bad requests get an answer, bad sockets are dropped.
 import crypto from 'node:crypto';
 import fs from 'node:fs';
 import http from 'node:http';
@@ -40,10 +42,11 @@ const TYPES: Record<string, string> = {
  * nothing remote. One relaxation: 'unsafe-eval', because regl compiles each draw command into a
  * generated function; only our own bundle runs on the page, so only our code can reach it.
  */
-export function contentSecurityPolicy(port: number): string {
+export function contentSecurityPolicy(): string {
   return [
     "default-src 'none'", "script-src 'self' 'unsafe-eval'", "style-src 'self'", "img-src 'self' data: blob:",
-    `connect-src ws://127.0.0.1:${port}`, "font-src 'self'", "base-uri 'none'", "form-action 'none'", "frame-ancestors 'none'",
+    // 'self' covers the page's own socket, whatever port a tunnel gives the page.
+    "connect-src 'self'", "font-src 'self'", "base-uri 'none'", "form-action 'none'", "frame-ancestors 'none'",
   ].join('; ');
 }
 
@@ -63,13 +66,19 @@ export async function startServed(opts: ServedOptions): Promise<Served> {
   } as ScanfoldService;
   let port = 0;
   const server = http.createServer((req, res) => {
-    const url = new URL(req.url ?? '/', 'http://127.0.0.1');
+    const url = parseUrl(req.url);
     const prefix = `/${token}/`;
-    if (req.method !== 'GET' || !url.pathname.startsWith(prefix)) {
+    if (req.method !== 'GET' || !url || !url.pathname.startsWith(prefix) || !loopbackHost(req.headers.host)) {
       res.writeHead(403, { 'content-type': 'text/plain; charset=utf-8' }).end(REFUSED);
       return;
     }
-    const rel = decodeURIComponent(url.pathname.slice(prefix.length)) || 'index.html';
+    let rel: string;
+    try {
+      rel = decodeURIComponent(url.pathname.slice(prefix.length)) || 'index.html';
+    } catch {
+      res.writeHead(400, { 'content-type': 'text/plain; charset=utf-8' }).end('bad path\n');
+      return;
+    }
     const file = path.resolve(root, rel);
     if (!file.startsWith(root + path.sep) || !fs.existsSync(file) || !fs.statSync(file).isFile()) {
       res.writeHead(404, { 'content-type': 'text/plain; charset=utf-8' }).end('not found\n');
@@ -77,32 +86,41 @@ export async function startServed(opts: ServedOptions): Promise<Served> {
     }
     res.writeHead(200, {
       'content-type': TYPES[path.extname(file)] ?? 'application/octet-stream',
-      'content-security-policy': contentSecurityPolicy(port),
+      'content-security-policy': contentSecurityPolicy(),
       'x-content-type-options': 'nosniff',
       'cache-control': 'no-store',
       'referrer-policy': 'no-referrer',
     });
-    fs.createReadStream(file).pipe(res);
+    const stream = fs.createReadStream(file);
+    stream.on('error', () => res.destroy());
+    stream.pipe(res);
   });
   const wss = new WebSocketServer({ noServer: true, maxPayload: 64 * 2 ** 20 });
   const stops = new Set<() => void>();
   server.on('upgrade', (req, socket, head) => {
-    const url = new URL(req.url ?? '/', 'http://127.0.0.1');
+    socket.on('error', () => socket.destroy());
+    const url = parseUrl(req.url);
     const origin = req.headers.origin;
-    if (url.pathname !== `/${token}/contract` || (origin !== undefined && origin !== `http://127.0.0.1:${port}` && origin !== `http://localhost:${port}`)) {
+    const host = req.headers.host;
+    // A browser's socket comes from the page it served (same host and port); tools send no Origin.
+    if (!url || url.pathname !== `/${token}/contract` || !loopbackHost(host) || (origin !== undefined && origin !== `http://${host}`)) {
       socket.end('HTTP/1.1 403 Forbidden\r\n\r\n');
       return;
     }
     wss.handleUpgrade(req, socket, head, (ws) => connect(ws));
   });
   const connect = (ws: WebSocket) => {
+    ws.on('error', () => ws.terminate());
     const listeners = new Set<(m: unknown) => void>();
     const wsPort: Port = {
       send: (message) => { if (ws.readyState === ws.OPEN) ws.send(encodeMessage(message)); },
       onMessage: (l) => { listeners.add(l); return () => listeners.delete(l); },
     };
     ws.on('message', (data, isBinary) => {
-      if (!isBinary) return;
+      if (!isBinary) {
+        ws.close(1003, 'the contract travels in binary messages');
+        return;
+      }
       let m: unknown;
       try {
         m = decodeMessage(new Uint8Array(data as Buffer));
@@ -132,4 +150,19 @@ export async function startServed(opts: ServedOptions): Promise<Served> {
       await new Promise<void>((resolve) => server.close(() => resolve()));
     },
   };
+}
+
+function parseUrl(raw: string | undefined): URL | null {
+  try {
+    return new URL(raw ?? '/', 'http://127.0.0.1');
+  } catch {
+    return null;
+  }
+}
+
+/** Whether a Host header names this machine's loopback (any port: a tunnel may forward another). */
+function loopbackHost(host: string | undefined): boolean {
+  if (!host) return false;
+  const name = host.replace(/:\d+$/, '');
+  return name === '127.0.0.1' || name === 'localhost' || name === '[::1]';
 }

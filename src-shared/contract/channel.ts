@@ -37,7 +37,14 @@ export function serveService(service: ScanfoldService, port: Port): () => void {
     Promise.resolve()
       .then(() => fn.call(service, m.arg))
       .then(
-        (value) => port.send({ t: 'result', id, value } satisfies Reply),
+        (value) => {
+          try {
+            port.send({ t: 'result', id, value } satisfies Reply);
+          } catch (e) {
+            // A result the transport cannot carry is a failure of the request, not of the server.
+            port.send({ t: 'error', id, error: { name: 'Error', message: `${method}: the result could not be sent (${(e as Error).message})` } } satisfies Reply);
+          }
+        },
         (e: unknown) => {
           const err = e instanceof Error ? e : new Error(String(e));
           const extra = err as Error & { code?: unknown; reason?: unknown };
@@ -49,7 +56,9 @@ export function serveService(service: ScanfoldService, port: Port): () => void {
               ...(typeof extra.reason === 'string' ? { reason: extra.reason } : {}),
             },
           } satisfies Reply);
-        });
+        })
+      // The port itself failing (a closed socket) must not become an unhandled rejection.
+      .catch(() => undefined);
   });
   return () => { offEvents(); offMessages(); };
 }

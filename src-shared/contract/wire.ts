@@ -27,7 +27,7 @@ function kindOf(v: unknown): Kind | null {
   return null;
 }
 
-const pad8 = (n: number) => (n + 7) & ~7;
+const pad8 = (n: number) => Math.ceil(n / 8) * 8;
 
 /** Encode a message (plain data and typed arrays) as one byte buffer. */
 export function encodeMessage(message: unknown): Uint8Array {
@@ -70,7 +70,7 @@ export function decodeMessage(bytes: Uint8Array): unknown {
     if (value && typeof value === 'object' && !Array.isArray(value)) {
       const v = value as { $typed?: string; n?: number; $num?: string };
       if (typeof v.$typed === 'string' && typeof v.n === 'number' && Object.keys(v).length === 2) {
-        const Ctor = KINDS[v.$typed as Kind];
+        const Ctor = Object.hasOwn(KINDS, v.$typed) ? KINDS[v.$typed as Kind] : undefined;
         if (!Ctor || !Number.isInteger(v.n) || v.n < 0) throw new Error(`wire: bad typed array ${JSON.stringify(v)}`);
         const byteLength = v.n * Ctor.BYTES_PER_ELEMENT;
         if (at + byteLength > bytes.byteLength) throw new Error('wire: a typed array runs past the message');

@@ -6,6 +6,7 @@
 // engine's numbers mapped through the same colour map and contrast (read back from WebGL).
 // Screenshots of each step are kept in test-artifacts/app/.
 import fs from 'node:fs';
+import net from 'node:net';
 import os from 'node:os';
 import path from 'node:path';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
@@ -149,6 +150,34 @@ describe('served mode', () => {
     expect(await tryConnect(`ws://127.0.0.1:${served.port}/wrong/contract`)).toBe('refused');
     expect(await tryConnect(`ws://127.0.0.1:${served.port}/${served.token}/contract`, 'http://example.org')).toBe('refused');
     expect(await tryConnect(`ws://127.0.0.1:${served.port}/${served.token}/contract`)).toBe('open');
+  });
+
+  it('survives hostile requests: a bad URL, a foreign Host (DNS rebinding), a bad escape, a text frame, a reset', async () => {
+    const raw = (text: string) => new Promise<string>((resolve) => {
+      const s = net.connect(served.port, '127.0.0.1', () => s.write(text));
+      let got = '';
+      s.on('data', (d) => { got += d.toString('latin1'); });
+      s.on('close', () => resolve(got));
+      s.on('error', () => resolve(got));
+      setTimeout(() => s.destroy(), 1500);
+    });
+    expect(await raw('GET //[ HTTP/1.1\r\nHost: 127.0.0.1\r\nConnection: close\r\n\r\n')).toMatch(/^HTTP\/1.1 403/);
+    expect(await raw(`GET /${served.token}/index.html HTTP/1.1\r\nHost: attacker.example\r\nConnection: close\r\n\r\n`)).toMatch(/^HTTP\/1.1 403/);
+    expect(await raw(`GET /${served.token}/% HTTP/1.1\r\nHost: 127.0.0.1\r\nConnection: close\r\n\r\n`)).toMatch(/^HTTP\/1.1 400/);
+    expect(await raw(`GET /${served.token}/contract HTTP/1.1\r\nHost: attacker.example:${served.port}\r\nUpgrade: websocket\r\nConnection: Upgrade\r\nSec-WebSocket-Key: dGhlIHNhbXBsZSBub25jZQ==\r\nSec-WebSocket-Version: 13\r\n\r\n`)).toMatch(/^HTTP\/1.1 403/);
+    // An upgrade without the token, reset at once.
+    await new Promise<void>((resolve) => {
+      const s = net.connect(served.port, '127.0.0.1', () => { s.write('GET /x HTTP/1.1\r\nHost: 127.0.0.1\r\nUpgrade: websocket\r\nConnection: Upgrade\r\n\r\n'); s.resetAndDestroy(); resolve(); });
+    });
+    // A text frame closes that socket only.
+    const closed = await new Promise<number>((resolve) => {
+      const ws = new WebSocket(`ws://127.0.0.1:${served.port}/${served.token}/contract`);
+      ws.on('open', () => ws.send('{"t":"call"}'));
+      ws.on('close', (code) => resolve(code));
+    });
+    expect(closed).toBe(1003);
+    await new Promise((r) => setTimeout(r, 200));
+    expect((await fetch(served.url)).status).toBe(200); // still serving
   });
 
   it('opens the demo: the first pass fills the Scan view with the bright-field image', async () => {

@@ -36,6 +36,10 @@ describe('window hardening', () => {
     expect(rendererFileFor('scanfold-app://app/%2e%2e/secret', '/r', path.join)).toBe('/r/secret');
     // …and an encoded separator that would climb out after decoding is refused.
     expect(rendererFileFor('scanfold-app://app/..%2Fpackage.json', '/r', path.join)).toBeNull();
+    // Windows separators, drive letters and undecodable escapes: refused on every platform.
+    expect(rendererFileFor('scanfold-app://app/x%5C..%5C..%5Csecret.txt', '/r', path.win32.join)).toBeNull();
+    expect(rendererFileFor('scanfold-app://app/C:%5Csecret.txt', '/r', path.win32.join)).toBeNull();
+    expect(rendererFileFor('scanfold-app://app/%', '/r', path.join)).toBeNull();
     expect(rendererFileFor('scanfold-app://app/.hidden', '/r', path.join)).toBeNull();
     expect(rendererFileFor('https://app/app.js', '/r', path.join)).toBeNull();
   });
@@ -78,13 +82,14 @@ vi.mock('electron', () => {
         on(ev: string, f: (...a: unknown[]) => void) { contents.handlers[ev] = f; },
         postMessage(...a: unknown[]) { contents.posted.push(a); },
         send() {},
-        session: { setPermissionRequestHandler() {} },
+        session: { setPermissionRequestHandler() {}, setPermissionCheckHandler() {} },
       } as (typeof calls.windows)[number]['contents'];
       this.webContents = contents;
       this.entry = { options, contents };
       calls.windows.push(this.entry);
     }
     once() {}
+    on() {}
     show() {}
     loadURL(url: string) { this.entry.loaded = url; return Promise.resolve(); }
   }

@@ -39,6 +39,14 @@ describe('wire codec', () => {
     expect(back.value.empty).toEqual(new Float64Array(0));
   });
 
+  it('refuses a typed-array name that is not one of its own kinds (no prototype lookups)', () => {
+    const header = new TextEncoder().encode(JSON.stringify({ a: { $typed: 'constructor', n: 1 } }));
+    const bytes = new Uint8Array(8 + Math.ceil(header.length / 8) * 8 + 8);
+    new DataView(bytes.buffer).setUint32(0, header.length, true);
+    bytes.set(header, 4);
+    expect(() => decodeMessage(bytes)).toThrow(/bad typed array/);
+  });
+
   it('refuses truncated messages', () => {
     const bytes = encodeMessage({ a: new Float64Array(100) });
     expect(() => decodeMessage(bytes.subarray(0, 2))).toThrow(/shorter/);
