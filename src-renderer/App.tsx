@@ -5,6 +5,7 @@ import { useCallback, useEffect, useMemo, useRef, useState, useSyncExternalStore
 import type { CalibrationResult, ComFieldResult, FirstPassResult, FitResult, KmeansResult, PcaResult, RegionPatternResult } from '../src-shared/contract/service';
 import type { JobInfo } from '../src-shared/contract/jobs';
 import type { DetectorShape } from '../src-shared/model/detectors';
+import type { DatasetDescriptor } from '../src-shared/model/dataset';
 import { CATEGORY_COLOURS, colormapLut, type ColormapName } from './colormaps';
 import { wheelColour } from './views/contrast';
 import type { Client, Shell } from './connection';
@@ -86,8 +87,10 @@ export function App({ client, store, shell = null }: { client: Client; store: St
     }
   }), [client]);
 
-  const startDataset = useCallback(async (id: string, name: string, shape: { scanY: number; scanX: number; detY: number; detX: number }, dtype: string) => {
-    store.update((s) => ({ ...s, dataset: { id, name, ...shape, dtype }, detectors: [], activeDetector: null }), { undoable: true });
+  const startDataset = useCallback(async (id: string, descriptor: DatasetDescriptor) => {
+    const { scanY, scanX, detY, detX } = descriptor.shape;
+    const dataset = { id, name: baseName(descriptor.path), scanY, scanX, detY, detX, dtype: descriptor.dtype, spec: descriptor.spec, fingerprint: descriptor.fingerprint };
+    store.update((s) => ({ ...s, dataset, detectors: [], activeDetector: null }), { undoable: true });
     setFirst(null); setPca(null); setKmeans(null); setField(null); setFit(null); setRegionPatterns(new Map()); setDetectorImages(new Map()); setFilling(null); setCalibration(null);
     store.update((s) => ({ ...s, regions: [], calibration: {} }));
     setScanShows({ kind: 'default', index: 0 }); setPatternShows({ kind: 'mean' });
@@ -105,7 +108,7 @@ export function App({ client, store, shell = null }: { client: Client; store: St
   useEffect(() => {
     client.datasets().then((list) => {
       const d = list[list.length - 1];
-      if (d) void startDataset(d.id, baseName(d.descriptor.path), d.descriptor.shape, d.descriptor.dtype);
+      if (d) void startDataset(d.id, d.descriptor);
     }, fail);
   }, [client, startDataset, fail]);
 
@@ -113,7 +116,7 @@ export function App({ client, store, shell = null }: { client: Client; store: St
     setError(null);
     try {
       const opened = await client.open({ path: file.trim() });
-      await startDataset(opened.id, baseName(opened.descriptor.path), opened.descriptor.shape, opened.descriptor.dtype);
+      await startDataset(opened.id, opened.descriptor);
     } catch (e) { fail(e); }
   }, [client, startDataset, fail]);
   const openFile = () => openPathNow(openPath);

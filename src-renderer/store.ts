@@ -3,6 +3,7 @@
 // reopen it exactly, and undo/redo over the changes marked undoable. Results (images, patterns)
 // are not state: they are recomputed from it, or held by the views.
 import type { DetectorShape } from '../src-shared/model/detectors';
+import type { SourceSpec } from '../src-shared/model/dataset';
 
 /** A region of the scan: a rectangle drawn on the Scan view (scan px, corners inclusive) or a cluster's positions. */
 export type RegionItemShape =
@@ -61,7 +62,8 @@ export interface AnalysisSettings {
 }
 
 export interface AppState {
-  dataset: { id: string; name: string; scanY: number; scanX: number; detY: number; detX: number; dtype: string } | null;
+  /** The open dataset: the engine's handle, and what reopens it (its source spec and fingerprint). */
+  dataset: { id: string; name: string; scanY: number; scanX: number; detY: number; detX: number; dtype: string; spec: SourceSpec; fingerprint: string } | null;
   detectors: DetectorItem[];
   regions: RegionItem[];
   calibration: CalibrationInput;

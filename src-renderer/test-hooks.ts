@@ -14,6 +14,12 @@ interface ViewRecord {
 }
 
 const views = new Map<string, ViewRecord>();
+let storeJson: (() => string) | null = null;
+
+/** The store, as JSON (what a session file will hold). */
+export function registerStore(toJSON: () => string): void {
+  storeJson = toJSON;
+}
 
 /** Pointer-to-drawn latencies: started at a pointer event, ended when the image it asked for is drawn. */
 const started = new Map<string, number>();
@@ -41,6 +47,7 @@ declare global {
 if (typeof window !== 'undefined') {
   window.__scanfold = {
     latencies: () => latencies.splice(0),
+    state: () => (storeJson ? JSON.parse(storeJson()) : null),
     view(name: string) {
       const v = views.get(name);
       if (!v) return null;

@@ -236,6 +236,12 @@ describe('served mode', () => {
     const view = await viewState('scan');
     expectDrawn(view, await canvasPixels('scan'), exact.images[0]);
     await snap('3-annulus');
+    // The store holds the recipe as plain JSON: what reopens the data, and the detector.
+    const state = await page.evaluate(() => (window as unknown as { __scanfold: { state(): unknown } }).__scanfold.state()) as { dataset: { spec: { path: string }; fingerprint: string }; detectors: { shape: unknown }[] };
+    const opened = (await service.datasets())[0];
+    expect(state.dataset.spec.path).toBe(demo);
+    expect(state.dataset.fingerprint).toBe(opened.descriptor.fingerprint);
+    expect(state.detectors.map((d) => d.shape)).toEqual([spec.shape]);
   });
 
   it('the contrast controls (colour map, gamma, manual limits) change the drawn pixels as they say, and undo restores them', async () => {

@@ -41,7 +41,7 @@ describe('store', () => {
 
   it('round-trips through JSON exactly', () => {
     const s = new Store();
-    s.update((st) => ({ ...st, dataset: { id: 'ds1', name: 'demo.h5', scanY: 64, scanX: 64, detY: 96, detX: 96, dtype: 'uint16' }, detectors: [annulus], patternView: { ...st.patternView, limits: [0, 594.25] } }));
+    s.update((st) => ({ ...st, dataset: { id: 'ds1', name: 'demo.h5', scanY: 64, scanX: 64, detY: 96, detX: 96, dtype: 'uint16', spec: { path: '/data/demo.h5', datasetPath: '/scan/frames' }, fingerprint: 'sha256:00' }, detectors: [annulus], patternView: { ...st.patternView, limits: [0, 594.25] } }));
     const back = Store.fromJSON(s.toJSON());
     expect(back.get()).toEqual(s.get());
     expect(new Store().get()).toEqual(INITIAL_STATE);
