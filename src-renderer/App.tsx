@@ -226,7 +226,8 @@ export function App({ client, store, shell = null }: { client: Client; store: St
   // Detectors: a drag answers from the preview cube at once; the release asks for the exact image.
   const previewRef = useRef<{ busy: boolean; next: DetectorItem | null; token: string | undefined }>({ busy: false, next: null, token: undefined });
   const previewDetector = useCallback((d: DetectorItem, token?: string) => {
-    if (!ds) return;
+    // The preview cube exists once the first pass is done; before that, only the exact image follows.
+    if (!ds || !first) return;
     const q = previewRef.current;
     q.next = d;
     q.token = token;
@@ -245,7 +246,7 @@ export function App({ client, store, shell = null }: { client: Client; store: St
       }
     };
     void run();
-  }, [client, ds, fail]);
+  }, [client, ds, fail, first]);
 
   // The exact image of a detector: a new request for the same detector cancels the one before it.
   const exactJobs = useRef(new Map<string, string>());
@@ -472,8 +473,8 @@ export function App({ client, store, shell = null }: { client: Client; store: St
         <div className="panel" aria-label="Detectors">
           <h2>Detectors</h2>
           <div className="row">
-            <button onClick={() => addDetector('disk')} disabled={!first}>+ disk</button>
-            <button onClick={() => addDetector('annulus')} disabled={!first}>+ annulus</button>
+            <button onClick={() => addDetector('disk')} disabled={!ds}>+ disk</button>
+            <button onClick={() => addDetector('annulus')} disabled={!ds}>+ annulus</button>
             <button onClick={() => store.undo()}>undo</button>
             <button onClick={() => store.redo()}>redo</button>
           </div>

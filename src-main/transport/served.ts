@@ -130,9 +130,24 @@ export async function startServed(opts: ServedOptions): Promise<Served> {
       }
       for (const l of listeners) l(m);
     });
-    const stop = serveService(service, wsPort);
+    // The jobs this client started end with its connection (a closed tab leaves nothing running).
+    const jobs = new Set<string>();
+    const own = {
+      ...Object.fromEntries(SERVICE_METHODS.map((m) => [m, (arg: unknown) => {
+        const jobId = arg && typeof arg === 'object' && typeof (arg as { jobId?: unknown }).jobId === 'string' ? (arg as { jobId: string }).jobId : null;
+        if (jobId) jobs.add(jobId);
+        const done = (service[m] as (a: unknown) => Promise<unknown>)(arg);
+        return jobId ? done.finally(() => jobs.delete(jobId)) : done;
+      }])),
+      onEvent: service.onEvent,
+    } as ScanfoldService;
+    const stop = serveService(own, wsPort);
     stops.add(stop);
-    ws.on('close', () => { stop(); stops.delete(stop); });
+    ws.on('close', () => {
+      stop();
+      stops.delete(stop);
+      for (const id of jobs) real.cancel(id).catch(() => undefined);
+    });
   };
   await new Promise<void>((resolve, reject) => {
     server.once('error', reject);

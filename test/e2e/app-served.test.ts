@@ -16,6 +16,8 @@ import { EngineService } from '../../src-main/engine/service';
 import { distFile } from '../../src-main/engine/paths';
 import { startServed, type Served } from '../../src-main/transport/served';
 import { writeSample } from '../../samples/write-sample';
+import { connectService } from '../../src-shared/contract/channel';
+import { decodeMessage, encodeMessage } from '../../src-shared/contract/wire';
 import { colormapLut, type ColormapName } from '../../src-renderer/colormaps';
 import { mapValue, wheelColour, type Contrast } from '../../src-renderer/views/contrast';
 
@@ -400,6 +402,18 @@ describe('served mode, a long job', () => {
       await expect.poll(() => p.locator('.job.cancelled').count(), { timeout: 30_000 }).toBe(1);
       await p.screenshot({ path: path.join(ARTIFACTS, '8-cancelled.png') });
       expect(await p.getByRole('alert').count()).toBe(0);
+      // A client that goes away takes its running jobs with it.
+      const ws = new WebSocket(`ws://127.0.0.1:${slowServed.port}/${slowServed.token}/contract`);
+      await new Promise((r) => ws.on('open', r));
+      const client = connectService({
+        send: (m) => ws.send(encodeMessage(m)),
+        onMessage: (l) => { const h = (d: Buffer) => l(decodeMessage(new Uint8Array(d))); ws.on('message', h); return () => ws.off('message', h); },
+      });
+      const orphan = client.firstPass({ dataset: (await slow.datasets())[0].id, jobId: 'left-behind' });
+      orphan.catch(() => undefined);
+      await expect.poll(async () => (await slow.jobs()).find((j) => j.jobId === 'left-behind')?.state, { timeout: 30_000 }).toBe('running');
+      ws.close();
+      await expect.poll(async () => (await slow.jobs()).find((j) => j.jobId === 'left-behind')?.state, { timeout: 30_000 }).toBe('cancelled');
       // The engine goes on: the same dataset's first pass runs again to the end on request.
       const id = (await slow.datasets())[0].id;
       const again = await slow.virtualImages({ dataset: id, detectors: [{ shape: { kind: 'disk', cx: 10, cy: 10, r: 3 } }], badPixels: 'none' });
