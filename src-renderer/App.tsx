@@ -1,16 +1,20 @@
-// The window: a header (dataset, open), the Scan view and the Pattern view side by side, and a
-// strip of panels (Detectors, Components, Clusters, Activity). Every number comes from the
-// engine through the contract; this file only asks and shows.
+// The window: a header (dataset, calibration, open), the Scan view and the Pattern view side by
+// side, and a strip of panels (Detectors, Regions, Field, Components, Clusters, Fit, Activity;
+// their parts in panels/). Every number comes from the engine through the contract; this file
+// only asks and shows.
 import { useCallback, useEffect, useMemo, useRef, useState, useSyncExternalStore } from 'react';
 import type { CalibrationResult, ComFieldResult, FirstPassResult, FitResult, KmeansResult, PcaResult, RegionPatternResult } from '../src-shared/contract/service';
 import type { JobInfo } from '../src-shared/contract/jobs';
 import type { DetectorShape } from '../src-shared/model/detectors';
 import type { DatasetDescriptor } from '../src-shared/model/dataset';
-import { CATEGORY_COLOURS, colormapLut, type ColormapName } from './colormaps';
-import { wheelColour } from './views/contrast';
+import { CATEGORY_COLOURS, type ColormapName } from './colormaps';
 import type { Client, Shell } from './connection';
 import type { AppState, CalibrationInput, DetectorItem, PatternShows, RegionItem, RegionItemShape, ScanShows, Store } from './store';
 import { fmt, ImageView, type ImageData2D, type PointerInImage } from './views/ImageView';
+import { DetectorEntry, DetectorOverlay, moveHandle, pickHandle, round2 } from './panels/detectors';
+import { Scree } from './panels/Scree';
+import { ColourWheel } from './panels/ColourWheel';
+import { CalibrationForm } from './panels/CalibrationForm';
 import { startTiming } from './test-hooks';
 
 type Job = JobInfo & { jobId: string };
@@ -584,144 +588,4 @@ export function App({ client, store, shell = null }: { client: Client; store: St
   );
 }
 
-function DetectorOverlay({ item, active, toScreen, zoom }: { item: DetectorItem; active: boolean; toScreen: (x: number, y: number) => [number, number]; zoom: number }) {
-  const s = item.shape;
-  if (s.kind !== 'disk' && s.kind !== 'annulus') return null;
-  const [x, y] = toScreen(s.cx, s.cy);
-  const radii = s.kind === 'disk' ? [s.r] : [s.rInner, s.rOuter];
-  return (
-    <g className={`detector ${active ? 'active' : ''}`} stroke={item.colour}>
-      {radii.map((r, i) => <circle key={i} cx={x} cy={y} r={r * zoom} fill="none" />)}
-      {active && <>
-        <circle className="handle" cx={x} cy={y} r={5} />
-        {radii.map((r, i) => <circle key={`h${i}`} className="handle" cx={x + r * zoom} cy={y} r={5} />)}
-      </>}
-    </g>
-  );
-}
-
-function DetectorEntry(p: { item: DetectorItem; active: boolean; select(): void; change(s: DetectorShape): void; remove(): void; toggle(): void; rename(n: string): void; mradPerPixel?: number }) {
-  const s = p.item.shape;
-  const fields: [string, number][] = s.kind === 'disk' ? [['cx', s.cx], ['cy', s.cy], ['r', s.r]]
-    : s.kind === 'annulus' ? [['cx', s.cx], ['cy', s.cy], ['rInner', s.rInner], ['rOuter', s.rOuter]] : [];
-  return (
-    <div className={`item detector-entry ${p.active ? 'on' : ''}`} onClick={p.select}>
-      <span className="swatch" style={{ background: p.item.colour }} />
-      <input className="name" value={p.item.name} onChange={(e) => p.rename(e.target.value)} aria-label="detector name" />
-      {fields.map(([k, v]) => (
-        <label key={k}>{k} <input type="number" step="0.5" value={v} aria-label={`${p.item.name} ${k}`}
-          onChange={(e) => { const n = Number(e.target.value); if (Number.isFinite(n)) p.change({ ...s, [k]: n } as DetectorShape); }} /></label>
-      ))}
-      <span className="unit">px{p.mradPerPixel && (s.kind === 'disk' || s.kind === 'annulus')
-        ? ` (${s.kind === 'disk' ? fmt(s.r * p.mradPerPixel) : `${fmt(s.rInner * p.mradPerPixel)}–${fmt(s.rOuter * p.mradPerPixel)}`} mrad)` : ''}</span>
-      <button onClick={(e) => { e.stopPropagation(); p.toggle(); }}>{p.item.visible ? 'hide' : 'show'}</button>
-      <button onClick={(e) => { e.stopPropagation(); p.remove(); }}>delete</button>
-    </div>
-  );
-}
-
-function Scree({ pca, selected, pick }: { pca: PcaResult; selected: number; pick(k: number): void }) {
-  const r = Array.from(pca.explainedVarianceRatio);
-  const max = Math.max(...r, 1e-12);
-  return (
-    <svg className="scree" width={220} height={90} role="img" aria-label="explained variance of each component">
-      {r.map((v, k) => (
-        <g key={k} onClick={() => pick(k)} className={k === selected ? 'on' : ''}>
-          <rect x={6 + k * 26} y={80 - (v / max) * 70} width={20} height={(v / max) * 70} />
-          <title>{`component ${k + 1}: ${fmt(v * 100)} % of the variance`}</title>
-        </g>
-      ))}
-    </svg>
-  );
-}
-
-function pickHandle(s: DetectorShape, x: number, y: number): 'centre' | 'inner' | 'outer' | null {
-  if (s.kind !== 'disk' && s.kind !== 'annulus') return null;
-  const d = Math.hypot(x - s.cx, y - s.cy);
-  const tol = 3;
-  if (s.kind === 'disk') return Math.abs(d - s.r) < tol ? 'outer' : d < s.r ? 'centre' : null;
-  if (Math.abs(d - s.rOuter) < tol) return 'outer';
-  if (Math.abs(d - s.rInner) < tol) return 'inner';
-  return d < s.rOuter ? 'centre' : null;
-}
-
-function moveHandle(s: DetectorShape, drag: { part: 'centre' | 'inner' | 'outer'; dx: number; dy: number }, x: number, y: number): DetectorShape {
-  if (s.kind !== 'disk' && s.kind !== 'annulus') return s;
-  if (drag.part === 'centre') return { ...s, cx: round2(x - drag.dx), cy: round2(y - drag.dy) };
-  const r = round2(Math.max(0.5, Math.hypot(x - s.cx, y - s.cy)));
-  if (s.kind === 'disk') return { ...s, r };
-  if (drag.part === 'outer') return { ...s, rOuter: Math.max(r, s.rInner + 0.5) };
-  return { ...s, rInner: Math.min(r, s.rOuter - 0.5) };
-}
-
-const round2 = (v: number) => Math.round(v * 100) / 100;
 const baseName = (p: string) => p.split(/[\\/]/).pop() ?? p;
-
-/** The legend of a direction image: the colour of each direction, dark at zero length. */
-function ColourWheel() {
-  const ref = useRef<HTMLCanvasElement>(null);
-  useEffect(() => {
-    const c = ref.current;
-    const ctx = c?.getContext('2d');
-    if (!c || !ctx) return;
-    const n = c.width;
-    const img = ctx.createImageData(n, n);
-    const lut = colormapLut('sinebow');
-    for (let y = 0; y < n; y++) {
-      for (let x = 0; x < n; x++) {
-        const dx = x + 0.5 - n / 2, dy = y + 0.5 - n / 2;
-        const r = Math.hypot(dx, dy) / (n / 2);
-        const o = (y * n + x) * 4;
-        if (r > 1) continue;
-        // Screen y points down, as the scan's rows do: the angle is atan2(dy, dx), as the engine's.
-        const [R, G, B] = wheelColour(Math.atan2(dy, dx), r, 1, lut);
-        img.data.set([R, G, B, 255], o);
-      }
-    }
-    ctx.putImageData(img, 0, 0);
-  }, []);
-  return (
-    <div className="wheel"><canvas ref={ref} width={64} height={64} aria-label="colour wheel: direction of the COM shift (+x to the right, +y down), brightness its length" />
-      <span>→ +x, ↓ +y</span></div>
-  );
-}
-
-/** The calibration in the header: what it is, and a form for what the file does not say. */
-function CalibrationForm({ result, input, apply }: { result: CalibrationResult | null; input: CalibrationInput; apply(c: CalibrationInput): void }) {
-  const [open, setOpen] = useState(false);
-  const [draft, setDraft] = useState<Record<string, string>>({});
-  useEffect(() => {
-    setDraft({
-      energyKeV: input.energyKeV?.toString() ?? '', convergenceMrad: input.convergenceMrad?.toString() ?? '',
-      latticeSpacingAngstrom: input.latticeSpacingAngstrom?.toString() ?? '', scanStepNm: input.scanStepNm?.toString() ?? '',
-    });
-  }, [input]);
-  const field = (key: string, label: string) => (
-    <label key={key}>{label} <input aria-label={label} type="number" step="any" value={draft[key] ?? ''} placeholder={result?.valueSources[key] ? 'from the file' : ''}
-      onChange={(e) => setDraft({ ...draft, [key]: e.target.value })} /></label>
-  );
-  const summary = result
-    ? `${fmt(result.energyKeV)} keV · ${fmt(result.mradPerPixel)} mrad/px${result.scanStepNm ? ` · ${fmt(result.scanStepNm)} nm/step` : ''}`
-    : 'not calibrated';
-  return (
-    <div className="calibration">
-      <button type="button" onClick={() => setOpen(!open)} aria-expanded={open} title="beam energy, convergence semi-angle or a lattice spacing, scan step">{summary}</button>
-      {open && (
-        <form className="calibration-form" onSubmit={(e) => {
-          e.preventDefault();
-          const num = (k: string) => (draft[k] && Number.isFinite(Number(draft[k])) ? Number(draft[k]) : undefined);
-          const c: CalibrationInput = { energyKeV: num('energyKeV'), convergenceMrad: num('convergenceMrad'), latticeSpacingAngstrom: num('latticeSpacingAngstrom'), scanStepNm: num('scanStepNm') };
-          apply(Object.fromEntries(Object.entries(c).filter(([, v]) => v !== undefined)) as CalibrationInput);
-          setOpen(false);
-        }}>
-          {field('energyKeV', 'beam energy (keV)')}
-          {field('convergenceMrad', 'convergence semi-angle (mrad)')}
-          {field('latticeSpacingAngstrom', 'or a lattice spacing (Å)')}
-          {field('scanStepNm', 'scan step (nm)')}
-          {result && <div className="hint">{Object.entries(result.valueSources).map(([k, v]) => `${k}: ${v}`).join('; ')}</div>}
-          <button type="submit">calibrate</button>
-        </form>
-      )}
-    </div>
-  );
-}
