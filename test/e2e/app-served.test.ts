@@ -244,6 +244,13 @@ describe('served mode', () => {
     expect(state.dataset.spec.path).toBe(demo);
     expect(state.dataset.fingerprint).toBe(opened.descriptor.fingerprint);
     expect(state.detectors.map((d) => d.shape)).toEqual([spec.shape]);
+    // Export image: a PNG of the Scan view as drawn (its size, read from the PNG header).
+    const [download] = await Promise.all([page.waitForEvent('download'), page.getByRole('button', { name: 'Export image' }).click()]);
+    const png = fs.readFileSync(await download.path());
+    expect(png.subarray(0, 8)).toEqual(Buffer.from([0x89, 0x50, 0x4e, 0x47, 0x0d, 0x0a, 0x1a, 0x0a]));
+    const drawn = await canvasPixels('scan');
+    expect([png.readUInt32BE(16), png.readUInt32BE(20)]).toEqual([drawn.width, drawn.height]);
+    expect(download.suggestedFilename()).toBe('demo.h5-scan-view.png');
   });
 
   it('the contrast controls (colour map, gamma, manual limits) change the drawn pixels as they say, and undo restores them', async () => {
