@@ -59,6 +59,8 @@ export function App({ client, store, shell = null }: { client: Client; store: St
   const [regionPatterns, setRegionPatterns] = useState<Map<string, RegionPatternResult>>(new Map());
   /** A rectangle being drawn on the Scan view (Shift-drag), scan px. */
   const [drawing, setDrawing] = useState<{ x0: number; y0: number; x1: number; y1: number } | null>(null);
+  /** A polygon being drawn (Alt-click its corners, Enter or a click on the first corner closes it), scan px. */
+  const [polygon, setPolygon] = useState<[number, number][] | null>(null);
   const [rotationText, setRotationText] = useState('');
   const [flip, setFlip] = useState(false);
   // What each view shows lives in the store (a session reopens it), outside undo.
@@ -204,10 +206,32 @@ export function App({ client, store, shell = null }: { client: Client; store: St
     } catch (e) { fail(e); }
   };
 
+  const closePolygon = (pts: [number, number][]) => {
+    setPolygon(null);
+    if (pts.length >= 3) void addRegion({ kind: 'polygon', points: pts });
+  };
+  useEffect(() => {
+    if (!polygon) return;
+    const onKey = (e: KeyboardEvent) => {
+      if (e.key === 'Enter') closePolygon(polygon);
+      else if (e.key === 'Escape') setPolygon(null);
+    };
+    window.addEventListener('keydown', onKey);
+    return () => window.removeEventListener('keydown', onKey);
+  });
+
   const onScanPointer = (p: PointerInImage) => {
     if (!ds || p.kind === 'leave') return;
     const clampY = (v: number) => Math.min(ds.scanY - 1, Math.max(0, Math.round(v)));
     const clampX = (v: number) => Math.min(ds.scanX - 1, Math.max(0, Math.round(v)));
+    // Alt-click adds a corner of a polygon; a click on its first corner closes it.
+    if (p.kind === 'down' && p.alt) {
+      const pt: [number, number] = [Math.round(p.x * 2) / 2, Math.round(p.y * 2) / 2];
+      const pts = polygon ?? [];
+      if (pts.length >= 3 && Math.hypot(pt[0] - pts[0][0], pt[1] - pts[0][1]) <= 1) closePolygon(pts);
+      else setPolygon([...pts, pt]);
+      return;
+    }
     // Shift-drag draws a rectangular region.
     if (p.kind === 'down' && p.shift) { setDrawing({ x0: clampX(p.x), y0: clampY(p.y), x1: clampX(p.x), y1: clampY(p.y) }); return; }
     if (drawing) {
@@ -458,6 +482,10 @@ export function App({ client, store, shell = null }: { client: Client; store: St
               const [x, y] = toScreen(s.x0 - 0.5, s.y0 - 0.5);
               return <rect key={g.id} className="region" stroke={g.colour} x={x} y={y} width={(s.x1 - s.x0 + 1) * zoom} height={(s.y1 - s.y0 + 1) * zoom} />;
             })}
+            {state.regions.filter((g) => g.visible && g.shape.kind === 'polygon').map((g) => (
+              <polygon key={g.id} className="region" stroke={g.colour} points={(g.shape as { points: [number, number][] }).points.map(([x, y]) => toScreen(x, y).join(',')).join(' ')} />
+            ))}
+            {polygon && <polyline className="region drawing" points={polygon.map(([x, y]) => toScreen(x, y).join(',')).join(' ')} />}
             {drawing && (() => {
               const [x, y] = toScreen(Math.min(drawing.x0, drawing.x1) - 0.5, Math.min(drawing.y0, drawing.y1) - 0.5);
               return <rect className="region drawing" x={x} y={y} width={(Math.abs(drawing.x1 - drawing.x0) + 1) * zoom} height={(Math.abs(drawing.y1 - drawing.y0) + 1) * zoom} />;
@@ -497,12 +525,12 @@ export function App({ client, store, shell = null }: { client: Client; store: St
         </div>
         <div className="panel" aria-label="Regions">
           <h2>Regions</h2>
-          <div className="hint">Shift-drag on the Scan view draws one.</div>
+          <div className="hint">Shift-drag on the Scan view draws a rectangle; Alt-click corners for a polygon (Enter, or a click on the first corner, closes it).</div>
           {state.regions.map((g) => (
             <div key={g.id} className={`item ${patternShows.kind === 'region' && patternShows.id === g.id ? 'on' : ''}`} onClick={() => void showRegion(g)}>
               <span className="swatch" style={{ background: g.colour }} />
               <input className="name" value={g.name} aria-label="region name" onChange={(e) => store.update((s) => ({ ...s, regions: s.regions.map((x) => (x.id === g.id ? { ...x, name: e.target.value } : x)) }), { undoable: true })} />
-              <span className="unit">{g.shape.kind === 'rectangle' ? `${g.shape.x0},${g.shape.y0} – ${g.shape.x1},${g.shape.y1}` : 'mask'}</span>
+              <span className="unit">{g.shape.kind === 'rectangle' ? `${g.shape.x0},${g.shape.y0} – ${g.shape.x1},${g.shape.y1}` : g.shape.kind === 'polygon' ? `${g.shape.points.length} corners` : 'mask'}</span>
               <button onClick={(e) => { e.stopPropagation(); void showRegion(g, 'max'); }}>max</button>
               <button onClick={(e) => { e.stopPropagation(); store.update((s) => ({ ...s, regions: s.regions.filter((x) => x.id !== g.id) }), { undoable: true }); }}>delete</button>
             </div>

@@ -5,9 +5,10 @@
 import type { DetectorShape } from '../src-shared/model/detectors';
 import type { SourceSpec } from '../src-shared/model/dataset';
 
-/** A region of the scan: a rectangle drawn on the Scan view (scan px, corners inclusive) or a cluster's positions. */
+/** A region of the scan: a rectangle or polygon drawn on the Scan view (scan px; corners inclusive) or a cluster's positions. */
 export type RegionItemShape =
   | { kind: 'rectangle'; x0: number; y0: number; x1: number; y1: number }
+  | { kind: 'polygon'; points: [number, number][] }
   | { kind: 'mask'; width: number; height: number; values: number[] };
 
 export interface RegionItem {

@@ -26,6 +26,7 @@ export interface PointerInImage {
   y: number;
   kind: 'move' | 'down' | 'up' | 'leave';
   shift: boolean;
+  alt: boolean;
   /** When the pointer event happened (performance.now() clock). */
   timeStamp: number;
 }
@@ -109,7 +110,7 @@ export function ImageView(props: ImageViewProps) {
 
   const report = (e: React.PointerEvent, kind: PointerInImage['kind']) => {
     const [x, y] = toImage(e.clientX, e.clientY);
-    props.onPointer?.({ x, y, kind, shift: e.shiftKey, timeStamp: e.timeStamp });
+    props.onPointer?.({ x, y, kind, shift: e.shiftKey, alt: e.altKey, timeStamp: e.timeStamp });
   };
 
   return (

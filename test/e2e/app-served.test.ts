@@ -360,6 +360,19 @@ describe('served mode', () => {
     expect(descanned.descan).toMatch(/region given/);
     await expect.poll(async () => (await viewState('scan')).values, { timeout: 60_000 }).toEqual(Array.from(descanned.maps.direction.data));
     await expect.poll(() => page.locator('.facts').textContent()).toMatch(/descan: reference \(region given\)/);
+    // A polygon: Alt-click its corners, Enter closes it; its mean pattern is the engine's.
+    const corners: [number, number][] = [[30, 30], [50, 34], [44, 55], [28, 48]];
+    await page.evaluate(() => window.scrollTo(0, 0));
+    const box = (await page.locator('canvas[data-view=scan]').boundingBox())!;
+    const sv = await viewState('scan');
+    await page.keyboard.down('Alt');
+    for (const [x, y] of corners) await page.mouse.click(box.x + (x - sv.place.cx) * sv.place.zoom + sv.cssSize / 2, box.y + (y - sv.place.cy) * sv.place.zoom + sv.cssSize / 2);
+    await page.keyboard.up('Alt');
+    await page.keyboard.press('Enter');
+    const poly = await service.regionPattern({ dataset: id, region: { kind: 'polygon', points: corners } });
+    await expect.poll(async () => (await viewState('pattern'))?.label, { timeout: 20_000 }).toBe(`mean pattern of region 3 (${poly.count} positions)`);
+    expect((await viewState('pattern')).values).toEqual(Array.from(poly.mean));
+    await snap('6c-polygon');
   });
 
   it('a corrupt file gives the engine’s message, and the app stays usable', async () => {
