@@ -27,6 +27,18 @@ const BAD_PIXELS = `  --bad-pixels auto|none  auto (default): hot and dead detec
                           pattern of a first pass, are left out; none keeps every pixel`;
 
 export const COMMAND_HELP: Record<string, string> = {
+  serve: `scanfold serve [FILE [source flags]] [--port N] [engine flags]
+  The application in a browser: the UI and the engine on 127.0.0.1 only, behind a random token in
+  the address it prints (a request or connection without it is refused). With FILE, the dataset
+  is opened and its first pass started before the address is printed; other files are opened
+  from the page. Ctrl-C stops. To look at data on another machine, forward the port over SSH
+  (ssh -L N:127.0.0.1:N host) and open the printed address locally.
+  --port N                the port (default 0: any free one)
+  --preview-budget SIZE   preview cube for detector drags (default 128MiB here)
+
+${SOURCE}
+
+${ENGINE}`,
   info: `scanfold info FILE [source flags]
   Print the dataset descriptor as JSON; for an HDF5 file without --dataset, its candidate datasets.
 
@@ -235,6 +247,7 @@ commands:
   pca        principal components of all patterns (randomized SVD, out of core)
   kmeans     clusters of all patterns (k-means on principal components) and their mean patterns
   fit        every pattern as a combination of reference patterns, with the residual
+  serve      the application in a browser (127.0.0.1, behind a token); npm start for the desktop app
   sample     write a demo dataset of our own synthetic scenario
   demo       make the demo dataset and run the first pass over it
 

@@ -13,6 +13,7 @@ import { WebSocketServer, type WebSocket } from 'ws';
 import { serveService, type Port } from '../../src-shared/contract/channel';
 import { decodeMessage, encodeMessage } from '../../src-shared/contract/wire';
 import { SERVICE_METHODS, type ScanfoldService } from '../../src-shared/contract/service';
+import { InputError } from '../../src-shared/model/errors';
 
 export interface ServedOptions {
   service: ScanfoldService;
@@ -150,7 +151,9 @@ export async function startServed(opts: ServedOptions): Promise<Served> {
     });
   };
   await new Promise<void>((resolve, reject) => {
-    server.once('error', reject);
+    server.once('error', (e: NodeJS.ErrnoException) => reject(e.code === 'EADDRINUSE'
+      ? new InputError(`port ${opts.port} is already in use on 127.0.0.1; expected a free port, or --port 0 for any free one`, 'bad-request')
+      : e));
     server.listen(opts.port ?? 0, '127.0.0.1', () => resolve());
   });
   port = (server.address() as { port: number }).port;
