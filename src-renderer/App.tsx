@@ -15,6 +15,7 @@ import { DetectorEntry, DetectorOverlay, moveHandle, pickHandle, round2 } from '
 import { Scree } from './panels/Scree';
 import { ColourWheel } from './panels/ColourWheel';
 import { CalibrationForm } from './panels/CalibrationForm';
+import { Thumbnail } from './panels/Thumbnail';
 import { startTiming } from './test-hooks';
 
 type Job = JobInfo & { jobId: string };
@@ -574,6 +575,22 @@ export function App({ client, store, shell = null }: { client: Client; store: St
             <button onClick={() => void runPca()} disabled={!first}>Run PCA</button>
           </div>
           {pca && <Scree pca={pca} selected={scanShows.kind === 'loading' ? scanShows.k : -1} pick={(k) => { setScanShows({ kind: 'loading', k }); setPatternShows({ kind: 'component', k }); }} />}
+          {pca && ds && (
+            <div className="thumbs" aria-label="component patterns and loading maps">
+              {Array.from({ length: pca.k }, (_, k) => {
+                const f = pca.features;
+                const np = f.outY * f.outX, nl = ds.scanY * ds.scanX;
+                const on = scanShows.kind === 'loading' && scanShows.k === k;
+                const show = () => { setScanShows({ kind: 'loading', k }); setPatternShows({ kind: 'component', k }); };
+                return (
+                  <div key={k} className="thumb-pair">
+                    <Thumbnail values={pca.components.subarray(k * np, (k + 1) * np)} width={f.outX} height={f.outY} colormap={state.patternView.colormap} label={`component pattern ${k + 1}`} selected={on} onClick={show} />
+                    <Thumbnail values={pca.loadings.subarray(k * nl, (k + 1) * nl)} width={ds.scanX} height={ds.scanY} colormap={state.scanView.colormap} label={`loading map ${k + 1}`} selected={on} onClick={show} />
+                  </div>
+                );
+              })}
+            </div>
+          )}
         </div>
         <div className="panel" aria-label="Clusters">
           <h2>Clusters</h2>
@@ -583,7 +600,10 @@ export function App({ client, store, shell = null }: { client: Client; store: St
             <button onClick={() => void runKmeans()} disabled={!first}>Run k-means</button>
           </div>
           {kmeans && Array.from(kmeans.sizes, (size, k) => (
-            <div key={k} className="item" onClick={() => { setScanShows({ kind: 'clusters' }); setPatternShows({ kind: 'cluster', k }); }}>
+            <div key={k} className={`item ${patternShows.kind === 'cluster' && patternShows.k === k ? 'on' : ''}`} onClick={() => { setScanShows({ kind: 'clusters' }); setPatternShows({ kind: 'cluster', k }); }}>
+              <Thumbnail values={kmeans.clusterPatterns.subarray(k * ds!.detY * ds!.detX, (k + 1) * ds!.detY * ds!.detX)} width={ds!.detX} height={ds!.detY}
+                colormap={state.patternView.colormap} scaling={state.patternView.scaling} label={`cluster pattern ${k + 1}`} size={36} selected={false}
+                onClick={() => { setScanShows({ kind: 'clusters' }); setPatternShows({ kind: 'cluster', k }); }} />
               <span className="swatch" style={{ background: CATEGORY_COLOURS[k % 10] }} /> cluster {k + 1}: {size} positions
               <button onClick={(e) => { e.stopPropagation(); void addRegion({ kind: 'mask', width: ds!.scanX, height: ds!.scanY, values: Array.from(kmeans.labels, (l) => (l === k ? 1 : 0)) }, `cluster ${k + 1}`); }}>as region</button>
             </div>

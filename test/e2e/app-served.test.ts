@@ -314,6 +314,12 @@ describe('served mode', () => {
     await page.getByRole('button', { name: 'Run PCA' }).click();
     await expect.poll(async () => (await viewState('scan'))?.label, { timeout: 60_000 }).toBe('loading map 1');
     expect((await viewState('pattern')).label).toMatch(/^component pattern 1/);
+    // The thumbnails side by side: a click on one shows its pair large, as the engine computed it.
+    await page.getByRole('button', { name: 'loading map 3', exact: true }).click();
+    await expect.poll(async () => (await viewState('scan'))?.label, { timeout: 10_000 }).toBe('loading map 3');
+    expect((await viewState('pattern')).label).toMatch(/^component pattern 3/);
+    const pcaEngine = await service.pca({ dataset: (await service.datasets())[0].id, components: 8 });
+    expect((await viewState('scan')).values).toEqual(Array.from(pcaEngine.loadings.subarray(2 * 64 * 64, 3 * 64 * 64)));
     await snap('4-pca');
     await page.getByRole('button', { name: 'Run k-means' }).click();
     await expect.poll(async () => (await viewState('scan'))?.label, { timeout: 60_000 }).toBe('cluster map (4 clusters)');
