@@ -36,7 +36,7 @@ async function openDialog(): Promise<void> {
   const r = await dialog.showOpenDialog(win, {
     title: 'Open a 4D-STEM dataset',
     properties: ['openFile'],
-    filters: [{ name: 'HDF5, NumPy or raw', extensions: ['h5', 'hdf5', 'emd', 'nxs', 'npy', 'raw', 'bin', 'dat'] }, { name: 'All files', extensions: ['*'] }],
+    filters: [{ name: 'HDF5, NumPy or raw', extensions: ['h5', 'hdf5', 'npy', 'raw', 'bin', 'dat'] }, { name: 'All files', extensions: ['*'] }],
   });
   if (!r.canceled && r.filePaths[0]) {
     remember(r.filePaths[0]);
