@@ -8,7 +8,8 @@ import { EngineService } from '../src-main/engine/service';
 import { distFile } from '../src-main/engine/paths';
 import { APP_PREVIEW_BUDGET_BYTES } from '../src-main/engine/budget';
 import { startServed } from '../src-main/transport/served';
-import { SERVICE_METHODS, type ScanfoldService } from '../src-shared/contract/service';
+import type { ScanfoldService } from '../src-shared/contract/service';
+import { interceptService } from '../src-shared/contract/channel';
 
 const CHROMIUM = '/usr/bin/chromium';
 
@@ -19,15 +20,14 @@ function stats(ms: number[]): string {
   return `median ${q(0.5).toFixed(1)} ms, p95 ${q(0.95).toFixed(1)} ms (n = ${s.length})`;
 }
 
-/** The service with the time of each fast request recorded, as the engine spends it. */
+/** The service with the time of each request recorded, as the engine spends it. */
 function timedService(real: ScanfoldService, log: Record<string, number[]>): ScanfoldService {
-  const wrapped = Object.fromEntries(SERVICE_METHODS.map((m) => [m, async (arg: never) => {
+  return interceptService(real, async (method, _arg, call) => {
     const t0 = performance.now();
-    const r = await (real[m] as (a: never) => Promise<unknown>).call(real, arg);
-    (log[m] ??= []).push(performance.now() - t0);
+    const r = await call();
+    (log[method] ??= []).push(performance.now() - t0);
     return r;
-  }]));
-  return { ...wrapped, onEvent: (l) => real.onEvent(l) } as ScanfoldService;
+  });
 }
 
 export async function runAppBenchmark(opts: { h5: string; workers: number; plainReadSeconds: number }): Promise<void> {

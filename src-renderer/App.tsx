@@ -17,6 +17,7 @@ import { ColourWheel } from './panels/ColourWheel';
 import { CalibrationForm } from './panels/CalibrationForm';
 import { Thumbnail } from './panels/Thumbnail';
 import { startTiming } from './test-hooks';
+import { latestWins } from './latest-wins';
 
 type Job = JobInfo & { jobId: string };
 
@@ -169,26 +170,16 @@ export function App({ client, store, shell = null }: { client: Client; store: St
   };
 
   // Hover: the pattern at the probe position under the pointer; one request in flight, the latest wins.
-  const hoverRef = useRef<{ busy: boolean; next: { y: number; x: number } | null }>({ busy: false, next: null });
+  const hoverQueue = useRef(latestWins<{ y: number; x: number }>()).current;
   const askPattern = useCallback((pos: { y: number; x: number }) => {
     if (!ds) return;
-    const h = hoverRef.current;
-    h.next = pos;
-    if (h.busy) return;
-    const run = async () => {
-      while (h.next) {
-        const p = h.next;
-        h.next = null;
-        h.busy = true;
-        try {
-          const r = await client.patternAt({ dataset: ds.id, y: p.y, x: p.x });
-          setPattern({ values: r.pattern, width: r.detX, height: r.detY, label: `pattern at (${p.y}, ${p.x})`, token: `hover ${p.y},${p.x}` });
-        } catch (e) { fail(e); }
-        h.busy = false;
-      }
-    };
-    void run();
-  }, [client, ds, fail]);
+    hoverQueue(pos, async (p) => {
+      try {
+        const r = await client.patternAt({ dataset: ds.id, y: p.y, x: p.x });
+        setPattern({ values: r.pattern, width: r.detX, height: r.detY, label: `pattern at (${p.y}, ${p.x})`, token: `hover ${p.y},${p.x}` });
+      } catch (e) { fail(e); }
+    });
+  }, [client, ds, fail, hoverQueue]);
 
   const addRegion = async (shape: RegionItemShape, name?: string) => {
     if (!ds) return;
@@ -253,29 +244,17 @@ export function App({ client, store, shell = null }: { client: Client; store: St
   };
 
   // Detectors: a drag answers from the preview cube at once; the release asks for the exact image.
-  const previewRef = useRef<{ busy: boolean; next: DetectorItem | null; token: string | undefined }>({ busy: false, next: null, token: undefined });
+  const previewQueue = useRef(latestWins<{ det: DetectorItem; token?: string }>()).current;
   const previewDetector = useCallback((d: DetectorItem, token?: string) => {
     // The preview cube exists once the first pass is done; before that, only the exact image follows.
     if (!ds || !first) return;
-    const q = previewRef.current;
-    q.next = d;
-    q.token = token;
-    if (q.busy) return;
-    const run = async () => {
-      while (q.next) {
-        const det = q.next;
-        const token = q.token;
-        q.next = null;
-        q.busy = true;
-        try {
-          const r = await client.previewImages({ dataset: ds.id, detectors: [{ shape: det.shape, weighted: true }] });
-          setDetectorImages((m) => new Map(m).set(det.id, { values: r.images[0], width: r.qX, height: r.qY, label: `${det.name} (preview, scan binned ${r.scanBin}×)`, token }));
-        } catch (e) { fail(e); }
-        q.busy = false;
-      }
-    };
-    void run();
-  }, [client, ds, fail, first]);
+    previewQueue({ det: d, token }, async ({ det, token }) => {
+      try {
+        const r = await client.previewImages({ dataset: ds.id, detectors: [{ shape: det.shape, weighted: true }] });
+        setDetectorImages((m) => new Map(m).set(det.id, { values: r.images[0], width: r.qX, height: r.qY, label: `${det.name} (preview, scan binned ${r.scanBin}×)`, token }));
+      } catch (e) { fail(e); }
+    });
+  }, [client, ds, fail, first, previewQueue]);
 
   // The exact image of a detector: a new request for the same detector cancels the one before it.
   const exactJobs = useRef(new Map<string, string>());
@@ -346,58 +325,42 @@ export function App({ client, store, shell = null }: { client: Client; store: St
     }
   };
 
-  const runPca = async () => {
+  /** Ask the engine something about the open dataset: the last error is cleared, a failure shown. */
+  const onDataset = async (ask: (d: NonNullable<typeof ds>) => Promise<void>) => {
     if (!ds) return;
     setError(null);
-    try {
-      const r = await client.pca({ dataset: ds.id, components: store.get().analyses.pcaComponents, jobId: newJobId('pca') });
-      setPca(r);
-      setScanShows({ kind: 'loading', k: 0 }); setPatternShows({ kind: 'component', k: 0 });
-    } catch (e) { fail(e); }
-  };
-  const applyCalibration = async (input: CalibrationInput) => {
-    if (!ds) return;
-    setError(null);
-    store.update((s) => ({ ...s, calibration: input }), { undoable: true });
-    try {
-      setCalibration(await client.calibrate({ dataset: ds.id, ...input, jobId: newJobId('calibration') }));
-    } catch (e) { fail(e); }
+    try { await ask(ds); } catch (e) { fail(e); }
   };
 
-  const runField = async (rotation: 'auto' | { degrees: number; flip: boolean } = store.get().analyses.fieldRotation) => {
-    if (!ds) return;
-    setError(null);
+  const runPca = () => onDataset(async (d) => {
+    setPca(await client.pca({ dataset: d.id, components: store.get().analyses.pcaComponents, jobId: newJobId('pca') }));
+    setScanShows({ kind: 'loading', k: 0 }); setPatternShows({ kind: 'component', k: 0 });
+  });
+  const applyCalibration = (input: CalibrationInput) => onDataset(async (d) => {
+    store.update((s) => ({ ...s, calibration: input }), { undoable: true });
+    setCalibration(await client.calibrate({ dataset: d.id, ...input, jobId: newJobId('calibration') }));
+  });
+  const runField = (rotation: 'auto' | { degrees: number; flip: boolean } = store.get().analyses.fieldRotation) => onDataset(async (d) => {
     setAnalyses({ fieldRotation: rotation });
     const descanRegion = store.get().regions.find((g) => g.id === store.get().analyses.descanRegion && g.shape.kind === 'rectangle');
     const descan = descanRegion ? { descan: { kind: 'reference' as const, region: descanRegion.shape as { x0: number; y0: number; x1: number; y1: number } } } : {};
-    try {
-      const cal = calibration?.scanStepNm ? { mradPerPixel: calibration.mradPerPixel, energyKeV: calibration.energyKeV, scanStepNm: calibration.scanStepNm } : undefined;
-      const r = await client.comField({ dataset: ds.id, rotation, jobId: newJobId('field'), ...descan, ...(cal ? { calibration: cal } : {}) });
-      setField(r);
-      setRotationText(String(Math.round(r.rotation.degrees * 100) / 100));
-      setFlip(r.rotation.flip);
-      setScanShows({ kind: 'field', map: 'direction' });
-    } catch (e) { fail(e); }
-  };
-  const runFit = async () => {
-    if (!ds) return;
+    const cal = calibration?.scanStepNm ? { mradPerPixel: calibration.mradPerPixel, energyKeV: calibration.energyKeV, scanStepNm: calibration.scanStepNm } : undefined;
+    const r = await client.comField({ dataset: d.id, rotation, jobId: newJobId('field'), ...descan, ...(cal ? { calibration: cal } : {}) });
+    setField(r);
+    setRotationText(String(Math.round(r.rotation.degrees * 100) / 100));
+    setFlip(r.rotation.flip);
+    setScanShows({ kind: 'field', map: 'direction' });
+  });
+  const runFit = () => onDataset(async (d) => {
     const regions = store.get().regions;
-    setError(null);
-    try {
-      const r = await client.fit({ dataset: ds.id, references: regions.map((g) => g.shape), nonnegative: true, jobId: newJobId('fit') });
-      setFit({ ...r, names: regions.map((g) => g.name) });
-      setScanShows({ kind: 'fit', k: 0 });
-    } catch (e) { fail(e); }
-  };
-  const runKmeans = async () => {
-    if (!ds) return;
-    setError(null);
-    try {
-      const r = await client.kmeans({ dataset: ds.id, clusters: store.get().analyses.kmeansClusters, jobId: newJobId('kmeans') });
-      setKmeans(r);
-      setScanShows({ kind: 'clusters' }); setPatternShows({ kind: 'cluster', k: 0 });
-    } catch (e) { fail(e); }
-  };
+    const r = await client.fit({ dataset: d.id, references: regions.map((g) => g.shape), nonnegative: true, jobId: newJobId('fit') });
+    setFit({ ...r, names: regions.map((g) => g.name) });
+    setScanShows({ kind: 'fit', k: 0 });
+  });
+  const runKmeans = () => onDataset(async (d) => {
+    setKmeans(await client.kmeans({ dataset: d.id, clusters: store.get().analyses.kmeansClusters, jobId: newJobId('kmeans') }));
+    setScanShows({ kind: 'clusters' }); setPatternShows({ kind: 'cluster', k: 0 });
+  });
 
   // What each view shows; memoised, so an unchanged image is neither uploaded nor rescaled again.
   const scanView = useMemo((): { image: ImageData2D | null; colormap?: ColormapName; limits?: [number, number] } => {

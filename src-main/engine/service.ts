@@ -685,15 +685,20 @@ export class EngineService implements ScanfoldService {
     const { plan, features, badPixels } = await this.featurePlan(r, req);
     const restarts = req.restarts ?? 10, seed = req.seed ?? 0;
     const km = await this.track(this.engine.streamedKmeans(specOf(r), plan, req.clusters, { restarts, seed, maxIterations: req.maxIterations ?? 30, sampleRows: 16 }), req.jobId, 'k-means');
-    const patterns = await this.track(this.engine.clusterPatterns(specOf(r), km.labels, req.clusters), req.jobId ? `${req.jobId}/cluster-patterns` : undefined, 'cluster patterns');
+    const clusterPatterns = await this.clusterPatternsPass(r, km.labels, req.clusters, req.jobId);
     return {
-      dataset: r.id, descriptor: d, k: req.clusters, labels: km.labels, centers: km.centers, clusterPatterns: patterns.means,
+      dataset: r.id, descriptor: d, k: req.clusters, labels: km.labels, centers: km.centers, clusterPatterns,
       sizes: km.sizes, inertia: km.inertia, iterations: km.iterations,
       features: { ...features, kind: 'patterns', components: plan.nFeatures },
       method: { algorithm: 'lloyd', restarts, seed, restartKept: 0, pcaPasses: 0, passes: km.passes + 1 },
       ...(badPixels ? { badPixels } : {}),
       seconds: (performance.now() - t0) / 1000,
     };
+  }
+
+  /** The mean pattern of every cluster at full resolution: one pass, a job of its own under the request's id. */
+  private async clusterPatternsPass(r: DatasetRecord, labels: Int32Array, k: number, jobId: string | undefined): Promise<Float64Array> {
+    return (await this.track(this.engine.clusterPatterns(specOf(r), labels, k), jobId ? `${jobId}/cluster-patterns` : undefined, 'cluster patterns')).means;
   }
 
   async kmeans(req: KmeansRequest): Promise<KmeansResult> {
@@ -734,7 +739,7 @@ export class EngineService implements ScanfoldService {
         for (let c = 0; c < req.clusters; c++) for (let j = 0; j < per; j++) clusterPatterns[c * per + j] /= km.sizes[c];
         preview = { qY: cube.qY, qX: cube.qX, pY: cube.pY, pX: cube.pX, scanBin: cube.scanBin, detBin: cube.detBin };
       } else {
-        clusterPatterns = (await this.track(this.engine.clusterPatterns(specOf(r), km.labels, req.clusters), req.jobId ? `${req.jobId}/cluster-patterns` : undefined, 'cluster patterns')).means;
+        clusterPatterns = await this.clusterPatternsPass(r, km.labels, req.clusters, req.jobId);
       }
       let explained = 0;
       for (const x of pca.explainedVarianceRatio) explained += x;

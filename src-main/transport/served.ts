@@ -10,9 +10,9 @@ import fs from 'node:fs';
 import http from 'node:http';
 import path from 'node:path';
 import { WebSocketServer, type WebSocket } from 'ws';
-import { serveService, type Port } from '../../src-shared/contract/channel';
+import { interceptService, serveService, type Port } from '../../src-shared/contract/channel';
 import { decodeMessage, encodeMessage } from '../../src-shared/contract/wire';
-import { SERVICE_METHODS, type ScanfoldService } from '../../src-shared/contract/service';
+import type { ScanfoldService } from '../../src-shared/contract/service';
 import { InputError } from '../../src-shared/model/errors';
 
 export interface ServedOptions {
@@ -58,13 +58,7 @@ export async function startServed(opts: ServedOptions): Promise<Served> {
   const token = opts.token ?? crypto.randomBytes(18).toString('base64url');
   const root = path.resolve(opts.rendererDir);
   if (!fs.existsSync(path.join(root, 'index.html'))) throw new Error(`served mode: ${root}/index.html is missing; run \`npm run build\` first`);
-  // Over the network the engine is never shut down by a client; the command that serves it does that.
   const real = opts.service;
-  const service = {
-    ...Object.fromEntries(SERVICE_METHODS.map((m) => [m, (arg: never) => (real[m] as (a: never) => Promise<unknown>).call(real, arg)])),
-    shutdown: () => Promise.reject(new Error('shutdown: not offered over the served connection')),
-    onEvent: (l: Parameters<ScanfoldService['onEvent']>[0]) => real.onEvent(l),
-  } as ScanfoldService;
   let port = 0;
   const server = http.createServer((req, res) => {
     const url = parseUrl(req.url);
@@ -131,17 +125,16 @@ export async function startServed(opts: ServedOptions): Promise<Served> {
       }
       for (const l of listeners) l(m);
     });
-    // The jobs this client started end with its connection (a closed tab leaves nothing running).
+    // The jobs this client started end with its connection (a closed tab leaves nothing running);
+    // the engine is never shut down by a client (the command that serves it does that).
     const jobs = new Set<string>();
-    const own = {
-      ...Object.fromEntries(SERVICE_METHODS.map((m) => [m, (arg: unknown) => {
-        const jobId = arg && typeof arg === 'object' && typeof (arg as { jobId?: unknown }).jobId === 'string' ? (arg as { jobId: string }).jobId : null;
-        if (jobId) jobs.add(jobId);
-        const done = (service[m] as (a: unknown) => Promise<unknown>)(arg);
-        return jobId ? done.finally(() => jobs.delete(jobId)) : done;
-      }])),
-      onEvent: service.onEvent,
-    } as ScanfoldService;
+    const own = interceptService(real, (method, arg, call) => {
+      if (method === 'shutdown') return Promise.reject(new Error('shutdown: not offered over the served connection'));
+      const jobId = arg && typeof arg === 'object' && typeof (arg as { jobId?: unknown }).jobId === 'string' ? (arg as { jobId: string }).jobId : null;
+      if (!jobId) return call();
+      jobs.add(jobId);
+      return call().finally(() => jobs.delete(jobId));
+    });
     const stop = serveService(own, wsPort);
     stops.add(stop);
     ws.on('close', () => {

@@ -21,6 +21,16 @@ type Reply =
 
 const METHODS = new Set<string>(SERVICE_METHODS);
 
+/**
+ * The service with every request passed through `around` (which may refuse it, time it, note its
+ * job id…, and calls `call` to go on); events pass straight through.
+ */
+export function interceptService(service: ScanfoldService, around: (method: ServiceMethod, arg: unknown, call: () => Promise<unknown>) => Promise<unknown>): ScanfoldService {
+  const methods = Object.fromEntries(SERVICE_METHODS.map((m) => [m, (arg: unknown) =>
+    around(m, arg, () => (service[m] as (a: unknown) => Promise<unknown>).call(service, arg))]));
+  return { ...methods, onEvent: (l: (e: ServiceEvent) => void) => service.onEvent(l) } as unknown as ScanfoldService;
+}
+
 /** Answer requests arriving on `port` with `service`, and forward its events. Returns the function that stops. */
 export function serveService(service: ScanfoldService, port: Port): () => void {
   const offEvents = service.onEvent((event) => port.send({ t: 'event', event } satisfies Reply));

@@ -7,7 +7,6 @@
 // Screenshots of each step are kept in test-artifacts/app/.
 import fs from 'node:fs';
 import net from 'node:net';
-import os from 'node:os';
 import path from 'node:path';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import WebSocket from 'ws';
@@ -15,11 +14,11 @@ import { chromium, type Browser, type Page } from 'playwright-core';
 import { EngineService } from '../../src-main/engine/service';
 import { distFile } from '../../src-main/engine/paths';
 import { startServed, type Served } from '../../src-main/transport/served';
-import { writeSample } from '../../samples/write-sample';
 import { connectService } from '../../src-shared/contract/channel';
 import { decodeMessage, encodeMessage } from '../../src-shared/contract/wire';
 import { colormapLut, type ColormapName } from '../../src-renderer/colormaps';
 import { mapValue, wheelColour, type Contrast } from '../../src-renderer/views/contrast';
+import { makeDemoSample } from '../helpers/fixtures';
 
 const CHROMIUM = '/usr/bin/chromium';
 const ARTIFACTS = path.resolve(__dirname, '../../test-artifacts/app');
@@ -32,9 +31,7 @@ let browser: Browser;
 let page: Page;
 
 beforeAll(async () => {
-  dir = fs.mkdtempSync(path.join(os.tmpdir(), 'scanfold-app-'));
-  demo = path.join(dir, 'demo.h5');
-  await writeSample({ size: 'demo', out: demo });
+  ({ dir, file: demo } = await makeDemoSample('scanfold-app-'));
   fs.mkdirSync(ARTIFACTS, { recursive: true });
   service = new EngineService({ workers: 2 });
   await service.open({ path: demo, datasetPath: '/scan/frames' });

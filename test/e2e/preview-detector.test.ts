@@ -1,20 +1,16 @@
 // Instant answers from the preview cube: the same detector gives, from the binned cube, an
 // image in the same units as the exact one from the full data.
 import fs from 'node:fs';
-import os from 'node:os';
-import path from 'node:path';
 import { afterAll, beforeAll, expect, it } from 'vitest';
 import { Engine } from '../../src-main/engine/engine';
 import { previewDetectorImages } from '../../src-main/engine/preview';
 import { compileDetector } from '../../src-shared/compute/detector-masks';
-import { writeSample } from '../../samples/write-sample';
+import { makeDemoSample } from '../helpers/fixtures';
 
 let dir: string;
 let file: string;
 beforeAll(async () => {
-  dir = fs.mkdtempSync(path.join(os.tmpdir(), 'scanfold-pv-'));
-  file = path.join(dir, 'demo.h5');
-  await writeSample({ size: 'demo', out: file });
+  ({ dir, file } = await makeDemoSample('scanfold-pv-'));
 });
 afterAll(() => fs.rmSync(dir, { recursive: true, force: true }));
 

@@ -2,20 +2,17 @@
 // served there and refused without the token, a port in use is a one-line error, Ctrl-C stops it.
 import fs from 'node:fs';
 import net from 'node:net';
-import os from 'node:os';
 import path from 'node:path';
 import { spawn, spawnSync } from 'node:child_process';
 import { afterAll, beforeAll, expect, it } from 'vitest';
-import { writeSample } from '../../samples/write-sample';
+import { makeDemoSample } from '../helpers/fixtures';
 
 const root = path.resolve(__dirname, '../..');
 const cli = path.join(root, 'bin/scanfold.mjs');
 let dir: string;
 let demo: string;
 beforeAll(async () => {
-  dir = fs.mkdtempSync(path.join(os.tmpdir(), 'scanfold-serve-'));
-  demo = path.join(dir, 'demo.h5');
-  await writeSample({ size: 'demo', out: demo });
+  ({ dir, file: demo } = await makeDemoSample('scanfold-serve-'));
 });
 afterAll(() => fs.rmSync(dir, { recursive: true, force: true }));
 

@@ -7,6 +7,7 @@ import { DTYPE_BYTES, isDType, typedView, type DType, type NumericArray } from '
 import type { CompiledDetector } from '../../src-shared/model/detectors';
 import { WORKER_THREAD_BYTES } from '../../src-main/engine/budget';
 import { H5WASM_BASE_BYTES } from '../../src-main/io/hdf5';
+import { writeSample } from '../../samples/write-sample';
 
 /** Debian's interpreter, which has numpy, h5py and hdf5plugin (the pyenv python3 on PATH may not). */
 export const PYTHON = '/usr/bin/python3';
@@ -95,4 +96,12 @@ export function readFixtureDetectors(
  */
 export function tightBudget(workers: number, hdf5: boolean, extraBytes = 1 << 20): number {
   return workers * (WORKER_THREAD_BYTES + (hdf5 ? H5WASM_BASE_BYTES : 0)) + extraBytes;
+}
+
+/** A fresh temp folder (named from `prefix`) holding the demo sample as demo.h5 (dataset /scan/frames). */
+export async function makeDemoSample(prefix: string): Promise<{ dir: string; file: string }> {
+  const dir = fs.mkdtempSync(path.join(os.tmpdir(), prefix));
+  const file = path.join(dir, 'demo.h5');
+  await writeSample({ size: 'demo', out: file });
+  return { dir, file };
 }
