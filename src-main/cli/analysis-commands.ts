@@ -8,6 +8,7 @@ import type { BadPixelsMode, DescanRequest } from '../../src-shared/contract/ser
 import type { EngineOptions } from '../engine/engine';
 import { EngineService } from '../engine/service';
 import { writeFloat64Results, type ResultArray, type WrittenResults } from '../io/write-results';
+import { resultArrays } from '../io/result-arrays';
 import type { OutputFile } from '../io/output-file';
 import { readNpy2D } from '../io/npy-array';
 import { canonicalPath, physicalPath } from '../io/input-file';
@@ -176,13 +177,9 @@ export async function cmdImage(args: string[], engineOptions: EngineOptionsOf, e
     if (shapes.length === 0) throw new InputError('image needs at least one detector: --disk, --annulus, --rect, --polygon or --mask');
     const request = { dataset: opened.id, detectors: shapes.map((shape) => ({ shape, weighted: v.weighted === true })), badPixels };
     const r = await service.virtualImages(request);
-    const n = scanY * scanX;
-    const all = new Float64Array(r.images.length * n);
-    r.images.forEach((img, k) => all.set(img, k * n));
-    const attrs: Record<string, string | number> = { detectors: JSON.stringify(r.labels), bad_pixels_left_out: r.badPixelsLeftOut, non_finite_inputs: r.nonFiniteInputs };
-    r.labels.forEach((label, k) => { attrs[`detector_${k}`] = label; });
-    const written = await writeResults(service, out, { images: { data: all, shape: [r.images.length, scanY, scanX], attrs, dims: ['detector', 'scan_y', 'scan_x'] } },
-      { ...provenance(r.descriptor, 'scanfold image', request), ...badPixelAttrs(r.badPixels) });
+    const arrays = resultArrays('virtualImages', r);
+    Object.assign(arrays.images.attrs!, { bad_pixels_left_out: r.badPixelsLeftOut, non_finite_inputs: r.nonFiniteInputs });
+    const written = await writeResults(service, out, arrays, { ...provenance(r.descriptor, 'scanfold image', request), ...badPixelAttrs(r.badPixels) });
     noteNonFiniteResults(written);
     if (!quiet) process.stderr.write(`wrote ${written.path}: ${r.images.length} image(s) ${scanY}×${scanX}${r.badPixelsLeftOut ? `, ${r.badPixelsLeftOut} bad detector pixel(s) left out` : ''}\n`);
   }, out);
@@ -233,11 +230,7 @@ export async function cmdCom(args: string[], engineOptions: EngineOptionsOf, eng
     };
     const f = await service.comField(request);
     if (!quiet) for (const note of f.notes) process.stderr.write(`note: ${note}\n`);
-    const shape = [f.scanY, f.scanX];
-    const arrays: Record<string, ResultArray> = {};
-    for (const [name, m] of Object.entries(f.maps)) {
-      arrays[name] = { data: m.data, shape, dims: ['scan_y', 'scan_x'], attrs: { units: m.units, ...(m.note ? { method: m.note } : {}) } };
-    }
+    const arrays = resultArrays('comField', f);
     const rot = f.rotation;
     const rootAttrs: Record<string, string | number> = {
       rotation_degrees: rot.degrees, flip: rot.flip ? 'yes' : 'no', rotation_source: rot.source,
@@ -356,10 +349,7 @@ export async function cmdPattern(args: string[], engineOptions: EngineOptionsOf,
     }
     const request = { dataset: opened.id, region };
     const r = await service.regionPattern(request);
-    const written = await writeResults(service, out, {
-      mean_pattern: { data: r.mean, shape: [detY, detX], dims: ['det_y', 'det_x'], attrs: { units: 'counts per pattern' } },
-      max_pattern: { data: r.max, shape: [detY, detX], dims: ['det_y', 'det_x'], attrs: { units: 'counts' } },
-    }, { region: r.region, positions: r.count, non_finite_inputs: r.nonFiniteInputs, ...provenance(r.descriptor, 'scanfold pattern', request) });
+    const written = await writeResults(service, out, resultArrays('regionPattern', r), { region: r.region, positions: r.count, non_finite_inputs: r.nonFiniteInputs, ...provenance(r.descriptor, 'scanfold pattern', request) });
     noteNonFiniteResults(written);
     if (v.quiet !== true) process.stderr.write(`wrote ${written.path}: mean and max pattern over ${r.count} probe position(s)\n`);
   }, out);

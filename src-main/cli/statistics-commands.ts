@@ -4,6 +4,7 @@ import { InputError } from '../../src-shared/model/errors';
 import type { FitRequest, KmeansRequest, PcaRequest } from '../../src-shared/contract/service';
 import type { RegionShape } from '../../src-shared/model/detectors';
 import { readClusterLabels } from '../io/npy-array';
+import { resultArrays } from '../io/result-arrays';
 import type { EngineOptions } from '../engine/engine';
 import { badPixelAttrs, noteNonFiniteResults, openProtected, provenance, withService, writeResults } from './analysis-commands';
 import { outputFlag, parseFlags, rectangleFlag, rejectExtraPositionals, SOURCE_OPTIONS, sourceSpecFromFlags, wholeNumber } from './source-flags';
@@ -72,14 +73,7 @@ export async function cmdPca(args: string[], engineOptions: (v: Record<string, u
     const f = r.features;
     // A preview's loadings are per scan bin of the preview cube.
     const [ly, lx] = r.preview ? [r.preview.qY, r.preview.qX] : [scanY, scanX];
-    const written = await writeResults(service, out, {
-      singular_values: { data: r.singularValues, shape: [r.k], dims: ['component'], attrs: { units: 'feature units (after scaling)' } },
-      explained_variance_ratio: { data: r.explainedVarianceRatio, shape: [r.k], dims: ['component'], attrs: { units: 'fraction of the total variance' } },
-      components: { data: r.components, shape: [r.k, f.outY, f.outX], dims: ['component', 'det_y_binned', 'det_x_binned'],
-        attrs: { units: 'unit vector over the features', note: 'NaN where a detector bin was left out; each component\'s largest entry is positive' } },
-      loadings: { data: r.loadings, shape: [r.k, ly, lx], dims: ['component', r.preview ? 'scan_y_binned' : 'scan_y', r.preview ? 'scan_x_binned' : 'scan_x'], attrs: { units: 'feature units (coordinate along the component)' } },
-      mean_pattern: { data: r.meanPattern, shape: [f.outY, f.outX], dims: ['det_y_binned', 'det_x_binned'], attrs: { units: 'feature units (after scaling)', note: 'NaN where a detector bin was left out' } },
-    }, {
+    const written = await writeResults(service, out, resultArrays('pca', r), {
       components_found: r.k, total_variance: r.totalVariance, bin: f.bin, crop_x0_y0_x1_y1: JSON.stringify([f.crop.x0, f.crop.y0, f.crop.x1, f.crop.y1]),
       features: f.nFeatures, bins_left_out: f.binsLeftOut, scaling: f.scaling, normalize: f.normalize ? 'yes' : 'no', bad_pixels: f.badPixels,
       oversample: r.method.oversample, sketch_columns: r.method.sketch, power_iterations: r.method.powerIterations, seed: r.method.seed,
@@ -144,14 +138,7 @@ export async function cmdKmeans(args: string[], engineOptions: (v: Record<string
     const f = r.features;
     const pv = r.preview;
     const [ly, lx, py, px] = pv ? [pv.qY, pv.qX, pv.pY, pv.pX] : [scanY, scanX, detY, detX];
-    const written = await writeResults(service, out, {
-      labels: { data: r.labels, shape: [ly, lx], dims: pv ? ['scan_y_binned', 'scan_x_binned'] : ['scan_y', 'scan_x'], attrs: { units: 'cluster index, 0 … k − 1' } },
-      centers: { data: r.centers, shape: [r.k, f.components], dims: ['cluster', f.kind === 'pca' ? 'component' : 'feature'],
-        attrs: { units: f.kind === 'pca' ? 'coordinates along the principal components (feature units)' : 'feature units (the binned detector, bins left out skipped)' } },
-      cluster_patterns: { data: r.clusterPatterns, shape: [r.k, py, px], dims: pv ? ['cluster', 'det_y_binned', 'det_x_binned'] : ['cluster', 'det_y', 'det_x'],
-        attrs: { units: pv ? 'counts per detector bin (mean over the cluster, preview cube)' : 'counts per pattern (mean over the cluster, full resolution)' } },
-      sizes: { data: Float64Array.from(r.sizes), shape: [r.k], dims: ['cluster'], attrs: { units: 'probe positions' } },
-    }, {
+    const written = await writeResults(service, out, resultArrays('kmeans', r), {
       clusters: r.k, inertia: r.inertia, iterations: r.iterations, algorithm: r.method.algorithm, restarts: r.method.restarts, restart_kept: r.method.restartKept, seed: r.method.seed,
       features_kind: f.kind, ...(f.kind === 'pca' ? { pca_components: f.components, pca_explained_variance: f.explainedVariance!, pca_passes_over_data: r.method.pcaPasses } : { features: f.components }),
       passes_over_data: pv ? 0 : r.method.passes,
@@ -197,11 +184,7 @@ export async function cmdFit(args: string[], engineOptions: (v: Record<string, u
     const request: FitRequest = { dataset: opened.id, references, ...features, ...(v.nonnegative === true ? { nonnegative: true } : {}) };
     const r = await service.fit(request);
     const f = r.features;
-    const written = await writeResults(service, out, {
-      coefficients: { data: r.coefficients, shape: [r.r, scanY, scanX], dims: ['reference', 'scan_y', 'scan_x'], attrs: { units: 'weight of the reference (1 = the reference itself)' } },
-      residual: { data: r.residual, shape: [scanY, scanX], dims: ['scan_y', 'scan_x'], attrs: { units: 'relative residual norm ‖f − Σ c_i r_i‖ / ‖f‖' } },
-      references: { data: r.references, shape: [r.r, f.outY, f.outX], dims: ['reference', 'det_y_binned', 'det_x_binned'], attrs: { units: 'feature units (after scaling)', note: 'NaN where a detector bin was left out' } },
-    }, {
+    const written = await writeResults(service, out, resultArrays('fit', r), {
       references: r.r, reference_regions: JSON.stringify(r.regions), reference_positions: JSON.stringify(r.counts), nonnegative: r.nonnegative ? 'yes' : 'no',
       bin: f.bin, crop_x0_y0_x1_y1: JSON.stringify([f.crop.x0, f.crop.y0, f.crop.x1, f.crop.y1]), features: f.nFeatures, bins_left_out: f.binsLeftOut,
       scaling: f.scaling, normalize: f.normalize ? 'yes' : 'no', bad_pixels: f.badPixels, zero_total_patterns: r.zeroPatterns, passes_over_data: 2,

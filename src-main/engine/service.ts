@@ -32,6 +32,12 @@ import { findVacuum, type VacuumFinding } from '../../src-shared/compute/vacuum'
 import { featuresToImage, planFeatures, type FeaturePlan } from '../../src-shared/compute/pattern-features';
 import { previewPca } from './statistics';
 import { kmeans, kmeansMiniBatch } from '../../src-shared/compute/kmeans';
+import type { SessionMethod } from '../../src-shared/model/session';
+import type { KeptEntry, OpenSessionRequest, OpenedSession, SaveSessionRequest, SessionDatasetStatus, SessionSaved } from '../../src-shared/contract/service';
+import { OutputFile } from '../io/output-file';
+import { SessionKeeper, datasetRecordOf, type DatasetRecordOf } from '../session/keeper';
+import { readSessionFile, writeSessionFile } from '../session/session-file';
+import { locateDataset, relinkMatches } from '../session/relink';
 
 interface FirstResults extends CachedFirstPass {
   /** The pass itself, with its preview cube; null when the results came from the cache. */
@@ -133,6 +139,8 @@ export class EngineService implements ScanfoldService {
   private readonly finished: ServiceJobInfo[] = [];
   private nextDataset = 1;
   private nextJob = 1;
+  /** Results kept under a key, to be saved in a session file. */
+  private readonly session = new SessionKeeper();
 
   /** Where first-pass results are kept between commands; null: no cache. */
   private readonly cacheDir: string | null;
@@ -207,6 +215,73 @@ export class EngineService implements ScanfoldService {
     } finally {
       this.requests.delete(jobId);
     }
+  }
+
+  /** A request whose result may be kept in the session (JobOptions.keepAs). */
+  private async requestKept<T>(method: SessionMethod, req: { jobId?: string; keepAs?: string; dataset: DatasetId }, fn: () => Promise<T>): Promise<T> {
+    const out = await this.request(req.jobId, fn);
+    if (req.keepAs) this.session.keep(method, req as never, out, datasetRecordOf(this.record(req.dataset).opened.descriptor));
+    return out;
+  }
+
+  private openIdOf = (fingerprint: string): DatasetId | null => {
+    for (const r of this.records.values()) if (r.opened.descriptor.fingerprint === fingerprint) return r.id;
+    return null;
+  };
+
+  async saveSession(req: SaveSessionRequest): Promise<SessionSaved> {
+    validateRequest('saveSession', req);
+    const open = [...this.records.values()].map((r) => ({ id: r.id, data: datasetRecordOf(r.opened.descriptor) }));
+    const out = OutputFile.create(req.path, { flag: 'session file', protect: [...this.records.values()].flatMap((r) => r.opened.descriptor.sourceFiles) });
+    try {
+      out.protectIdentities(await this.filesRead());
+      const { doc, results } = this.session.document(out.path, open, req.app, req.keys);
+      const path = await writeSessionFile(out, doc, results);
+      this.session.saved(path, doc);
+      return { path, results: doc.entries.length, datasets: doc.datasets.length };
+    } finally {
+      out.discard();
+    }
+  }
+
+  async openSession(req: OpenSessionRequest): Promise<OpenedSession> {
+    validateRequest('openSession', req);
+    const { path, doc, results } = await readSessionFile(req.path);
+    const relink = Object.entries(req.relink ?? {});
+    for (const [old] of relink) {
+      if (!doc.datasets.some((d) => relinkMatches(d, old))) {
+        throw new InputError(`--relink ${old}=…: the session has no dataset by that path, name or id; it has ${doc.datasets.map((d) => `${d.id} (${d.absolutePath})`).join(', ')}`, 'bad-request');
+      }
+    }
+    const statuses: SessionDatasetStatus[] = [];
+    const found = new Map<string, DatasetRecordOf>();
+    for (const ref of doc.datasets) {
+      const to = relink.find(([old]) => relinkMatches(ref, old))?.[1];
+      const where = await locateDataset(ref, path, to, (spec) => this.engine.describe(spec));
+      let opened: OpenedDataset | null = null;
+      if (where.descriptor) {
+        found.set(ref.id, datasetRecordOf(where.descriptor));
+        if (req.openData !== false) {
+          const id = this.openIdOf(ref.fingerprint);
+          opened = id ? publicOpened(this.record(id).opened) : await this.open({ ...ref.spec, path: where.path! });
+        }
+      }
+      statuses.push({ ref, status: where.status, path: where.path, how: where.how, opened });
+    }
+    this.session.load(path, doc, results, found);
+    // Results name the dataset this session's reference opened (none when its data was not found).
+    const statusOf = (fp: string) => statuses.find((d) => d.ref.fingerprint === fp);
+    return { path, document: doc, datasets: statuses, results: this.session.entries((fp) => statusOf(fp)?.opened?.id ?? null, (fp) => statusOf(fp)?.ref.id ?? '') };
+  }
+
+  async sessionEntries(): Promise<KeptEntry[]> {
+    validateRequest('sessionEntries', undefined);
+    return this.session.recipes(this.openIdOf);
+  }
+
+  async forgetSession(): Promise<void> {
+    validateRequest('forgetSession', undefined);
+    this.session.forget();
   }
 
   private async track<T>(job: Job<T>, jobId: string | undefined, label: string): Promise<T> {
@@ -377,7 +452,7 @@ export class EngineService implements ScanfoldService {
 
   async virtualImages(req: VirtualImagesRequest): Promise<VirtualImagesResult> {
     validateRequest('virtualImages', req);
-    return this.request(req.jobId, async () => {
+    return this.requestKept('virtualImages', req, async () => {
       const r = this.record(req.dataset);
       // Every detector is checked before any pass over the data.
       this.compileDetectors(r, req.detectors);
@@ -393,7 +468,7 @@ export class EngineService implements ScanfoldService {
 
   async comField(req: ComFieldRequest): Promise<ComFieldResult> {
     validateRequest('comField', req);
-    return this.request(req.jobId, async () => {
+    return this.requestKept('comField', req, async () => {
       const r = this.record(req.dataset);
       const { detY, detX, scanY, scanX } = r.opened.descriptor.shape;
       const file = r.opened.descriptor.path;
@@ -481,7 +556,7 @@ export class EngineService implements ScanfoldService {
 
   async calibrate(req: CalibrationRequest): Promise<CalibrationResult> {
     validateRequest('calibrate', req);
-    return this.request(req.jobId, async () => {
+    return this.requestKept('calibrate', req, async () => {
       const r = this.record(req.dataset);
       const d = r.opened.descriptor;
       const file = d.path;
@@ -560,7 +635,7 @@ export class EngineService implements ScanfoldService {
 
   async pca(req: PcaRequest): Promise<PcaResult> {
     validateRequest('pca', req);
-    return this.request(req.jobId, () => this.runPca(this.record(req.dataset), req));
+    return this.requestKept('pca', req, () => this.runPca(this.record(req.dataset), req));
   }
 
   /**
@@ -653,7 +728,7 @@ export class EngineService implements ScanfoldService {
 
   async fit(req: FitRequest): Promise<FitResult> {
     validateRequest('fit', req);
-    return this.request(req.jobId, async () => {
+    return this.requestKept('fit', req, async () => {
       const r = this.record(req.dataset);
       const d = r.opened.descriptor;
       const { scanY, scanX } = d.shape;
@@ -703,7 +778,7 @@ export class EngineService implements ScanfoldService {
 
   async kmeans(req: KmeansRequest): Promise<KmeansResult> {
     validateRequest('kmeans', req);
-    return this.request(req.jobId, async () => {
+    return this.requestKept('kmeans', req, async () => {
       const r = this.record(req.dataset);
       const t0 = performance.now();
       const d = r.opened.descriptor;
@@ -757,7 +832,7 @@ export class EngineService implements ScanfoldService {
 
   async regionPattern(req: RegionPatternRequest): Promise<RegionPatternResult> {
     validateRequest('regionPattern', req);
-    return this.request(req.jobId, async () => {
+    return this.requestKept('regionPattern', req, async () => {
       const r = this.record(req.dataset);
       const { scanY, scanX } = r.opened.descriptor.shape;
       const region = aboutFile(r.opened.descriptor.path, () => compileRegion(req.region, scanY, scanX));

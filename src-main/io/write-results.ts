@@ -1,14 +1,8 @@
 import { writeHdf5File, type H5DatasetInput } from './hdf5-writer';
 import type { OutputFile } from './output-file';
+import type { ResultArray } from './result-arrays';
 
-export interface ResultArray {
-  /** float64, or int32 for labels. */
-  data: Float64Array | Int32Array;
-  shape: number[];
-  attrs?: Record<string, string | number>;
-  /** Dimension labels (HDF5 dimension scales' labels, as h5py's dims[i].label reads them). */
-  dims?: string[];
-}
+export type { ResultArray };
 
 export interface WrittenResults {
   path: string;
@@ -17,7 +11,7 @@ export interface WrittenResults {
 }
 
 /**
- * Write float64 result arrays (and attributes on the root group) to a new HDF5 file. Every
+ * Write result arrays (float64; int32 for labels and counts) (and attributes on the root group) to a new HDF5 file. Every
  * array's count of NaN/±Inf values is stored as its `non_finite_results` attribute and summed
  * in the root's `non_finite_results`, so an overflow never passes unnoticed.
  */

@@ -115,15 +115,33 @@ export type RegionTileReply = { sum: Float64Array; max: Float64Array; count: num
 const sources = new Map<string, TileSource>();
 const MAX_OPEN_SOURCES = 4;
 
+/** The file each open source was opened from, to see it replaced under the same name. */
+const openedAs = new WeakMap<TileSource, string>();
+
+function fileState(path: string): string {
+  try {
+    const st = fs.statSync(path);
+    return `${st.dev}:${st.ino}:${st.size}:${st.mtimeMs}`;
+  } catch {
+    return 'gone';
+  }
+}
+
 async function sourceFor(spec: SourceSpec): Promise<TileSource> {
   const key = JSON.stringify(spec);
   const hit = sources.get(key);
-  if (hit) {
+  // A file moved, replaced or rewritten under the same name is another source: reopen it.
+  if (hit && openedAs.get(hit) !== fileState(hit.descriptor.path)) {
+    for (const [k, v] of sources) if (v === hit) sources.delete(k);
+    hit.close();
+  } else if (hit) {
     sources.delete(key);
     sources.set(key, hit);
     return hit;
   }
+  const state = fileState(spec.path);
   const src = await openTileSource(spec, { memoryPerWorkerBytes: workerData?.memoryPerWorkerBytes });
+  openedAs.set(src, state);
   // The user's spec and the descriptor's resolved spec name the same source.
   const resolvedKey = JSON.stringify(src.descriptor.spec);
   const same = sources.get(resolvedKey);

@@ -5,6 +5,7 @@
 import type { DatasetDescriptor, Hdf5DatasetInfo, SourceSpec } from '../model/dataset';
 import type { DetectorSpec, RegionShape } from '../model/detectors';
 import type { JobInfo } from './jobs';
+import type { AppSetup, SessionDatasetRef, SessionDocument, SessionMethod } from '../model/session';
 
 /** An open dataset, named by the service. */
 export type DatasetId = string;
@@ -24,6 +25,12 @@ export type Inspection =
 export interface JobOptions {
   /** A client-chosen id for the job (unique among running jobs); one is made up when omitted. */
   jobId?: string;
+  /**
+   * Keep the result in the engine's session under this key (replacing one kept under it), with
+   * its request as the recipe; saveSession writes what is kept. Results of virtualImages,
+   * comField, calibrate, regionPattern, pca, kmeans and fit can be kept.
+   */
+  keepAs?: string;
 }
 
 /** Hot and dead detector pixels: found on the mean and max pattern, or none. */
@@ -379,6 +386,73 @@ export interface FitResult {
   seconds: number;
 }
 
+/** The results each kept request gives. */
+export interface SessionResultOf {
+  virtualImages: VirtualImagesResult;
+  comField: ComFieldResult;
+  calibrate: CalibrationResult;
+  regionPattern: RegionPatternResult;
+  pca: PcaResult;
+  kmeans: KmeansResult;
+  fit: FitResult;
+}
+
+export interface SaveSessionRequest {
+  /** The session file (NAME.scanfold.h5); replaced atomically when it exists. */
+  path: string;
+  /** The kept results to save; default all. */
+  keys?: string[];
+  /** The app's setup; its `dataset` is the engine's id of the dataset shown (saved as the session's own id). */
+  app?: AppSetup;
+}
+
+export interface SessionSaved {
+  path: string;
+  results: number;
+  datasets: number;
+}
+
+export interface OpenSessionRequest {
+  path: string;
+  /** Where moved data now is: OLD (a recorded path, file name or session dataset id) → NEW path. */
+  relink?: Record<string, string>;
+  /** Open the data found, for new analyses (default true); false only reads the file. */
+  openData?: boolean;
+}
+
+export interface SessionDatasetStatus {
+  ref: SessionDatasetRef;
+  /** found at its path, moved (found elsewhere, same fingerprint), missing, or different (other data where it was). */
+  status: 'found' | 'moved' | 'missing' | 'different';
+  path: string | null;
+  how: string;
+  /** The engine's handle when the data was found and opened. */
+  opened: OpenedDataset | null;
+}
+
+/** A kept result: what made it, and the result itself. */
+export interface KeptResult<M extends SessionMethod = SessionMethod> {
+  key: string;
+  method: M;
+  /** The engine's id of its dataset when open, else null (the result is still shown). */
+  dataset: DatasetId | null;
+  /** The session's id of its dataset. */
+  datasetRef: string;
+  request: Record<string, unknown>;
+  created: string;
+  result: SessionResultOf[M];
+}
+
+export interface OpenedSession {
+  path: string;
+  document: SessionDocument;
+  datasets: SessionDatasetStatus[];
+  results: KeptResult[];
+}
+
+/** A kept result's recipe, without the result. */
+export type KeptEntry = Omit<KeptResult, 'result'>;
+
 export type ServiceEvent =
   /** A job started, progressed, finished, failed or was cancelled. */
   | { kind: 'job'; job: JobInfo & { jobId: string } }
@@ -408,6 +482,15 @@ export interface ScanfoldService {
   /** Every pattern fitted as a least-squares combination of the mean patterns of chosen regions. */
   fit(req: FitRequest): Promise<FitResult>;
 
+  /** Write the kept results, the datasets they and the app use, and the app's setup to a session file. */
+  saveSession(req: SaveSessionRequest): Promise<SessionSaved>;
+  /** Read a session file: its results become the kept results (shown even with the data absent); the data found is opened. */
+  openSession(req: OpenSessionRequest): Promise<OpenedSession>;
+  /** The kept results' recipes. */
+  sessionEntries(): Promise<KeptEntry[]>;
+  /** Forget every kept result (a new session). */
+  forgetSession(): Promise<void>;
+
   /** Fast requests, outside the job queue. */
   patternAt(req: PatternAtRequest): Promise<PatternAtResult>;
   previewImages(req: PreviewImagesRequest): Promise<PreviewImagesResult>;
@@ -432,7 +515,7 @@ export interface ScanfoldService {
 /** The request methods, for generic transports and the validator. */
 export const SERVICE_METHODS = [
   'inspect', 'open', 'close', 'datasets', 'firstPass', 'virtualImages', 'comField', 'calibrate',
-  'regionPattern', 'pca', 'kmeans', 'fit', 'patternAt', 'previewImages', 'filesRead', 'jobs', 'cancel', 'shutdown',
+  'regionPattern', 'pca', 'kmeans', 'fit', 'saveSession', 'openSession', 'sessionEntries', 'forgetSession', 'patternAt', 'previewImages', 'filesRead', 'jobs', 'cancel', 'shutdown',
 ] as const satisfies readonly (keyof ScanfoldService)[];
 
 export type ServiceMethod = (typeof SERVICE_METHODS)[number];

@@ -5,6 +5,7 @@ import { z } from 'zod';
 import { DTYPES } from '../model/dtype';
 import { InputError } from '../model/errors';
 import type { ServiceMethod } from './service';
+import { SESSION_FORMAT, SESSION_FORMAT_VERSION, SESSION_METHODS, type SessionDocument } from '../model/session';
 
 const finite = z.number().finite();
 const positive = finite.positive();
@@ -51,7 +52,9 @@ const regionShape = z.union([
 ]);
 
 const dataset = z.string().min(1, 'expected a dataset id from open');
-const job = { jobId: z.string().min(1).max(200).optional() };
+/** A session key: a plain name that is also an HDF5 group name. */
+const sessionKey = z.string().regex(/^[A-Za-z0-9][A-Za-z0-9_.-]{0,63}$/, 'expected a name of letters, digits, _ . - (at most 64, not starting with . _ -)');
+const job = { jobId: z.string().min(1).max(200).optional(), keepAs: sessionKey.optional() };
 const badPixels = z.enum(['auto', 'none']).optional();
 
 /** How patterns become feature vectors: the same fields for pca, kmeans and fit. */
@@ -62,6 +65,37 @@ const featureFields = {
   normalize: z.boolean().optional(),
   badPixels,
 };
+const setupItem = <S extends z.ZodType>(shape: S) => z.object({ id: z.string().min(1), name: z.string(), colour: z.string(), visible: z.boolean(), shape }).strict();
+const viewSettings = z.object({
+  colormap: z.string().min(1),
+  scaling: z.union([
+    z.object({ kind: z.literal('linear') }).strict(),
+    z.object({ kind: z.literal('log') }).strict(),
+    z.object({ kind: z.literal('gamma'), gamma: positive }).strict(),
+  ]),
+  limits: z.tuple([finite, finite]).nullable(),
+  limitsFor: z.string().nullable().optional(),
+}).strict();
+const shows = z.object({ kind: z.string().min(1) }).catchall(z.union([z.string(), finite]));
+
+/** The app's setup as a session file holds it (model/session.ts, AppSetup). */
+const appSetup = z.object({
+  dataset: sessionKey.nullable(),
+  detectors: z.array(setupItem(detectorShape)),
+  regions: z.array(setupItem(regionShape)),
+  calibration: z.object({ energyKeV: positive.optional(), convergenceMrad: positive.optional(), latticeSpacingAngstrom: positive.optional(), scanStepNm: positive.optional() }).strict(),
+  analyses: z.object({
+    pcaComponents: positiveWhole,
+    kmeansClusters: positiveWhole,
+    descanRegion: z.string().nullable(),
+    fieldRotation: z.union([z.literal('auto'), z.object({ degrees: finite, flip: z.boolean() }).strict()]),
+  }).strict(),
+  shows: z.object({ scan: shows, pattern: shows }).strict(),
+  activeDetector: z.string().nullable(),
+  scanView: viewSettings,
+  patternView: viewSettings,
+}).strict();
+
 const scalingAgrees = (r: { normalize?: boolean; scaling?: string }) => !(r.normalize && r.scaling === 'poisson');
 const scalingMessage = { message: 'normalize and Poisson scaling exclude each other (Poisson weighting needs counts)' };
 
@@ -133,6 +167,18 @@ const SCHEMAS: Record<ServiceMethod, z.ZodType> = {
   patternAt: z.object({ dataset, y: whole, x: whole }).strict(),
   previewImages: z.object({ dataset, detectors: z.array(detectorSpec).min(1, 'expected at least one detector') }).strict(),
   filesRead: z.undefined(),
+  saveSession: z.object({
+    path: z.string().min(1, 'expected a file path'),
+    keys: z.array(sessionKey).optional(),
+    app: appSetup.optional(),
+  }).strict(),
+  openSession: z.object({
+    path: z.string().min(1, 'expected a file path'),
+    relink: z.record(z.string().min(1), z.string().min(1)).optional(),
+    openData: z.boolean().optional(),
+  }).strict(),
+  sessionEntries: z.undefined(),
+  forgetSession: z.undefined(),
   jobs: z.undefined(),
   cancel: z.string().min(1),
   shutdown: z.undefined(),
@@ -183,4 +229,88 @@ function describeIssue(issue: z.core.$ZodIssue, value: unknown): string {
     default:
       return issue.message;
   }
+}
+
+const sessionDocument = z.object({
+  format: z.literal(SESSION_FORMAT),
+  formatVersion: positiveWhole,
+  scanfoldVersion: z.string(),
+  created: z.string(),
+  modified: z.string(),
+  datasets: z.array(z.object({
+    id: sessionKey,
+    name: z.string(),
+    absolutePath: z.string().min(1),
+    relativePath: z.string(),
+    spec: sourceSpec,
+    format: z.enum(['hdf5', 'npy', 'raw']),
+    datasetPath: z.string().nullable(),
+    shape: z.object({ scanY: positiveWhole, scanX: positiveWhole, detY: positiveWhole, detX: positiveWhole }).strict(),
+    dtype: z.enum(DTYPES as unknown as [string, ...string[]]),
+    byteSize: whole,
+    fingerprint: z.string().min(1),
+  }).strict()),
+  entries: z.array(z.object({
+    key: sessionKey,
+    method: z.enum(SESSION_METHODS),
+    dataset: sessionKey,
+    request: z.record(z.string(), z.unknown()),
+    created: z.string(),
+    scanfoldVersion: z.string(),
+    fingerprint: z.string(),
+  }).strict()),
+  app: appSetup.nullable(),
+}).strict();
+
+/**
+ * Upgrades from each older format version to the next, applied in turn on load. Version 1 is
+ * the first: there is nothing to upgrade yet, and a file claiming a version below 1 is refused.
+ */
+const UPGRADES: Record<number, (doc: Record<string, unknown>) => Record<string, unknown>> = {};
+
+/**
+ * Check a session document read from a file (`what` names it in messages): upgraded from an
+ * older format version, refused when newer than this build, every recipe checked as the request
+ * it replays. Throws an InputError ('bad-session' or 'newer-session').
+ */
+export function validateSessionDocument(raw: unknown, what: string): SessionDocument {
+  if (raw === null || typeof raw !== 'object' || Array.isArray(raw)) throw new InputError(`${what}: the session document is not an object; the file is damaged or not a session`, 'bad-session');
+  let doc = raw as Record<string, unknown>;
+  const version = doc.formatVersion;
+  if (typeof version !== 'number' || !Number.isInteger(version) || version < 1) {
+    throw new InputError(`${what}: format version ${JSON.stringify(version)}; expected a whole number from 1 to ${SESSION_FORMAT_VERSION}`, 'bad-session');
+  }
+  if (version > SESSION_FORMAT_VERSION) {
+    throw new InputError(`${what}: written in session format ${version} by Scanfold ${String(doc.scanfoldVersion)}; this Scanfold reads formats 1 to ${SESSION_FORMAT_VERSION}. Open it with that version or newer`, 'newer-session');
+  }
+  for (let v = version; v < SESSION_FORMAT_VERSION; v++) {
+    const up = UPGRADES[v];
+    if (!up) throw new InputError(`${what}: format version ${v} cannot be upgraded by this Scanfold`, 'bad-session');
+    doc = { ...up(doc), formatVersion: v + 1 };
+  }
+  const r = sessionDocument.safeParse(doc);
+  if (!r.success) {
+    const issue = r.error.issues[0];
+    const where = issue.path.length ? issue.path.map(String).join('.') : 'document';
+    throw new InputError(`${what}: ${where}: ${describeIssue(issue, valueAt(doc, issue.path))}`, 'bad-session');
+  }
+  const out = doc as unknown as SessionDocument;
+  const ids = new Set<string>();
+  for (const d of out.datasets) {
+    if (ids.has(d.id)) throw new InputError(`${what}: dataset id ${JSON.stringify(d.id)} appears twice`, 'bad-session');
+    ids.add(d.id);
+  }
+  const keys = new Set<string>();
+  for (const e of out.entries) {
+    if (keys.has(e.key)) throw new InputError(`${what}: result ${JSON.stringify(e.key)} appears twice`, 'bad-session');
+    keys.add(e.key);
+    if (!ids.has(e.dataset)) throw new InputError(`${what}: result ${JSON.stringify(e.key)} names dataset ${JSON.stringify(e.dataset)}, which the session does not list`, 'bad-session');
+    try {
+      validateRequest(e.method, { ...e.request, dataset: e.dataset });
+    } catch (err) {
+      throw new InputError(`${what}: the recipe of result ${JSON.stringify(e.key)}: ${(err as Error).message}`, 'bad-session');
+    }
+  }
+  if (out.app?.dataset != null && !ids.has(out.app.dataset)) throw new InputError(`${what}: app.dataset names ${JSON.stringify(out.app.dataset)}, which the session does not list`, 'bad-session');
+  return out;
 }

@@ -25,7 +25,13 @@ export type InputErrorCode =
   | 'bad-rank'
   | 'missing-filter'
   | 'not-a-dataset'
-  | 'unsupported';
+  | 'unsupported'
+  /** A session file that is damaged, or not one. */
+  | 'bad-session'
+  /** A session file written by a newer Scanfold. */
+  | 'newer-session'
+  /** Data whose fingerprint differs from the one a session recorded. */
+  | 'different-data';
 
 /**
  * Writing a result failed after the work was done (no space, a disk error, permission taken

@@ -82,7 +82,7 @@ describe('layering (DESIGN.md)', () => {
     expect(bad).toEqual([]);
   });
 
-  it('inner folders: the CLI imports no kernel or worker; the engine no samples; readers no engine', () => {
+  it('inner folders: the CLI imports no kernel, worker or session code; the engine no samples; readers no engine; sessions no kernel', () => {
     const rules: [from: string, forbidden: string, why: string][] = [
       ['src-main/cli', 'src-shared/compute', 'the CLI parses flags, calls the service and writes files'],
       ['src-main/cli', 'src-main/workers', 'the CLI parses flags, calls the service and writes files'],
@@ -90,6 +90,9 @@ describe('layering (DESIGN.md)', () => {
       ['src-main/engine', 'bench', 'the engine ships without the benchmarks'],
       ['src-main/io', 'src-main/engine', 'readers stand alone under the engine'],
       ['src-shared/contract', 'src-shared/compute', 'the contract is types and validation only'],
+      ['src-main/cli', 'src-main/session', 'sessions are saved and opened through the service'],
+      ['src-main/session', 'src-shared/compute', 'session files hold results; they compute nothing'],
+      ['src-main/session', 'src-main/workers', 'session files hold results; they compute nothing'],
     ];
     const bad: string[] = [];
     for (const [from, forbidden, why] of rules) {
