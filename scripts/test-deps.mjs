@@ -6,7 +6,7 @@ import { spawnSync } from 'node:child_process';
 import fs from 'node:fs';
 
 const PYTHON = '/usr/bin/python3';
-const MODULES = [['numpy', 'python3-numpy'], ['h5py', 'python3-h5py'], ['hdf5plugin', 'python3-hdf5plugin'], ['sklearn', 'python3-sklearn'], ['scipy', 'python3-scipy']];
+const MODULES = [['numpy', 'python3-numpy'], ['h5py', 'python3-h5py'], ['hdf5plugin', 'python3-hdf5plugin'], ['sklearn', 'python3-sklearn'], ['scipy', 'python3-scipy'], ['PIL', 'python3-pil']];
 
 const CHROMIUM = '/usr/bin/chromium';
 

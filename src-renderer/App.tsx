@@ -7,7 +7,7 @@ import type { CalibrationResult, ComFieldResult, FirstPassResult, FitResult, Kme
 import type { JobInfo } from '../src-shared/contract/jobs';
 import type { DetectorShape } from '../src-shared/model/detectors';
 import type { DatasetDescriptor } from '../src-shared/model/dataset';
-import { CATEGORY_COLOURS, type ColormapName } from './colormaps';
+import { CATEGORY_COLOURS, type ColormapName } from '../src-shared/model/colormaps';
 import type { Client, Shell } from './connection';
 import type { AppState, CalibrationInput, DetectorItem, PatternShows, RegionItem, RegionItemShape, ScanShows, Store } from './store';
 import { fmt, ImageView, type ImageData2D, type PointerInImage } from './views/ImageView';

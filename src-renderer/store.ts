@@ -18,8 +18,8 @@ export interface RegionItem {
   visible: boolean;
   shape: RegionItemShape;
 }
-import type { ColormapName } from './colormaps';
-import type { Scaling } from './views/contrast';
+import type { ColormapName } from '../src-shared/model/colormaps';
+import type { Scaling } from '../src-shared/model/contrast';
 
 export interface DetectorItem {
   id: string;

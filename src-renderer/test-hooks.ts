@@ -1,7 +1,7 @@
 // What end-to-end tests read from the page: each view's current image, contrast, colour map and
 // placement, so a test can compare the drawn pixels with the engine's numbers. Read-only.
-import type { ColormapName } from './colormaps';
-import type { Contrast } from './views/contrast';
+import type { ColormapName } from '../src-shared/model/colormaps';
+import type { Contrast } from '../src-shared/model/contrast';
 import type { ImageLayer, Placement } from './views/image-layer';
 
 interface ViewRecord {

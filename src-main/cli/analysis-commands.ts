@@ -6,6 +6,7 @@ import type { DetectorShape, RegionShape } from '../../src-shared/model/detector
 import { InputError } from '../../src-shared/model/errors';
 import type { BadPixelsMode, DescanRequest } from '../../src-shared/contract/service';
 import type { EngineOptions } from '../engine/engine';
+import fs from 'node:fs';
 import { EngineService } from '../engine/service';
 import { writeFloat64Results, type ResultArray, type WrittenResults } from '../io/write-results';
 import { resultArrays } from '../io/result-arrays';
@@ -87,16 +88,67 @@ function checkMaskValues(file: string, values: ArrayLike<number>, width: number)
   }
 }
 
+/** --session FILE and --as NAME: the result (and its recipe) added to a session file. */
+export const SESSION_FLAGS = { session: { type: 'string' }, as: { type: 'string' } } as const;
+
+export interface SessionTarget {
+  path: string;
+  /** The key asked for (--as), or null: the command's name, numbered when taken. */
+  key: string | null;
+  command: string;
+}
+
+export function sessionTarget(v: Flags, command: string): SessionTarget | null {
+  if (typeof v.session !== 'string') {
+    if (typeof v.as === 'string') throw new InputError('--as NAME names the result in a session; it goes with --session FILE.scanfold.h5');
+    return null;
+  }
+  if (v.session.trim() === '') throw new InputError('--session needs a file name, such as analysis.scanfold.h5');
+  return { path: v.session, key: typeof v.as === 'string' ? v.as : null, command };
+}
+
+/** The output file of an analysis command: --out, or none when only --session is given. */
+export function analysisOutput(v: Flags, command: string, protect: readonly string[]): OutputFile | null {
+  if (typeof v.out !== 'string' && typeof v.session === 'string') return null;
+  if (typeof v.out !== 'string') throw new InputError(`${command} needs --out OUT.h5, or --session FILE.scanfold.h5 to add the result to a session`);
+  return outputFlag(v.out, command, protect);
+}
+
+/** The start of a command's last line: where the results went (none with only --session). */
+export function wrote(w: WrittenResults | null): string {
+  return w ? `wrote ${w.path}` : 'computed';
+}
+
+/** What to add to an analysis request so the engine keeps its result for the session. */
+export type Keep = { keepAs?: string };
+
 /**
  * Run `fn` on a fresh engine service with progress on stderr (Ctrl-C cancels). With an output,
- * its temporary file is removed whatever happens unless `fn` wrote it.
+ * its temporary file is removed whatever happens unless `fn` wrote it. With a session, the
+ * session is read first (if it exists), `fn` gets the key to keep its result under, and the
+ * session is saved after (atomically: the old one stays whole until the new one is complete).
  */
-export async function withService<T>(options: EngineOptions, quiet: boolean, fn: (s: EngineService) => Promise<T>, out?: OutputFile): Promise<T> {
+export async function withService<T>(options: EngineOptions, quiet: boolean, fn: (s: EngineService, keep: Keep) => Promise<T>, out?: OutputFile | null, session?: SessionTarget | null): Promise<T> {
   try {
     const service = new EngineService(options);
     for (const note of service.notes) process.stderr.write(`note: ${note}\n`);
     const stop = followJobs(service, quiet);
-    try { return await fn(service); } finally { stop(); await service.shutdown(); }
+    try {
+      let keep: Keep = {};
+      if (session) {
+        if (fs.existsSync(session.path)) await service.openSession({ path: session.path, openData: false });
+        const taken = new Set((await service.sessionEntries()).map((e) => e.key));
+        let key = session.key ?? session.command;
+        for (let n = 2; session.key === null && taken.has(key); n++) key = `${session.command}-${n}`;
+        keep = { keepAs: key };
+      }
+      const result = await fn(service, keep);
+      if (session) {
+        const saved = await service.saveSession({ path: session.path });
+        if (!quiet) process.stderr.write(`added ${keep.keepAs} to ${saved.path} (${saved.results} result${saved.results === 1 ? '' : 's'} in the session)\n`);
+      }
+      return result;
+    } finally { stop(); await service.shutdown(); }
   } finally {
     out?.discard();
   }
@@ -106,9 +158,10 @@ export async function withService<T>(options: EngineOptions, quiet: boolean, fn:
  * Open the source, protect every file its data comes from against --out, and check there is
  * room for the results (float64 values per scan position and per detector pixel).
  */
-export async function openProtected(service: EngineService, spec: SourceSpec, out: OutputFile, valuesPer: { scan: number; pattern: number }) {
+export async function openProtected(service: EngineService, spec: SourceSpec, out: OutputFile | null, valuesPer: { scan: number; pattern: number }) {
   const opened = await service.open(spec);
   const d = opened.descriptor;
+  if (!out) return opened;
   out.protect(d.sourceFiles);
   out.reserve(8 * (valuesPer.scan * d.shape.scanY * d.shape.scanX + valuesPer.pattern * d.shape.detY * d.shape.detX));
   return opened;
@@ -118,13 +171,15 @@ export async function openProtected(service: EngineService, spec: SourceSpec, ou
  * Write the results, after protecting every file the engine's readers opened (external raw
  * data, virtual sources), by identity, whatever name they were opened under.
  */
-export async function writeResults(service: EngineService, out: OutputFile, arrays: Record<string, ResultArray>, attrs: Record<string, string | number>): Promise<WrittenResults> {
+export async function writeResults(service: EngineService, out: OutputFile | null, arrays: Record<string, ResultArray>, attrs: Record<string, string | number>): Promise<WrittenResults | null> {
+  if (!out) return null;
   out.protectIdentities(await service.filesRead());
   return writeFloat64Results(out, arrays, attrs);
 }
 
 /** Say on stderr which results are NaN or ±Inf (overflowed sums, divisions by zero). */
-export function noteNonFiniteResults(w: WrittenResults, expected = ''): void {
+export function noteNonFiniteResults(w: WrittenResults | null, expected = ''): void {
+  if (!w) return;
   const parts = Object.entries(w.nonFiniteResults).map(([k, n]) => `${k} ${n}`);
   if (parts.length) process.stderr.write(`note: NaN or ±Inf result values (${parts.join(', ')})${expected}; their count is stored as non_finite_results\n`);
 }
@@ -159,6 +214,7 @@ export function badPixelAttrs(b: { hot: [number, number][]; dead: [number, numbe
 
 export async function cmdImage(args: string[], engineOptions: EngineOptionsOf, engineFlags: EngineFlags): Promise<void> {
   const parsed = parseFlags(args, {
+    ...SESSION_FLAGS,
     ...SOURCE_OPTIONS, ...engineFlags, out: { type: 'string' }, weighted: { type: 'boolean' }, 'bad-pixels': { type: 'string' },
     disk: { type: 'string', multiple: true }, annulus: { type: 'string', multiple: true }, rect: { type: 'string', multiple: true },
     polygon: { type: 'string', multiple: true }, mask: { type: 'string', multiple: true },
@@ -167,26 +223,28 @@ export async function cmdImage(args: string[], engineOptions: EngineOptionsOf, e
   rejectExtraPositionals(parsed.positionals, 'image');
   const spec = sourceSpecFromFlags(parsed.positionals[0], v as Record<string, unknown>);
   const badPixels = badPixelsFlag(v);
-  const out = outputFlag(v.out, 'image', [spec.path, ...flagFiles(v, 'mask')]);
+  const out = analysisOutput(v, 'image', [spec.path, ...flagFiles(v, 'mask')]);
+  const session = sessionTarget(v, 'image');
   const quiet = v.quiet === true;
-  await withService(engineOptions(v as Record<string, unknown>), quiet, async (service) => {
+  await withService(engineOptions(v as Record<string, unknown>), quiet, async (service, keep) => {
     const nDetectors = (parsed.tokens ?? []).filter((t) => t.kind === 'option' && ['disk', 'annulus', 'rect', 'polygon', 'mask'].includes(t.name)).length;
     const opened = await openProtected(service, spec, out, { scan: nDetectors, pattern: 0 });
     const { detY, detX, scanY, scanX } = opened.descriptor.shape;
     const shapes = detectorShapes(parsed.tokens, detY, detX);
     if (shapes.length === 0) throw new InputError('image needs at least one detector: --disk, --annulus, --rect, --polygon or --mask');
     const request = { dataset: opened.id, detectors: shapes.map((shape) => ({ shape, weighted: v.weighted === true })), badPixels };
-    const r = await service.virtualImages(request);
+    const r = await service.virtualImages({ ...request, ...keep });
     const arrays = resultArrays('virtualImages', r);
     Object.assign(arrays.images.attrs!, { bad_pixels_left_out: r.badPixelsLeftOut, non_finite_inputs: r.nonFiniteInputs });
     const written = await writeResults(service, out, arrays, { ...provenance(r.descriptor, 'scanfold image', request), ...badPixelAttrs(r.badPixels) });
     noteNonFiniteResults(written);
-    if (!quiet) process.stderr.write(`wrote ${written.path}: ${r.images.length} image(s) ${scanY}×${scanX}${r.badPixelsLeftOut ? `, ${r.badPixelsLeftOut} bad detector pixel(s) left out` : ''}\n`);
-  }, out);
+    if (!quiet) process.stderr.write(`${wrote(written)}: ${r.images.length} image(s) ${scanY}×${scanX}${r.badPixelsLeftOut ? `, ${r.badPixelsLeftOut} bad detector pixel(s) left out` : ''}\n`);
+  }, out, session);
 }
 
 export async function cmdCom(args: string[], engineOptions: EngineOptionsOf, engineFlags: EngineFlags): Promise<void> {
   const parsed = parseFlags(args, {
+    ...SESSION_FLAGS,
     ...SOURCE_OPTIONS, ...engineFlags, out: { type: 'string' }, 'mask-disk': { type: 'string' }, threshold: { type: 'string' },
     descan: { type: 'string' }, 'descan-region': { type: 'string' }, rotation: { type: 'string' }, flip: { type: 'string' }, 'bad-pixels': { type: 'string' },
     'mrad-per-pixel': { type: 'string' }, 'energy-kev': { type: 'string' }, 'scan-step-nm': { type: 'string' },
@@ -219,8 +277,9 @@ export async function cmdCom(args: string[], engineOptions: EngineOptionsOf, eng
   }
   const maskDisk = typeof v['mask-disk'] === 'string' ? (([cx, cy, r]) => ({ cx, cy, r }))(numbers('mask-disk', v['mask-disk'], 3)) : undefined;
   const badPixels = badPixelsFlag(v);
-  const out = outputFlag(v.out, 'com', [spec.path]);
-  await withService(engineOptions(v as Record<string, unknown>), quiet, async (service) => {
+  const out = analysisOutput(v, 'com', [spec.path]);
+  const session = sessionTarget(v, 'com');
+  await withService(engineOptions(v as Record<string, unknown>), quiet, async (service, keep) => {
     // Up to 11 maps of the scan: COM x/y, total, magnitude, direction, divergence, curl, phase and three calibrated ones.
     const opened = await openProtected(service, spec, out, { scan: 11, pattern: 0 });
     const request = {
@@ -228,7 +287,7 @@ export async function cmdCom(args: string[], engineOptions: EngineOptionsOf, eng
       rotation: rotationGiven === null ? 'auto' as const : { degrees: rotationGiven, flip: flipArg === 'yes' },
       ...(cal[0] !== undefined ? { calibration: { mradPerPixel: cal[0], energyKeV: cal[1]!, scanStepNm: cal[2]! } } : {}),
     };
-    const f = await service.comField(request);
+    const f = await service.comField({ ...request, ...keep });
     if (!quiet) for (const note of f.notes) process.stderr.write(`note: ${note}\n`);
     const arrays = resultArrays('comField', f);
     const rot = f.rotation;
@@ -256,14 +315,15 @@ export async function cmdCom(args: string[], engineOptions: EngineOptionsOf, eng
     const written = await writeResults(service, out, arrays, rootAttrs);
     noteNonFiniteResults(written, f.zeroTotalPatterns ? `; ${f.zeroTotalPatterns} pattern(s) with zero total have no centre of mass (NaN by design)` : '');
     if (!quiet) {
-      process.stderr.write(`wrote ${written.path}: rotation ${rot.degrees.toFixed(2)}°, flip ${rot.flip ? 'yes' : 'no'}${rot.alternativeDegrees !== undefined ? ` (estimated; relative curl ${rot.curlRelative!.toFixed(3)}; 180° away: ${rot.alternativeDegrees.toFixed(2)}°)` : ''}` +
+      process.stderr.write(`${wrote(written)}: rotation ${rot.degrees.toFixed(2)}°, flip ${rot.flip ? 'yes' : 'no'}${rot.alternativeDegrees !== undefined ? ` (estimated; relative curl ${rot.curlRelative!.toFixed(3)}; 180° away: ${rot.alternativeDegrees.toFixed(2)}°)` : ''}` +
         `${f.zeroTotalPatterns ? `; ${f.zeroTotalPatterns} pattern(s) with zero total → NaN` : ''}\n`);
     }
-  }, out);
+  }, out, session);
 }
 
 export async function cmdCalibrate(args: string[], engineOptions: EngineOptionsOf, engineFlags: EngineFlags): Promise<void> {
   const parsed = parseFlags(args, {
+    ...SESSION_FLAGS,
     ...SOURCE_OPTIONS, ...engineFlags, 'energy-kev': { type: 'string' }, 'convergence-mrad': { type: 'string' },
     'lattice-spacing-angstrom': { type: 'string' }, 'bragg-distance-px': { type: 'string' }, 'scan-step-nm': { type: 'string' },
     out: { type: 'string' },
@@ -279,14 +339,15 @@ export async function cmdCalibrate(args: string[], engineOptions: EngineOptionsO
   if (braggGiven !== undefined && d === undefined) throw new InputError('--bragg-distance-px goes with --lattice-spacing-angstrom (the distance of that Bragg disk from the centre)');
   rejectExtraPositionals(parsed.positionals, 'calibrate');
   const out = typeof v.out === 'string' ? outputFlag(v.out, 'calibrate', [spec.path]) : undefined;
-  await withService(engineOptions(v as Record<string, unknown>), v.quiet === true, async (service) => {
+  const session = sessionTarget(v, 'calibrate');
+  await withService(engineOptions(v as Record<string, unknown>), v.quiet === true, async (service, keep) => {
     const opened = out ? await openProtected(service, spec, out, { scan: 0, pattern: 0 }) : await service.open(spec);
     const request = {
       dataset: opened.id, ...(energy !== undefined ? { energyKeV: energy } : {}),
       ...(alpha !== undefined ? { convergenceMrad: alpha } : {}), ...(d !== undefined ? { latticeSpacingAngstrom: d } : {}),
       ...(braggGiven !== undefined ? { braggDistancePx: braggGiven } : {}), ...(scanStep !== undefined ? { scanStepNm: scanStep } : {}),
     };
-    const c = await service.calibrate(request);
+    const c = await service.calibrate({ ...request, ...keep });
     if (out) {
       // The calibration as attributes of the file's root (numbers as float64), and the rings found as a table.
       const attrs: Record<string, string | number> = {
@@ -317,19 +378,21 @@ export async function cmdCalibrate(args: string[], engineOptions: EngineOptionsO
       bad_pixels: c.badPixels,
       note: 'exploratory: check against a reference specimen before quoting numbers',
     }, null, 2) + '\n');
-  }, out);
+  }, out, session);
 }
 
 export async function cmdPattern(args: string[], engineOptions: EngineOptionsOf, engineFlags: EngineFlags): Promise<void> {
-  const parsed = parseFlags(args, { ...SOURCE_OPTIONS, ...engineFlags, out: { type: 'string' }, 'region-rect': { type: 'string' }, 'region-polygon': { type: 'string' }, 'region-mask': { type: 'string' } });
+  const parsed = parseFlags(args, {
+    ...SESSION_FLAGS, ...SOURCE_OPTIONS, ...engineFlags, out: { type: 'string' }, 'region-rect': { type: 'string' }, 'region-polygon': { type: 'string' }, 'region-mask': { type: 'string' } });
   const v = parsed.values as Flags;
   rejectExtraPositionals(parsed.positionals, 'pattern');
   const spec = sourceSpecFromFlags(parsed.positionals[0], v as Record<string, unknown>);
   const given = ['region-rect', 'region-polygon', 'region-mask'].filter((k) => typeof v[k] === 'string');
   if (given.length !== 1) throw new InputError('pattern needs exactly one of --region-rect, --region-polygon or --region-mask');
   const rect = typeof v['region-rect'] === 'string' ? rectangleFlag('region-rect', v['region-rect']) : null;
-  const out = outputFlag(v.out, 'pattern', [spec.path, ...flagFiles(v, 'region-mask')]);
-  await withService(engineOptions(v as Record<string, unknown>), v.quiet === true, async (service) => {
+  const out = analysisOutput(v, 'pattern', [spec.path, ...flagFiles(v, 'region-mask')]);
+  const session = sessionTarget(v, 'pattern');
+  await withService(engineOptions(v as Record<string, unknown>), v.quiet === true, async (service, keep) => {
     const opened = await openProtected(service, spec, out, { scan: 0, pattern: 2 });
     const { detY, detX } = opened.descriptor.shape;
     let region: RegionShape;
@@ -348,10 +411,10 @@ export async function cmdPattern(args: string[], engineOptions: EngineOptionsOf,
       region = { kind: 'mask', width: m.width, height: m.height, values: m.values };
     }
     const request = { dataset: opened.id, region };
-    const r = await service.regionPattern(request);
+    const r = await service.regionPattern({ ...request, ...keep });
     const written = await writeResults(service, out, resultArrays('regionPattern', r), { region: r.region, positions: r.count, non_finite_inputs: r.nonFiniteInputs, ...provenance(r.descriptor, 'scanfold pattern', request) });
     noteNonFiniteResults(written);
-    if (v.quiet !== true) process.stderr.write(`wrote ${written.path}: mean and max pattern over ${r.count} probe position(s)\n`);
-  }, out);
+    if (v.quiet !== true) process.stderr.write(`${wrote(written)}: mean and max pattern over ${r.count} probe position(s)\n`);
+  }, out, session);
 }
 

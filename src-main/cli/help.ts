@@ -23,6 +23,12 @@ const OUT = `  --out OUT.h5            where the results go: written beside it i
                           renamed when complete; never a file the command reads, a folder, a device,
                           a FIFO or a file you may not write; a symlink is written through`;
 
+const SESSION = `  --session FILE.scanfold.h5
+                          also add the result and its recipe (the request, defaults included) to a
+                          session file, created if missing, replaced atomically; --out is then optional
+  --as NAME               the result's name in the session (default: the command's name, numbered
+                          when taken: pca, pca-2, …); a name already there is replaced`;
+
 const BAD_PIXELS = `  --bad-pixels auto|none  auto (default): hot and dead detector pixels, found on the mean and max
                           pattern of a first pass, are left out; none keeps every pixel`;
 
@@ -70,6 +76,7 @@ detectors (any number, any mix):
   --weighted              drawn shapes count each pixel by the fraction of its area inside
 ${BAD_PIXELS}
 ${OUT}
+${SESSION}
 
 ${SOURCE}
 
@@ -97,6 +104,7 @@ flags:
                           together: also give the COM in mrad and the phase in radians
 ${BAD_PIXELS}
 ${OUT}
+${SESSION}
 
 ${SOURCE}
 
@@ -116,6 +124,7 @@ flags:
   --bragg-distance-px G   the distance (px) of that ring or disk from the centre
   --scan-step-nm S        the distance between probe positions in nm
 ${OUT.replace('where the results go', 'optional: also write the calibration there')}
+${SESSION}
 
 ${SOURCE}
 
@@ -131,6 +140,7 @@ region (exactly one):
                               positions inside the polygon
   --region-mask MASK.npy      a 2-D .npy of the scan's shape, nonzero where the region is
 ${OUT}
+${SESSION}
 
 ${SOURCE}
 
@@ -166,6 +176,7 @@ method:
   --preview               a quick look: PCA of the preview cube (binned scan and detector, see
                           --preview-budget) after the first pass, with no further read of the data
 ${OUT}
+${SESSION}
 
 ${SOURCE}
 
@@ -194,6 +205,7 @@ ${ENGINE}`,
   --bin, --crop, --scaling, --normalize, --bad-pixels
                           how patterns become vectors, as for pca (scanfold pca --help)
 ${OUT}
+${SESSION}
 
 ${SOURCE}
 
@@ -215,6 +227,7 @@ ${ENGINE}`,
   --bin, --crop, --scaling, --normalize, --bad-pixels
                           how patterns become vectors, as for pca (scanfold pca --help)
 ${OUT}
+${SESSION}
 
 ${SOURCE}
 
@@ -225,6 +238,42 @@ ${ENGINE}`,
   --size                  tiny, demo (default; 64×64 × 96×96) or large (256×256 × 128×128, 2 GiB)
   --seed N                random seed (a whole number)
 ${OUT}`,
+
+  session: `scanfold session show FILE.scanfold.h5 [--relink OLD=NEW]… [--json]
+scanfold session apply FILE.scanfold.h5 --to DATA [source flags] --out NEW.scanfold.h5 [engine flags]
+  show: the session's datasets (found at their recorded path, moved: found relative to the session
+  or beside it with the same fingerprint, missing, or different: other data where it was), its
+  results in the order they were made with their recipes and arrays, and the app's setup.
+  apply: replay every recipe of the session, in order, on another dataset (a facility's batch job:
+  one recipe, many datasets) and write a new session; on an identical copy the results are
+  bitwise identical. The session applied is left as it is.
+  --relink OLD=NEW        where moved data now is: OLD is the recorded path, its file name or the
+                          session's dataset id (data-1); data there with another fingerprint is refused
+  --json                  the listing as JSON
+  --to DATA               the dataset to replay the recipe on, with its source flags
+  --out NEW.scanfold.h5   the new session
+
+${SOURCE}
+
+${ENGINE}`,
+
+  export: `scanfold export FILE.scanfold.h5 KEY[/ARRAY] --format png|tiff|npy|csv --out FILE [flags]
+  One array of a session's results for other programs (session show lists them, e.g. com/phase,
+  pca/loadings); the data the session was made from need not be present.
+  --format png            a figure: the colour map, a colour bar with its limits and, when the session
+                          holds a calibration (a calibrate result, or the app's scan step), a scale
+                          bar in nm (scan) or mrad (detector)
+           tiff           the raw values as a float32 TIFF (2-D)
+           npy            the whole array, as stored (float64; int32 for labels and counts)
+           csv            1-D or 2-D results (scree, cluster sizes, centres)
+  --out FILE              where it goes (written whole or not at all)
+  --index I               one image of a 3-D stack (a component, a cluster, a detector)
+  --colormap NAME         png: viridis (default), cividis, magma, sinebow or categories
+  --scaling linear|log|gamma:G
+                          png: how values map onto the colours (default linear)
+  --limits LO,HI          png: the colour bar's limits (default: 0.5th and 99.5th percentiles)
+  --scan-step-nm S        png: the scan step, when the session holds none
+  --mrad-per-pixel M      png: the detector's calibration, when the session holds none`,
 
   demo: `scanfold demo [--dir DIR] [engine flags]
   Make the demo dataset once (DIR/demo.h5), run the first pass, write DIR/demo-summary.h5 and print
@@ -247,6 +296,8 @@ commands:
   pca        principal components of all patterns (randomized SVD, out of core)
   kmeans     clusters of all patterns (k-means on principal components) and their mean patterns
   fit        every pattern as a combination of reference patterns, with the residual
+  session    list a session file (show), or replay its recipe on other data (apply)
+  export     one result of a session as PNG (colour bar, scale bar), float32 TIFF, .npy or CSV
   serve      the application in a browser (127.0.0.1, behind a token); npm start for the desktop app
   sample     write a demo dataset of our own synthetic scenario
   demo       make the demo dataset and run the first pass over it

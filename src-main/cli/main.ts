@@ -17,6 +17,8 @@ import { projectRoot } from '../engine/paths';
 import { COMMAND_HELP, OVERVIEW } from './help';
 import { SCANFOLD_VERSION } from '../engine/version';
 import { cmdFit, cmdKmeans, cmdPca } from './statistics-commands';
+import { cmdSession } from './session-commands';
+import { cmdExport } from './export-command';
 import { cmdServe } from './serve-command';
 import { cmdCalibrate, cmdCom, cmdImage, badPixelAttrs, cmdPattern, noteNonFiniteResults, openProtected, provenance, withService, writeResults } from './analysis-commands';
 import type { EngineService } from '../engine/service';
@@ -66,7 +68,7 @@ async function cmdInfo(args: string[]) {
 /** The first pass's results as float64 datasets, with where they came from. */
 async function writeSummary(service: EngineService, out: OutputFile, r: FirstPassResult, producer: string): Promise<WrittenResults> {
   const { scanY, scanX, detY, detX } = r.descriptor.shape;
-  return writeResults(service, out, {
+  return (await writeResults(service, out, {
     mean_pattern: { data: r.meanPattern, shape: [detY, detX], dims: ['det_y', 'det_x'], attrs: { units: 'counts per pattern' } },
     max_pattern: { data: r.maxPattern, shape: [detY, detX], dims: ['det_y', 'det_x'], attrs: { units: 'counts' } },
     total_intensity: { data: r.totalIntensity, shape: [scanY, scanX], dims: ['scan_y', 'scan_x'], attrs: { units: 'counts' } },
@@ -79,7 +81,7 @@ async function writeSummary(service: EngineService, out: OutputFile, r: FirstPas
     ...provenance(r.descriptor, producer, { dataset: r.dataset }),
     non_finite_inputs: r.nonFiniteInputs,
     ...badPixelAttrs(r.badPixels),
-  });
+  }))!;
 }
 
 /** Open, run the first pass and write the summary; the result stays for the caller to report. */
@@ -214,7 +216,9 @@ export async function main(argv: string[]): Promise<number> {
       case 'kmeans': await cmdKmeans(rest, engineOptions, ENGINE_OPTIONS); break;
       case 'fit': await cmdFit(rest, engineOptions, ENGINE_OPTIONS); break;
       case 'serve': await cmdServe(rest, engineOptions, ENGINE_OPTIONS); break;
-      default: throw new InputError(`unknown command "${cmd}"; expected info, summary, image, com, calibrate, pattern, pca, kmeans, fit, serve, sample or demo (see scanfold --help; benchmarks: npm run bench)`);
+      case 'session': await cmdSession(rest, engineOptions, ENGINE_OPTIONS); break;
+      case 'export': await cmdExport(rest, engineOptions, ENGINE_OPTIONS); break;
+      default: throw new InputError(`unknown command "${cmd}"; expected info, summary, image, com, calibrate, pattern, pca, kmeans, fit, session, export, serve, sample or demo (see scanfold --help; benchmarks: npm run bench)`);
     }
     return 0;
   } catch (e) {

@@ -6,8 +6,8 @@ import type { RegionShape } from '../../src-shared/model/detectors';
 import { readClusterLabels } from '../io/npy-array';
 import { resultArrays } from '../io/result-arrays';
 import type { EngineOptions } from '../engine/engine';
-import { badPixelAttrs, noteNonFiniteResults, openProtected, provenance, withService, writeResults } from './analysis-commands';
-import { outputFlag, parseFlags, rectangleFlag, rejectExtraPositionals, SOURCE_OPTIONS, sourceSpecFromFlags, wholeNumber } from './source-flags';
+import { analysisOutput, badPixelAttrs, noteNonFiniteResults, openProtected, provenance, SESSION_FLAGS, sessionTarget, withService, wrote, writeResults } from './analysis-commands';
+import { parseFlags, rectangleFlag, rejectExtraPositionals, SOURCE_OPTIONS, sourceSpecFromFlags, wholeNumber } from './source-flags';
 
 type Flags = Record<string, string | boolean | (string | boolean)[] | undefined>;
 type EngineFlags = Record<string, { type: 'string' | 'boolean' }>;
@@ -42,6 +42,7 @@ function featureOptions(v: Flags): Pick<PcaRequest, 'bin' | 'crop' | 'scaling' |
 
 export async function cmdPca(args: string[], engineOptions: (v: Record<string, unknown>) => EngineOptions, engineFlags: EngineFlags): Promise<void> {
   const parsed = parseFlags(args, {
+    ...SESSION_FLAGS,
     ...SOURCE_OPTIONS, ...engineFlags, ...FEATURE_FLAGS, out: { type: 'string' }, components: { type: 'string' },
     oversample: { type: 'string' }, 'power-iterations': { type: 'string' }, seed: { type: 'string' }, preview: { type: 'boolean' }, passes: { type: 'string' }, uncentred: { type: 'boolean' },
   });
@@ -52,8 +53,9 @@ export async function cmdPca(args: string[], engineOptions: (v: Record<string, u
   const components = wholeNumber('components', v.components, 1, 'a whole number ≥ 1');
   const features = featureOptions(v);
   const optional = (flag: string, min: number) => (typeof v[flag] === 'string' ? wholeNumber(flag, v[flag] as string, min) : undefined);
-  const out = outputFlag(v.out, 'pca', [spec.path]);
-  await withService(engineOptions(v as Record<string, unknown>), v.quiet === true, async (service) => {
+  const out = analysisOutput(v, 'pca', [spec.path]);
+  const session = sessionTarget(v, 'pca');
+  await withService(engineOptions(v as Record<string, unknown>), v.quiet === true, async (service, keep) => {
     const opened = await openProtected(service, spec, out, { scan: components, pattern: components + 1 });
     const { scanY, scanX } = opened.descriptor.shape;
     const request: PcaRequest = {
@@ -69,7 +71,7 @@ export async function cmdPca(args: string[], engineOptions: (v: Record<string, u
       if (typeof v['power-iterations'] === 'string') throw new InputError('--passes 1 and --power-iterations exclude each other (the one-pass sketch makes no power iteration)');
       request.passes = 1;
     }
-    const r = await service.pca(request);
+    const r = await service.pca({ ...request, ...keep });
     const f = r.features;
     // A preview's loadings are per scan bin of the preview cube.
     const [ly, lx] = r.preview ? [r.preview.qY, r.preview.qX] : [scanY, scanX];
@@ -86,19 +88,20 @@ export async function cmdPca(args: string[], engineOptions: (v: Record<string, u
     });
     // Bins left out are NaN by design in /components and /mean_pattern; anything else is news.
     const expectedNaN = { components: f.binsLeftOut * r.k, mean_pattern: f.binsLeftOut };
-    const unexpected = Object.entries(written.nonFiniteResults).some(([name, count]) => count !== (expectedNaN as Record<string, number>)[name]);
+    const unexpected = Object.entries(written?.nonFiniteResults ?? {}).some(([name, count]) => count !== (expectedNaN as Record<string, number>)[name]);
     if (unexpected) noteNonFiniteResults(written, ' (bins left out are NaN in /components and /mean_pattern)');
     if (v.quiet !== true) {
       const top = Array.from(r.explainedVarianceRatio.slice(0, 5), (x) => `${(100 * x).toFixed(1)} %`).join(', ');
       const what = r.preview ? `a preview (preview cube binned ${r.preview.scanBin}× over the scan, ${r.preview.detBin}× on the detector), no pass over the data`
         : r.method.passes === 1 ? '1 pass' : `${r.method.passes} passes`;
-      process.stderr.write(`wrote ${written.path}: ${r.k} components of ${f.outY}×${f.outX} bins (bin ${f.bin}), ${what}; explained variance ${top}${r.k > 5 ? ', …' : ''}\n`);
+      process.stderr.write(`${wrote(written)}: ${r.k} components of ${f.outY}×${f.outX} bins (bin ${f.bin}), ${what}; explained variance ${top}${r.k > 5 ? ', …' : ''}\n`);
     }
-  }, out);
+  }, out, session);
 }
 
 export async function cmdKmeans(args: string[], engineOptions: (v: Record<string, unknown>) => EngineOptions, engineFlags: EngineFlags): Promise<void> {
   const parsed = parseFlags(args, {
+    ...SESSION_FLAGS,
     ...SOURCE_OPTIONS, ...engineFlags, ...FEATURE_FLAGS, out: { type: 'string' }, clusters: { type: 'string' }, features: { type: 'string' },
     restarts: { type: 'string' }, seed: { type: 'string' }, 'power-iterations': { type: 'string' }, preview: { type: 'boolean' }, algorithm: { type: 'string' },
     'max-iterations': { type: 'string' },
@@ -118,8 +121,9 @@ export async function cmdKmeans(args: string[], engineOptions: (v: Record<string
   }
   const features = featureOptions(v);
   const optional = (flag: string, min: number) => (typeof v[flag] === 'string' ? wholeNumber(flag, v[flag] as string, min) : undefined);
-  const out = outputFlag(v.out, 'kmeans', [spec.path]);
-  await withService(engineOptions(v as Record<string, unknown>), v.quiet === true, async (service) => {
+  const out = analysisOutput(v, 'kmeans', [spec.path]);
+  const session = sessionTarget(v, 'kmeans');
+  await withService(engineOptions(v as Record<string, unknown>), v.quiet === true, async (service, keep) => {
     const opened = await openProtected(service, spec, out, { scan: 1, pattern: clusters });
     const { scanY, scanX, detY, detX } = opened.descriptor.shape;
     const request: KmeansRequest = {
@@ -134,7 +138,7 @@ export async function cmdKmeans(args: string[], engineOptions: (v: Record<string
       if (v.algorithm !== 'lloyd' && v.algorithm !== 'mini-batch') throw new InputError(`--algorithm ${v.algorithm}: expected lloyd or mini-batch`);
       request.algorithm = v.algorithm;
     }
-    const r = await service.kmeans(request);
+    const r = await service.kmeans({ ...request, ...keep });
     const f = r.features;
     const pv = r.preview;
     const [ly, lx, py, px] = pv ? [pv.qY, pv.qX, pv.pY, pv.pX] : [scanY, scanX, detY, detX];
@@ -151,13 +155,14 @@ export async function cmdKmeans(args: string[], engineOptions: (v: Record<string
     noteNonFiniteResults(written, ' (an empty cluster has a NaN mean pattern)');
     if (v.quiet !== true) {
       const where = pv ? ` (a preview: scan bins of ${pv.scanBin}×${pv.scanBin} positions from the preview cube, no pass over the data)` : ' positions';
-      process.stderr.write(`wrote ${written.path}: ${r.k} clusters of ${Array.from(r.sizes).join(', ')}${where}; inertia ${r.inertia.toPrecision(6)} on ${f.kind === 'pca' ? `${f.components} principal components` : `the patterns (${f.components} features, ${r.iterations} iterations)`}\n`);
+      process.stderr.write(`${wrote(written)}: ${r.k} clusters of ${Array.from(r.sizes).join(', ')}${where}; inertia ${r.inertia.toPrecision(6)} on ${f.kind === 'pca' ? `${f.components} principal components` : `the patterns (${f.components} features, ${r.iterations} iterations)`}\n`);
     }
-  }, out);
+  }, out, session);
 }
 
 export async function cmdFit(args: string[], engineOptions: (v: Record<string, unknown>) => EngineOptions, engineFlags: EngineFlags): Promise<void> {
   const parsed = parseFlags(args, {
+    ...SESSION_FLAGS,
     ...SOURCE_OPTIONS, ...engineFlags, ...FEATURE_FLAGS, out: { type: 'string' }, 'reference-region': { type: 'string', multiple: true }, nonnegative: { type: 'boolean' },
     'reference-clusters': { type: 'string' },
   });
@@ -177,12 +182,13 @@ export async function cmdFit(args: string[], engineOptions: (v: Record<string, u
     for (let k = 0; k < c.clusters; k++) references.push({ kind: 'mask', width: c.width, height: c.height, values: Uint8Array.from(c.labels, (x) => (x === k ? 1 : 0)) });
   }
   const features = featureOptions(v);
-  const out = outputFlag(v.out, 'fit', [spec.path, ...(clusterFile ? [clusterFile] : [])]);
-  await withService(engineOptions(v as Record<string, unknown>), v.quiet === true, async (service) => {
+  const out = analysisOutput(v, 'fit', [spec.path, ...(clusterFile ? [clusterFile] : [])]);
+  const session = sessionTarget(v, 'fit');
+  await withService(engineOptions(v as Record<string, unknown>), v.quiet === true, async (service, keep) => {
     const opened = await openProtected(service, spec, out, { scan: references.length + 1, pattern: references.length });
     const { scanY, scanX } = opened.descriptor.shape;
     const request: FitRequest = { dataset: opened.id, references, ...features, ...(v.nonnegative === true ? { nonnegative: true } : {}) };
-    const r = await service.fit(request);
+    const r = await service.fit({ ...request, ...keep });
     const f = r.features;
     const written = await writeResults(service, out, resultArrays('fit', r), {
       references: r.r, reference_regions: JSON.stringify(r.regions), reference_positions: JSON.stringify(r.counts), nonnegative: r.nonnegative ? 'yes' : 'no',
@@ -192,11 +198,11 @@ export async function cmdFit(args: string[], engineOptions: (v: Record<string, u
       ...provenance(r.descriptor, 'scanfold fit', request), ...badPixelAttrs(r.badPixels),
     });
     const expectedNaN = { references: f.binsLeftOut * r.r };
-    if (Object.entries(written.nonFiniteResults).some(([name, count]) => count !== (expectedNaN as Record<string, number>)[name])) noteNonFiniteResults(written);
+    if (Object.entries(written?.nonFiniteResults ?? {}).some(([name, count]) => count !== (expectedNaN as Record<string, number>)[name])) noteNonFiniteResults(written);
     if (v.quiet !== true) {
       let mean = 0;
       for (const x of r.residual) mean += x;
-      process.stderr.write(`wrote ${written.path}: ${r.r} reference(s) fitted to every pattern; mean relative residual ${(mean / r.residual.length).toFixed(4)}\n`);
+      process.stderr.write(`${wrote(written)}: ${r.r} reference(s) fitted to every pattern; mean relative residual ${(mean / r.residual.length).toFixed(4)}\n`);
     }
-  }, out);
+  }, out, session);
 }

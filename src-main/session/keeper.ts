@@ -43,6 +43,8 @@ export class SessionKeeper {
   private readonly kept = new Map<string, Kept>();
   /** The session file last opened or saved, and when it was first created. */
   private file: { path: string; created: string } | null = null;
+  /** The app's setup of the session opened, with its dataset's record: kept when a front end without one (the CLI) saves. */
+  private loadedApp: { app: AppSetup; data: DatasetRecordOf | null } | null = null;
 
   keep(method: SessionMethod, req: Record<string, unknown> & { keepAs?: string }, result: unknown, data: DatasetRecordOf): void {
     if (!req.keepAs) return;
@@ -56,6 +58,7 @@ export class SessionKeeper {
   forget(): void {
     this.kept.clear();
     this.file = null;
+    this.loadedApp = null;
   }
 
   has(key: string): boolean {
@@ -98,7 +101,10 @@ export class SessionKeeper {
     }));
     const engineToRef = new Map(open.map((o) => [o.id, refFor(o.data).id]));
     let appSetup: AppSetup | null = null;
-    if (app) {
+    if (!app && this.loadedApp) {
+      const { app: a, data } = this.loadedApp;
+      appSetup = { ...a, dataset: data ? refFor(data).id : null };
+    } else if (app) {
       const shown = app.dataset === null ? null : engineToRef.get(app.dataset);
       if (shown === undefined) throw new InputError(`saveSession: app.dataset ${JSON.stringify(app.dataset)} is not an open dataset`, 'bad-request');
       appSetup = { ...app, dataset: shown };
@@ -127,5 +133,7 @@ export class SessionKeeper {
       this.kept.set(e.key, { key: e.key, method: e.method, request: e.request, created: e.created, scanfoldVersion: e.scanfoldVersion, data, result: results.get(e.key)!.result });
     }
     this.file = { path, created: doc.created };
+    const shown = doc.app?.dataset != null ? refs.get(doc.app.dataset)! : null;
+    this.loadedApp = doc.app ? { app: doc.app, data: shown ? found.get(shown.id) ?? (({ id: _i, relativePath: _r, ...rest }) => rest)(shown) : null } : null;
   }
 }

@@ -66,7 +66,7 @@ export async function locateDataset(ref: SessionDatasetRef, sessionPath: string,
     }
     if (d.fingerprint === ref.fingerprint) {
       const status = path === ref.absolutePath ? 'found' : 'moved';
-      return { status, path, how: status === 'found' ? `found at ${path}` : `found ${where}: ${path}`, descriptor: d };
+      return { status, path, how: status === 'found' ? `at ${path}` : `${where}: ${path}`, descriptor: d };
     }
     const what = `${path} holds other data than the session used: ${differences(ref, d)} (fingerprint ${d.fingerprint}, expected ${ref.fingerprint})`;
     if (relinkTo !== undefined) throw new InputError(`--relink: ${what}; refused`, 'different-data');

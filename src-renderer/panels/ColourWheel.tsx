@@ -1,6 +1,6 @@
 import { useEffect, useRef } from 'react';
-import { colormapLut } from '../colormaps';
-import { wheelColour } from '../views/contrast';
+import { colormapLut } from '../../src-shared/model/colormaps';
+import { wheelColour } from '../../src-shared/model/contrast';
 
 /** The legend of a direction image: the colour of each direction, dark at zero length. */
 export function ColourWheel() {

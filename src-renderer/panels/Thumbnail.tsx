@@ -2,8 +2,8 @@
 // colour map with automatic limits, drawn on a 2-D canvas: many of them side by side in a panel,
 // each a button that shows the full image in its view.
 import { useEffect, useRef } from 'react';
-import { colormapLut, type ColormapName } from '../colormaps';
-import { mapValue, percentileLimits, type Scaling } from '../views/contrast';
+import { colormapLut, type ColormapName } from '../../src-shared/model/colormaps';
+import { mapValue, percentileLimits, type Scaling } from '../../src-shared/model/contrast';
 
 export function Thumbnail({ values, width, height, colormap, scaling = { kind: 'linear' }, label, selected, onClick, size = 56 }: {
   values: ArrayLike<number>; width: number; height: number; colormap: ColormapName; scaling?: Scaling; label: string; selected: boolean; onClick(): void; size?: number;

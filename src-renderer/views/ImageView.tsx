@@ -3,8 +3,8 @@
 // double-click fits), an SVG overlay in image coordinates for detectors and regions, and the
 // pointer reported in image pixel coordinates (pixel centres at whole numbers).
 import { useEffect, useMemo, useRef, useState, type ReactNode } from 'react';
-import { COLORMAP_NAMES, type ColormapName } from '../colormaps';
-import { percentileLimits, type Contrast } from './contrast';
+import { COLORMAP_NAMES, type ColormapName } from '../../src-shared/model/colormaps';
+import { percentileLimits, type Contrast } from '../../src-shared/model/contrast';
 import { ImageLayer, type Placement } from './image-layer';
 import type { ViewSettings } from '../store';
 import { endTiming, registerView } from '../test-hooks';

@@ -5,8 +5,8 @@
 // cyclic map at the direction, darkened towards black as the length falls from the upper limit
 // to zero (contrast.ts, wheelColour).
 import createRegl from 'regl';
-import { colormapLut, LUT_SIZE, type ColormapName } from '../colormaps';
-import type { Contrast } from './contrast';
+import { colormapLut, LUT_SIZE, type ColormapName } from '../../src-shared/model/colormaps';
+import type { Contrast } from '../../src-shared/model/contrast';
 
 export interface Placement {
   /** Canvas pixels per image pixel. */

@@ -16,8 +16,8 @@ import { distFile } from '../../src-main/engine/paths';
 import { startServed, type Served } from '../../src-main/transport/served';
 import { connectService } from '../../src-shared/contract/channel';
 import { decodeMessage, encodeMessage } from '../../src-shared/contract/wire';
-import { colormapLut, type ColormapName } from '../../src-renderer/colormaps';
-import { mapValue, wheelColour, type Contrast } from '../../src-renderer/views/contrast';
+import { colormapLut, type ColormapName } from '../../src-shared/model/colormaps';
+import { mapValue, wheelColour, type Contrast } from '../../src-shared/model/contrast';
 import { makeDemoSample } from '../helpers/fixtures';
 
 const CHROMIUM = '/usr/bin/chromium';

@@ -3,7 +3,7 @@
 // the value-to-colour-map mapping of each scaling.
 import { spawnSync } from 'node:child_process';
 import { describe, expect, it } from 'vitest';
-import { mapValue, percentileLimits } from '../../src-renderer/views/contrast';
+import { mapValue, percentileLimits } from '../../src-shared/model/contrast';
 import { selectKth as select } from '../../src-shared/compute/select';
 import { PYTHON } from '../helpers/fixtures';
 

@@ -1,7 +1,7 @@
 // How a view turns values into a position on its colour map: limits (automatic from percentiles
 // of the finite values, or the user's), then linear, log or gamma scaling. The same function
-// runs in the fragment shader (image-layer.ts) and in tests, so both agree on every pixel.
-import { selectKth } from '../../src-shared/compute/select';
+// runs in the fragment shader (src-renderer/views/image-layer.ts), in exported figures and in tests, so all of them agree on every pixel.
+import { selectKth } from '../compute/select';
 
 export type Scaling = { kind: 'linear' } | { kind: 'log' } | { kind: 'gamma'; gamma: number };
 
