@@ -3,7 +3,7 @@
 // their parts in panels/). Every number comes from the engine through the contract; this file
 // only asks and shows.
 import { useCallback, useEffect, useMemo, useRef, useState, useSyncExternalStore } from 'react';
-import type { CalibrationResult, ComFieldResult, FirstPassResult, FitResult, KmeansResult, PcaResult, RegionPatternResult } from '../src-shared/contract/service';
+import type { CalibrationResult, ComFieldResult, FirstPassResult, FitResult, KeptEntry, KmeansResult, OpenedSession, PcaResult, Recoverable, RegionPatternResult } from '../src-shared/contract/service';
 import type { JobInfo } from '../src-shared/contract/jobs';
 import type { DetectorShape } from '../src-shared/model/detectors';
 import type { DatasetDescriptor } from '../src-shared/model/dataset';
@@ -18,6 +18,8 @@ import { CalibrationForm } from './panels/CalibrationForm';
 import { Thumbnail } from './panels/Thumbnail';
 import { startTiming } from './test-hooks';
 import { latestWins } from './latest-wins';
+import { KEYS, keysToSave, setupOf, sortResults, stateFromSetup } from './session';
+import { SESSION_SUFFIX } from '../src-shared/model/session';
 
 type Job = JobInfo & { jobId: string };
 
@@ -27,6 +29,9 @@ const FIELD_MAPS = ['direction', 'magnitude', 'divergence', 'curl', 'phase', 'co
 function useStore(store: Store): AppState {
   return useSyncExternalStore((l) => store.subscribe(l), () => store.get());
 }
+
+/** How often unsaved work goes to the recovery file. */
+const AUTOSAVE_MS = 4000;
 
 let jobCounter = 0;
 const newJobId = (what: string) => `${what}-${Date.now().toString(36)}-${++jobCounter}`;
@@ -72,6 +77,19 @@ export function App({ client, store, shell = null }: { client: Client; store: St
   const setPatternShows = useCallback((v: PatternShows) => store.update((s) => ({ ...s, shows: { ...s.shows, pattern: v } })), [store]);
   const setAnalyses = (change: Partial<AppState['analyses']>) => store.update((s) => ({ ...s, analyses: { ...s.analyses, ...change } }), { undoable: true });
   const [openPath, setOpenPath] = useState('');
+  // The session: its file (null until saved or opened), the results the engine keeps for it, what to recover or relink.
+  const [sessionPath, setSessionPath] = useState<string | null>(null);
+  const sessionPathRef = useRef<string | null>(null);
+  sessionPathRef.current = sessionPath;
+  const [sessionInput, setSessionInput] = useState('');
+  const [sessionNote, setSessionNote] = useState<string | null>(null);
+  const kept = useRef(new Set<string>());
+  const [keptVersion, setKeptVersion] = useState(0);
+  const markKept = useCallback((key: string) => { kept.current.add(key); setKeptVersion((v) => v + 1); }, []);
+  const [absentData, setAbsentData] = useState<OpenedSession['datasets']>([]);
+  const [relinkTo, setRelinkTo] = useState('');
+  const [recoverable, setRecoverable] = useState<Recoverable[]>([]);
+  const lastRecovery = useRef<string | null>(null);
 
   const fail = useCallback((e: unknown) => {
     const err = e as Error;
@@ -99,6 +117,9 @@ export function App({ client, store, shell = null }: { client: Client; store: St
     const { scanY, scanX, detY, detX } = descriptor.shape;
     const dataset = { id, name: baseName(descriptor.path), scanY, scanX, detY, detX, dtype: descriptor.dtype, spec: descriptor.spec, fingerprint: descriptor.fingerprint };
     store.update((s) => ({ ...s, dataset, detectors: [], activeDetector: null }), { undoable: true });
+    // A new dataset starts a new session.
+    kept.current = new Set(); setKeptVersion((v) => v + 1); setSessionPath(null); setSessionInput(''); setAbsentData([]);
+    void client.forgetSession().catch(() => undefined);
     setFirst(null); setPca(null); setKmeans(null); setField(null); setFit(null); setRegionPatterns(new Map()); setDetectorImages(new Map()); setFilling(null); setCalibration(null);
     store.update((s) => ({ ...s, regions: [], calibration: {} }));
     setScanShows({ kind: 'default', index: 0 }); setPatternShows({ kind: 'mean' });
@@ -107,10 +128,11 @@ export function App({ client, store, shell = null }: { client: Client; store: St
     } catch (e) { fail(e); return; }
     // Calibration from the file's attributes, when it has them (a form fills in what is missing).
     try {
-      const c = await client.calibrate({ dataset: id });
+      const c = await client.calibrate({ dataset: id, keepAs: KEYS.calibration });
       setCalibration(c);
+      markKept(KEYS.calibration);
     } catch { /* no attributes to go by: the form says what is needed */ }
-  }, [client, store, fail]);
+  }, [client, store, fail, markKept]);
 
   // Served mode opens the file given on the command line before the page loads.
   useEffect(() => {
@@ -143,23 +165,143 @@ export function App({ client, store, shell = null }: { client: Client; store: St
     }, 'image/png');
   }, [store]);
 
+  // Sessions: the engine keeps each result the app asks for (keepAs) and writes them with the setup.
+  /** Show an opened session: its setup, its results (also with the data absent), and its data's first pass. */
+  const applySession = useCallback(async (s: OpenedSession, sessionFile: string | null) => {
+    const refId = s.document.app?.dataset ?? s.document.datasets[0]?.id ?? null;
+    const status = s.datasets.find((d) => d.ref.id === refId);
+    let dataset: AppState['dataset'] = null;
+    if (status) {
+      const { ref, opened } = status;
+      dataset = {
+        id: opened?.id ?? '', name: ref.name, ...ref.shape, dtype: ref.dtype, spec: opened?.descriptor.spec ?? ref.spec, fingerprint: ref.fingerprint,
+        ...(opened ? {} : { absent: status.how }),
+      };
+    }
+    const next = stateFromSetup(s.document.app, dataset);
+    store.reset(next);
+    const r = sortResults(s.results);
+    kept.current = new Set(r.keys); setKeptVersion((v) => v + 1);
+    setPca(r.pca ?? null); setKmeans(r.kmeans ?? null); setField(r.field ?? null); setCalibration(r.calibration ?? null);
+    if (r.fit) {
+      const refs = (s.results.find((x) => x.key === KEYS.fit)?.request.references ?? []) as unknown[];
+      const names = refs.map((shape, k) => next.regions.find((g) => JSON.stringify(g.shape) === JSON.stringify(shape))?.name ?? r.fit!.regions[k]);
+      setFit({ ...r.fit, names });
+    } else setFit(null);
+    if (r.field) { setRotationText(String(Math.round(r.field.rotation.degrees * 100) / 100)); setFlip(r.field.rotation.flip); }
+    setDetectorImages(new Map(r.detectors.map(({ id, result }) => [id, {
+      values: result.images[0], width: result.descriptor.shape.scanX, height: result.descriptor.shape.scanY, label: next.detectors.find((d) => d.id === id)?.name ?? result.labels[0],
+    }])));
+    setRegionPatterns(new Map(r.regions.map(({ id, result }) => [id, result])));
+    setFirst(null); setFilling(null); setPattern(null);
+    setAbsentData(s.datasets.filter((d) => !d.opened));
+    setSessionPath(sessionFile); setSessionInput(sessionFile ?? '');
+    if (dataset && !dataset.absent) {
+      try { setFirst(await client.firstPass({ dataset: dataset.id, jobId: newJobId('first-pass') })); } catch (e) { fail(e); }
+    }
+  }, [client, store, fail]);
+
+  const openSessionNow = useCallback(async (path: string, relink?: Record<string, string>) => {
+    setError(null); setSessionNote(null);
+    try {
+      const s = await client.openSession({ path: path.trim(), ...(relink ? { relink } : {}) });
+      await applySession(s, s.path);
+      setSessionNote(`opened ${s.path}: ${s.results.length} result${s.results.length === 1 ? '' : 's'}`);
+    } catch (e) { fail(e); }
+  }, [client, applySession, fail]);
+
+  const saveSessionNow = useCallback(async (path?: string) => {
+    const target = (path ?? (sessionInput.trim() || sessionPath) ?? '').trim();
+    if (!target) { setError(`name the session file first, e.g. /data/analysis${SESSION_SUFFIX}`); return; }
+    const st = store.get();
+    setError(null);
+    try {
+      const saved = await client.saveSession({ path: target, app: setupOf(st), keys: keysToSave(kept.current, st) });
+      // Saved whole: the recovery of unsaved work is out of date (the engine removes the session's own).
+      if (lastRecovery.current) { void client.discardRecovery(lastRecovery.current).catch(() => undefined); lastRecovery.current = null; }
+      setSessionPath(saved.path); setSessionInput(saved.path);
+      setSessionNote(`saved ${saved.results} result${saved.results === 1 ? '' : 's'} to ${saved.path}`);
+    } catch (e) { fail(e); }
+  }, [client, store, fail, sessionInput, sessionPath]);
+
+  // Autosave: unsaved changes go to the recovery file every few seconds.
+  const dirty = useRef(false);
+  useEffect(() => { dirty.current = true; }, [state, keptVersion]);
+  useEffect(() => {
+    const timer = setInterval(() => {
+      const st = store.get();
+      if (!dirty.current || !st.dataset || (kept.current.size === 0 && st.detectors.length === 0 && st.regions.length === 0)) return;
+      dirty.current = false;
+      client.autosave({ session: sessionPathRef.current, app: setupOf(st), keys: keysToSave(kept.current, st) })
+        .then((r) => { lastRecovery.current = r.recovery; }, () => { dirty.current = true; });
+    }, AUTOSAVE_MS);
+    return () => clearInterval(timer);
+  }, [client, store]);
+
+  // Export: one array of a kept result as a file (the engine makes the bytes; the page downloads them).
+  const [exportables, setExportables] = useState<KeptEntry[]>([]);
+  const [exportChoice, setExportChoice] = useState('');
+  const [exportIndex, setExportIndex] = useState(0);
+  const [exportFormat, setExportFormat] = useState<'png' | 'tiff' | 'npy' | 'csv'>('png');
+  useEffect(() => { client.sessionEntries().then(setExportables, () => undefined); }, [client, keptVersion]);
+  const exportOptions = exportables.flatMap((e) => e.arrays.map((a) => ({ value: `${e.key}/${a.name}`, key: e.key, array: a })));
+  const chosenExport = exportOptions.find((o) => o.value === exportChoice) ?? exportOptions[0];
+  const exportResult = async () => {
+    if (!chosenExport) return;
+    const { key, array } = chosenExport;
+    const stack = array.shape.length === 3 && exportFormat !== 'npy';
+    const view = array.dims.at(-1) === 'scan_x' ? store.get().scanView : store.get().patternView;
+    setError(null);
+    try {
+      const f = await client.exportResult({
+        key, array: array.name, format: exportFormat, ...(stack ? { index: Math.min(exportIndex, array.shape[0] - 1) } : {}),
+        ...(exportFormat === 'png' ? { colormap: view.colormap === 'categories' ? 'viridis' : view.colormap, scaling: view.scaling } : {}),
+      });
+      const a = document.createElement('a');
+      a.href = URL.createObjectURL(new Blob([f.bytes as BlobPart], { type: f.mediaType }));
+      a.download = f.fileName;
+      a.click();
+      setTimeout(() => URL.revokeObjectURL(a.href), 10_000);
+      setSessionNote(`exported ${f.description}`);
+    } catch (e) { fail(e); }
+  };
+
+  // Work a crash left in recovery files, offered once at the start.
+  useEffect(() => { client.recoverable().then(setRecoverable, () => undefined); }, [client]);
+  const recover = async (r: Recoverable) => {
+    setRecoverable((list) => list.filter((x) => x !== r));
+    try {
+      const s = await client.openSession({ path: r.recovery });
+      await applySession(s, r.session);
+      lastRecovery.current = r.recovery;
+      setSessionNote(`recovered ${s.results.length} result${s.results.length === 1 ? '' : 's'} from ${r.recovery}${r.session ? `; save to write them to ${r.session}` : '; save to give them a session file'}`);
+    } catch (e) { fail(e); }
+  };
+  const discardRecovered = (r: Recoverable) => {
+    setRecoverable((list) => list.filter((x) => x !== r));
+    void client.discardRecovery(r.recovery).catch(fail);
+  };
+
   // Menu commands (desktop) and keyboard shortcuts (both ways of starting).
   useEffect(() => shell?.onMenu((command, arg) => {
     if (command === 'open' && arg) { setOpenPath(arg); void openPathNow(arg); }
     else if (command === 'undo') store.undo();
     else if (command === 'redo') store.redo();
     else if (command === 'export-image') exportImage();
-  }), [shell, store, openPathNow, exportImage]);
+    else if (command === 'open-session' && arg) void openSessionNow(arg);
+    else if (command === 'save-session') void saveSessionNow(arg);
+  }), [shell, store, openPathNow, exportImage, openSessionNow, saveSessionNow]);
   useEffect(() => {
     const onKey = (e: KeyboardEvent) => {
       if (!(e.ctrlKey || e.metaKey) || shell) return; // the desktop menu's accelerators handle these there
       const inField = (e.target as HTMLElement | null)?.tagName === 'INPUT';
       if (e.key.toLowerCase() === 'z' && !inField) { e.preventDefault(); if (e.shiftKey) store.redo(); else store.undo(); }
       else if (e.key.toLowerCase() === 'o') { e.preventDefault(); openInputRef.current?.focus(); }
+      else if (e.key.toLowerCase() === 's') { e.preventDefault(); void saveSessionNow(); }
     };
     window.addEventListener('keydown', onKey);
     return () => window.removeEventListener('keydown', onKey);
-  }, [shell, store]);
+  }, [shell, store, saveSessionNow]);
 
   const onDrop = (e: React.DragEvent) => {
     e.preventDefault();
@@ -172,7 +314,7 @@ export function App({ client, store, shell = null }: { client: Client; store: St
   // Hover: the pattern at the probe position under the pointer; one request in flight, the latest wins.
   const hoverQueue = useRef(latestWins<{ y: number; x: number }>()).current;
   const askPattern = useCallback((pos: { y: number; x: number }) => {
-    if (!ds) return;
+    if (!ds || ds.absent) return;
     hoverQueue(pos, async (p) => {
       try {
         const r = await client.patternAt({ dataset: ds.id, y: p.y, x: p.x });
@@ -191,10 +333,11 @@ export function App({ client, store, shell = null }: { client: Client; store: St
   const showRegion = async (item: RegionItem, stat: 'mean' | 'max' = 'mean') => {
     if (!ds) return;
     setPatternShows({ kind: 'region', id: item.id, stat });
-    if (regionPatterns.has(item.id)) return;
+    if (regionPatterns.has(item.id) || ds.absent) return;
     try {
-      const r = await client.regionPattern({ dataset: ds.id, region: item.shape, jobId: newJobId('region') });
+      const r = await client.regionPattern({ dataset: ds.id, region: item.shape, jobId: newJobId('region'), keepAs: KEYS.region(item.id) });
       setRegionPatterns((m) => new Map(m).set(item.id, r));
+      markKept(KEYS.region(item.id));
     } catch (e) { fail(e); }
   };
 
@@ -247,7 +390,7 @@ export function App({ client, store, shell = null }: { client: Client; store: St
   const previewQueue = useRef(latestWins<{ det: DetectorItem; token?: string }>()).current;
   const previewDetector = useCallback((d: DetectorItem, token?: string) => {
     // The preview cube exists once the first pass is done; before that, only the exact image follows.
-    if (!ds || !first) return;
+    if (!ds || !first || ds.absent) return;
     previewQueue({ det: d, token }, async ({ det, token }) => {
       try {
         const r = await client.previewImages({ dataset: ds.id, detectors: [{ shape: det.shape, weighted: true }] });
@@ -259,21 +402,22 @@ export function App({ client, store, shell = null }: { client: Client; store: St
   // The exact image of a detector: a new request for the same detector cancels the one before it.
   const exactJobs = useRef(new Map<string, string>());
   const exactDetector = useCallback(async (d: DetectorItem) => {
-    if (!ds) return;
+    if (!ds || ds.absent) return;
     const jobId = newJobId('detector');
     const before = exactJobs.current.get(d.id);
     if (before) void client.cancel(before);
     exactJobs.current.set(d.id, jobId);
     try {
-      const r = await client.virtualImages({ dataset: ds.id, detectors: [{ shape: d.shape, label: d.name }], jobId });
+      const r = await client.virtualImages({ dataset: ds.id, detectors: [{ shape: d.shape, label: d.name }], jobId, keepAs: KEYS.detector(d.id) });
       if (exactJobs.current.get(d.id) === jobId) exactJobs.current.delete(d.id);
+      markKept(KEYS.detector(d.id));
       // Only if the detector has not moved since.
       const now = store.get().detectors.find((x) => x.id === d.id);
       if (now && JSON.stringify(now.shape) === JSON.stringify(d.shape)) {
         setDetectorImages((m) => new Map(m).set(d.id, { values: r.images[0], width: ds.scanX, height: ds.scanY, label: d.name }));
       }
     } catch (e) { fail(e); }
-  }, [client, ds, fail, store]);
+  }, [client, ds, fail, store, markKept]);
 
   const addDetector = (kind: 'annulus' | 'disk') => {
     if (!ds) return;
@@ -327,38 +471,43 @@ export function App({ client, store, shell = null }: { client: Client; store: St
 
   /** Ask the engine something about the open dataset: the last error is cleared, a failure shown. */
   const onDataset = async (ask: (d: NonNullable<typeof ds>) => Promise<void>) => {
-    if (!ds) return;
+    if (!ds || ds.absent) return;
     setError(null);
     try { await ask(ds); } catch (e) { fail(e); }
   };
 
   const runPca = () => onDataset(async (d) => {
-    setPca(await client.pca({ dataset: d.id, components: store.get().analyses.pcaComponents, jobId: newJobId('pca') }));
+    setPca(await client.pca({ dataset: d.id, components: store.get().analyses.pcaComponents, jobId: newJobId('pca'), keepAs: KEYS.pca }));
+    markKept(KEYS.pca);
     setScanShows({ kind: 'loading', k: 0 }); setPatternShows({ kind: 'component', k: 0 });
   });
   const applyCalibration = (input: CalibrationInput) => onDataset(async (d) => {
     store.update((s) => ({ ...s, calibration: input }), { undoable: true });
-    setCalibration(await client.calibrate({ dataset: d.id, ...input, jobId: newJobId('calibration') }));
+    setCalibration(await client.calibrate({ dataset: d.id, ...input, jobId: newJobId('calibration'), keepAs: KEYS.calibration }));
+    markKept(KEYS.calibration);
   });
   const runField = (rotation: 'auto' | { degrees: number; flip: boolean } = store.get().analyses.fieldRotation) => onDataset(async (d) => {
     setAnalyses({ fieldRotation: rotation });
     const descanRegion = store.get().regions.find((g) => g.id === store.get().analyses.descanRegion && g.shape.kind === 'rectangle');
     const descan = descanRegion ? { descan: { kind: 'reference' as const, region: descanRegion.shape as { x0: number; y0: number; x1: number; y1: number } } } : {};
     const cal = calibration?.scanStepNm ? { mradPerPixel: calibration.mradPerPixel, energyKeV: calibration.energyKeV, scanStepNm: calibration.scanStepNm } : undefined;
-    const r = await client.comField({ dataset: d.id, rotation, jobId: newJobId('field'), ...descan, ...(cal ? { calibration: cal } : {}) });
+    const r = await client.comField({ dataset: d.id, rotation, jobId: newJobId('field'), keepAs: KEYS.field, ...descan, ...(cal ? { calibration: cal } : {}) });
     setField(r);
+    markKept(KEYS.field);
     setRotationText(String(Math.round(r.rotation.degrees * 100) / 100));
     setFlip(r.rotation.flip);
     setScanShows({ kind: 'field', map: 'direction' });
   });
   const runFit = () => onDataset(async (d) => {
     const regions = store.get().regions;
-    const r = await client.fit({ dataset: d.id, references: regions.map((g) => g.shape), nonnegative: true, jobId: newJobId('fit') });
+    const r = await client.fit({ dataset: d.id, references: regions.map((g) => g.shape), nonnegative: true, jobId: newJobId('fit'), keepAs: KEYS.fit });
     setFit({ ...r, names: regions.map((g) => g.name) });
+    markKept(KEYS.fit);
     setScanShows({ kind: 'fit', k: 0 });
   });
   const runKmeans = () => onDataset(async (d) => {
-    setKmeans(await client.kmeans({ dataset: d.id, clusters: store.get().analyses.kmeansClusters, jobId: newJobId('kmeans') }));
+    setKmeans(await client.kmeans({ dataset: d.id, clusters: store.get().analyses.kmeansClusters, jobId: newJobId('kmeans'), keepAs: KEYS.kmeans }));
+    markKept(KEYS.kmeans);
     setScanShows({ kind: 'clusters' }); setPatternShows({ kind: 'cluster', k: 0 });
   });
 
@@ -433,8 +582,28 @@ export function App({ client, store, shell = null }: { client: Client; store: St
           <button type="submit">Open</button>
           <button type="button" onClick={exportImage} disabled={!ds} title="the Scan view as a PNG">Export image</button>
         </form>
+        <form className="open-form session-form" onSubmit={(e) => { e.preventDefault(); void saveSessionNow(); }}>
+          <input aria-label="session file" placeholder={`session file, NAME${SESSION_SUFFIX}`} value={sessionInput} onChange={(e) => setSessionInput(e.target.value)} />
+          <button type="submit" disabled={!ds} title="write the setup and every result to the session file (Ctrl-S)">Save session</button>
+          <button type="button" onClick={() => void openSessionNow(sessionInput)} disabled={!sessionInput.trim()} title="reopen the analysis saved in that file">Open session</button>
+        </form>
       </header>
       {error && <div className="error" role="alert">{error} <button onClick={() => setError(null)}>dismiss</button></div>}
+      {sessionNote && <div className="note" role="status">{sessionNote} <button onClick={() => setSessionNote(null)}>dismiss</button></div>}
+      {recoverable.map((r) => (
+        <div key={r.recovery} className="note recover" aria-live="polite">
+          Work not saved when Scanfold last stopped: {r.session ? baseName(r.session) : 'an unsaved session'}, {r.results} result{r.results === 1 ? '' : 's'}, last written {new Date(r.modified).toLocaleString()}.
+          <button onClick={() => void recover(r)}>Recover</button>
+          <button onClick={() => discardRecovered(r)}>Discard</button>
+        </div>
+      ))}
+      {absentData.map((d) => (
+        <form key={d.ref.id} className="note relink" role="alert" onSubmit={(e) => { e.preventDefault(); if (sessionPath && relinkTo.trim()) void openSessionNow(sessionPath, { [d.ref.id]: relinkTo.trim() }); }}>
+          The data of this session ({d.ref.name}) {d.status === 'different' ? 'was replaced' : 'was not found'}: {d.how}. Its results are shown; to compute more, give where it is now:
+          <input aria-label="where the data is now" placeholder={d.ref.absolutePath} value={relinkTo} onChange={(e) => setRelinkTo(e.target.value)} />
+          <button type="submit">Relink</button>
+        </form>
+      ))}
       <main className="views">
         <ImageView name="scan" title="Scan view" size={viewSize} image={scanView.image} imageKey={JSON.stringify(scanShows)} settings={state.scanView} colormap={scanView.colormap} limits={scanView.limits}
           onPointer={onScanPointer}
@@ -469,8 +638,8 @@ export function App({ client, store, shell = null }: { client: Client; store: St
         <div className="panel" aria-label="Detectors">
           <h2>Detectors</h2>
           <div className="row">
-            <button onClick={() => addDetector('disk')} disabled={!ds}>+ disk</button>
-            <button onClick={() => addDetector('annulus')} disabled={!ds}>+ annulus</button>
+            <button onClick={() => addDetector('disk')} disabled={!ds || !!ds.absent}>+ disk</button>
+            <button onClick={() => addDetector('annulus')} disabled={!ds || !!ds.absent}>+ annulus</button>
             <button onClick={() => store.undo()}>undo</button>
             <button onClick={() => store.redo()}>redo</button>
           </div>
@@ -581,6 +750,24 @@ export function App({ client, store, shell = null }: { client: Client; store: St
               <div key={k} className={`item ${scanShows.kind === 'fit' && scanShows.k === k ? 'on' : ''}`} onClick={() => setScanShows({ kind: 'fit', k })} title={fit.regions[k]}>weight of {name} ({fit.counts[k]} positions)</div>
             ))}
             <div className={`item ${scanShows.kind === 'residual' ? 'on' : ''}`} onClick={() => setScanShows({ kind: 'residual' })}>residual</div>
+          </>}
+        </div>
+        <div className="panel" aria-label="Export">
+          <h2>Export</h2>
+          {exportOptions.length === 0 ? <div className="hint">Results appear here as they are computed.</div> : <>
+            <select aria-label="result to export" value={chosenExport?.value ?? ''} onChange={(e) => setExportChoice(e.target.value)}>
+              {exportOptions.map((o) => <option key={o.value} value={o.value}>{o.value} ({o.array.shape.join('×')})</option>)}
+            </select>
+            <div className="row">
+              {chosenExport && chosenExport.array.shape.length === 3 && exportFormat !== 'npy' && (
+                <label>{chosenExport.array.dims[0] || 'index'} <input type="number" min={0} max={chosenExport.array.shape[0] - 1} aria-label="export index" value={exportIndex}
+                  onChange={(e) => setExportIndex(Math.max(0, Math.round(Number(e.target.value)) || 0))} /></label>
+              )}
+              <select aria-label="export format" value={exportFormat} onChange={(e) => setExportFormat(e.target.value as typeof exportFormat)}>
+                <option value="png">PNG figure</option><option value="tiff">TIFF (float32)</option><option value="npy">.npy</option><option value="csv">CSV</option>
+              </select>
+              <button onClick={() => void exportResult()}>Export</button>
+            </div>
           </>}
         </div>
         <div className="panel activity" aria-label="Activity">

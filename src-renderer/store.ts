@@ -64,7 +64,11 @@ export interface AnalysisSettings {
 
 export interface AppState {
   /** The open dataset: the engine's handle, and what reopens it (its source spec and fingerprint). */
-  dataset: { id: string; name: string; scanY: number; scanX: number; detY: number; detX: number; dtype: string; spec: SourceSpec; fingerprint: string } | null;
+  dataset: {
+    id: string; name: string; scanY: number; scanX: number; detY: number; detX: number; dtype: string; spec: SourceSpec; fingerprint: string;
+    /** Set when a session's data was not found: why; its results are shown, nothing new can be asked of it. */
+    absent?: string;
+  } | null;
   detectors: DetectorItem[];
   regions: RegionItem[];
   calibration: CalibrationInput;
@@ -113,6 +117,14 @@ export class Store {
       this.future = [];
     }
     this.state = next;
+    this.changed();
+  }
+
+  /** Start over from `state` (a session opened): nothing to undo. */
+  reset(state: AppState): void {
+    this.state = structuredClone(state);
+    this.past = [];
+    this.future = [];
     this.changed();
   }
 

@@ -44,6 +44,21 @@ async function openDialog(): Promise<void> {
   }
 }
 
+async function openSessionDialog(): Promise<void> {
+  if (!win) return;
+  const r = await dialog.showOpenDialog(win, {
+    title: 'Open a session', properties: ['openFile'],
+    filters: [{ name: 'Scanfold session', extensions: ['h5'] }, { name: 'All files', extensions: ['*'] }],
+  });
+  if (!r.canceled && r.filePaths[0]) send('open-session', r.filePaths[0]);
+}
+
+async function saveSessionDialog(): Promise<void> {
+  if (!win) return;
+  const r = await dialog.showSaveDialog(win, { title: 'Save the session as', defaultPath: 'analysis.scanfold.h5', filters: [{ name: 'Scanfold session', extensions: ['h5'] }] });
+  if (!r.canceled && r.filePath) send('save-session', r.filePath);
+}
+
 function buildMenu(): void {
   const template: MenuItemConstructorOptions[] = [
     {
@@ -51,6 +66,10 @@ function buildMenu(): void {
       submenu: [
         { label: 'Open…', accelerator: 'CmdOrCtrl+O', click: () => void openDialog() },
         { label: 'Open Recent', submenu: recent().length ? recent().map((f) => ({ label: f, click: () => { remember(f); send('open', f); } })) : [{ label: 'none yet', enabled: false }] },
+        { type: 'separator' },
+        { label: 'Open Session…', accelerator: 'CmdOrCtrl+Shift+O', click: () => void openSessionDialog() },
+        { label: 'Save Session', accelerator: 'CmdOrCtrl+S', click: () => send('save-session') },
+        { label: 'Save Session As…', accelerator: 'CmdOrCtrl+Shift+S', click: () => void saveSessionDialog() },
         { type: 'separator' },
         { label: 'Export Image…', accelerator: 'CmdOrCtrl+E', click: () => send('export-image') },
         { type: 'separator' },

@@ -33,7 +33,11 @@ import { featuresToImage, planFeatures, type FeaturePlan } from '../../src-share
 import { previewPca } from './statistics';
 import { kmeans, kmeansMiniBatch } from '../../src-shared/compute/kmeans';
 import type { SessionMethod } from '../../src-shared/model/session';
-import type { KeptEntry, OpenSessionRequest, OpenedSession, SaveSessionRequest, SessionDatasetStatus, SessionSaved } from '../../src-shared/contract/service';
+import type { AutosaveRequest, ExportedFile, ExportRequest, KeptEntry, OpenSessionRequest, OpenedSession, Recoverable, SaveSessionRequest, SessionDatasetStatus, SessionSaved } from '../../src-shared/contract/service';
+import fs from 'node:fs';
+import nodePath from 'node:path';
+import { defaultStateDir, RecoveryIndex } from '../session/recovery';
+import { exportResult } from '../session/export';
 import { OutputFile } from '../io/output-file';
 import { SessionKeeper, datasetRecordOf, type DatasetRecordOf } from '../session/keeper';
 import { readSessionFile, writeSessionFile } from '../session/session-file';
@@ -141,12 +145,15 @@ export class EngineService implements ScanfoldService {
   private nextJob = 1;
   /** Results kept under a key, to be saved in a session file. */
   private readonly session = new SessionKeeper();
+  /** Recovery files written by autosave. */
+  private readonly recovery: RecoveryIndex;
 
   /** Where first-pass results are kept between commands; null: no cache. */
   private readonly cacheDir: string | null;
 
-  constructor(options: EngineOptions & { cacheDir?: string | null } = {}) {
+  constructor(options: EngineOptions & { cacheDir?: string | null; stateDir?: string } = {}) {
     this.engine = new Engine(options);
+    this.recovery = new RecoveryIndex(options.stateDir ?? defaultStateDir());
     this.cacheDir = options.cacheDir === undefined ? defaultCacheDir() : options.cacheDir;
   }
 
@@ -231,13 +238,51 @@ export class EngineService implements ScanfoldService {
 
   async saveSession(req: SaveSessionRequest): Promise<SessionSaved> {
     validateRequest('saveSession', req);
+    const saved = await this.writeSession(req.path, req.app, req.keys, false);
+    // Saved whole: its recovery file is out of date.
+    this.recovery.remove(this.recovery.pathFor(saved.path));
+    return saved;
+  }
+
+  async autosave(req: AutosaveRequest): Promise<{ recovery: string }> {
+    validateRequest('autosave', req);
+    const session = req.session === null ? null : nodePath.resolve(req.session);
+    const path = this.recovery.pathFor(session);
+    fs.mkdirSync(nodePath.dirname(path), { recursive: true });
+    const saved = await this.writeSession(path, req.app, req.keys, true);
+    this.recovery.add({ recovery: saved.path, session });
+    return { recovery: saved.path };
+  }
+
+  async recoverable(): Promise<Recoverable[]> {
+    validateRequest('recoverable', undefined);
+    const out: Recoverable[] = [];
+    for (const e of this.recovery.entries()) {
+      let rec: fs.Stats;
+      try { rec = fs.statSync(e.recovery); } catch { continue; }
+      // A session saved after its recovery was written needs no recovery.
+      try { if (e.session && fs.statSync(e.session).mtimeMs >= rec.mtimeMs) continue; } catch { /* session never saved or gone: recover */ }
+      try {
+        const { doc } = await readSessionFile(e.recovery);
+        out.push({ recovery: e.recovery, session: e.session, modified: doc.modified, results: doc.entries.length });
+      } catch { /* damaged: not offered */ }
+    }
+    return out;
+  }
+
+  async discardRecovery(recovery: string): Promise<boolean> {
+    validateRequest('discardRecovery', recovery);
+    return this.recovery.remove(recovery);
+  }
+
+  private async writeSession(target: string, app: SaveSessionRequest['app'], keys: string[] | undefined, recovery: boolean): Promise<SessionSaved> {
     const open = [...this.records.values()].map((r) => ({ id: r.id, data: datasetRecordOf(r.opened.descriptor) }));
-    const out = OutputFile.create(req.path, { flag: 'session file', protect: [...this.records.values()].flatMap((r) => r.opened.descriptor.sourceFiles) });
+    const out = OutputFile.create(target, { flag: recovery ? 'recovery file' : 'session file', protect: [...this.records.values()].flatMap((r) => r.opened.descriptor.sourceFiles) });
     try {
       out.protectIdentities(await this.filesRead());
-      const { doc, results } = this.session.document(out.path, open, req.app, req.keys);
+      const { doc, results } = this.session.document(out.path, open, app, keys);
       const path = await writeSessionFile(out, doc, results);
-      this.session.saved(path, doc);
+      if (!recovery) this.session.saved(path, doc);
       return { path, results: doc.entries.length, datasets: doc.datasets.length };
     } finally {
       out.discard();
@@ -272,6 +317,11 @@ export class EngineService implements ScanfoldService {
     // Results name the dataset this session's reference opened (none when its data was not found).
     const statusOf = (fp: string) => statuses.find((d) => d.ref.fingerprint === fp);
     return { path, document: doc, datasets: statuses, results: this.session.entries((fp) => statusOf(fp)?.opened?.id ?? null, (fp) => statusOf(fp)?.ref.id ?? '') };
+  }
+
+  async exportResult(req: ExportRequest): Promise<ExportedFile> {
+    validateRequest('exportResult', req);
+    return exportResult(this.session.entries(this.openIdOf, (fp) => this.session.refIdOf(fp)), req, this.session.appScanStepNm);
   }
 
   async sessionEntries(): Promise<KeptEntry[]> {

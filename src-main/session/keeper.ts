@@ -9,6 +9,7 @@ import {
 import type { DatasetId, KeptEntry, KeptResult } from '../../src-shared/contract/service';
 import { SCANFOLD_VERSION } from '../engine/version';
 import type { SessionResults } from './session-file';
+import { resultArrays } from '../io/result-arrays';
 
 /** A dataset as a session records it, before the session's folder (relative path) and ids are known. */
 export type DatasetRecordOf = Omit<SessionDatasetRef, 'id' | 'relativePath'>;
@@ -76,7 +77,20 @@ export class SessionKeeper {
   }
 
   recipes(openIdOf: (fingerprint: string) => DatasetId | null): KeptEntry[] {
-    return this.entries(openIdOf, () => '').map(({ result: _r, ...e }) => e);
+    return this.entries(openIdOf, (fp) => this.refIdOf(fp)).map(({ result, ...e }) => ({
+      ...e, arrays: Object.entries(resultArrays(e.method, result)).map(([name, a]) => ({ name, shape: a.shape, dims: a.dims ?? [] })),
+    }));
+  }
+
+  /** A stable id of a kept result's dataset (the fingerprint's order among the kept results). */
+  refIdOf(fingerprint: string): string {
+    const order = [...new Set([...this.kept.values()].map((k) => k.data.fingerprint))];
+    return `data-${order.indexOf(fingerprint) + 1}`;
+  }
+
+  /** The app's scan step from the session opened, when its setup gave one. */
+  get appScanStepNm(): number | undefined {
+    return this.loadedApp?.app.calibration.scanStepNm;
   }
 
   /**

@@ -412,6 +412,22 @@ export interface SessionSaved {
   datasets: number;
 }
 
+/** Autosave: the same content as saveSession, to the session's recovery file. */
+export interface AutosaveRequest {
+  /** The session file the work belongs to, or null while it has none. */
+  session: string | null;
+  keys?: string[];
+  app?: AppSetup;
+}
+
+/** A recovery file left by a session that did not close cleanly. */
+export interface Recoverable {
+  recovery: string;
+  session: string | null;
+  modified: string;
+  results: number;
+}
+
 export interface OpenSessionRequest {
   path: string;
   /** Where moved data now is: OLD (a recorded path, file name or session dataset id) → NEW path. */
@@ -450,8 +466,34 @@ export interface OpenedSession {
   results: KeptResult[];
 }
 
-/** A kept result's recipe, without the result. */
-export type KeptEntry = Omit<KeptResult, 'result'>;
+/** A kept result's recipe and arrays, without the result. */
+export type KeptEntry = Omit<KeptResult, 'result'> & { arrays: { name: string; shape: number[]; dims: string[] }[] };
+
+/** One array of a kept result, as a file for another program or a report. */
+export interface ExportRequest {
+  /** The kept result (its key) and one of its arrays (optional when it has one). */
+  key: string;
+  array?: string;
+  /** png: a figure (colour map, colour bar, scale bar when calibrated); tiff: float32 values; npy: the array as stored; csv: 1-D or 2-D. */
+  format: 'png' | 'tiff' | 'npy' | 'csv';
+  /** One image of a 3-D stack (a component, a cluster, a detector). */
+  index?: number;
+  /** png only. */
+  colormap?: string;
+  scaling?: { kind: 'linear' } | { kind: 'log' } | { kind: 'gamma'; gamma: number };
+  limits?: [number, number];
+  /** png only: nm per scan step, or mrad per detector pixel, when the session holds no calibration. */
+  pixelSize?: number;
+}
+
+export interface ExportedFile {
+  bytes: Uint8Array;
+  /** A file name to suggest: KEY-ARRAY[-INDEX].EXT. */
+  fileName: string;
+  mediaType: string;
+  /** What was written, in one line (shape; for a figure its colour map, limits and scale bar). */
+  description: string;
+}
 
 export type ServiceEvent =
   /** A job started, progressed, finished, failed or was cancelled. */
@@ -486,6 +528,14 @@ export interface ScanfoldService {
   saveSession(req: SaveSessionRequest): Promise<SessionSaved>;
   /** Read a session file: its results become the kept results (shown even with the data absent); the data found is opened. */
   openSession(req: OpenSessionRequest): Promise<OpenedSession>;
+  /** Write the work to its recovery file (beside the session, or in Scanfold's state folder); a saveSession to the session removes it. */
+  autosave(req: AutosaveRequest): Promise<{ recovery: string }>;
+  /** Recovery files still there (newer than their session file): work a crash would otherwise have lost. */
+  recoverable(): Promise<Recoverable[]>;
+  /** Remove a recovery file the engine wrote (false for any other path). */
+  discardRecovery(recovery: string): Promise<boolean>;
+  /** One array of a kept result as PNG, TIFF, .npy or CSV bytes (the front end saves them). */
+  exportResult(req: ExportRequest): Promise<ExportedFile>;
   /** The kept results' recipes. */
   sessionEntries(): Promise<KeptEntry[]>;
   /** Forget every kept result (a new session). */
@@ -515,7 +565,7 @@ export interface ScanfoldService {
 /** The request methods, for generic transports and the validator. */
 export const SERVICE_METHODS = [
   'inspect', 'open', 'close', 'datasets', 'firstPass', 'virtualImages', 'comField', 'calibrate',
-  'regionPattern', 'pca', 'kmeans', 'fit', 'saveSession', 'openSession', 'sessionEntries', 'forgetSession', 'patternAt', 'previewImages', 'filesRead', 'jobs', 'cancel', 'shutdown',
+  'regionPattern', 'pca', 'kmeans', 'fit', 'saveSession', 'openSession', 'autosave', 'recoverable', 'discardRecovery', 'exportResult', 'sessionEntries', 'forgetSession', 'patternAt', 'previewImages', 'filesRead', 'jobs', 'cancel', 'shutdown',
 ] as const satisfies readonly (keyof ScanfoldService)[];
 
 export type ServiceMethod = (typeof SERVICE_METHODS)[number];

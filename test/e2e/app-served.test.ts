@@ -382,7 +382,7 @@ describe('served mode', () => {
     const bad = path.join(dir, 'corrupt.npy');
     fs.writeFileSync(bad, Buffer.from('\x93NUMPY\x01\x00garbage that is not a header'));
     await page.getByLabel('file to open').fill(bad);
-    await page.getByRole('button', { name: 'Open' }).click();
+    await page.getByRole('button', { name: 'Open', exact: true }).click();
     const alert = page.getByRole('alert');
     await expect.poll(async () => (await alert.count()) > 0 ? alert.first().textContent() : '', { timeout: 20_000 }).toMatch(/corrupt\.npy/);
     await snap('6-corrupt-file');
@@ -411,7 +411,7 @@ describe('served mode, a long job', () => {
     try {
       await p.goto(slowServed.url);
       await p.getByLabel('file to open').fill(big);
-      await p.getByRole('button', { name: 'Open' }).click();
+      await p.getByRole('button', { name: 'Open', exact: true }).click();
       const running = p.locator('.job.running');
       await expect.poll(() => running.count(), { timeout: 30_000 }).toBe(1);
       await p.screenshot({ path: path.join(ARTIFACTS, '7-running.png') });

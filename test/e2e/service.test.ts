@@ -10,7 +10,7 @@ import { EngineService } from '../../src-main/engine/service';
 import type { ServiceEvent } from '../../src-shared/contract/service';
 import { validateRequest } from '../../src-shared/contract/validate';
 import { CancelledError, isInputError } from '../../src-shared/model/errors';
-import { makeFixtures, maxRelDiff, PYTHON, readNpyF64, tightBudget } from '../helpers/fixtures';
+import { inputError, makeFixtures, maxRelDiff, PYTHON, readNpyF64, tightBudget } from '../helpers/fixtures';
 
 let fx: string;
 let service: EngineService;
@@ -24,15 +24,6 @@ afterAll(async () => {
   if (fx) fs.rmSync(fx, { recursive: true, force: true });
 });
 
-async function inputError(p: Promise<unknown>): Promise<{ message: string; code?: string }> {
-  try {
-    await p;
-  } catch (e) {
-    expect(isInputError(e), String(e)).toBe(true);
-    return e as { message: string; code?: string };
-  }
-  throw new Error('expected an InputError');
-}
 
 describe('engine service', () => {
   it('two datasets open at once, first passes run together, each equal to NumPy', async () => {

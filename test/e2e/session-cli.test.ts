@@ -133,7 +133,7 @@ print(json.dumps({
     // A stack needs --index for an image; the message says so.
     const stack = scanfold('export', s(), 'pca/loadings', '--format', 'png', '--out', path.join(dir, 'x.png'));
     expect(stack.status).toBe(2);
-    expect(stack.stderr).toMatch(/add --index 0 … 3/);
+    expect(stack.stderr).toMatch(/give an index 0 … 3 for one of the stack/);
   }, 120_000);
 
   it('session apply refuses to write over the session it applies, and names the result a dataset cannot take', () => {

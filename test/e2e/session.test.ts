@@ -13,9 +13,8 @@ import type { KeptResult } from '../../src-shared/contract/service';
 import type { AppSetup } from '../../src-shared/model/session';
 import { writeHdf5File } from '../../src-main/io/hdf5-writer';
 import { readSessionFile } from '../../src-main/session/session-file';
-import { isInputError } from '../../src-shared/model/errors';
 import { writeSample } from '../../samples/write-sample';
-import { makeDemoSample, PYTHON, readNpyF64 } from '../helpers/fixtures';
+import { inputError, makeDemoSample, PYTHON, readNpyF64 } from '../helpers/fixtures';
 
 let dir: string;
 let file: string;
@@ -34,15 +33,6 @@ const APP: Omit<AppSetup, 'dataset'> = {
   patternView: { colormap: 'magma', scaling: { kind: 'gamma', gamma: 0.5 }, limits: null },
 };
 
-async function refused(p: Promise<unknown>): Promise<{ message: string; code?: string }> {
-  try {
-    await p;
-  } catch (e) {
-    expect(isInputError(e), String(e)).toBe(true);
-    return e as { message: string; code?: string };
-  }
-  throw new Error('expected an InputError');
-}
 
 /** Every typed array of a result, by its path, for bitwise comparison. */
 function arraysOf(v: unknown, at = ''): Map<string, ArrayLike<number>> {
@@ -189,7 +179,7 @@ print(json.dumps(meta))
       const other = await eng.openSession({ path: session() });
       expect(other.datasets[0].status).toBe('different');
       expect(other.datasets[0].how).toMatch(/holds other data than the session used: shape .* not 64×64 positions × 96×96 pixels \(fingerprint/);
-      const e = await refused(eng.openSession({ path: session(), relink: { [file]: file } }));
+      const e = await inputError(eng.openSession({ path: session(), relink: { [file]: file } }));
       expect(e.code).toBe('different-data');
       expect(e.message).toMatch(/refused/);
       fs.renameSync(path.join(dir, 'elsewhere.h5'), file);
@@ -202,13 +192,13 @@ print(json.dumps(meta))
     const doc = JSON.parse(fs.readFileSync(session()).includes(Buffer.from('scanfold-session')) ? JSON.stringify((await readSessionFile(session())).doc) : '{}');
     const newer = path.join(dir, 'newer.scanfold.h5');
     writeHdf5File(newer, { attrs: { format: 'scanfold-session', session_json: JSON.stringify({ ...doc, formatVersion: 99, scanfoldVersion: '9.0.0' }) }, datasets: {} });
-    const e = await refused(service.openSession({ path: newer, openData: false }));
+    const e = await inputError(service.openSession({ path: newer, openData: false }));
     expect(e.code).toBe('newer-session');
     expect(e.message).toMatch(/format 99 by Scanfold 9\.0\.0; this Scanfold reads formats 1 to 1/);
     const bad = path.join(dir, 'bad.scanfold.h5');
     writeHdf5File(bad, { attrs: { format: 'scanfold-session', session_json: JSON.stringify({ ...doc, entries: [{ ...doc.entries[4], request: { components: -1 } }] }) }, datasets: {} });
-    expect((await refused(service.openSession({ path: bad, openData: false }))).message).toMatch(/the recipe of result "pca": pca: components: got -1/);
-    expect((await refused(service.openSession({ path: file, openData: false }))).message).toMatch(/not a Scanfold session/);
+    expect((await inputError(service.openSession({ path: bad, openData: false }))).message).toMatch(/the recipe of result "pca": pca: components: got -1/);
+    expect((await inputError(service.openSession({ path: file, openData: false }))).message).toMatch(/not a Scanfold session/);
   });
 
   it('a save killed with SIGKILL at any moment leaves the previous session whole', async () => {

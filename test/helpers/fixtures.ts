@@ -3,6 +3,7 @@ import os from 'node:os';
 import path from 'node:path';
 import { execFileSync, spawnSync } from 'node:child_process';
 import { expect } from 'vitest';
+import { isInputError } from '../../src-shared/model/errors';
 import { DTYPE_BYTES, isDType, typedView, type DType, type NumericArray } from '../../src-shared/model/dtype';
 import type { CompiledDetector } from '../../src-shared/model/detectors';
 import { WORKER_THREAD_BYTES } from '../../src-main/engine/budget';
@@ -104,4 +105,15 @@ export async function makeDemoSample(prefix: string): Promise<{ dir: string; fil
   const file = path.join(dir, 'demo.h5');
   await writeSample({ size: 'demo', out: file });
   return { dir, file };
+}
+
+/** The InputError a request ends in (its message and code); fails the test when it succeeds or fails otherwise. */
+export async function inputError(p: Promise<unknown>): Promise<{ message: string; code?: string }> {
+  try {
+    await p;
+  } catch (e) {
+    expect(isInputError(e), String(e)).toBe(true);
+    return e as { message: string; code?: string };
+  }
+  throw new Error('expected an InputError');
 }

@@ -1,0 +1,67 @@
+// One array of a kept result as a file's bytes: a PNG figure (colour map, colour bar, and a scale
+// bar from the session's calibration), float32 TIFF, .npy or CSV. The engine makes the bytes; the
+// command line writes them to --out, the app offers them as a download.
+import { InputError } from '../../src-shared/model/errors';
+import { COLORMAP_NAMES, type ColormapName } from '../../src-shared/model/colormaps';
+import type { CalibrationResult, ExportedFile, ExportRequest, KeptResult, PcaResult } from '../../src-shared/contract/service';
+import { resultArrays } from '../io/result-arrays';
+import { renderFigure } from '../io/figure';
+import { csvText, npyBytes, pngBytes, tiffBytes } from '../io/array-export';
+
+const MEDIA = { png: 'image/png', tiff: 'image/tiff', npy: 'application/octet-stream', csv: 'text/csv' } as const;
+
+/** What a figure's pixel measures, from the dimension labels of the image. */
+function pixelSize(results: KeptResult[], kept: KeptResult, dims: string[], given: number | undefined, scanStepFallback: number | undefined): { value: number; unit: 'nm' | 'mrad' } | null {
+  const last = dims.at(-1);
+  const scan = last === 'scan_x';
+  const binned = last === 'det_x_binned';
+  if (!scan && last !== 'det_x' && !binned) return null;
+  const cal = results.filter((r) => r.method === 'calibrate' && r.datasetRef === kept.datasetRef).map((r) => r.result as CalibrationResult).at(-1);
+  const value = given ?? (scan ? cal?.scanStepNm ?? scanStepFallback : cal?.mradPerPixel);
+  if (value === undefined) return null;
+  // A binned detector's pixel spans `bin` detector pixels.
+  const bin = binned && !given ? ((kept.result as PcaResult).features?.bin ?? 1) : 1;
+  return { value: value * bin, unit: scan ? 'nm' : 'mrad' };
+}
+
+export async function exportResult(results: KeptResult[], req: ExportRequest, scanStepFallback?: number): Promise<ExportedFile> {
+  const kept = results.find((r) => r.key === req.key);
+  const listing = () => results.map((r) => `${r.key}/{${Object.keys(resultArrays(r.method, r.result)).join(',')}}`).join(' ');
+  if (!kept) throw new InputError(`export: no result ${JSON.stringify(req.key)} in the session; it has ${listing() || 'none'}`, 'bad-request');
+  const arrays = resultArrays(kept.method, kept.result);
+  const names = Object.keys(arrays);
+  const name = req.array ?? (names.length === 1 ? names[0] : undefined);
+  if (!name || !arrays[name]) {
+    throw new InputError(`export: ${req.key}${req.array ? `/${req.array}: no such array` : ': name one array'}; ${req.key} has ${names.map((n) => `${req.key}/${n}`).join(', ') || 'no arrays'}`, 'bad-request');
+  }
+  const a = arrays[name];
+  let data: ArrayLike<number> = a.data;
+  let shape = a.shape;
+  let dims = a.dims ?? shape.map((_, i) => `dim_${i}`);
+  if (req.index !== undefined) {
+    if (shape.length < 3) throw new InputError(`export: ${req.key}/${name} is ${shape.length}-D; an index picks one image of a 3-D stack`, 'bad-request');
+    if (req.index >= shape[0]) throw new InputError(`export: index ${req.index}: expected 0 … ${shape[0] - 1} (${dims[0]})`, 'bad-request');
+    const n = shape[1] * shape[2];
+    data = a.data.subarray(req.index * n, (req.index + 1) * n);
+    shape = shape.slice(1);
+    dims = dims.slice(1);
+  }
+  const what = `${req.key}/${name}${req.index !== undefined ? `[${req.index}]` : ''}`;
+  const fileName = `${req.key}-${name}${req.index !== undefined ? `-${req.index}` : ''}.${req.format === 'tiff' ? 'tif' : req.format}`;
+  const done = (bytes: Uint8Array, note = ''): ExportedFile => ({ bytes, fileName, mediaType: MEDIA[req.format], description: `${what} (${shape.join('×')})${note}` });
+  if (req.format === 'npy') return done(npyBytes(data as Float64Array, shape));
+  if (req.format === 'csv') {
+    if (shape.length > 2) throw new InputError(`export: csv: ${what} is ${shape.length}-D (${shape.join('×')}); CSV takes 1-D or 2-D results (give an index for one image of a stack)`, 'bad-request');
+    return done(new TextEncoder().encode(csvText(data, shape, dims)));
+  }
+  if (shape.length !== 2) {
+    throw new InputError(`export: ${req.format}: ${what} is ${shape.length}-D (${shape.join('×')}); an image is 2-D${shape.length === 3 ? ` (give an index 0 … ${shape[0] - 1} for one of the stack)` : ''}`, 'bad-request');
+  }
+  const [h, w] = shape;
+  if (req.format === 'tiff') return done(await tiffBytes(data, w, h), ', float32');
+  const colormap = (req.colormap ?? 'viridis') as ColormapName;
+  if (!COLORMAP_NAMES.includes(colormap)) throw new InputError(`export: colour map ${colormap}: expected one of ${COLORMAP_NAMES.join(', ')}`, 'bad-request');
+  const fig = renderFigure(data, w, h, { colormap, scaling: req.scaling ?? { kind: 'linear' }, limits: req.limits ?? null, pixelSize: pixelSize(results, kept, dims, req.pixelSize, scanStepFallback) });
+  return done(pngBytes(fig), `, ${colormap}, limits ${fig.limits.map((x) => x.toPrecision(4)).join(' … ')}, ${fig.zoom}× enlarged; ` +
+    (fig.scaleBar ? `scale bar ${fig.scaleBar.label} = ${fig.scaleBar.pixels} px` : 'no scale bar (no calibration in the session; give the pixel size)'));
+}
