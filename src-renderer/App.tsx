@@ -18,7 +18,7 @@ import { CalibrationForm } from './panels/CalibrationForm';
 import { Thumbnail } from './panels/Thumbnail';
 import { startTiming } from './test-hooks';
 import { latestWins } from './latest-wins';
-import { KEYS, keysToSave, setupOf, sortResults, stateFromSetup } from './session';
+import { KEYS, keysToSave, setupOf, showsForResults, sortResults, stateFromSetup, withOutsideItems } from './session';
 import { SESSION_SUFFIX } from '../src-shared/model/session';
 
 type Job = JobInfo & { jobId: string };
@@ -178,9 +178,10 @@ export function App({ client, store, shell = null }: { client: Client; store: St
         ...(opened ? {} : { absent: status.how }),
       };
     }
-    const next = stateFromSetup(s.document.app, dataset);
-    store.reset(next);
     const r = sortResults(s.results);
+    const withItems = withOutsideItems(stateFromSetup(s.document.app, dataset), r);
+    const next = s.document.app ? withItems : showsForResults(withItems, r);
+    store.reset(next);
     kept.current = new Set(r.keys); setKeptVersion((v) => v + 1);
     setPca(r.pca ?? null); setKmeans(r.kmeans ?? null); setField(r.field ?? null); setCalibration(r.calibration ?? null);
     if (r.fit) {
@@ -189,16 +190,13 @@ export function App({ client, store, shell = null }: { client: Client; store: St
       setFit({ ...r.fit, names });
     } else setFit(null);
     if (r.field) { setRotationText(String(Math.round(r.field.rotation.degrees * 100) / 100)); setFlip(r.field.rotation.flip); }
-    setDetectorImages(new Map(r.detectors.map(({ id, result }) => [id, {
-      values: result.images[0], width: result.descriptor.shape.scanX, height: result.descriptor.shape.scanY, label: next.detectors.find((d) => d.id === id)?.name ?? result.labels[0],
-    }])));
-    setRegionPatterns(new Map(r.regions.map(({ id, result }) => [id, result])));
+    setDetectorImages(new Map(r.detectors.map((d) => [d.id, { values: d.image, width: d.scanX, height: d.scanY, label: next.detectors.find((x) => x.id === d.id)?.name ?? d.name }])));
+    setRegionPatterns(new Map(r.regions.map((g) => [g.id, g.result])));
     setFirst(null); setFilling(null); setPattern(null);
     setAbsentData(s.datasets.filter((d) => !d.opened));
     setSessionPath(sessionFile); setSessionInput(sessionFile ?? '');
-    if (dataset && !dataset.absent) {
-      try { setFirst(await client.firstPass({ dataset: dataset.id, jobId: newJobId('first-pass') })); } catch (e) { fail(e); }
-    }
+    // The results are on view now; the data's first pass (hover, previews) follows.
+    if (dataset && !dataset.absent) client.firstPass({ dataset: dataset.id, jobId: newJobId('first-pass') }).then(setFirst, fail);
   }, [client, store, fail]);
 
   const openSessionNow = useCallback(async (path: string, relink?: Record<string, string>) => {

@@ -2,8 +2,9 @@
 // kept results belong to what the user still has (a deleted detector's image is not saved).
 import type { AppSetup } from '../src-shared/model/session';
 import type { KeptResult } from '../src-shared/contract/service';
-import { COLORMAP_NAMES } from '../src-shared/model/colormaps';
-import { INITIAL_STATE, type AppState, type ViewSettings } from './store';
+import { CATEGORY_COLOURS, COLORMAP_NAMES } from '../src-shared/model/colormaps';
+import type { DetectorShape } from '../src-shared/model/detectors';
+import { INITIAL_STATE, type AppState, type RegionItemShape, type ViewSettings } from './store';
 
 /** Keys the app keeps its results under (JobOptions.keepAs). */
 export const KEYS = {
@@ -43,13 +44,58 @@ export function stateFromSetup(setup: AppSetup | null, dataset: AppState['datase
   };
 }
 
-/** The results of a session by what they belong to. */
+/**
+ * The results of a session by what they show: the app's own keys first, else the last result
+ * of each kind (a session built by the command line names them after its commands), and the
+ * detectors and regions of results made outside the app, as items to list.
+ */
 export function sortResults(results: KeptResult[]) {
-  const one = <M extends KeptResult['method']>(key: string, method: M) => results.find((r) => r.key === key && r.method === method)?.result as KeptResult<M>['result'] | undefined;
+  const one = <M extends KeptResult['method']>(key: string, method: M) => {
+    const own = results.find((r) => r.key === key && r.method === method) ?? results.filter((r) => r.method === method && !r.key.startsWith('detector-') && !r.key.startsWith('region-')).at(-1);
+    return own?.result as KeptResult<M>['result'] | undefined;
+  };
+  const detectors: { id: string; name: string; shape: DetectorShape; image: Float64Array; scanX: number; scanY: number; own: boolean }[] = [];
+  const regions: { id: string; name: string; shape: RegionItemShape | null; result: KeptResult<'regionPattern'>['result']; own: boolean }[] = [];
+  for (const r of results) {
+    if (r.method === 'virtualImages') {
+      const v = r.result as KeptResult<'virtualImages'>['result'];
+      const own = r.key.startsWith('detector-');
+      const specs = (r.request.detectors ?? []) as { shape: DetectorShape; label?: string }[];
+      v.images.forEach((image, i) => detectors.push({
+        id: own ? r.key.slice('detector-'.length) : `${r.key}-${i + 1}`, name: v.labels[i] ?? `${r.key} ${i + 1}`, shape: specs[i]?.shape,
+        image, scanX: v.descriptor.shape.scanX, scanY: v.descriptor.shape.scanY, own,
+      }));
+    } else if (r.method === 'regionPattern') {
+      const own = r.key.startsWith('region-');
+      regions.push({ id: own ? r.key.slice('region-'.length) : r.key, name: r.key, shape: (r.request.region ?? null) as RegionItemShape | null, result: r.result as KeptResult<'regionPattern'>['result'], own });
+    }
+  }
   return {
     pca: one(KEYS.pca, 'pca'), kmeans: one(KEYS.kmeans, 'kmeans'), field: one(KEYS.field, 'comField'), fit: one(KEYS.fit, 'fit'), calibration: one(KEYS.calibration, 'calibrate'),
-    detectors: results.filter((r) => r.key.startsWith('detector-') && r.method === 'virtualImages').map((r) => ({ id: r.key.slice('detector-'.length), result: r.result as KeptResult<'virtualImages'>['result'] })),
-    regions: results.filter((r) => r.key.startsWith('region-') && r.method === 'regionPattern').map((r) => ({ id: r.key.slice('region-'.length), result: r.result as KeptResult<'regionPattern'>['result'] })),
-    keys: results.map((r) => r.key),
+    detectors, regions, keys: results.map((r) => r.key),
   };
+}
+
+/** Detectors and regions of results made outside the app, added to the setup so they can be shown and changed. */
+export function withOutsideItems(s: AppState, sorted: ReturnType<typeof sortResults>): AppState {
+  const colours = CATEGORY_COLOURS;
+  const detectors = [...s.detectors];
+  for (const d of sorted.detectors) {
+    if (d.own || !d.shape || detectors.some((x) => x.id === d.id)) continue;
+    detectors.push({ id: d.id, name: d.name, colour: colours[(detectors.length + 1) % colours.length], visible: true, shape: d.shape });
+  }
+  const regions = [...s.regions];
+  for (const g of sorted.regions) {
+    if (g.own || !g.shape || regions.some((x) => x.id === g.id)) continue;
+    regions.push({ id: g.id, name: g.name, colour: colours[(regions.length + 4) % colours.length], visible: true, shape: g.shape });
+  }
+  return { ...s, detectors, regions };
+}
+
+/** What the views show first for a session without the app's setup (built by the command line): one of its results. */
+export function showsForResults(s: AppState, sorted: ReturnType<typeof sortResults>): AppState {
+  const scan: AppState['shows']['scan'] = sorted.field ? { kind: 'field', map: 'direction' } : sorted.pca ? { kind: 'loading', k: 0 }
+    : sorted.kmeans ? { kind: 'clusters' } : s.detectors[0] ? { kind: 'detector', id: s.detectors[0].id } : s.shows.scan;
+  const pattern: AppState['shows']['pattern'] = sorted.pca ? { kind: 'component', k: 0 } : sorted.kmeans ? { kind: 'cluster', k: 0 } : s.shows.pattern;
+  return { ...s, shows: { scan, pattern }, activeDetector: s.activeDetector ?? s.detectors[0]?.id ?? null };
 }

@@ -8,12 +8,12 @@ import { physicalPath } from '../io/input-file';
 import { OutputFile } from '../io/output-file';
 import { writeBytes } from '../io/array-export';
 import { withService } from './analysis-commands';
-import { decimalNumber, parseFlags, rejectExtraPositionals, wholeNumber } from './source-flags';
+import { decimalNumber, parseFlags, wholeNumber } from './source-flags';
 
 type Flags = Record<string, string | boolean | (string | boolean)[] | undefined>;
 type EngineFlags = Record<string, { type: 'string' | 'boolean' }>;
 
-const FORMATS = ['png', 'tiff', 'npy', 'csv'] as const;
+const FORMATS = ['png', 'tiff', 'npy', 'csv', 'h5'] as const;
 type Format = (typeof FORMATS)[number];
 
 export async function cmdExport(args: string[], engineOptions: (v: Record<string, unknown>) => EngineOptions, engineFlags: EngineFlags): Promise<void> {
@@ -23,11 +23,13 @@ export async function cmdExport(args: string[], engineOptions: (v: Record<string
   });
   const v = parsed.values as Flags;
   const [file, name, ...extra] = parsed.positionals;
-  if (!file || !name || extra.length) throw new InputError('export needs a session file and a result: scanfold export SESSION.scanfold.h5 KEY/ARRAY --format png|tiff|npy|csv --out FILE');
-  rejectExtraPositionals([file], 'export');
   const format = (typeof v.format === 'string' ? v.format : '') as Format;
-  if (!FORMATS.includes(format)) throw new InputError(`export --format ${typeof v.format === 'string' ? v.format : '(none)'}: expected png, tiff, npy or csv`);
+  if (!FORMATS.includes(format)) throw new InputError(`export --format ${typeof v.format === 'string' ? v.format : '(none)'}: expected png, tiff, npy, csv or h5`);
+  if (!file || !name || (extra.length && format !== 'h5')) {
+    throw new InputError('export needs a session file and a result: scanfold export SESSION.scanfold.h5 KEY/ARRAY --format png|tiff|npy|csv --out FILE (or KEY… --format h5)');
+  }
   if (typeof v.out !== 'string') throw new InputError(`export needs --out FILE.${format}`);
+  if (format === 'h5') return exportSet(file, [name, ...extra], v.out, engineOptions, v);
   // The engine checks the colour map's name (and says which there are).
   const colormap = typeof v.colormap === 'string' ? v.colormap : 'viridis';
   let scaling: Scaling = { kind: 'linear' };
@@ -62,4 +64,16 @@ export async function cmdExport(args: string[], engineOptions: (v: Record<string
     const path = await writeBytes(out, f.bytes);
     process.stderr.write(`wrote ${path}: ${f.description}\n`);
   }, out);
+}
+
+/** A chosen set of results as an HDF5 file of their own: a session holding only them (h5py reads it; Scanfold reopens it). */
+async function exportSet(file: string, keys: string[], outPath: string, engineOptions: (v: Record<string, unknown>) => EngineOptions, v: Flags): Promise<void> {
+  if (keys.some((k) => k.includes('/'))) throw new InputError('export --format h5 takes whole results (KEY KEY …), not single arrays');
+  await withService(engineOptions({ ...v, quiet: true } as Record<string, unknown>), true, async (service) => {
+    const source = physicalPath(file);
+    if (physicalPath(outPath) === source) throw new InputError('export: --out is the session being exported from; give a new name');
+    await service.openSession({ path: source, openData: false });
+    const saved = await service.saveSession({ path: outPath, keys });
+    process.stderr.write(`wrote ${saved.path}: ${saved.results} result(s) of ${source} (${keys.join(', ')})\n`);
+  });
 }

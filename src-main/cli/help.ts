@@ -258,6 +258,7 @@ ${SOURCE}
 ${ENGINE}`,
 
   export: `scanfold export FILE.scanfold.h5 KEY[/ARRAY] --format png|tiff|npy|csv --out FILE [flags]
+scanfold export FILE.scanfold.h5 KEY [KEY…] --format h5 --out SET.h5
   One array of a session's results for other programs (session show lists them, e.g. com/phase,
   pca/loadings); the data the session was made from need not be present.
   --format png            a figure: the colour map, a colour bar with its limits and, when the session
@@ -266,6 +267,8 @@ ${ENGINE}`,
            tiff           the raw values as a float32 TIFF (2-D)
            npy            the whole array, as stored (float64; int32 for labels and counts)
            csv            1-D or 2-D results (scree, cluster sizes, centres)
+           h5             whole results (export FILE KEY KEY … --format h5): an HDF5 file holding
+                          just them, laid out as in the session (h5py reads it, Scanfold reopens it)
   --out FILE              where it goes (written whole or not at all)
   --index I               one image of a 3-D stack (a component, a cluster, a detector)
   --colormap NAME         png: viridis (default), cividis, magma, sinebow or categories

@@ -130,6 +130,10 @@ print(json.dumps({
 }))
 `, s(), tif, npy, csv));
     expect(check).toEqual({ tiff: ['float32', [64, 64], true], npy: ['float64', [4, 64, 64], true], csv: true });
+    // A chosen set as an HDF5 file of its own: h5py finds just those results.
+    const set = path.join(dir, 'set.h5');
+    expect(scanfold('export', s(), 'pca', 'field', '--format', 'h5', '--out', set).status).toBe(0);
+    expect(py("import h5py,sys; print(sorted(h5py.File(sys.argv[1])['results'].keys()))", set).trim()).toBe("['field', 'pca']");
     // A stack needs --index for an image; the message says so.
     const stack = scanfold('export', s(), 'pca/loadings', '--format', 'png', '--out', path.join(dir, 'x.png'));
     expect(stack.status).toBe(2);
