@@ -85,7 +85,15 @@ export function App({ client, store, shell = null }: { client: Client; store: St
   const [sessionNote, setSessionNote] = useState<string | null>(null);
   const kept = useRef(new Set<string>());
   const [keptVersion, setKeptVersion] = useState(0);
-  const markKept = useCallback((key: string) => { kept.current.add(key); setKeptVersion((v) => v + 1); }, []);
+  /** Goes up whenever a result is kept (a new one, or one replaced under the same key). */
+  const keptCount = useRef(0);
+  const markKept = useCallback((key: string) => { kept.current.add(key); keptCount.current++; setKeptVersion((v) => v + 1); }, []);
+  /** What a save would write, as it stood at the last save or open: autosave skips while nothing differs. */
+  const savedSnapshot = useRef<string | null>(null);
+  const snapshot = useCallback(() => {
+    const st = store.get();
+    return JSON.stringify([setupOf(st), keysToSave(kept.current, st), keptCount.current]);
+  }, [store]);
   const [absentData, setAbsentData] = useState<OpenedSession['datasets']>([]);
   const [relinkTo, setRelinkTo] = useState('');
   const [recoverable, setRecoverable] = useState<Recoverable[]>([]);
@@ -179,6 +187,7 @@ export function App({ client, store, shell = null }: { client: Client; store: St
       };
     }
     const r = sortResults(s.results);
+    keptCount.current++;
     const withItems = withOutsideItems(stateFromSetup(s.document.app, dataset), r);
     const next = s.document.app ? withItems : showsForResults(withItems, r);
     store.reset(next);
@@ -195,9 +204,21 @@ export function App({ client, store, shell = null }: { client: Client; store: St
     setFirst(null); setFilling(null); setPattern(null);
     setAbsentData(s.datasets.filter((d) => !d.opened));
     setSessionPath(sessionFile); setSessionInput(sessionFile ?? '');
-    // The results are on view now; the data's first pass (hover, previews) follows.
-    if (dataset && !dataset.absent) client.firstPass({ dataset: dataset.id, jobId: newJobId('first-pass') }).then(setFirst, fail);
-  }, [client, store, fail]);
+    savedSnapshot.current = snapshot();
+    // The results are on view now; the data's first pass (hover, previews) follows, and the
+    // calibration from the file's attributes when the session holds none.
+    if (dataset && !dataset.absent) {
+      client.firstPass({ dataset: dataset.id, jobId: newJobId('first-pass') }).then(setFirst, fail);
+      if (!r.calibration) {
+        client.calibrate({ dataset: dataset.id, keepAs: KEYS.calibration }).then((c) => {
+          // Read from the file, not made by the user: it alone does not make the session unsaved.
+          const clean = snapshot() === savedSnapshot.current;
+          setCalibration(c); markKept(KEYS.calibration);
+          if (clean) savedSnapshot.current = snapshot();
+        }, () => undefined);
+      }
+    }
+  }, [client, store, fail, snapshot, markKept]);
 
   const openSessionNow = useCallback(async (path: string, relink?: Record<string, string>) => {
     setError(null); setSessionNote(null);
@@ -218,23 +239,25 @@ export function App({ client, store, shell = null }: { client: Client; store: St
       // Saved whole: the recovery of unsaved work is out of date (the engine removes the session's own).
       if (lastRecovery.current) { void client.discardRecovery(lastRecovery.current).catch(() => undefined); lastRecovery.current = null; }
       setSessionPath(saved.path); setSessionInput(saved.path);
+      savedSnapshot.current = snapshot();
       setSessionNote(`saved ${saved.results} result${saved.results === 1 ? '' : 's'} to ${saved.path}`);
     } catch (e) { fail(e); }
-  }, [client, store, fail, sessionInput, sessionPath]);
+  }, [client, store, fail, sessionInput, sessionPath, snapshot]);
 
   // Autosave: unsaved changes go to the recovery file every few seconds.
-  const dirty = useRef(false);
-  useEffect(() => { dirty.current = true; }, [state, keptVersion]);
+  const autosaved = useRef<string | null>(null);
   useEffect(() => {
     const timer = setInterval(() => {
       const st = store.get();
-      if (!dirty.current || !st.dataset || (kept.current.size === 0 && st.detectors.length === 0 && st.regions.length === 0)) return;
-      dirty.current = false;
+      if (!st.dataset || (kept.current.size === 0 && st.detectors.length === 0 && st.regions.length === 0)) return;
+      const now = snapshot();
+      if (now === savedSnapshot.current || now === autosaved.current) return;
+      autosaved.current = now;
       client.autosave({ session: sessionPathRef.current, app: setupOf(st), keys: keysToSave(kept.current, st) })
-        .then((r) => { lastRecovery.current = r.recovery; }, () => { dirty.current = true; });
+        .then((r) => { lastRecovery.current = r.recovery; }, () => { autosaved.current = null; });
     }, AUTOSAVE_MS);
     return () => clearInterval(timer);
-  }, [client, store]);
+  }, [client, store, snapshot]);
 
   // Export: one array of a kept result as a file (the engine makes the bytes; the page downloads them).
   const [exportables, setExportables] = useState<KeptEntry[]>([]);
