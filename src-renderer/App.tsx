@@ -82,12 +82,18 @@ export function App({ client, store, shell = null }: { client: Client; store: St
   const sessionPathRef = useRef<string | null>(null);
   sessionPathRef.current = sessionPath;
   const [sessionInput, setSessionInput] = useState('');
+  /** The file the session on view was read from (its session file, or a recovery file): relinking reads it again. */
+  const [loadedFrom, setLoadedFrom] = useState<string | null>(null);
   const [sessionNote, setSessionNote] = useState<string | null>(null);
   const kept = useRef(new Set<string>());
   const [keptVersion, setKeptVersion] = useState(0);
   /** Goes up whenever a result is kept (a new one, or one replaced under the same key). */
   const keptCount = useRef(0);
-  const markKept = useCallback((key: string) => { kept.current.add(key); keptCount.current++; setKeptVersion((v) => v + 1); }, []);
+  /** A result the engine kept for the session: counted only if its dataset is still the one on view (a late job's is not). */
+  const markKept = useCallback((key: string, dataset: string) => {
+    if (datasetRef.current !== dataset) return;
+    kept.current.add(key); keptCount.current++; setKeptVersion((v) => v + 1);
+  }, []);
   /** What a save would write, as it stood at the last save or open: autosave skips while nothing differs. */
   const savedSnapshot = useRef<string | null>(null);
   const snapshot = useCallback(() => {
@@ -126,7 +132,7 @@ export function App({ client, store, shell = null }: { client: Client; store: St
     const dataset = { id, name: baseName(descriptor.path), scanY, scanX, detY, detX, dtype: descriptor.dtype, spec: descriptor.spec, fingerprint: descriptor.fingerprint };
     store.update((s) => ({ ...s, dataset, detectors: [], activeDetector: null }), { undoable: true });
     // A new dataset starts a new session.
-    kept.current = new Set(); setKeptVersion((v) => v + 1); setSessionPath(null); setSessionInput(''); setAbsentData([]);
+    kept.current = new Set(); setKeptVersion((v) => v + 1); setSessionPath(null); setLoadedFrom(null); setAbsentData([]);
     void client.forgetSession().catch(() => undefined);
     setFirst(null); setPca(null); setKmeans(null); setField(null); setFit(null); setRegionPatterns(new Map()); setDetectorImages(new Map()); setFilling(null); setCalibration(null);
     store.update((s) => ({ ...s, regions: [], calibration: {} }));
@@ -138,7 +144,7 @@ export function App({ client, store, shell = null }: { client: Client; store: St
     try {
       const c = await client.calibrate({ dataset: id, keepAs: KEYS.calibration });
       setCalibration(c);
-      markKept(KEYS.calibration);
+      markKept(KEYS.calibration, id);
     } catch { /* no attributes to go by: the form says what is needed */ }
   }, [client, store, fail, markKept]);
 
@@ -178,6 +184,7 @@ export function App({ client, store, shell = null }: { client: Client; store: St
   const applySession = useCallback(async (s: OpenedSession, sessionFile: string | null) => {
     const refId = s.document.app?.dataset ?? s.document.datasets[0]?.id ?? null;
     const status = s.datasets.find((d) => d.ref.id === refId);
+    setLoadedFrom(s.path);
     let dataset: AppState['dataset'] = null;
     if (status) {
       const { ref, opened } = status;
@@ -186,12 +193,13 @@ export function App({ client, store, shell = null }: { client: Client; store: St
         ...(opened ? {} : { absent: status.how }),
       };
     }
-    const r = sortResults(s.results);
+    // Only the results of the dataset on view are shown (a session may hold several datasets').
+    const r = sortResults(s.results.filter((x) => refId === null || x.datasetRef === refId));
     keptCount.current++;
     const withItems = withOutsideItems(stateFromSetup(s.document.app, dataset), r);
     const next = s.document.app ? withItems : showsForResults(withItems, r);
     store.reset(next);
-    kept.current = new Set(r.keys); setKeptVersion((v) => v + 1);
+    kept.current = new Set(s.results.map((x) => x.key)); setKeptVersion((v) => v + 1);
     setPca(r.pca ?? null); setKmeans(r.kmeans ?? null); setField(r.field ?? null); setCalibration(r.calibration ?? null);
     if (r.fit) {
       const refs = (s.results.find((x) => x.key === KEYS.fit)?.request.references ?? []) as unknown[];
@@ -213,7 +221,7 @@ export function App({ client, store, shell = null }: { client: Client; store: St
         client.calibrate({ dataset: dataset.id, keepAs: KEYS.calibration }).then((c) => {
           // Read from the file, not made by the user: it alone does not make the session unsaved.
           const clean = snapshot() === savedSnapshot.current;
-          setCalibration(c); markKept(KEYS.calibration);
+          setCalibration(c); markKept(KEYS.calibration, dataset.id);
           if (clean) savedSnapshot.current = snapshot();
         }, () => undefined);
       }
@@ -226,6 +234,17 @@ export function App({ client, store, shell = null }: { client: Client; store: St
       const s = await client.openSession({ path: path.trim(), ...(relink ? { relink } : {}) });
       await applySession(s, s.path);
       setSessionNote(`opened ${s.path}: ${s.results.length} result${s.results.length === 1 ? '' : 's'}`);
+    } catch (e) { fail(e); }
+  }, [client, applySession, fail]);
+
+  /** Read the session again from the file it came from, with moved data relinked; its session file stays the one to save to. */
+  const relinkNow = useCallback(async (from: string, relink: Record<string, string>) => {
+    setError(null);
+    try {
+      const keep = sessionPathRef.current;
+      const s = await client.openSession({ path: from, relink });
+      await applySession(s, keep);
+      setSessionNote(`relinked: ${s.datasets.filter((d) => d.opened).map((d) => d.path).join(', ')}`);
     } catch (e) { fail(e); }
   }, [client, applySession, fail]);
 
@@ -246,15 +265,19 @@ export function App({ client, store, shell = null }: { client: Client; store: St
 
   // Autosave: unsaved changes go to the recovery file every few seconds.
   const autosaved = useRef<string | null>(null);
+  const autosaving = useRef(false);
   useEffect(() => {
     const timer = setInterval(() => {
       const st = store.get();
       if (!st.dataset || (kept.current.size === 0 && st.detectors.length === 0 && st.regions.length === 0)) return;
       const now = snapshot();
       if (now === savedSnapshot.current || now === autosaved.current) return;
+      if (autosaving.current) return;
       autosaved.current = now;
+      autosaving.current = true;
       client.autosave({ session: sessionPathRef.current, app: setupOf(st), keys: keysToSave(kept.current, st) })
-        .then((r) => { lastRecovery.current = r.recovery; }, () => { autosaved.current = null; });
+        .then((r) => { lastRecovery.current = r.recovery; }, () => { autosaved.current = null; })
+        .finally(() => { autosaving.current = false; });
     }, AUTOSAVE_MS);
     return () => clearInterval(timer);
   }, [client, store, snapshot]);
@@ -358,7 +381,7 @@ export function App({ client, store, shell = null }: { client: Client; store: St
     try {
       const r = await client.regionPattern({ dataset: ds.id, region: item.shape, jobId: newJobId('region'), keepAs: KEYS.region(item.id) });
       setRegionPatterns((m) => new Map(m).set(item.id, r));
-      markKept(KEYS.region(item.id));
+      markKept(KEYS.region(item.id), ds.id);
     } catch (e) { fail(e); }
   };
 
@@ -431,7 +454,7 @@ export function App({ client, store, shell = null }: { client: Client; store: St
     try {
       const r = await client.virtualImages({ dataset: ds.id, detectors: [{ shape: d.shape, label: d.name }], jobId, keepAs: KEYS.detector(d.id) });
       if (exactJobs.current.get(d.id) === jobId) exactJobs.current.delete(d.id);
-      markKept(KEYS.detector(d.id));
+      markKept(KEYS.detector(d.id), ds.id);
       // Only if the detector has not moved since.
       const now = store.get().detectors.find((x) => x.id === d.id);
       if (now && JSON.stringify(now.shape) === JSON.stringify(d.shape)) {
@@ -499,13 +522,13 @@ export function App({ client, store, shell = null }: { client: Client; store: St
 
   const runPca = () => onDataset(async (d) => {
     setPca(await client.pca({ dataset: d.id, components: store.get().analyses.pcaComponents, jobId: newJobId('pca'), keepAs: KEYS.pca }));
-    markKept(KEYS.pca);
+    markKept(KEYS.pca, d.id);
     setScanShows({ kind: 'loading', k: 0 }); setPatternShows({ kind: 'component', k: 0 });
   });
   const applyCalibration = (input: CalibrationInput) => onDataset(async (d) => {
     store.update((s) => ({ ...s, calibration: input }), { undoable: true });
     setCalibration(await client.calibrate({ dataset: d.id, ...input, jobId: newJobId('calibration'), keepAs: KEYS.calibration }));
-    markKept(KEYS.calibration);
+    markKept(KEYS.calibration, d.id);
   });
   const runField = (rotation: 'auto' | { degrees: number; flip: boolean } = store.get().analyses.fieldRotation) => onDataset(async (d) => {
     setAnalyses({ fieldRotation: rotation });
@@ -514,7 +537,7 @@ export function App({ client, store, shell = null }: { client: Client; store: St
     const cal = calibration?.scanStepNm ? { mradPerPixel: calibration.mradPerPixel, energyKeV: calibration.energyKeV, scanStepNm: calibration.scanStepNm } : undefined;
     const r = await client.comField({ dataset: d.id, rotation, jobId: newJobId('field'), keepAs: KEYS.field, ...descan, ...(cal ? { calibration: cal } : {}) });
     setField(r);
-    markKept(KEYS.field);
+    markKept(KEYS.field, d.id);
     setRotationText(String(Math.round(r.rotation.degrees * 100) / 100));
     setFlip(r.rotation.flip);
     setScanShows({ kind: 'field', map: 'direction' });
@@ -523,12 +546,12 @@ export function App({ client, store, shell = null }: { client: Client; store: St
     const regions = store.get().regions;
     const r = await client.fit({ dataset: d.id, references: regions.map((g) => g.shape), nonnegative: true, jobId: newJobId('fit'), keepAs: KEYS.fit });
     setFit({ ...r, names: regions.map((g) => g.name) });
-    markKept(KEYS.fit);
+    markKept(KEYS.fit, d.id);
     setScanShows({ kind: 'fit', k: 0 });
   });
   const runKmeans = () => onDataset(async (d) => {
     setKmeans(await client.kmeans({ dataset: d.id, clusters: store.get().analyses.kmeansClusters, jobId: newJobId('kmeans'), keepAs: KEYS.kmeans }));
-    markKept(KEYS.kmeans);
+    markKept(KEYS.kmeans, d.id);
     setScanShows({ kind: 'clusters' }); setPatternShows({ kind: 'cluster', k: 0 });
   });
 
@@ -603,10 +626,10 @@ export function App({ client, store, shell = null }: { client: Client; store: St
           <button type="submit">Open</button>
           <button type="button" onClick={exportImage} disabled={!ds} title="the Scan view as a PNG">Export image</button>
         </form>
-        <form className="open-form session-form" onSubmit={(e) => { e.preventDefault(); void saveSessionNow(); }}>
+        <form className="open-form session-form" onSubmit={(e) => { e.preventDefault(); if (sessionInput.trim()) void openSessionNow(sessionInput); }}>
           <input aria-label="session file" placeholder={`session file, NAME${SESSION_SUFFIX}`} value={sessionInput} onChange={(e) => setSessionInput(e.target.value)} />
-          <button type="submit" disabled={!ds} title="write the setup and every result to the session file (Ctrl-S)">Save session</button>
-          <button type="button" onClick={() => void openSessionNow(sessionInput)} disabled={!sessionInput.trim()} title="reopen the analysis saved in that file">Open session</button>
+          <button type="button" onClick={() => void saveSessionNow()} disabled={!ds} title="write the setup and every result to the session file (Ctrl-S)">Save session</button>
+          <button type="submit" disabled={!sessionInput.trim()} title="reopen the analysis saved in that file (Enter)">Open session</button>
         </form>
       </header>
       {error && <div className="error" role="alert">{error} <button onClick={() => setError(null)}>dismiss</button></div>}
@@ -619,7 +642,7 @@ export function App({ client, store, shell = null }: { client: Client; store: St
         </div>
       ))}
       {absentData.map((d) => (
-        <form key={d.ref.id} className="note relink" role="alert" onSubmit={(e) => { e.preventDefault(); if (sessionPath && relinkTo.trim()) void openSessionNow(sessionPath, { [d.ref.id]: relinkTo.trim() }); }}>
+        <form key={d.ref.id} className="note relink" role="alert" onSubmit={(e) => { e.preventDefault(); if (loadedFrom && relinkTo.trim()) void relinkNow(loadedFrom, { [d.ref.id]: relinkTo.trim() }); }}>
           The data of this session ({d.ref.name}) {d.status === 'different' ? 'was replaced' : 'was not found'}: {d.how}. Its results are shown; to compute more, give where it is now:
           <input aria-label="where the data is now" placeholder={d.ref.absolutePath} value={relinkTo} onChange={(e) => setRelinkTo(e.target.value)} />
           <button type="submit">Relink</button>

@@ -2,7 +2,7 @@
 // once and named by id, every request validated where it comes in, long requests run as jobs
 // with events, and the pipelines (bad pixels → bright-field disk, the COM field, calibration)
 // done here so that no front end repeats them.
-import type { SourceSpec } from '../../src-shared/model/dataset';
+import { userSpec, type SourceSpec } from '../../src-shared/model/dataset';
 import type { CompiledDetector, DetectorSpec } from '../../src-shared/model/detectors';
 import { CancelledError, InputError, isInputError } from '../../src-shared/model/errors';
 import type { JobInfo } from '../../src-shared/contract/jobs';
@@ -40,7 +40,7 @@ import { defaultStateDir, RecoveryIndex } from '../session/recovery';
 import { exportResult } from '../session/export';
 import { OutputFile } from '../io/output-file';
 import { SessionKeeper, datasetRecordOf, type DatasetRecordOf } from '../session/keeper';
-import { readSessionFile, writeSessionFile } from '../session/session-file';
+import { isSessionFile, readSessionFile, writeSessionFile } from '../session/session-file';
 import { locateDataset, relinkMatches } from '../session/relink';
 
 interface FirstResults extends CachedFirstPass {
@@ -68,12 +68,9 @@ function featureSummary(plan: FeaturePlan, badPixels: BadPixelsMode): PcaResult[
   };
 }
 
-/** An opened dataset as clients see it: the engine's internal read hint left out of its spec. */
+/** An opened dataset as clients see it: the engine's internal read hint and file version left out of its spec. */
 function publicOpened(o: OpenedDataset): OpenedDataset {
-  if (!o.descriptor.spec.hdf5Direct) return o;
-  const { hdf5Direct: _hint, ...spec } = o.descriptor.spec;
-  void _hint;
-  return { ...o, descriptor: { ...o.descriptor, spec } };
+  return { ...o, descriptor: { ...o.descriptor, spec: userSpec(o.descriptor.spec) } };
 }
 
 /** The least detector binning (1, 2, 4, 8) that brings the (cropped) detector to at most 64 × 64 bins. */
@@ -226,9 +223,18 @@ export class EngineService implements ScanfoldService {
 
   /** A request whose result may be kept in the session (JobOptions.keepAs). */
   private async requestKept<T>(method: SessionMethod, req: { jobId?: string; keepAs?: string; dataset: DatasetId }, fn: () => Promise<T>): Promise<T> {
+    const generation = this.session.generation;
     const out = await this.request(req.jobId, fn);
-    if (req.keepAs) this.session.keep(method, req as never, out, datasetRecordOf(this.record(req.dataset).opened.descriptor));
+    if (req.keepAs) this.session.keep(method, req as never, out, datasetRecordOf(this.record(req.dataset).opened.descriptor), generation);
     return out;
+  }
+
+  /** Session writes one at a time, in the order asked (a save and an autosave never interleave). */
+  private sessionWrites: Promise<unknown> = Promise.resolve();
+  private oneWriteAtATime<T>(fn: () => Promise<T>): Promise<T> {
+    const next = this.sessionWrites.then(fn, fn);
+    this.sessionWrites = next.catch(() => undefined);
+    return next;
   }
 
   private openIdOf = (fingerprint: string): DatasetId | null => {
@@ -238,26 +244,32 @@ export class EngineService implements ScanfoldService {
 
   async saveSession(req: SaveSessionRequest): Promise<SessionSaved> {
     validateRequest('saveSession', req);
-    const saved = await this.writeSession(req.path, req.app, req.keys, false);
-    // Saved whole: its recovery file is out of date.
-    this.recovery.remove(this.recovery.pathFor(saved.path));
-    return saved;
+    return this.oneWriteAtATime(async () => {
+      const saved = await this.writeSession(req.path, req.app, req.keys, false);
+      // Saved whole: this instance's recovery file of it is out of date.
+      this.recovery.remove(this.recovery.pathFor(saved.path));
+      return saved;
+    });
   }
 
   async autosave(req: AutosaveRequest): Promise<{ recovery: string }> {
     validateRequest('autosave', req);
     const session = req.session === null ? null : nodePath.resolve(req.session);
-    const path = this.recovery.pathFor(session);
-    fs.mkdirSync(nodePath.dirname(path), { recursive: true });
-    const saved = await this.writeSession(path, req.app, req.keys, true);
-    this.recovery.add({ recovery: saved.path, session });
-    return { recovery: saved.path };
+    return this.oneWriteAtATime(async () => {
+      const path = this.recovery.pathFor(session);
+      fs.mkdirSync(nodePath.dirname(path), { recursive: true, mode: 0o700 });
+      const saved = await this.writeSession(path, req.app, req.keys, true);
+      this.recovery.add({ recovery: saved.path, session });
+      return { recovery: saved.path };
+    });
   }
 
   async recoverable(): Promise<Recoverable[]> {
     validateRequest('recoverable', undefined);
     const out: Recoverable[] = [];
     for (const e of this.recovery.entries()) {
+      // This instance's own recovery files are the work going on now, not a crash's.
+      if (this.recovery.isOwn(e.recovery)) continue;
       let rec: fs.Stats;
       try { rec = fs.statSync(e.recovery); } catch { continue; }
       // A session saved after its recovery was written needs no recovery.
@@ -277,8 +289,13 @@ export class EngineService implements ScanfoldService {
 
   private async writeSession(target: string, app: SaveSessionRequest['app'], keys: string[] | undefined, recovery: boolean): Promise<SessionSaved> {
     const open = [...this.records.values()].map((r) => ({ id: r.id, data: datasetRecordOf(r.opened.descriptor) }));
-    const out = OutputFile.create(target, { flag: recovery ? 'recovery file' : 'session file', protect: [...this.records.values()].flatMap((r) => r.opened.descriptor.sourceFiles) });
+    const protect = [...this.records.values()].flatMap((r) => r.opened.descriptor.sourceFiles).concat(this.session.dataPaths());
+    const out = OutputFile.create(target, { flag: recovery ? 'recovery file' : 'session file', protect });
     try {
+      // A session replaces only a session: never a data file or anything else under that name.
+      if (!recovery && fs.existsSync(out.path) && !(await isSessionFile(out.path))) {
+        throw new InputError(`${target}: exists and is not a Scanfold session file; a session is written only to a new name or over a session. Choose another name`, 'bad-output');
+      }
       out.protectIdentities(await this.filesRead());
       const { doc, results } = this.session.document(out.path, open, app, keys);
       const path = await writeSessionFile(out, doc, results);

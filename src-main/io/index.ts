@@ -1,7 +1,7 @@
 import fs from 'node:fs';
 import { canonicalPath, openInputFile, physicalPath } from './input-file';
 import { hdf5SignatureOffset } from './hdf5-signature';
-import type { SourceFormat, SourceSpec } from '../../src-shared/model/dataset';
+import { userSpec, type SourceFormat, type SourceSpec } from '../../src-shared/model/dataset';
 import { InputError } from '../../src-shared/model/errors';
 import type { Inspection } from '../../src-shared/contract/service';
 
@@ -60,9 +60,7 @@ export async function inspectSource(spec: SourceSpec): Promise<Inspection> {
   const src = await openTileSource({ ...resolved, format });
   try {
     // The engine's internal hint (chunk addresses) is no part of what a user is shown.
-    const { hdf5Direct: _hint, ...spec } = src.descriptor.spec;
-    void _hint;
-    return { kind: 'dataset', descriptor: { ...src.descriptor, spec } };
+    return { kind: 'dataset', descriptor: { ...src.descriptor, spec: userSpec(src.descriptor.spec) } };
   } finally {
     src.close();
   }

@@ -157,9 +157,9 @@ export function joinResult(json: string, arrays: Record<string, ArrayLike<number
     if (typeof (v as { $number?: unknown }).$number === 'string') return Number((v as { $number: string }).$number);
     const m = v as Partial<ArrayMarker>;
     if (typeof m.$array === 'string') {
-      const data = arrays[m.$array];
+      const data = Object.hasOwn(arrays, m.$array) ? arrays[m.$array] : undefined;
       if (!data) throw new Error(`the array ${m.$array} is missing`);
-      const Ctor = TYPED[m.type as TypedName];
+      const Ctor = Object.hasOwn(TYPED, String(m.type)) ? TYPED[m.type as TypedName] : undefined;
       if (!Ctor) throw new Error(`the array ${m.$array} has an unknown type ${String(m.type)}`);
       const typed = data instanceof Ctor ? data : Ctor.from(data);
       if (m.stacked === undefined) return typed;

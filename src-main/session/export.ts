@@ -19,8 +19,9 @@ function pixelSize(results: KeptResult[], kept: KeptResult, dims: string[], give
   const cal = results.filter((r) => r.method === 'calibrate' && r.datasetRef === kept.datasetRef).map((r) => r.result as CalibrationResult).at(-1);
   const value = given ?? (scan ? cal?.scanStepNm ?? scanStepFallback : cal?.mradPerPixel);
   if (value === undefined) return null;
-  // A binned detector's pixel spans `bin` detector pixels.
-  const bin = binned && !given ? ((kept.result as PcaResult).features?.bin ?? 1) : 1;
+  // A binned detector's pixel spans `bin` detector pixels (and a preview's the cube's detBin more).
+  const r = kept.result as PcaResult;
+  const bin = binned && !given ? (r.features?.bin ?? 1) * (r.preview?.detBin ?? 1) : 1;
   return { value: value * bin, unit: scan ? 'nm' : 'mrad' };
 }
 
@@ -31,7 +32,7 @@ export async function exportResult(results: KeptResult[], req: ExportRequest, sc
   const arrays = resultArrays(kept.method, kept.result);
   const names = Object.keys(arrays);
   const name = req.array ?? (names.length === 1 ? names[0] : undefined);
-  if (!name || !arrays[name]) {
+  if (!name || !Object.hasOwn(arrays, name)) {
     throw new InputError(`export: ${req.key}${req.array ? `/${req.array}: no such array` : ': name one array'}; ${req.key} has ${names.map((n) => `${req.key}/${n}`).join(', ') || 'no arrays'}`, 'bad-request');
   }
   const a = arrays[name];

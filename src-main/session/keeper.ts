@@ -1,7 +1,7 @@
 // The engine's session: the results kept under a key (each with the request that made it and
 // the dataset it came from), turned into a session document to save, and filled back from one.
 import nodePath from 'node:path';
-import type { DatasetDescriptor } from '../../src-shared/model/dataset';
+import { userSpec, type DatasetDescriptor } from '../../src-shared/model/dataset';
 import { InputError } from '../../src-shared/model/errors';
 import {
   SESSION_FORMAT, SESSION_FORMAT_VERSION, type AppSetup, type SessionDatasetRef, type SessionDocument, type SessionEntry, type SessionMethod,
@@ -26,7 +26,7 @@ interface Kept {
 
 /** The record of an open dataset. */
 export function datasetRecordOf(d: DatasetDescriptor): DatasetRecordOf {
-  const { hdf5Direct: _hint, ...spec } = d.spec;
+  const spec = userSpec(d.spec);
   return {
     name: d.datasetPath ? `${nodePath.basename(d.path)}:${d.datasetPath}` : nodePath.basename(d.path),
     absolutePath: d.path, spec: { ...spec, path: d.path }, format: d.format, datasetPath: d.datasetPath,
@@ -47,8 +47,12 @@ export class SessionKeeper {
   /** The app's setup of the session opened, with its dataset's record: kept when a front end without one (the CLI) saves. */
   private loadedApp: { app: AppSetup; data: DatasetRecordOf | null } | null = null;
 
-  keep(method: SessionMethod, req: Record<string, unknown> & { keepAs?: string }, result: unknown, data: DatasetRecordOf): void {
-    if (!req.keepAs) return;
+  /** Goes up when the session is forgotten or replaced: a job started before keeps nothing. */
+  generation = 0;
+
+  /** Keep a result under req.keepAs, unless the session changed since the request began (`generation` then). */
+  keep(method: SessionMethod, req: Record<string, unknown> & { keepAs?: string }, result: unknown, data: DatasetRecordOf, generation = this.generation): void {
+    if (!req.keepAs || generation !== this.generation) return;
     // A key keeps its place in the recipe's order when its result is replaced.
     const now = new Date().toISOString();
     const prev = this.kept.get(req.keepAs);
@@ -57,9 +61,15 @@ export class SessionKeeper {
   }
 
   forget(): void {
+    this.generation++;
     this.kept.clear();
     this.file = null;
     this.loadedApp = null;
+  }
+
+  /** Where the data of the kept results was (nothing a session write makes may replace it). */
+  dataPaths(): string[] {
+    return [...new Set([...this.kept.values()].map((k) => k.data.absolutePath).concat(this.loadedApp?.data ? [this.loadedApp.data.absolutePath] : []))];
   }
 
   has(key: string): boolean {
@@ -95,7 +105,7 @@ export class SessionKeeper {
 
   /**
    * The document and results to save at `path` (absolute): the kept results (all, or `keys`),
-   * the datasets they and `open` (the open datasets) use, and the app's setup.
+   * the datasets they use and the one the app shows (of `open`, the open datasets), and the app's setup.
    */
   document(path: string, open: { id: DatasetId; data: DatasetRecordOf }[], app: AppSetup | undefined, keys: string[] | undefined): { doc: SessionDocument; results: SessionResults } {
     for (const k of keys ?? []) if (!this.kept.has(k)) throw new InputError(`saveSession: keys: no result is kept as ${JSON.stringify(k)}; kept: ${[...this.kept.keys()].join(', ') || 'none'}`, 'bad-request');
@@ -113,13 +123,13 @@ export class SessionKeeper {
     const entries: SessionEntry[] = chosen.map((k) => ({
       key: k.key, method: k.method, dataset: refFor(k.data).id, request: k.request, created: k.created, scanfoldVersion: k.scanfoldVersion, fingerprint: k.data.fingerprint,
     }));
-    const engineToRef = new Map(open.map((o) => [o.id, refFor(o.data).id]));
     let appSetup: AppSetup | null = null;
     if (!app && this.loadedApp) {
       const { app: a, data } = this.loadedApp;
       appSetup = { ...a, dataset: data ? refFor(data).id : null };
     } else if (app) {
-      const shown = app.dataset === null ? null : engineToRef.get(app.dataset);
+      const on = open.find((o) => o.id === app.dataset);
+      const shown = app.dataset === null ? null : on ? refFor(on.data).id : undefined;
       if (shown === undefined) throw new InputError(`saveSession: app.dataset ${JSON.stringify(app.dataset)} is not an open dataset`, 'bad-request');
       appSetup = { ...app, dataset: shown };
     }
@@ -139,6 +149,7 @@ export class SessionKeeper {
 
   /** Replace what is kept by a session's results; `found` gives the new record of data found elsewhere (by session id). */
   load(path: string, doc: SessionDocument, results: SessionResults, found: Map<string, DatasetRecordOf>): void {
+    this.generation++;
     this.kept.clear();
     const refs = new Map(doc.datasets.map((d) => [d.id, d]));
     for (const e of doc.entries) {

@@ -1,6 +1,7 @@
 // Autosave: the app's work is written every few seconds to a recovery file, beside its session
-// file (".NAME.scanfold.h5.recovery.h5"), or in Scanfold's state folder while the session has
-// no file yet. An index in the state folder lists the recovery files written, so the next start
+// file (".NAME.scanfold.h5.INSTANCE.recovery.h5"), or in Scanfold's state folder while the
+// session has no file yet; each running engine has its own, so one never writes over another's
+// (or over a crash's that is still to be offered). An index in the state folder lists the recovery files written, so the next start
 // can offer them after a crash; only files in that index are ever removed.
 import fs from 'node:fs';
 import os from 'node:os';
@@ -20,7 +21,14 @@ export function defaultStateDir(): string {
 }
 
 export class RecoveryIndex {
+  /** Names this engine's recovery files apart from those of other instances (or of a crashed one). */
+  readonly instance = `${Date.now().toString(36)}-${process.pid}`;
+
   constructor(readonly dir: string) {}
+
+  isOwn(recovery: string): boolean {
+    return nodePath.basename(recovery).includes(`.${this.instance}.`);
+  }
 
   private get file(): string {
     return nodePath.join(this.dir, 'recovery-index.json');
@@ -28,8 +36,8 @@ export class RecoveryIndex {
 
   /** Where the recovery file of `session` (absolute, or null) goes. */
   pathFor(session: string | null): string {
-    if (session === null) return nodePath.join(this.dir, 'unsaved.recovery.scanfold.h5');
-    return nodePath.join(nodePath.dirname(session), `.${nodePath.basename(session)}.recovery.h5`);
+    if (session === null) return nodePath.join(this.dir, `unsaved.${this.instance}.recovery.h5`);
+    return nodePath.join(nodePath.dirname(session), `.${nodePath.basename(session)}.${this.instance}.recovery.h5`);
   }
 
   entries(): RecoveryEntry[] {

@@ -17,7 +17,7 @@ import { checkInputFile } from '../io/input-file';
 import { InputError } from '../../src-shared/model/errors';
 import { SESSION_FORMAT, type SessionDocument, type SessionMethod } from '../../src-shared/model/session';
 import { validateSessionDocument } from '../../src-shared/contract/validate';
-import { joinResult, splitResult } from '../io/result-arrays';
+import { joinResult, resultArrays, splitResult } from '../io/result-arrays';
 
 /** A result with the method that made it, by session key. */
 export type SessionResults = Map<string, { method: SessionMethod; result: unknown }>;
@@ -56,7 +56,21 @@ export async function writeSessionFile(out: OutputFile, doc: SessionDocument, re
   }));
 }
 
-interface H5Node { attrs?: Record<string, { value: unknown }>; value?: unknown; keys?: () => string[] }
+interface H5Node { attrs?: Record<string, { value: unknown }>; value?: unknown; keys?: () => string[]; shape?: number[] | null }
+
+/** The most values one result array may hold (2 GiB of float64): a damaged or hostile file cannot make the engine allocate more. */
+const MAX_ARRAY_VALUES = 2 ** 28;
+
+/** Whether `path` is an HDF5 file whose root says it is a Scanfold session (false for anything else, or unreadable). */
+export async function isSessionFile(path: string): Promise<boolean> {
+  const { h5wasm } = await getH5();
+  try {
+    const f = new h5wasm.File(path, 'r');
+    try { return (f as unknown as H5Node).attrs?.format?.value === SESSION_FORMAT; } finally { f.close(); }
+  } catch {
+    return false;
+  }
+}
 
 /** Read a session file: its document (validated, upgraded) and every result, rebuilt exactly. */
 export async function readSessionFile(path: string): Promise<{ path: string; doc: SessionDocument; results: SessionResults }> {
@@ -88,14 +102,23 @@ export async function readSessionFile(path: string): Promise<{ path: string; doc
       const arrays: Record<string, ArrayLike<number>> = {};
       for (const name of g.keys?.() ?? []) {
         const d = f.get(`results/${e.key}/${name}`) as unknown as H5Node | null;
+        const count = (d?.shape ?? []).reduce((p, n) => p * n, 1);
+        if (count > MAX_ARRAY_VALUES) throw new InputError(`${abs}: /results/${e.key}/${name} claims ${count} values, more than a result holds; the file is damaged`, 'bad-session');
         const v = d?.value;
         if (v && (ArrayBuffer.isView(v) || Array.isArray(v))) arrays[name] = v as ArrayLike<number>;
       }
+      let result: unknown;
       try {
-        results.set(e.key, { method: e.method, result: joinResult(json, arrays) });
+        result = joinResult(json, arrays);
+        // Every array where the layout of its kind says, of the size its shape says.
+        for (const [name, a] of Object.entries(resultArrays(e.method, result))) {
+          const want = a.shape.reduce((p, n) => p * n, 1);
+          if (a.data.length !== want) throw new Error(`${name} holds ${a.data.length} values, its shape ${a.shape.join('×')} needs ${want}`);
+        }
       } catch (err) {
         throw new InputError(`${abs}: result ${e.key}: ${(err as Error).message}; the file is damaged`, 'bad-session');
       }
+      results.set(e.key, { method: e.method, result });
     }
     return { path: abs, doc, results };
   } finally {

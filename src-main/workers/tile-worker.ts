@@ -25,6 +25,7 @@ import type { ReaderMemory } from '../io/tile-source';
 import { loadWasmModule } from './wasm-loader';
 import { keepErrorCodesAcrossThreads } from './error-transfer';
 import fs from 'node:fs';
+import { InputError } from '../../src-shared/model/errors';
 import { filesOpenedByHdf5 } from '../io/h5wasm-module';
 
 keepErrorCodesAcrossThreads();
@@ -127,22 +128,34 @@ function fileState(path: string): string {
   }
 }
 
+function changedError(path: string): InputError {
+  return new InputError(`${path}: the file changed on disk (moved, replaced or rewritten) since it was opened; open it again`, 'unreadable');
+}
+
+/**
+ * The open source for `spec`. A spec the engine got back from an open names one version of the
+ * file (fileState): reading it after the file changed fails. A user's spec (no fileState) opens
+ * the file as it is now, reopening a source whose file has changed.
+ */
 async function sourceFor(spec: SourceSpec): Promise<TileSource> {
   const key = JSON.stringify(spec);
   const hit = sources.get(key);
-  // A file moved, replaced or rewritten under the same name is another source: reopen it.
-  if (hit && openedAs.get(hit) !== fileState(hit.descriptor.path)) {
-    for (const [k, v] of sources) if (v === hit) sources.delete(k);
-    hit.close();
-  } else if (hit) {
+  if (hit && openedAs.get(hit) === fileState(hit.descriptor.path)) {
     sources.delete(key);
     sources.set(key, hit);
     return hit;
   }
-  const state = fileState(spec.path);
-  const src = await openTileSource(spec, { memoryPerWorkerBytes: workerData?.memoryPerWorkerBytes });
+  if (hit) {
+    for (const [k, v] of sources) if (v === hit) sources.delete(k);
+    hit.close();
+  }
+  const { fileState: wanted, ...plain } = spec;
+  const state = fileState(plain.path);
+  if (wanted !== undefined && wanted !== state) throw changedError(plain.path);
+  const src = await openTileSource(plain, { memoryPerWorkerBytes: workerData?.memoryPerWorkerBytes });
   openedAs.set(src, state);
-  // The user's spec and the descriptor's resolved spec name the same source.
+  // Jobs name this version of the file.
+  src.descriptor.spec = { ...src.descriptor.spec, fileState: state };
   const resolvedKey = JSON.stringify(src.descriptor.spec);
   const same = sources.get(resolvedKey);
   if (same) {

@@ -36,6 +36,12 @@ export interface SourceSpec {
    * others read the rows straight from the file without starting the HDF5 library.
    */
   hdf5Direct?: Hdf5DirectHint;
+  /**
+   * Set by the engine's workers, never by a client (the validator refuses it): the file's device,
+   * inode, size and modification time when it was opened. A read under a spec holding it fails if
+   * the file has changed since, so a dataset never mixes two versions of a file.
+   */
+  fileState?: string;
 }
 
 export interface Hdf5DirectHint {
@@ -100,4 +106,10 @@ export function patternsCount(s: Shape4D): number {
 
 export function patternSize(s: Shape4D): number {
   return s.detY * s.detX;
+}
+
+/** A spec as a user gives it: without what the engine adds (the HDF5 read hint, the file's version). */
+export function userSpec(spec: SourceSpec): SourceSpec {
+  const { hdf5Direct: _hint, fileState: _state, ...plain } = spec;
+  return plain;
 }

@@ -199,7 +199,52 @@ print(json.dumps(meta))
     writeHdf5File(bad, { attrs: { format: 'scanfold-session', session_json: JSON.stringify({ ...doc, entries: [{ ...doc.entries[4], request: { components: -1 } }] }) }, datasets: {} });
     expect((await inputError(service.openSession({ path: bad, openData: false }))).message).toMatch(/the recipe of result "pca": pca: components: got -1/);
     expect((await inputError(service.openSession({ path: file, openData: false }))).message).toMatch(/not a Scanfold session/);
+    // A result whose arrays are missing or of the wrong size: refused as damaged, not a crash.
+    const hollow = path.join(dir, 'hollow.scanfold.h5');
+    const pcaEntry = doc.entries[4];
+    writeHdf5File(hollow, {
+      attrs: { format: 'scanfold-session', session_json: JSON.stringify({ ...doc, entries: [pcaEntry] }) },
+      datasets: { 'results/pca/singular_values': { data: new Float64Array(3), shape: [3] } },
+      groups: { 'results/pca': { result_json: JSON.stringify({ k: 4, singularValues: { $array: 'singular_values', type: 'Float64Array' }, descriptor: { shape: { scanY: 64, scanX: 64 } }, features: { outY: 2, outX: 2 } }) } },
+    });
+    const damaged = await inputError(service.openSession({ path: hollow, openData: false }));
+    expect(damaged.code).toBe('bad-session');
+    expect(damaged.message).toMatch(/result pca: .*the file is damaged/);
   });
+
+  it('a save never replaces a file that is not a session; a job still running when the session is forgotten keeps nothing', async () => {
+    const notes = path.join(dir, 'notes.txt');
+    fs.writeFileSync(notes, 'my notes');
+    const e = await inputError(service.saveSession({ path: notes }));
+    expect(e.message).toMatch(/exists and is not a Scanfold session file/);
+    expect(fs.readFileSync(notes, 'utf8')).toBe('my notes');
+    expect((await inputError(service.saveSession({ path: file }))).message).toMatch(/is a file this command reads/);
+    const d = (await service.datasets())[0];
+    const late = service.pca({ dataset: d.id, components: 2, keepAs: 'late' });
+    await service.forgetSession();
+    await late;
+    expect((await service.sessionEntries()).map((x) => x.key)).not.toContain('late');
+  }, 60_000);
+
+  it('a dataset whose file is replaced while open is not read as the new file', async () => {
+    const eng = new EngineService({ workers: 1, cacheDir: null });
+    const copy = path.join(dir, 'replaced.h5');
+    fs.copyFileSync(file, copy);
+    try {
+      const d = await eng.open({ path: copy });
+      const disk = [{ shape: { kind: 'disk' as const, cx: 48, cy: 48, r: 10 } }];
+      await eng.virtualImages({ dataset: d.id, detectors: disk, badPixels: 'none' });
+      await writeSample({ size: 'demo', out: copy, seed: 7 });
+      const e = await inputError(eng.virtualImages({ dataset: d.id, detectors: disk, badPixels: 'none' }));
+      expect(e.message).toMatch(/changed on disk .* since it was opened; open it again/);
+      // Opened again, it is the new file.
+      const again = await eng.open({ path: copy });
+      expect(again.descriptor.fingerprint).not.toBe(d.descriptor.fingerprint);
+      await eng.virtualImages({ dataset: again.id, detectors: disk, badPixels: 'none' });
+    } finally {
+      await eng.shutdown();
+    }
+  }, 120_000);
 
   it('a save killed with SIGKILL at any moment leaves the previous session whole', async () => {
     // A child process saves a large session over and over; it is killed at many moments.
