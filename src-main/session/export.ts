@@ -62,7 +62,9 @@ export async function exportResult(results: KeptResult[], req: ExportRequest, sc
   if (req.format === 'tiff') return done(await tiffBytes(data, w, h), ', float32');
   const colormap = (req.colormap ?? 'viridis') as ColormapName;
   if (!COLORMAP_NAMES.includes(colormap)) throw new InputError(`export: colour map ${colormap}: expected one of ${COLORMAP_NAMES.join(', ')}`, 'bad-request');
-  const fig = renderFigure(data, w, h, { colormap, scaling: req.scaling ?? { kind: 'linear' }, limits: req.limits ?? null, pixelSize: pixelSize(results, kept, dims, req.pixelSize, scanStepFallback) });
+  // Categories as the app draws them: value k (a cluster) in the k-th colour.
+  const limits = req.limits ?? (colormap === 'categories' ? [-0.5, 9.5] as [number, number] : null);
+  const fig = renderFigure(data, w, h, { colormap, scaling: req.scaling ?? { kind: 'linear' }, limits, pixelSize: pixelSize(results, kept, dims, req.pixelSize, scanStepFallback) });
   return done(pngBytes(fig), `, ${colormap}, limits ${fig.limits.map((x) => x.toPrecision(4)).join(' … ')}, ${fig.zoom}× enlarged; ` +
     (fig.scaleBar ? `scale bar ${fig.scaleBar.label} = ${fig.scaleBar.pixels} px` : 'no scale bar (no calibration in the session; give the pixel size)'));
 }
