@@ -3,7 +3,7 @@
 // their parts in panels/). Every number comes from the engine through the contract; this file
 // only asks and shows.
 import { useCallback, useEffect, useMemo, useRef, useState, useSyncExternalStore } from 'react';
-import type { CalibrationResult, ComFieldResult, FirstPassResult, FitResult, KeptEntry, KmeansResult, OpenedSession, PcaResult, Recoverable, RegionPatternResult } from '../src-shared/contract/service';
+import type { CalibrationResult, ComFieldResult, FirstPassResult, FitResult, KeptEntry, KmeansResult, OpenedSession, PcaResult, Recoverable, RegionPatternResult, ServiceEvent } from '../src-shared/contract/service';
 import type { JobInfo } from '../src-shared/contract/jobs';
 import type { DetectorShape } from '../src-shared/model/detectors';
 import type { DatasetDescriptor } from '../src-shared/model/dataset';
@@ -29,6 +29,9 @@ const FIELD_MAPS = ['direction', 'magnitude', 'divergence', 'curl', 'phase', 'co
 function useStore(store: Store): AppState {
   return useSyncExternalStore((l) => store.subscribe(l), () => store.get());
 }
+
+/** How often rows of an image still being computed are drawn. */
+const ROWS_EVERY_MS = 200;
 
 /** How often unsaved work goes to the recovery file. */
 const AUTOSAVE_MS = 4000;
@@ -115,17 +118,44 @@ export function App({ client, store, shell = null }: { client: Client; store: St
   const [filling, setFilling] = useState<{ dataset: string; label: string; values: Float64Array; rows: number; scanY: number; scanX: number } | null>(null);
   const datasetRef = useRef<string | null>(null);
   datasetRef.current = ds?.id ?? null;
-  useEffect(() => client.onEvent((e) => {
-    if (e.kind === 'job') setJobs((m) => new Map(m).set(e.job.jobId, e.job));
-    else if (e.kind === 'image-rows' && e.dataset === datasetRef.current) {
+  // Rows arriving within a fifth of a second are drawn together: a render per tile (sixty-four on
+  // the 2 GiB sample, each a texture upload and new limits) took CPU from the pass itself.
+  const pendingRows = useRef<Extract<ServiceEvent, { kind: 'image-rows' }>[]>([]);
+  const rowsFrame = useRef<ReturnType<typeof setTimeout> | null>(null);
+  const jobsFrame = useRef<{ frame: number | null; jobs: Map<string, Job> }>({ frame: null, jobs: new Map() });
+  useEffect(() => {
+    const flushRows = () => {
+      rowsFrame.current = null;
+      const batch = pendingRows.current.splice(0);
       setFilling((f) => {
-        const same = f && f.dataset === e.dataset && f.label === e.label && f.values.length === e.scanY * e.scanX;
-        const values = same ? f.values : new Float64Array(e.scanY * e.scanX).fill(NaN);
-        values.set(e.values, e.row0 * e.scanX);
-        return { dataset: e.dataset, label: e.label, values, rows: (same ? f.rows : 0) + e.nRows, scanY: e.scanY, scanX: e.scanX };
+        let out = f;
+        for (const e of batch) {
+          if (e.dataset !== datasetRef.current) continue;
+          const same = out && out.dataset === e.dataset && out.label === e.label && out.values.length === e.scanY * e.scanX;
+          const values = same ? out!.values : new Float64Array(e.scanY * e.scanX).fill(NaN);
+          values.set(e.values, e.row0 * e.scanX);
+          out = { dataset: e.dataset, label: e.label, values, rows: (same ? out!.rows : 0) + e.nRows, scanY: e.scanY, scanX: e.scanX };
+        }
+        return out;
       });
-    }
-  }), [client]);
+    };
+    const flushJobs = () => {
+      const j = jobsFrame.current;
+      j.frame = null;
+      const updates = [...j.jobs.values()];
+      j.jobs.clear();
+      setJobs((m) => { const next = new Map(m); for (const u of updates) next.set(u.jobId, u); return next; });
+    };
+    return client.onEvent((e) => {
+      if (e.kind === 'job') {
+        jobsFrame.current.jobs.set(e.job.jobId, e.job);
+        jobsFrame.current.frame ??= requestAnimationFrame(flushJobs);
+      } else if (e.kind === 'image-rows' && e.dataset === datasetRef.current) {
+        pendingRows.current.push(e);
+        rowsFrame.current ??= setTimeout(flushRows, ROWS_EVERY_MS);
+      }
+    });
+  }, [client]);
 
   const startDataset = useCallback(async (id: string, descriptor: DatasetDescriptor) => {
     const { scanY, scanX, detY, detX } = descriptor.shape;

@@ -498,9 +498,9 @@ export class EngineService implements ScanfoldService {
     validateRequest('firstPass', req);
     return this.request(req.jobId, async () => {
       const r = this.record(req.dataset);
-      // Asked for explicitly: a real pass, with its preview cube for detector drags.
-      if (r.first?.summary) this.engine.release(r.first.summary);
-      r.first = null;
+      // Asked for explicitly: a real pass, with its preview cube for detector drags; one already
+      // made (by `serve FILE` while the page loaded, or an earlier request) is the same, so it is
+      // given again rather than read again. Results from the cache alone have no preview cube.
       const f = await this.ensureFirstPass(r, req.jobId, 'first pass', true);
       const s = f.summary!;
       return {
