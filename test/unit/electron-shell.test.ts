@@ -69,6 +69,8 @@ const calls = vi.hoisted(() => ({
   windows: [] as { options: unknown; contents: Record<string, unknown> & { handlers: Record<string, (...a: unknown[]) => void>; open?: (d: { url: string }) => { action: string }; posted: unknown[] }; loaded?: string }[],
   forked: [] as { file: string; posted: unknown[] }[],
   schemes: [] as unknown[],
+  menu: null as null | { label?: string; submenu?: { label?: string; accelerator?: string; click?: () => void }[] }[],
+  sent: [] as unknown[][],
 }));
 
 vi.mock('electron', () => {
@@ -81,7 +83,7 @@ vi.mock('electron', () => {
         setWindowOpenHandler(f: (d: { url: string }) => { action: string }) { contents.open = f; },
         on(ev: string, f: (...a: unknown[]) => void) { contents.handlers[ev] = f; },
         postMessage(...a: unknown[]) { contents.posted.push(a); },
-        send() {},
+        send(...a: unknown[]) { calls.sent.push(a); },
         session: { setPermissionRequestHandler() {}, setPermissionCheckHandler() {} },
       } as (typeof calls.windows)[number]['contents'];
       this.webContents = contents;
@@ -100,7 +102,7 @@ vi.mock('electron', () => {
     },
     BrowserWindow,
     dialog: { showOpenDialog: async () => ({ canceled: true, filePaths: [] }), showErrorBox() {} },
-    Menu: { setApplicationMenu() {}, buildFromTemplate: (t: unknown) => t },
+    Menu: { setApplicationMenu(m: unknown) { calls.menu = m as typeof calls.menu; }, buildFromTemplate: (t: unknown) => t },
     MessageChannelMain: class { port1 = 'port1'; port2 = 'port2'; },
     net: { fetch: async (url: string) => new Response(fs.readFileSync(new URL(url)), { status: 200 }) },
     protocol: {
@@ -144,5 +146,12 @@ describe('desktop main process (stand-in Electron)', () => {
     expect(page.headers.get('content-security-policy')).toBe(APP_CSP);
     expect(await page.text()).toContain('<div id="root">');
     expect((await calls.handler!({ url: 'scanfold-app://app/..%2Fpackage.json' })).status).toBe(404);
+    // The File menu opens and saves sessions; Save Session asks the page to save (Ctrl-S).
+    const file = calls.menu!.find((m) => m.label === 'File')!.submenu!;
+    expect(file.map((i) => i.label).filter(Boolean)).toEqual(expect.arrayContaining(['Open…', 'Open Session…', 'Save Session', 'Save Session As…', 'Export Image…']));
+    const save = file.find((i) => i.label === 'Save Session')!;
+    expect(save.accelerator).toBe('CmdOrCtrl+S');
+    save.click!();
+    expect(calls.sent.at(-1)).toEqual(['scanfold:menu', 'save-session', undefined]);
   });
 });
