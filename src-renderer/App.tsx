@@ -776,8 +776,7 @@ export function App({ client, store, shell = null }: { client: Client; store: St
         <div className="panel" aria-label="Components">
           <h2>Components</h2>
           <div className="row">
-            <label>components <input type="number" min={1} max={64} aria-label="PCA components" value={state.analyses.pcaComponents}
-              onChange={(e) => { const n = Math.round(Number(e.target.value)); if (n >= 1 && n <= 64) setAnalyses({ pcaComponents: n }); }} /></label>
+            <CountInput label="components" ariaLabel="PCA components" min={1} max={64} value={state.analyses.pcaComponents} set={(n) => setAnalyses({ pcaComponents: n })} />
             <button onClick={() => void runPca()} disabled={!first}>Run PCA</button>
           </div>
           {pca && <Scree pca={pca} selected={scanShows.kind === 'loading' ? scanShows.k : -1} pick={(k) => { setScanShows({ kind: 'loading', k }); setPatternShows({ kind: 'component', k }); }} />}
@@ -801,8 +800,7 @@ export function App({ client, store, shell = null }: { client: Client; store: St
         <div className="panel" aria-label="Clusters">
           <h2>Clusters</h2>
           <div className="row">
-            <label>clusters <input type="number" min={2} max={10} aria-label="k-means clusters" value={state.analyses.kmeansClusters}
-              onChange={(e) => { const n = Math.round(Number(e.target.value)); if (n >= 2 && n <= 10) setAnalyses({ kmeansClusters: n }); }} /></label>
+            <CountInput label="clusters" ariaLabel="k-means clusters" min={2} max={10} value={state.analyses.kmeansClusters} set={(n) => setAnalyses({ kmeansClusters: n })} />
             <button onClick={() => void runKmeans()} disabled={!first}>Run k-means</button>
           </div>
           {kmeans && Array.from(kmeans.sizes, (size, k) => (
@@ -861,3 +859,11 @@ export function App({ client, store, shell = null }: { client: Client; store: St
 }
 
 const baseName = (p: string) => p.split(/[\\/]/).pop() ?? p;
+
+/** A whole number between min and max (components, clusters); other entries are ignored. */
+function CountInput({ label, ariaLabel, min, max, value, set }: { label: string; ariaLabel: string; min: number; max: number; value: number; set(n: number): void }) {
+  return (
+    <label>{label} <input type="number" min={min} max={max} aria-label={ariaLabel} value={value}
+      onChange={(e) => { const n = Math.round(Number(e.target.value)); if (n >= min && n <= max) set(n); }} /></label>
+  );
+}

@@ -129,20 +129,20 @@ export class Store {
   }
 
   undo(): boolean {
-    const prev = this.past.pop();
-    if (!prev) return false;
-    this.future.push(this.state);
-    // What the views show is a choice of the moment, not an edit: undo leaves it.
-    this.state = { ...prev, shows: this.state.shows };
-    this.changed();
-    return true;
+    return this.step(this.past, this.future);
   }
 
   redo(): boolean {
-    const next = this.future.pop();
-    if (!next) return false;
-    this.past.push(this.state);
-    this.state = { ...next, shows: this.state.shows };
+    return this.step(this.future, this.past);
+  }
+
+  /** Go to the last state of `from`, keeping the present one in `to`. */
+  private step(from: AppState[], to: AppState[]): boolean {
+    const target = from.pop();
+    if (!target) return false;
+    to.push(this.state);
+    // What the views show is a choice of the moment, not an edit: undo and redo leave it.
+    this.state = { ...target, shows: this.state.shows };
     this.changed();
     return true;
   }

@@ -54,12 +54,10 @@ export async function cmdExport(args: string[], engineOptions: (v: Record<string
   await withService(engineOptions({ ...v, quiet: true } as Record<string, unknown>), true, async (service) => {
     const s = await service.openSession({ path: physicalPath(file), openData: false });
     out.protect(s.datasets.flatMap((d) => (d.path ? [d.path] : [])));
-    // The pixel size given: the scan step for an image of the scan, mrad per pixel for the detector's.
-    const dims = (await service.sessionEntries()).find((e) => e.key === key)?.arrays.find((x) => x.name === array || !array)?.dims ?? [];
-    const given = dims.at(-1) === 'scan_x' ? scanStep : mradPerPixel;
     const f = await service.exportResult({
       key, format, ...(array ? { array } : {}), ...(index !== undefined ? { index } : {}),
-      ...(format === 'png' ? { colormap, scaling, ...(limits ? { limits } : {}), ...(given !== undefined ? { pixelSize: given } : {}) } : {}),
+      ...(format === 'png' ? { colormap, scaling, ...(limits ? { limits } : {}), ...(scanStep !== undefined ? { scanStepNm: scanStep } : {}),
+        ...(mradPerPixel !== undefined ? { mradPerPixel } : {}) } : {}),
     });
     const path = await writeBytes(out, f.bytes);
     process.stderr.write(`wrote ${path}: ${f.description}\n`);

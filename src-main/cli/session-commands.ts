@@ -7,7 +7,6 @@ import { SESSION_METHODS, SESSION_SUFFIX, type SessionMethod } from '../../src-s
 import type { EngineOptions } from '../engine/engine';
 import type { EngineService } from '../engine/service';
 import { physicalPath } from '../io/input-file';
-import { resultArrays } from '../io/result-arrays';
 import { withService } from './analysis-commands';
 import { parseFlags, rejectExtraPositionals, SOURCE_OPTIONS, sourceSpecFromFlags } from './source-flags';
 
@@ -45,13 +44,14 @@ async function sessionShow(args: string[], engineOptions: (v: Record<string, unk
   if (!file) throw new InputError(`session show needs a session file (NAME${SESSION_SUFFIX})`);
   await withService(engineOptions({ ...v, quiet: true } as Record<string, unknown>), true, async (service) => {
     const s = await service.openSession({ path: physicalPath(file), relink: relinkFlags(v), openData: false });
+    const entries = await service.sessionEntries();
     const d = s.document;
     const listing = {
       session: s.path, format_version: d.formatVersion, scanfold_version: d.scanfoldVersion, created: d.created, modified: d.modified,
       datasets: s.datasets.map((x) => ({ id: x.ref.id, name: x.ref.name, shape: shapeText(x.ref.shape), dtype: x.ref.dtype, status: x.status, where: x.how, fingerprint: x.ref.fingerprint })),
-      results: s.results.map((r) => ({
+      results: entries.map((r) => ({
         key: r.key, method: r.method, dataset: r.datasetRef, created: r.created, recipe: r.request,
-        arrays: Object.fromEntries(Object.entries(resultArrays(r.method, r.result)).map(([name, a]) => [name, { shape: a.shape, units: a.attrs?.units ?? '' }])),
+        arrays: Object.fromEntries(r.arrays.map((a) => [a.name, { shape: a.shape, units: a.units }])),
       })),
       app: d.app ? { detectors: d.app.detectors.length, regions: d.app.regions.length, dataset: d.app.dataset } : null,
     };

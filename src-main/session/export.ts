@@ -11,11 +11,12 @@ import { csvText, npyBytes, pngBytes, tiffBytes } from '../io/array-export';
 const MEDIA = { png: 'image/png', tiff: 'image/tiff', npy: 'application/octet-stream', csv: 'text/csv' } as const;
 
 /** What a figure's pixel measures, from the dimension labels of the image. */
-function pixelSize(results: KeptResult[], kept: KeptResult, dims: string[], given: number | undefined, scanStepFallback: number | undefined): { value: number; unit: 'nm' | 'mrad' } | null {
+function pixelSize(results: KeptResult[], kept: KeptResult, dims: string[], req: ExportRequest, scanStepFallback: number | undefined): { value: number; unit: 'nm' | 'mrad' } | null {
   const last = dims.at(-1);
   const scan = last === 'scan_x';
   const binned = last === 'det_x_binned';
   if (!scan && last !== 'det_x' && !binned) return null;
+  const given = scan ? req.scanStepNm : req.mradPerPixel;
   const cal = results.filter((r) => r.method === 'calibrate' && r.datasetRef === kept.datasetRef).map((r) => r.result as CalibrationResult).at(-1);
   const value = given ?? (scan ? cal?.scanStepNm ?? scanStepFallback : cal?.mradPerPixel);
   if (value === undefined) return null;
@@ -64,7 +65,7 @@ export async function exportResult(results: KeptResult[], req: ExportRequest, sc
   if (!COLORMAP_NAMES.includes(colormap)) throw new InputError(`export: colour map ${colormap}: expected one of ${COLORMAP_NAMES.join(', ')}`, 'bad-request');
   // Categories as the app draws them: value k (a cluster) in the k-th colour.
   const limits = req.limits ?? (colormap === 'categories' ? [-0.5, 9.5] as [number, number] : null);
-  const fig = renderFigure(data, w, h, { colormap, scaling: req.scaling ?? { kind: 'linear' }, limits, pixelSize: pixelSize(results, kept, dims, req.pixelSize, scanStepFallback) });
+  const fig = renderFigure(data, w, h, { colormap, scaling: req.scaling ?? { kind: 'linear' }, limits, pixelSize: pixelSize(results, kept, dims, req, scanStepFallback) });
   return done(pngBytes(fig), `, ${colormap}, limits ${fig.limits.map((x) => x.toPrecision(4)).join(' … ')}, ${fig.zoom}× enlarged; ` +
     (fig.scaleBar ? `scale bar ${fig.scaleBar.label} = ${fig.scaleBar.pixels} px` : 'no scale bar (no calibration in the session; give the pixel size)'));
 }

@@ -88,7 +88,7 @@ export class SessionKeeper {
 
   recipes(openIdOf: (fingerprint: string) => DatasetId | null): KeptEntry[] {
     return this.entries(openIdOf, (fp) => this.refIdOf(fp)).map(({ result, ...e }) => ({
-      ...e, arrays: Object.entries(resultArrays(e.method, result)).map(([name, a]) => ({ name, shape: a.shape, dims: a.dims ?? [] })),
+      ...e, arrays: Object.entries(resultArrays(e.method, result)).map(([name, a]) => ({ name, shape: a.shape, dims: a.dims ?? [], units: String(a.attrs?.units ?? '') })),
     }));
   }
 

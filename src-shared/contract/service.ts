@@ -467,7 +467,7 @@ export interface OpenedSession {
 }
 
 /** A kept result's recipe and arrays, without the result. */
-export type KeptEntry = Omit<KeptResult, 'result'> & { arrays: { name: string; shape: number[]; dims: string[] }[] };
+export type KeptEntry = Omit<KeptResult, 'result'> & { arrays: { name: string; shape: number[]; dims: string[]; units: string }[] };
 
 /** One array of a kept result, as a file for another program or a report. */
 export interface ExportRequest {
@@ -482,8 +482,9 @@ export interface ExportRequest {
   colormap?: string;
   scaling?: { kind: 'linear' } | { kind: 'log' } | { kind: 'gamma'; gamma: number };
   limits?: [number, number];
-  /** png only: nm per scan step, or mrad per detector pixel, when the session holds no calibration. */
-  pixelSize?: number;
+  /** png only: the scale bar's calibration when the session holds none (or another is wanted): nm per scan step for images of the scan, mrad per detector pixel for patterns. */
+  scanStepNm?: number;
+  mradPerPixel?: number;
 }
 
 export interface ExportedFile {
