@@ -7,6 +7,7 @@ import type { CalibrationResult, ExportedFile, ExportRequest, KeptResult, PcaRes
 import { resultArrays } from '../io/result-arrays';
 import { renderFigure } from '../io/figure';
 import { csvText, npyBytes, pngBytes, tiffBytes } from '../io/array-export';
+import { attributeValue, SCAN_STEP_ATTRIBUTES } from '../engine/attributes';
 
 const MEDIA = { png: 'image/png', tiff: 'image/tiff', npy: 'application/octet-stream', csv: 'text/csv' } as const;
 
@@ -18,7 +19,8 @@ function pixelSize(results: KeptResult[], kept: KeptResult, dims: string[], req:
   if (!scan && last !== 'det_x' && !binned) return null;
   const given = scan ? req.scanStepNm : req.mradPerPixel;
   const cal = results.filter((r) => r.method === 'calibrate' && r.datasetRef === kept.datasetRef).map((r) => r.result as CalibrationResult).at(-1);
-  const value = given ?? (scan ? cal?.scanStepNm ?? scanStepFallback : cal?.mradPerPixel);
+  const stored = (kept.result as { descriptor?: { attributes?: Record<string, number | number[] | string> } }).descriptor?.attributes;
+  const value = given ?? (scan ? cal?.scanStepNm ?? scanStepFallback ?? attributeValue(stored, SCAN_STEP_ATTRIBUTES)?.value : cal?.mradPerPixel);
   if (value === undefined) return null;
   // A binned detector's pixel spans `bin` detector pixels (and a preview's the cube's detBin more).
   const r = kept.result as PcaResult;
@@ -67,5 +69,5 @@ export async function exportResult(results: KeptResult[], req: ExportRequest, sc
   const limits = req.limits ?? (colormap === 'categories' ? [-0.5, 9.5] as [number, number] : null);
   const fig = renderFigure(data, w, h, { colormap, scaling: req.scaling ?? { kind: 'linear' }, limits, pixelSize: pixelSize(results, kept, dims, req, scanStepFallback) });
   return done(pngBytes(fig), `, ${colormap}, limits ${fig.limits.map((x) => x.toPrecision(4)).join(' … ')}, ${fig.zoom}× enlarged; ` +
-    (fig.scaleBar ? `scale bar ${fig.scaleBar.label} = ${fig.scaleBar.pixels} px` : 'no scale bar (no calibration in the session; give the pixel size)'));
+    (fig.scaleBar ? `scale bar ${fig.scaleBar.label} = ${fig.scaleBar.pixels} px` : `no scale bar (the session holds no calibration: add a calibrate result to it, or give ${dims.at(-1) === 'scan_x' ? 'the scan step in nm' : 'mrad per detector pixel'})`));
 }
