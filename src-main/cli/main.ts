@@ -19,7 +19,6 @@ import { SCANFOLD_VERSION } from '../engine/version';
 import { cmdFit, cmdKmeans, cmdPca } from './statistics-commands';
 import { cmdSession } from './session-commands';
 import { cmdExport } from './export-command';
-import { cmdServe } from './serve-command';
 import { cmdCalibrate, cmdCom, cmdImage, badPixelAttrs, cmdPattern, noteNonFiniteResults, openProtected, provenance, withService, writeResults } from './analysis-commands';
 import type { EngineService } from '../engine/service';
 
@@ -215,7 +214,8 @@ export async function main(argv: string[]): Promise<number> {
       case 'pca': await cmdPca(rest, engineOptions, ENGINE_OPTIONS); break;
       case 'kmeans': await cmdKmeans(rest, engineOptions, ENGINE_OPTIONS); break;
       case 'fit': await cmdFit(rest, engineOptions, ENGINE_OPTIONS); break;
-      case 'serve': await cmdServe(rest, engineOptions, ENGINE_OPTIONS); break;
+      // Loaded on demand, as the export below: the WebSocket server is no part of the other commands' start.
+      case 'serve': await (await import('./serve-command')).cmdServe(rest, engineOptions, ENGINE_OPTIONS); break;
       case 'session': await cmdSession(rest, engineOptions, ENGINE_OPTIONS); break;
       case 'export': await cmdExport(rest, engineOptions, ENGINE_OPTIONS); break;
       default: throw new InputError(`unknown command "${cmd}"; expected info, summary, image, com, calibrate, pattern, pca, kmeans, fit, session, export, serve, sample or demo (see scanfold --help; benchmarks: npm run bench)`);

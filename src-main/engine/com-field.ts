@@ -92,14 +92,16 @@ export function comFieldFromSums(
     degrees = rotation.degrees;
     flip = rotation.flip;
   }
-  const rotated = rotateCom(ds.comX, ds.comY, degrees, flip);
+  // The estimate turned the field and integrated it already; with no descan the turn is about the disk centre, added back below.
+  const reuse = estimate !== null && mode.kind !== 'none';
+  const rotated = reuse ? estimate!.rotated : rotateCom(ds.comX, ds.comY, degrees, flip);
   if (mode.kind === 'none') {
     // No descan asked for: positions on the detector, turned about the disk centre (with no
     // rotation, exactly the plain Σ I·x / Σ I).
     for (let i = 0; i < n; i++) { rotated.comX[i] += context.origin.x; rotated.comY[i] += context.origin.y; }
   }
   const md = magnitudeDirection(rotated.comX, rotated.comY);
-  const phase = integrateCom(rotated.comX, rotated.comY, scanY, scanX);
+  const phase = reuse ? estimate!.phase : integrateCom(rotated.comX, rotated.comY, scanY, scanX);
   const maps: Record<string, ComMap> = {
     com_x: { data: rotated.comX, units: 'detector pixels' },
     com_y: { data: rotated.comY, units: 'detector pixels' },

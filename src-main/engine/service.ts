@@ -37,7 +37,6 @@ import type { AutosaveRequest, ExportedFile, ExportRequest, KeptEntry, OpenSessi
 import fs from 'node:fs';
 import nodePath from 'node:path';
 import { defaultStateDir, RecoveryIndex } from '../session/recovery';
-import { exportResult } from '../session/export';
 import { attributeValue, CONVERGENCE_ATTRIBUTES, ENERGY_ATTRIBUTES, SCAN_STEP_ATTRIBUTES } from './attributes';
 import { OutputFile } from '../io/output-file';
 import { SessionKeeper, datasetRecordOf, type DatasetRecordOf } from '../session/keeper';
@@ -48,6 +47,8 @@ interface FirstResults extends CachedFirstPass {
   /** The pass itself, with its preview cube; null when the results came from the cache. */
   summary: FirstPassSummary | null;
   seconds: number;
+  /** The pass was made for a command and took no default images along; a viewer's request adds them. */
+  defaultImagesLeftOut?: boolean;
 }
 
 interface DatasetRecord {
@@ -98,6 +99,17 @@ const specOf = (r: DatasetRecord): SourceSpec => r.opened.descriptor.spec;
  * derived, calibrated) and the integration's complex spectra on the 2× mirrored scan.
  */
 const COM_BYTES_PER_POSITION = 14 * 8 + 3 * 4 * 16;
+
+/**
+ * The images a viewer opens with: bright field (the disk) and annular dark field (twice its
+ * radius out to the largest circle inside the detector), when the detector reaches that far.
+ */
+function defaultImageSpecs(disk: { cx: number; cy: number; r: number }, detY: number, detX: number): DetectorSpec[] {
+  const edge = Math.min(disk.cx, disk.cy, detX - 1 - disk.cx, detY - 1 - disk.cy);
+  const specs: DetectorSpec[] = [{ shape: { kind: 'disk', cx: disk.cx, cy: disk.cy, r: disk.r }, label: 'bright field' }];
+  if (edge > 2 * disk.r + 1) specs.push({ shape: { kind: 'annulus', cx: disk.cx, cy: disk.cy, rInner: 2 * disk.r, rOuter: edge }, label: 'annular dark field' });
+  return specs;
+}
 
 /** Input problems found by an analysis name the file they were found in. */
 function aboutFile<T>(file: string, fn: () => T): T {
@@ -318,6 +330,8 @@ export class EngineService implements ScanfoldService {
 
   async exportResult(req: ExportRequest): Promise<ExportedFile> {
     validateRequest('exportResult', req);
+    // Loaded on demand: the image and TIFF encoders and the colour maps are no part of an analysis's start.
+    const { exportResult } = await import('../session/export');
     return exportResult(this.session.entries(this.openIdOf, (fp) => this.session.refIdOf(fp)), req, this.session.appScanStepNm);
   }
 
@@ -359,7 +373,10 @@ export class EngineService implements ScanfoldService {
    * itself is needed), else a pass over the data, whose results then go to the cache.
    */
   private async ensureFirstPass(r: DatasetRecord, jobId: string | undefined, label: string, needPreview = false): Promise<FirstResults> {
-    if (r.first && (r.first.summary || !needPreview)) return r.first;
+    if (r.first && (r.first.summary || !needPreview)) {
+      if (needPreview && r.first.defaultImagesLeftOut) await this.addDefaultImages(r, r.first, jobId, label);
+      return r.first;
+    }
     const d = r.opened.descriptor;
     const key = this.cacheDir ? cacheKey(d) : null;
     if (!needPreview && key && this.cacheDir) {
@@ -371,8 +388,14 @@ export class EngineService implements ScanfoldService {
     }
     // One pass per dataset at a time: a request arriving while one runs (the app asks as soon as
     // its page loads, the engine may have started at open) waits for it.
-    if (r.firstPending) return r.firstPending;
-    const pending = this.runFirstPass(r, key, jobId, label);
+    if (r.firstPending) {
+      const f = await r.firstPending;
+      if (needPreview && f.defaultImagesLeftOut) await this.addDefaultImages(r, f, jobId, label);
+      return f;
+    }
+    // The default images are for a viewer (asked for with the preview cube); a command that
+    // only needs bad pixels, the disk or the COM sums spares the pass their kernel.
+    const pending = this.runFirstPass(r, key, jobId, label, needPreview);
     r.firstPending = pending;
     try {
       return await pending;
@@ -381,8 +404,8 @@ export class EngineService implements ScanfoldService {
     }
   }
 
-  private async runFirstPass(r: DatasetRecord, key: string | null, jobId: string | undefined, label: string): Promise<FirstResults> {
-    const comPlan = await this.comPlanForPass(r);
+  private async runFirstPass(r: DatasetRecord, key: string | null, jobId: string | undefined, label: string, withImages: boolean): Promise<FirstResults> {
+    const comPlan = await this.comPlanForPass(r, withImages);
     // The first default image (bright field) goes out row by row as tiles finish, so a view can fill in.
     const { scanY: sy, scanX: sx } = r.opened.descriptor.shape;
     const rows = comPlan?.imageSpecs.length
@@ -414,6 +437,7 @@ export class EngineService implements ScanfoldService {
       defaultImages: summary.com && comPlan ? comPlan.imageSpecs.map((spec, k) => ({
         label: spec.label ?? describeDetector(spec), detector: spec, image: summary.com!.images[k],
       })) : [],
+      ...(comPlan && !withImages ? { defaultImagesLeftOut: true } : {}),
     };
     if (key && this.cacheDir) writeCachedFirstPass(this.cacheDir, key, r.first);
     r.opened = { ...r.opened, version: r.opened.version + 1 };
@@ -427,7 +451,7 @@ export class EngineService implements ScanfoldService {
    * scan, whose values are kept per position so any that the pass clears can be added back.
    * Null when too many pixels look bad for their values to be kept.
    */
-  private async comPlanForPass(r: DatasetRecord): Promise<(FirstPassComPlan & { imageSpecs: DetectorSpec[] }) | null> {
+  private async comPlanForPass(r: DatasetRecord, withImages: boolean): Promise<(FirstPassComPlan & { imageSpecs: DetectorSpec[] }) | null> {
     const { scanY, scanX, detY, detX } = r.opened.descriptor.shape;
     const side = Math.min(COM_SAMPLE_SIDE, scanY, scanX);
     const positions: [number, number][] = [];
@@ -453,19 +477,33 @@ export class EngineService implements ScanfoldService {
     const mask = watch.length
       ? this.compileDetectors(r, [{ shape: { kind: 'rectangle', x0: 0, y0: 0, x1: detX - 1, y1: detY - 1 } }], seen.mask)[0]
       : null;
-    // Default images taken along: bright field (the disk found on the sample) and annular dark
-    // field (twice its radius out to the largest circle inside the detector), bad pixels left out.
-    const imageSpecs: DetectorSpec[] = [];
-    try {
-      const disk = findBrightFieldDisk(replaceBadPixels(mean, detY, detX, seen.mask), detY, detX, { excludePixels: seen.mask });
-      const edge = Math.min(disk.cx, disk.cy, detX - 1 - disk.cx, detY - 1 - disk.cy);
-      imageSpecs.push({ shape: { kind: 'disk', cx: disk.cx, cy: disk.cy, r: disk.r }, label: 'bright field' });
-      if (edge > 2 * disk.r + 1) imageSpecs.push({ shape: { kind: 'annulus', cx: disk.cx, cy: disk.cy, rInner: 2 * disk.r, rOuter: edge }, label: 'annular dark field' });
-    } catch (e) {
-      if (!isInputError(e)) throw e;
+    // Default images taken along: from the disk found on the sample.
+    let imageSpecs: DetectorSpec[] = [];
+    if (withImages) {
+      try {
+        const disk = findBrightFieldDisk(replaceBadPixels(mean, detY, detX, seen.mask), detY, detX, { excludePixels: seen.mask });
+        imageSpecs = defaultImageSpecs(disk, detY, detX);
+      } catch (e) {
+        if (!isInputError(e)) throw e;
+      }
     }
     const images = imageSpecs.map((spec) => this.compileDetectors(r, [spec], seen.mask)[0]);
     return { mask, watch, images, imageSpecs };
+  }
+
+  /**
+   * The default images of a pass that left them out (made for a command, now wanted by a
+   * viewer): one pass of their own, about the disk the first pass found.
+   */
+  private async addDefaultImages(r: DatasetRecord, f: FirstResults, jobId: string | undefined, label: string): Promise<void> {
+    const { detY, detX } = r.opened.descriptor.shape;
+    const specs = 'notFound' in f.disk ? [] : defaultImageSpecs(f.disk, detY, detX);
+    if (specs.length) {
+      const compiled = this.compileDetectors(r, specs, f.badPixels.mask);
+      const v = await this.track(this.engine.virtualImages(specOf(r), compiled), jobId, `${label} (default images)`);
+      f.defaultImages = specs.map((spec, k) => ({ label: spec.label ?? describeDetector(spec), detector: spec, image: v.images[k] }));
+    }
+    delete f.defaultImagesLeftOut;
   }
 
   private async badPixelMask(r: DatasetRecord, mode: BadPixelsMode | undefined, jobId: string | undefined): Promise<{ mask: Uint8Array | undefined; count: number; list?: { hot: [number, number][]; dead: [number, number][] } }> {

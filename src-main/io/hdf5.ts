@@ -209,8 +209,8 @@ class Hdf5TileSource implements TileSource {
   private direct: { layout: DirectLayout; fd: number } | null = null;
 
   /**
-   * Read rows straight from the file when the layout allows, after checking that the first,
-   * middle and last rows read the same both ways (any difference: keep the library's reads).
+   * Read rows straight from the file when the layout allows, after checking that patterns of
+   * the first, middle and last rows read the same both ways (any difference: keep the library's reads).
    */
   useDirectLayout(layout: DirectLayout | null): void {
     if (!layout) return;
@@ -223,12 +223,22 @@ class Hdf5TileSource implements TileSource {
     this.direct = { layout, fd };
     const { scanY } = this.g.shape;
     try {
+      // The first and last pattern of the first, middle and last rows: each row's address and
+      // the patterns' order within it (whole rows through the library took ~0.15 s on 8 MiB rows).
+      const { scanX } = this.g.shape;
+      const rowBytes = this.rowElements * this.elementBytes;
+      const patternBytes = this.patternElements * this.elementBytes;
       for (const row of [...new Set([0, Math.floor(scanY / 2), scanY - 1])]) {
-        const a = typedView(this.g.dtype, new ArrayBuffer(this.rowElements * this.elementBytes), 0, this.rowElements);
-        const b = typedView(this.g.dtype, new ArrayBuffer(this.rowElements * this.elementBytes), 0, this.rowElements);
-        this.readDirect(row, 1, a);
-        for (const piece of this.plan(row, 1)) this.readPiece(piece, b);
-        if (!Buffer.from(a.buffer).equals(Buffer.from(b.buffer))) throw new Error('differs');
+        for (const x of [...new Set([0, scanX - 1])]) {
+          const a = new Uint8Array(patternBytes);
+          const b = typedView(this.g.dtype, new ArrayBuffer(patternBytes), 0, this.patternElements);
+          const rowAt = layout.kind === 'contiguous' ? layout.address + row * rowBytes
+            : layout.chunkAddress[Math.floor(row / layout.rowsPerChunk)] + (row % layout.rowsPerChunk) * rowBytes;
+          readFullyAt(fd, a, rowAt + x * patternBytes, `${this.g.file}:${this.g.datasetPath}`);
+          const p = row * scanX + x;
+          this.readPiece(this.pieceForPositions(p, p + 1, p), b);
+          if (!Buffer.from(a.buffer).equals(Buffer.from(b.buffer))) throw new Error('differs');
+        }
       }
       // Rows now go straight from the file into the caller's memory: one copy of a tile.
       this.memory = { ...this.memory, tileCopies: 1 };

@@ -137,8 +137,21 @@ function changedError(path: string): InputError {
  * file (fileState): reading it after the file changed fails. A user's spec (no fileState) opens
  * the file as it is now, reopening a source whose file has changed.
  */
-async function sourceFor(spec: SourceSpec): Promise<TileSource> {
+/** Opens under way, by spec: a second request for the same source (a warm-up, then a tile) waits for the first. */
+const opening = new Map<string, Promise<TileSource>>();
+
+function sourceFor(spec: SourceSpec): Promise<TileSource> {
   const key = JSON.stringify(spec);
+  const pending = opening.get(key);
+  if (pending) return pending;
+  const p = openOrReuse(spec, key);
+  opening.set(key, p);
+  const done = () => { if (opening.get(key) === p) opening.delete(key); };
+  p.then(done, done);
+  return p;
+}
+
+async function openOrReuse(spec: SourceSpec, key: string): Promise<TileSource> {
   const hit = sources.get(key);
   if (hit && openedAs.get(hit) === fileState(hit.descriptor.path)) {
     sources.delete(key);

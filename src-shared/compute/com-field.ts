@@ -467,6 +467,13 @@ export interface RotationEstimate {
   nonFiniteCount: number;
   /** Gaussian width (scan steps) of the smoothing under the chosen estimate; 0 = none. */
   smoothingSigma: number;
+  /**
+   * The field turned by the estimate (degrees, flip) and its integrated phase, as
+   * rotateCom and integrateCom give them, so a caller using the estimate need not repeat the
+   * integration (the half-turn negates both; negation is exact in floating point).
+   */
+  rotated: VectorField;
+  phase: IntegratedPhase;
 }
 
 interface CurlDivSums {
@@ -476,21 +483,31 @@ interface CurlDivSums {
   count: number;
 }
 
-function curlDivSums(u: Float64Array, v: Float64Array, scanY: number, scanX: number): CurlDivSums {
-  const c = curl(u, v, scanY, scanX);
-  const d = divergence(u, v, scanY, scanX);
-  let cc = 0;
-  let dd = 0;
-  let cd = 0;
-  let count = 0;
-  for (let i = 0; i < c.length; i++) {
-    if (!Number.isFinite(c[i]) || !Number.isFinite(d[i])) continue;
-    cc += c[i] * c[i];
-    dd += d[i] * d[i];
-    cd += c[i] * d[i];
-    count++;
+/**
+ * Σ curl², Σ div², Σ curl·div of (u, v) and of the swapped field (v, u), from the four
+ * derivative maps once: curl(u, v) = ∂v/∂x − ∂u/∂y, div(u, v) = ∂u/∂x + ∂v/∂y, and swapped,
+ * curl(v, u) = ∂u/∂x − ∂v/∂y, div(v, u) = ∂v/∂x + ∂u/∂y (the same values curl and divergence give).
+ */
+function curlDivSums(u: Float64Array, v: Float64Array, scanY: number, scanX: number): { plain: CurlDivSums; flipped: CurlDivSums } {
+  const n = scanY * scanX;
+  const ux = new Float64Array(n), uy = new Float64Array(n), vx = new Float64Array(n), vy = new Float64Array(n);
+  addDx(u, scanY, scanX, 1, ux);
+  addDy(u, scanY, scanX, 1, uy);
+  addDx(v, scanY, scanX, 1, vx);
+  addDy(v, scanY, scanX, 1, vy);
+  const plain = { cc: 0, dd: 0, cd: 0, count: 0 };
+  const flipped = { cc: 0, dd: 0, cd: 0, count: 0 };
+  for (let i = 0; i < n; i++) {
+    const c = vx[i] - uy[i], d = ux[i] + vy[i];
+    if (Number.isFinite(c) && Number.isFinite(d)) {
+      plain.cc += c * c; plain.dd += d * d; plain.cd += c * d; plain.count++;
+    }
+    const cf = ux[i] - vy[i], df = vx[i] + uy[i];
+    if (Number.isFinite(cf) && Number.isFinite(df)) {
+      flipped.cc += cf * cf; flipped.dd += df * df; flipped.cd += cf * df; flipped.count++;
+    }
   }
-  return { cc, dd, cd, count };
+  return { plain, flipped };
 }
 
 /**
@@ -506,35 +523,53 @@ export function gaussianSmooth(values: Float64Array, scanY: number, scanX: numbe
   const half = Math.ceil(3 * sigma);
   const kernel = new Float64Array(2 * half + 1);
   for (let k = -half; k <= half; k++) kernel[k + half] = Math.exp(-0.5 * (k / sigma) ** 2);
-  // Pass 1 along x: weighted sums and weights; pass 2 along y on both.
+  let allFinite = true;
+  for (let i = 0; i < values.length && allFinite; i++) allFinite = Number.isFinite(values[i]);
+  // Non-finite values weigh 0: a copy with zeros there, and a 0/1 weight map. With every value
+  // finite the weights separate, w(y, x) = wx(x)·wy(y): the kernel's sums clipped at the edges.
+  const clean = allFinite ? values : values.map((v) => (Number.isFinite(v) ? v : 0));
+  const weight = allFinite ? null : values.map((v) => (Number.isFinite(v) ? 1 : 0));
+  const clippedSum = (i: number, n: number) => {
+    let w = 0;
+    for (let k = Math.max(-half, -i); k <= Math.min(half, n - 1 - i); k++) w += kernel[k + half];
+    return w;
+  };
+  // Pass 1 along x; pass 2 along y, a whole row at a time.
   const sumX = new Float64Array(values.length);
-  const weightX = new Float64Array(values.length);
+  const weightX = weight ? new Float64Array(values.length) : null;
   for (let y = 0; y < scanY; y++) {
     const r = y * scanX;
     for (let x = 0; x < scanX; x++) {
+      const k0 = Math.max(-half, -x), k1 = Math.min(half, scanX - 1 - x);
       let s = 0;
-      let w = 0;
-      for (let k = Math.max(-half, -x); k <= Math.min(half, scanX - 1 - x); k++) {
-        const v = values[r + x + k];
-        if (!Number.isFinite(v)) continue;
-        s += kernel[k + half] * v;
-        w += kernel[k + half];
-      }
+      for (let k = k0; k <= k1; k++) s += kernel[k + half] * clean[r + x + k];
       sumX[r + x] = s;
-      weightX[r + x] = w;
+      if (weight && weightX) {
+        let w = 0;
+        for (let k = k0; k <= k1; k++) w += kernel[k + half] * weight[r + x + k];
+        weightX[r + x] = w;
+      }
     }
   }
+  const wx = Float64Array.from({ length: scanX }, (_, x) => clippedSum(x, scanX));
   const out = new Float64Array(values.length);
+  const rowS = new Float64Array(scanX);
+  const rowW = new Float64Array(scanX);
   for (let y = 0; y < scanY; y++) {
-    for (let x = 0; x < scanX; x++) {
-      let s = 0;
-      let w = 0;
-      for (let k = Math.max(-half, -y); k <= Math.min(half, scanY - 1 - y); k++) {
-        const i = (y + k) * scanX + x;
-        s += kernel[k + half] * sumX[i];
-        w += kernel[k + half] * weightX[i];
-      }
-      out[y * scanX + x] = w > 0 && Number.isFinite(values[y * scanX + x]) ? s / w : Number.NaN;
+    rowS.fill(0);
+    rowW.fill(0);
+    for (let k = Math.max(-half, -y); k <= Math.min(half, scanY - 1 - y); k++) {
+      const c = kernel[k + half];
+      const r = (y + k) * scanX;
+      for (let x = 0; x < scanX; x++) rowS[x] += c * sumX[r + x];
+      if (weightX) for (let x = 0; x < scanX; x++) rowW[x] += c * weightX[r + x];
+    }
+    const r = y * scanX;
+    if (!weight) {
+      const wy = clippedSum(y, scanY);
+      for (let x = 0; x < scanX; x++) out[r + x] = rowS[x] / (wx[x] * wy);
+    } else {
+      for (let x = 0; x < scanX; x++) out[r + x] = rowW[x] > 0 && weight[r + x] !== 0 ? rowS[x] / rowW[x] : Number.NaN;
     }
   }
   return out;
@@ -629,8 +664,7 @@ export function estimateRotation(
   for (const sigma of sigmas) {
     const u = sigma > 0 ? gaussianSmooth(comX, scanY, scanX, sigma) : comX;
     const v = sigma > 0 ? gaussianSmooth(comY, scanY, scanX, sigma) : comY;
-    const plain = curlDivSums(u, v, scanY, scanX);
-    const flipped = curlDivSums(v, u, scanY, scanX);
+    const { plain, flipped } = curlDivSums(u, v, scanY, scanX);
     if (plain.count === 0) continue;
     const score = Math.min(relative(minimiseCurl(plain)), relative(minimiseCurl(flipped)));
     if (chosen === null || score < chosen.score) chosen = { sigma, plain, flipped, score };
@@ -651,13 +685,15 @@ export function estimateRotation(
   const sums = flip ? flipped : plain;
 
   const rotated = rotateCom(comX, comY, best.degrees, flip);
-  const { phase } = integrateCom(rotated.comX, rotated.comY, scanY, scanX);
+  const integrated = integrateCom(rotated.comX, rotated.comY, scanY, scanX);
+  const { phase } = integrated;
   const halfTurnRule = options.vacuumMask ? 'vacuum-phase-lowest' : 'positive-phase-skewness';
   let score = options.vacuumMask ? vacuumContrast(phase, options.vacuumMask) : skewness(phase);
   let degrees = best.degrees;
   if (score < 0) {
     degrees = normaliseDegrees(degrees + 180);
     score = -score;
+    for (const a of [rotated.comX, rotated.comY, phase]) for (let i = 0; i < a.length; i++) a[i] = -a[i];
   }
 
   const curlAtBest = Math.sqrt(best.energy / sums.count);
@@ -675,5 +711,7 @@ export function estimateRotation(
     otherFlip: { degrees: other.degrees, curlRelative: otherDiv > 0 ? Math.sqrt(other.energy / otherDiv) : Number.NaN },
     nonFiniteCount: scanY * scanX - sums.count,
     smoothingSigma: chosen.sigma,
+    rotated,
+    phase: integrated,
   };
 }
