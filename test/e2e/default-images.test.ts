@@ -5,7 +5,7 @@ import os from 'node:os';
 import path from 'node:path';
 import { spawnSync } from 'node:child_process';
 import { afterAll, beforeAll, expect, it } from 'vitest';
-import { PYTHON } from '../helpers/fixtures';
+import { maxRelDiff, PYTHON, readNpyF64 } from '../helpers/fixtures';
 
 const root = path.resolve(__dirname, '../..');
 let dir: string;
@@ -45,4 +45,42 @@ print(json.dumps(out))`, out, demo], { encoding: 'utf8', maxBuffer: 1 << 26 });
   expect(got.annular_dark_field_kind).toBe('annulus');
   expect(got.bright_field).toBeLessThan(1e-12);
   expect(got.annular_dark_field).toBeLessThan(1e-12);
+});
+
+it('a first pass made for a command takes no default images; a viewer asking afterwards gets them, equal to NumPy', async () => {
+  const { EngineService } = await import('../../src-main/engine/service');
+  const demo = path.join(dir, 'demo2.h5');
+  expect(scanfold('sample', '--size', 'demo', '--out', demo, '--quiet').status).toBe(0);
+  const service = new EngineService({ workers: 2, cacheDir: null });
+  try {
+    const d = await service.open({ path: demo, datasetPath: '/scan/frames' });
+    // The command's pass (bad pixels, disk, COM sums), then the viewer's request on the same engine.
+    await service.comField({ dataset: d.id });
+    const labels: string[] = [];
+    const off = service.onEvent((e) => { if (e.kind === 'job') labels.push(e.job.label); });
+    const first = await service.firstPass({ dataset: d.id, jobId: 'viewer' });
+    off();
+    // Only the images' own pass ran, not another first pass.
+    expect([...new Set(labels)]).toEqual(['first pass (default images)']);
+    expect(first.defaultImages.map((im) => im.label)).toEqual(['bright field', 'annular dark field']);
+    const specs = JSON.stringify(first.defaultImages.map((im) => im.detector.shape));
+    const bad = JSON.stringify([...first.badPixels.hot, ...first.badPixels.dead]);
+    const p = spawnSync(PYTHON, ['-c', `import h5py, json, sys, numpy as np
+d = h5py.File(sys.argv[1]); a = d['scan/frames'][()].astype(np.float64)
+ky, kx = a.shape[2:]
+yy, xx = np.mgrid[0:ky, 0:kx]
+bad = np.zeros((ky, kx), bool)
+for y, x in json.loads(sys.argv[3]): bad[y, x] = True
+for i, s in enumerate(json.loads(sys.argv[2])):
+    r = np.hypot(xx - s['cx'], yy - s['cy'])
+    m = (r <= s['r']) if s['kind'] == 'disk' else ((r > s['rInner']) & (r <= s['rOuter']))
+    np.save(sys.argv[4] + '.%d.npy' % i, (a * (m & ~bad)).sum(axis=(2, 3)))`, demo, specs, bad, path.join(dir, 'want')], { encoding: 'utf8' });
+    expect(p.status, p.stderr).toBe(0);
+    first.defaultImages.forEach((im, i) => {
+      // reference: NumPy's sums over the detector the result names, without the bad pixels it lists
+      expect(maxRelDiff(im.image, readNpyF64(path.join(dir, `want.${i}.npy`)).data)).toBeLessThan(1e-12);
+    });
+  } finally {
+    await service.shutdown();
+  }
 });

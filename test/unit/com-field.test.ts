@@ -381,6 +381,21 @@ describe('(4) rotation and flip recovery', () => {
     expect(est.otherFlip.curlRelative).toBeGreaterThan(0.3);
   });
 
+  it.each([[17, false], [245, true]] as Array<[number, boolean]>)('θ = %f°, flip = %s: the estimate hands back the turned field and its phase, as rotateCom and integrateCom give them', (degrees, flip) => {
+    // Internal consistency (not an outside reference): the caller uses these instead of turning
+    // and integrating again; the half-turn only negates them.
+    const detector = toDetectorFrame(scanFrame.comX, scanFrame.comY, degrees, flip);
+    const est = estimateRotation(detector.comX, detector.comY, obj.scanY, obj.scanX);
+    const again = rotateCom(detector.comX, detector.comY, est.degrees, est.flip);
+    const phase = integrateCom(again.comX, again.comY, obj.scanY, obj.scanX).phase;
+    const scale = Math.max(...Array.from(phase, Math.abs));
+    for (const [got, want] of [[est.rotated.comX, again.comX], [est.rotated.comY, again.comY], [est.phase.phase, phase]] as const) {
+      let worst = 0;
+      for (let i = 0; i < want.length; i++) worst = Math.max(worst, Math.abs(got[i] - want[i]));
+      expect(worst).toBeLessThan(1e-12 * Math.max(1, scale));
+    }
+  });
+
   it('the closed-form minimum agrees with a direct scan of the curl over angles', () => {
     // Internal consistency of the closed form (not an outside reference): evaluate RMS curl of
     // rotateCom output every 0.25° and compare the arg-min, modulo the 180° the curl cannot see.
