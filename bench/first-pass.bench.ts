@@ -2,6 +2,7 @@
 // sequential read of the same bytes and NumPy (memmap) doing the same sums, as ratios from
 // one run. Not a timed test: these machines are noisy, so compare within one run.
 import fs from 'node:fs';
+import { Worker } from 'node:worker_threads';
 import path from 'node:path';
 import { spawnSync } from 'node:child_process';
 import { Engine } from '../src-main/engine/engine';
@@ -40,6 +41,38 @@ function plainRead(file: string): { seconds: number; bytes: number } {
   fs.closeSync(fd);
   if (x < 0) console.log(x);
   return { seconds, bytes: pos };
+}
+
+/**
+ * The same read on `threads` threads at once, each taking every threads-th 64 MiB block (the
+ * pass's own thread count: like with like). Median of three.
+ */
+async function plainReadThreads(file: string, threads: number): Promise<{ seconds: number; bytes: number }> {
+  const code = `
+    const { parentPort, workerData } = require('node:worker_threads');
+    const fs = require('node:fs');
+    const block = 64 * 1024 * 1024;
+    const buf = new Uint8Array(new WebAssembly.Memory({ initial: block / 65536 }).buffer, 0, block);
+    buf.fill(1);
+    const fd = fs.openSync(workerData.file, 'r');
+    const size = fs.fstatSync(fd).size;
+    parentPort.postMessage('ready');
+    parentPort.once('message', () => {
+      for (let pos = workerData.i * block; pos < size; pos += workerData.n * block) fs.readSync(fd, buf, 0, Math.min(block, size - pos), pos);
+      parentPort.postMessage('done');
+    });`;
+  const size = fs.statSync(file).size;
+  const times: number[] = [];
+  for (let rep = 0; rep < 3; rep++) {
+    const ws = Array.from({ length: threads }, (_, i) => new Worker(code, { eval: true, workerData: { file, i, n: threads } }));
+    await Promise.all(ws.map((w) => new Promise((r) => w.once('message', r))));
+    const t0 = performance.now();
+    ws.forEach((w) => w.postMessage('go'));
+    await Promise.all(ws.map((w) => new Promise((r) => w.once('message', r))));
+    times.push((performance.now() - t0) / 1000);
+    await Promise.all(ws.map((w) => w.terminate()));
+  }
+  return { seconds: times.sort((a, b) => a - b)[1], bytes: size };
 }
 
 async function ensureLarge(dir: string): Promise<{ h5: string; raw: string; shape: number[] }> {
@@ -136,19 +169,23 @@ async function firstPassBenchmark(opts: { h5: string; raw: string; shape: number
     else console.error('NumPy comparison skipped: ' + (p.stderr || p.error?.message));
   }
   const readRate = bytes / read.seconds;
+  const readN = await plainReadThreads(raw, opts.workers);
+  const readRateN = readN.bytes / readN.seconds;
+  const both = (s: number) => `${(bytes / s / readRate).toFixed(2)} | ${(bytes / s / readRateN).toFixed(2)}`;
   const rows: string[][] = [
-    ['plain sequential read (1 thread, into WASM memory, median of 3)', gbps(read.bytes, read.seconds), '1.00'],
-    [`first pass, raw file (${opts.workers} workers, warm engine)`, gbps(bytes, fpRaw.seconds), (bytes / fpRaw.seconds / readRate).toFixed(2)],
-    [`first pass, raw file (${opts.workers} workers, fresh engine incl. start-up)`, gbps(bytes, fpRaw.coldSeconds), (bytes / fpRaw.coldSeconds / readRate).toFixed(2)],
-    [`first pass, HDF5 chunked (${opts.workers} workers, warm engine)`, gbps(bytes, fpH5.seconds), (bytes / fpH5.seconds / readRate).toFixed(2)],
-    [`first pass, HDF5 chunked (${opts.workers} workers, fresh engine incl. start-up)`, gbps(bytes, fpH5.coldSeconds), (bytes / fpH5.coldSeconds / readRate).toFixed(2)],
+    ['plain sequential read (1 thread, into WASM memory, median of 3)', gbps(read.bytes, read.seconds), `1.00 | ${(readRate / readRateN).toFixed(2)}`],
+    [`plain read (${opts.workers} threads, as the pass, median of 3)`, gbps(readN.bytes, readN.seconds), `${(readRateN / readRate).toFixed(2)} | 1.00`],
+    [`first pass, raw file (${opts.workers} workers, warm engine)`, gbps(bytes, fpRaw.seconds), both(fpRaw.seconds)],
+    [`first pass, raw file (${opts.workers} workers, fresh engine incl. start-up)`, gbps(bytes, fpRaw.coldSeconds), both(fpRaw.coldSeconds)],
+    [`first pass, HDF5 chunked (${opts.workers} workers, warm engine)`, gbps(bytes, fpH5.seconds), both(fpH5.seconds)],
+    [`first pass, HDF5 chunked (${opts.workers} workers, fresh engine incl. start-up)`, gbps(bytes, fpH5.coldSeconds), both(fpH5.coldSeconds)],
   ];
   if (numpy) {
-    rows.push([`NumPy ${numpy.numpy} memmap: same sums and max`, gbps(bytes, numpy.first_pass as number), ((bytes / (numpy.first_pass as number)) / readRate).toFixed(2)]);
-    rows.push([`NumPy ${numpy.numpy} memmap: plain sum`, gbps(bytes, numpy.plain_sum as number), ((bytes / (numpy.plain_sum as number)) / readRate).toFixed(2)]);
+    rows.push([`NumPy ${numpy.numpy} memmap: same sums and max`, gbps(bytes, numpy.first_pass as number), both(numpy.first_pass as number)]);
+    rows.push([`NumPy ${numpy.numpy} memmap: plain sum`, gbps(bytes, numpy.plain_sum as number), both(numpy.plain_sum as number)]);
   }
   console.log(`first-pass benchmark on ${h5} (${shape.join('×')} uint16, ${fmtBytes(bytes)}, page-cached), one run:`);
-  console.log(['what', 'GB/s', '× plain read'].join(' | '));
+  console.log(['what', 'GB/s', '× plain read, 1 thread', `× plain read, ${opts.workers} threads`].join(' | '));
   for (const r of rows) console.log(r.join(' | '));
   if (numpy) {
     console.log(`first pass (raw) vs NumPy same sums: ${((numpy.first_pass as number) / fpRaw.seconds).toFixed(2)}×; vs NumPy plain sum: ${((numpy.plain_sum as number) / fpRaw.seconds).toFixed(2)}×`);

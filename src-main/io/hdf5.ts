@@ -4,10 +4,10 @@ import type { DatasetDescriptor, Hdf5DatasetInfo, Hdf5DirectHint, Shape4D, Sourc
 import { DTYPE_BYTES, DTYPES, isDType, typedView, type ByteOrder, type DType, type NumericArray } from '../../src-shared/model/dtype';
 import { InputError } from '../../src-shared/model/errors';
 import { fingerprint } from './fingerprint';
-import { directLayout, type DirectLayout } from './hdf5-direct';
+import { directLayout, openHdf5Direct, plainDataset, type DirectLayout } from './hdf5-direct';
 import { availableFilterNames, briefHdf5Error, filterName, getH5, isFilterAvailable, withFileOpenLog, type H5Runtime } from './h5wasm-module';
 import { checkPatternRequest, checkRowRequest, type ReaderMemory, type TileSource } from './tile-source';
-import { checkInputFile, errnoText, physicalPath, readFullyAt } from './input-file';
+import { checkInputFile, errnoText, openInputFile, physicalPath, readFullyAt } from './input-file';
 import { hdf5SignatureOffset } from './hdf5-signature';
 import { scanShapeFor3D, validateShape } from './validate';
 import { fmtBytes } from '../../src-shared/model/bytes';
@@ -29,6 +29,8 @@ export interface Hdf5ReadOptions {
    * chunks need more to decompress is refused at open, before any chunk is inflated.
    */
   memoryPerWorkerBytes?: number;
+  /** Describe the file through the HDF5 library even where it is read here (for tests comparing the two). */
+  throughLibrary?: boolean;
 }
 
 type H5File = InstanceType<H5Runtime['h5wasm']['File']>;
@@ -63,6 +65,8 @@ export async function listHdf5Datasets(path: string): Promise<Hdf5DatasetInfo[]>
 /** Open one 3-D or 4-D numeric dataset of an HDF5 file as a TileSource. */
 export async function openHdf5(spec: SourceSpec, options: Hdf5ReadOptions = {}): Promise<TileSource> {
   const file = checkHdf5File(spec.path);
+  const plain = options.throughLibrary ? null : openPlain(file, spec);
+  if (plain) return plain;
   const rt = await getH5();
   const h5 = openH5File(rt, file);
   try {
@@ -154,6 +158,57 @@ export async function openHdf5(spec: SourceSpec, options: Hdf5ReadOptions = {}):
     h5.close();
     throw e;
   }
+}
+
+/**
+ * A plain dataset (see plainDataset) opened without the HDF5 library: the descriptor the
+ * library path would give, and rows read straight from the file. Null: the library opens it.
+ */
+function openPlain(file: string, spec: SourceSpec): TileSource | null {
+  const plain = plainDataset(file, spec.datasetPath ? normaliseDatasetPath(spec.datasetPath) : undefined);
+  if (!plain) return null;
+  const { datasetPath, storedShape, dtype } = plain;
+  const what = `${file}:${datasetPath}`;
+  const rank = storedShape.length as 3 | 4;
+  const shape = to4D(storedShape, spec.scanShape, what);
+  const elementBytes = DTYPE_BYTES[dtype];
+  validateShape(shape, elementBytes, what);
+  const layout = plain.layout(elementBytes, shape.scanX * shape.detY * shape.detX);
+  if (!layout) return null;
+  const byteSize = shape.scanY * shape.scanX * shape.detY * shape.detX * elementBytes;
+  // The fingerprint's samples, as the library path takes them: the first, middle and last pattern.
+  const patternBytes = shape.detY * shape.detX * elementBytes;
+  const rowBytes = shape.scanX * patternBytes;
+  const last = shape.scanY * shape.scanX - 1;
+  const f = openInputFile(file, 'an HDF5 file');
+  let samples: Uint8Array[];
+  let st: fs.Stats;
+  try {
+    st = fs.fstatSync(f.fd);
+    samples = [...new Set([0, Math.floor(last / 2), last])].map((p) => {
+      const row = Math.floor(p / shape.scanX), x = p % shape.scanX;
+      const at = layout.kind === 'contiguous' ? layout.address + row * rowBytes
+        : layout.chunkAddress[Math.floor(row / layout.rowsPerChunk)] + (row % layout.rowsPerChunk) * rowBytes;
+      const b = new Uint8Array(patternBytes);
+      readFullyAt(f.fd, b, at + x * patternBytes, what);
+      return b;
+    });
+  } finally {
+    fs.closeSync(f.fd);
+  }
+  const descriptor: Omit<DatasetDescriptor, 'spec'> = {
+    format: 'hdf5', path: file, datasetPath, shape, storedShape, dtype, byteSize,
+    fingerprint: fingerprint({ format: 'hdf5', datasetPath, shape: storedShape, dtype }, samples),
+    layout: { kind: 'hdf5', rank, chunks: plain.chunks, filters: [], byteOrder: 'little' },
+    sourceFiles: [file],
+    attributes: plain.attributes,
+  };
+  const hint: Hdf5DirectHint = { layout, descriptor, size: st.size, mtimeMs: st.mtimeMs };
+  return openHdf5Direct({
+    ...spec, path: file, format: 'hdf5', datasetPath,
+    ...(rank === 3 ? { scanShape: [shape.scanY, shape.scanX] as [number, number] } : {}),
+    hdf5Direct: hint,
+  });
 }
 
 interface SourceGeometry {

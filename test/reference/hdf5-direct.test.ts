@@ -82,4 +82,73 @@ describe('direct HDF5 layout', () => {
     fs.utimesSync(file, later, later);
     await expect(openTileSource(spec)).rejects.toThrow(/changed while it was open/);
   });
+
+  it('a plain file is described without the HDF5 library exactly as the library describes it; anything else is left to the library', async () => {
+    const listings: Record<string, string | null> = JSON.parse(fs.readFileSync(path.join(fx, 'listings.json'), 'utf8'));
+    const files = fs.readdirSync(fx).filter((f) => f.endsWith('.h5')).map((f) => f.replace(/\.h5$/, ''));
+    // Which files are read here (the rest go through the library): uncompressed, whole-row
+    // layouts whose attributes and links are of the kinds read here.
+    const plainExpected = new Set([
+      'contiguous-earliest', 'contiguous-latest', 'rows-earliest', 'rows-latest', 'tworows-earliest', 'tworows-latest',
+      'single-earliest', 'single-latest', 'growable-earliest', 'userblock', 'attrs-earliest', 'attrs-latest', 'dense-attrs', 'dense-indirect', 'many-links-earliest', 'many-links-latest', 'three-d', 'int32',
+    ]);
+    const seenPlain: string[] = [];
+    const seenPlainNoPath: string[] = [];
+    for (const name of files) {
+      for (const datasetPath of [listings[name] ?? (facts[name] ? (name.startsWith('tworows') ? '/scan/deep/frames' : '/frames') : undefined), undefined]) {
+        if (datasetPath === undefined && name === 'two') {
+          // With no path, two candidates: the library's message names both.
+          await expect(openTileSource({ path: path.join(fx, 'two.h5') } as never)).rejects.toThrow(/2 datasets .*\/x.*\/y/);
+          continue;
+        }
+        if (datasetPath === undefined && listings[name] === undefined && !facts[name]) continue;
+        const spec = { path: path.join(fx, `${name}.h5`), ...(datasetPath ? { datasetPath } : {}), ...(name === 'three-d' ? { scanShape: [6, 5] } : {}) } as never;
+        const lib = await openTileSource(spec, { throughLibrary: true } as never);
+        const here = await openTileSource(spec);
+        try {
+          const isPlain = here.memory.fixedBytes === 0 && lib.memory.fixedBytes > 0;
+          if (isPlain) (datasetPath ? seenPlain : seenPlainNoPath).push(name);
+          // reference: the HDF5 library's (h5wasm's) description of the same file, h5py having written it
+          const { spec: specHere, ...descHere } = here.descriptor;
+          const { spec: specLib, ...descLib } = lib.descriptor;
+          expect(descHere, name).toEqual(descLib);
+          const { hdf5Direct: hintHere, ...restHere } = specHere;
+          const { hdf5Direct: hintLib, ...restLib } = specLib;
+          expect(restHere, name).toEqual(restLib);
+          if (hintLib) expect(hintHere?.layout, name).toEqual(hintLib.layout);
+          // Every row reads the same both ways.
+          const n = here.descriptor.shape.scanX * here.descriptor.shape.detY * here.descriptor.shape.detX;
+          for (let row = 0; row < here.descriptor.shape.scanY; row++) {
+            const a = new Float64Array(n), b = new Float64Array(n);
+            const bufA = allocFor(here.descriptor.dtype, n), bufB = allocFor(here.descriptor.dtype, n);
+            here.readRows(row, 1, bufA);
+            lib.readRows(row, 1, bufB);
+            a.set(bufA as ArrayLike<number>); b.set(bufB as ArrayLike<number>);
+            expect(Array.from(a), `${name} row ${row}`).toEqual(Array.from(b));
+          }
+        } finally {
+          here.close();
+          lib.close();
+        }
+      }
+    }
+    expect(new Set(seenPlain)).toEqual(plainExpected);
+    // With no path given, the one dataset that could be opened is found here too (links of every kind).
+    for (const name of ['rows-earliest', 'attrs-earliest', 'attrs-latest', 'many-links-earliest', 'many-links-latest']) expect(seenPlainNoPath).toContain(name);
+    // What is kept of the attributes (as the library path keeps them).
+    const attrs = (await openTileSource({ path: path.join(fx, 'attrs-earliest.h5') } as never));
+    try {
+      expect(attrs.descriptor.datasetPath).toBe('/scan/frames');
+      expect(attrs.descriptor.attributes).toEqual({
+        beam_energy_kev: 300, convergence_mrad: 21.5, count_i32: -7, bits_u8: 12, frames_i64: 5, step_nm: [0.5, 0.25], one: [3], units: 'counts',
+      });
+    } finally {
+      attrs.close();
+    }
+  });
 });
+
+function allocFor(dtype: string, n: number) {
+  const C = { uint8: Uint8Array, uint16: Uint16Array, uint32: Uint32Array, int8: Int8Array, int16: Int16Array, int32: Int32Array, float32: Float32Array, float64: Float64Array }[dtype]!;
+  return new C(n);
+}
