@@ -88,6 +88,8 @@ if (fs.existsSync(path.join(renderer, 'main.tsx'))) {
     logLevel: 'warning',
   });
   for (const f of ['index.html', 'styles.css']) fs.copyFileSync(path.join(renderer, f), path.join(out, f));
+  // The chart library's own styles (the scree chart), beside ours.
+  fs.copyFileSync(path.join(root, 'node_modules/uplot/dist/uPlot.min.css'), path.join(out, 'uplot.css'));
 }
 
 // 4. The desktop shell (src-main/electron): the main process and the engine's utility process

@@ -317,6 +317,12 @@ describe('served mode', () => {
     expect((await viewState('pattern')).label).toMatch(/^component pattern 3/);
     const pcaEngine = await service.pca({ dataset: (await service.datasets())[0].id, components: 8 });
     expect((await viewState('scan')).values).toEqual(Array.from(pcaEngine.loadings.subarray(2 * 64 * 64, 3 * 64 * 64)));
+    // The scree chart (uPlot): its plot area spans components 0.5 … n + 0.5; a click picks the nearest.
+    const over = (await page.locator('.scree .u-over').boundingBox())!;
+    const n = pcaEngine.explainedVarianceRatio.length;
+    await page.mouse.click(over.x + ((2 - 0.5) / n) * over.width, over.y + over.height / 2);
+    await expect.poll(async () => (await viewState('scan'))?.label, { timeout: 10_000 }).toBe('loading map 2');
+    expect((await viewState('pattern')).label).toMatch(/^component pattern 2/);
     await snap('4-pca');
     await page.getByRole('button', { name: 'Run k-means' }).click();
     await expect.poll(async () => (await viewState('scan'))?.label, { timeout: 60_000 }).toBe('cluster map (4 clusters)');
