@@ -3,6 +3,8 @@
 // pattern drawn (and the engine's share of it) over 100 hover moves; detector drag → preview
 // image drawn (and the engine's share) over 100 drag steps. Median and 95th percentile.
 import fs from 'node:fs';
+import os from 'node:os';
+import path from 'node:path';
 import { chromium } from 'playwright-core';
 import { EngineService } from '../src-main/engine/service';
 import { distFile } from '../src-main/engine/paths';
@@ -35,7 +37,10 @@ export async function runAppBenchmark(opts: { h5: string; workers: number; plain
     console.log(`\napp latencies: skipped (${CHROMIUM} is missing; apt-get install chromium)`);
     return;
   }
-  const real = new EngineService({ workers: opts.workers, previewBudgetBytes: APP_PREVIEW_BUDGET_BYTES });
+  // A state folder of its own: the app autosaves its unsaved work there, which would otherwise
+  // be offered for recovery at the user's next start.
+  const stateDir = fs.mkdtempSync(path.join(os.tmpdir(), 'scanfold-bench-state-'));
+  const real = new EngineService({ workers: opts.workers, previewBudgetBytes: APP_PREVIEW_BUDGET_BYTES, stateDir });
   const log: Record<string, number[]> = {};
   const browser = await chromium.launch({ executablePath: CHROMIUM, args: ['--use-angle=swiftshader', '--enable-unsafe-swiftshader', '--disable-gpu', '--no-sandbox'] });
   try {
@@ -98,5 +103,6 @@ export async function runAppBenchmark(opts: { h5: string; workers: number; plain
   } finally {
     await browser.close();
     await real.shutdown();
+    fs.rmSync(stateDir, { recursive: true, force: true });
   }
 }

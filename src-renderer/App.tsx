@@ -33,6 +33,10 @@ function useStore(store: Store): AppState {
 /** How often rows of an image still being computed are drawn. */
 const ROWS_EVERY_MS = 200;
 
+/** Recovery offers shown in full; any more are summed up in one line. */
+const RECOVERY_OFFERS_SHOWN = 2;
+const newestFirst = (list: Recoverable[]) => [...list].sort((a, b) => b.modified.localeCompare(a.modified));
+
 /** How often unsaved work goes to the recovery file. */
 const AUTOSAVE_MS = 4000;
 
@@ -106,6 +110,7 @@ export function App({ client, store, shell = null }: { client: Client; store: St
   const [absentData, setAbsentData] = useState<OpenedSession['datasets']>([]);
   const [relinkTo, setRelinkTo] = useState('');
   const [recoverable, setRecoverable] = useState<Recoverable[]>([]);
+  const [allRecoveries, setAllRecoveries] = useState(false);
   const lastRecovery = useRef<string | null>(null);
 
   const fail = useCallback((e: unknown) => {
@@ -664,13 +669,21 @@ export function App({ client, store, shell = null }: { client: Client; store: St
       </header>
       {error && <div className="error" role="alert">{error} <button onClick={() => setError(null)}>dismiss</button></div>}
       {sessionNote && <div className="note" role="status">{sessionNote} <button onClick={() => setSessionNote(null)}>dismiss</button></div>}
-      {recoverable.map((r) => (
+      {/* The newest offers in full; older ones (several stops without a save) in one line, so they never push the views away. */}
+      {newestFirst(recoverable).slice(0, allRecoveries ? undefined : RECOVERY_OFFERS_SHOWN).map((r) => (
         <div key={r.recovery} className="note recover" aria-live="polite">
           Work not saved when Scanfold last stopped: {r.session ? baseName(r.session) : 'an unsaved session'}, {r.results} result{r.results === 1 ? '' : 's'}, last written {new Date(r.modified).toLocaleString()}.
           <button onClick={() => void recover(r)}>Recover</button>
           <button onClick={() => discardRecovered(r)}>Discard</button>
         </div>
       ))}
+      {!allRecoveries && recoverable.length > RECOVERY_OFFERS_SHOWN && (
+        <div className="note recover">
+          and {recoverable.length - RECOVERY_OFFERS_SHOWN} older unsaved session{recoverable.length - RECOVERY_OFFERS_SHOWN === 1 ? '' : 's'}.
+          <button onClick={() => setAllRecoveries(true)}>Show them</button>
+          <button onClick={() => newestFirst(recoverable).slice(RECOVERY_OFFERS_SHOWN).forEach(discardRecovered)}>Discard them</button>
+        </div>
+      )}
       {absentData.map((d) => (
         <form key={d.ref.id} className="note relink" role="alert" onSubmit={(e) => { e.preventDefault(); if (loadedFrom && relinkTo.trim()) void relinkNow(loadedFrom, { [d.ref.id]: relinkTo.trim() }); }}>
           The data of this session ({d.ref.name}) {d.status === 'different' ? 'was replaced' : 'was not found'}: {d.how}. Its results are shown; to compute more, give where it is now:

@@ -144,10 +144,29 @@ print(t.dtype, t.shape, bool(np.array_equal(t, l)))`, sessionFile(), tif], { enc
     first.child.kill('SIGKILL');
     await new Promise((r) => first.child.once('exit', r));
 
+    // Two more stops without a save (copies of that file, listed in the state folder's index):
+    // the newest two offers are shown in full, the older one summed up in a line until asked for.
+    const [only] = recoveries();
+    const indexFile = path.join(stateDir, 'recovery-index.json');
+    const index = JSON.parse(fs.readFileSync(indexFile, 'utf8')) as { recovery: string; session: string | null }[];
+    for (const copy of ['unsaved.older1-1.recovery.h5', 'unsaved.older2-2.recovery.h5']) {
+      fs.copyFileSync(path.join(stateDir, only), path.join(stateDir, copy));
+      index.push({ recovery: path.join(stateDir, copy), session: null });
+    }
+    fs.writeFileSync(indexFile, JSON.stringify(index));
+
     const second = await serve(stateDir);
     const next = await newPage(second.url);
     const offer = next.locator('.recover');
     await expect.poll(async () => (await offer.allTextContents()).join(' '), { timeout: 30_000 }).toContain('an unsaved session');
+    expect(await offer.getByRole('button', { name: 'Recover' }).count()).toBe(2);
+    expect((await offer.allTextContents()).join(' ')).toContain('and 1 older unsaved session.');
+    await offer.getByRole('button', { name: 'Show them' }).click();
+    await expect.poll(() => offer.getByRole('button', { name: 'Recover' }).count()).toBe(3);
+    // Two discarded: their files go; one is left to recover.
+    await offer.getByRole('button', { name: 'Discard' }).nth(2).click();
+    await offer.getByRole('button', { name: 'Discard' }).nth(1).click();
+    await expect.poll(() => recoveries().length, { timeout: 10_000 }).toBe(1);
     await offer.getByRole('button', { name: 'Recover' }).click();
     await expect.poll(async () => (await next.getByRole('status').allTextContents()).join(' '), { timeout: 30_000 }).toContain('recovered');
     expect((await state(next)).detectors.map((d) => d.name)).toEqual(['disk 1']);
