@@ -33,21 +33,23 @@ class Reader {
   }
 }
 
-/** An unsigned little-endian integer of `n` bytes (1, 2, 4 or 8) at `at`; all ones reads as UNDEFINED. */
+/** An unsigned little-endian integer of `n` bytes (1 to 8) at `at`; all ones reads as UNDEFINED for n ≥ 4. */
 function uint(b: Buffer, at: number, n: number): number {
-  if (n === 8) {
-    const lo = b.readUInt32LE(at), hi = b.readUInt32LE(at + 4);
-    if (lo === 0xffffffff && hi === 0xffffffff) return UNDEFINED;
+  if (n === 7 || n === 8) {
+    const lo = b.readUInt32LE(at), hi = b.readUIntLE(at + 4, n - 4);
+    if (lo === 0xffffffff && hi === 2 ** (8 * (n - 4)) - 1) return UNDEFINED;
     if (hi >= 2 ** 21) throw new Error('address beyond 2^53');
     return hi * 2 ** 32 + lo;
   }
-  const v = n === 4 ? b.readUInt32LE(at) : n === 2 ? b.readUInt16LE(at) : b.readUInt8(at);
+  if (!(n >= 1 && n <= 6)) throw new Error(`an integer of ${n} bytes`);
+  const v = b.readUIntLE(at, n);
   return v === 2 ** (8 * n) - 1 && n >= 4 ? UNDEFINED : v;
 }
 
 interface Sizes { o: number; l: number; base: number }
 
-interface Message { type: number; data: Buffer }
+/** A header message; `shared`: it holds a reference to a message stored elsewhere (a committed type, a shared message). */
+interface Message { type: number; data: Buffer; shared: boolean }
 
 /** The messages of the object header at `addr` (versions 1 and 2), continuation blocks followed. */
 function objectMessages(r: Reader, s: Sizes, addr: number): Message[] {
@@ -73,8 +75,7 @@ function objectMessages(r: Reader, s: Sizes, addr: number): Message[] {
         const data = b.subarray(p, p + size);
         p += size;
         if (type === 0x10) blocks.push([uint(data, 0, s.o), uint(data, s.o, s.l)]);
-        else if (type !== 0) out.push({ type, data });
-        void mflags;
+        else if (type !== 0) out.push({ type, data, shared: (mflags & 0x02) !== 0 });
       }
     }
     return out;
@@ -88,12 +89,12 @@ function objectMessages(r: Reader, s: Sizes, addr: number): Message[] {
     const b = r.bytes(start, len);
     let p = 0;
     while (p + 8 <= len) {
-      const type = b.readUInt16LE(p), msize = b.readUInt16LE(p + 2);
+      const type = b.readUInt16LE(p), msize = b.readUInt16LE(p + 2), mflags = b[p + 4];
       const data = b.subarray(p + 8, p + 8 + msize);
       p += 8 + msize;
       p = (p + 7) & ~7;
       if (type === 0x10) blocks.push([uint(data, 0, s.o), uint(data, s.o, s.l)]);
-      else if (type !== 0) out.push({ type, data });
+      else if (type !== 0) out.push({ type, data, shared: (mflags & 0x02) !== 0 });
     }
   }
   return out;
@@ -133,6 +134,7 @@ function openStructure(fd: number): Structure | null {
   } else {
     return null;
   }
+  if (![2, 4, 8].includes(s.o) || ![2, 4, 8].includes(s.l)) return null;
   // Addresses count from the base address: 0, or the superblock's own place after a user block.
   if (s.base !== 0 && s.base !== sb) return null;
   return { rel: new Reader(fd, r.size, s.base), s, root, off: s.base };
@@ -155,6 +157,14 @@ function walkPath(st: Structure, datasetPath: string): number | null {
  * rows in C order. Null when that does not hold or the file uses structures not read here.
  */
 export function directLayout(file: string, datasetPath: string, storedShape: number[], elementBytes: number, rowElements: number): DirectLayout | null {
+  return withStructure(file, (st) => {
+    const addr = walkPath(st, datasetPath);
+    return addr === null ? null : layoutOf(st, objectMessages(st.rel, st.s, addr), storedShape, elementBytes, rowElements);
+  });
+}
+
+/** `read` on the file's structure; null when the file cannot be opened, is not read here, or `read` throws. */
+function withStructure<T>(file: string, read: (st: Structure) => T | null): T | null {
   let fd: number;
   try {
     fd = fs.openSync(file, 'r');
@@ -163,10 +173,7 @@ export function directLayout(file: string, datasetPath: string, storedShape: num
   }
   try {
     const st = openStructure(fd);
-    if (!st) return null;
-    const addr = walkPath(st, datasetPath);
-    if (addr === null) return null;
-    return layoutOf(st, objectMessages(st.rel, st.s, addr), storedShape, elementBytes, rowElements);
+    return st ? read(st) : null;
   } catch {
     return null;
   } finally {
@@ -348,7 +355,7 @@ export interface PlainDataset {
 
 class NotReadHere extends Error {}
 
-interface TypeFacts { cls: number; size: number; little: boolean; signed: boolean; ieee: boolean; vlenString: boolean }
+interface TypeFacts { cls: number; size: number; little: boolean; signed: boolean; ieee: boolean; vlenString: boolean; charset?: number }
 
 function typeFacts(d: Buffer): TypeFacts {
   const cls = d[0] & 0x0f, bits = d[1], size = d.readUInt32LE(4);
@@ -361,10 +368,12 @@ function typeFacts(d: Buffer): TypeFacts {
     const offset = d.readUInt16LE(8), precision = d.readUInt16LE(10);
     const expAt = d[12], expBits = d[13], mantAt = d[14], mantBits = d[15], bias = d.readUInt32LE(16);
     // IEEE 754 binary32 and binary64 (other float layouts are left to the library)
-    facts.ieee = offset === 0 && ((size === 4 && precision === 32 && expAt === 23 && expBits === 8 && mantAt === 0 && mantBits === 23 && bias === 127)
+    // sign bit at the top, mantissa normalised with an implied leading 1
+    facts.ieee = offset === 0 && d[2] === 8 * size - 1 && ((bits >> 4) & 3) === 2 && ((size === 4 && precision === 32 && expAt === 23 && expBits === 8 && mantAt === 0 && mantBits === 23 && bias === 127)
       || (size === 8 && precision === 64 && expAt === 52 && expBits === 11 && mantAt === 0 && mantBits === 52 && bias === 1023));
   } else if (cls === 9) {
     facts.vlenString = (bits & 0x0f) === 1;
+    facts.charset = d[2] & 0x0f;
   }
   return facts;
 }
@@ -430,12 +439,11 @@ function denseObjects(r: Reader, s: Sizes, heapAddr: number, btreeAddr: number, 
   if (rootRows === 0) {
     blocks.push({ start: 0, size: startBlock, addr: root });
   } else {
-    const blockCheck = h[9] & 2 ? 4 : 0;
     const sizeOfRow = (row: number) => (row < 2 ? startBlock : startBlock * 2 ** (row - 1));
     const maxDirectRows = Math.log2(maxDirect / startBlock) + 2;
     const directRows = Math.min(rootRows, maxDirectRows);
     if (rootRows > maxDirectRows) throw new NotReadHere('fractal heap with indirect children');
-    const ib = r.bytes(root, 5 + s.o + offsetBytes + directRows * tableWidth * s.o + blockCheck);
+    const ib = r.bytes(root, 5 + s.o + offsetBytes + directRows * tableWidth * s.o);
     if (ib.toString('latin1', 0, 4) !== 'FHIB') throw new NotReadHere('fractal heap indirect block');
     let q = 5 + s.o + offsetBytes, start = 0;
     for (let row = 0; row < directRows; row++) {
@@ -449,17 +457,17 @@ function denseObjects(r: Reader, s: Sizes, heapAddr: number, btreeAddr: number, 
   const bt = r.bytes(btreeAddr, 16 + s.o + 2 + s.l);
   // Name indexes: type 5 records (links) are [hash, heap ID], type 8 (attributes) [heap ID, flags, order, hash].
   const recordType = kind === 'links' ? 5 : 8, idAt = kind === 'links' ? 4 : 0;
-  if (bt.toString('latin1', 0, 4) !== 'BTHD' || bt[5] !== recordType) throw new NotReadHere('name index');
+  if (bt.toString('latin1', 0, 4) !== 'BTHD' || bt[4] !== 0 || bt[5] !== recordType) throw new NotReadHere('name index');
   const recordSize = bt.readUInt16LE(10), depth = bt.readUInt16LE(12);
   const rootNode = uint(bt, 16, s.o), count = bt.readUInt16LE(16 + s.o);
   if (depth !== 0) throw new NotReadHere('name index deeper than one node');
   if (count === 0) return [];
   const leaf = r.bytes(rootNode, 6 + count * recordSize);
-  if (leaf.toString('latin1', 0, 4) !== 'BTLF') throw new NotReadHere('name index leaf');
+  if (leaf.toString('latin1', 0, 4) !== 'BTLF' || leaf[4] !== 0 || leaf[5] !== recordType) throw new NotReadHere('name index leaf');
   const out: Buffer[] = [];
   for (let i = 0; i < count; i++) {
     const id = leaf.subarray(6 + i * recordSize + idAt, 6 + i * recordSize + idAt + idLength);
-    if ((id[0] & 0x30) !== 0) throw new NotReadHere('huge or tiny heap object');
+    if ((id[0] & 0xf0) !== 0) throw new NotReadHere('huge or tiny heap object, or another heap ID version');
     const offset = uint(Buffer.concat([id.subarray(1, 1 + offsetBytes), Buffer.alloc(8)]), 0, 8);
     const length = uint(Buffer.concat([id.subarray(1 + offsetBytes, 1 + offsetBytes + lengthBytes), Buffer.alloc(8)]), 0, 8);
     const block = blocks.find((b) => offset >= b.start && offset + length <= b.start + b.size);
@@ -469,16 +477,35 @@ function denseObjects(r: Reader, s: Sizes, heapAddr: number, btreeAddr: number, 
   return out;
 }
 
+/** A stored text as the library path reads it: up to the first NUL; ASCII byte by byte, UTF-8 strictly. */
+function textOf(bytes: Buffer, charset: number): string {
+  const z = bytes.indexOf(0);
+  const b = z < 0 ? bytes : bytes.subarray(0, z);
+  if (charset === 0) return b.toString('latin1');
+  if (charset !== 1) throw new NotReadHere(`character set ${charset}`);
+  try {
+    return new TextDecoder('utf-8', { fatal: true }).decode(b);
+  } catch {
+    throw new NotReadHere('text that is not UTF-8');
+  }
+}
+
 /** The attributes the library path keeps (smallAttributes), from the header's attribute messages or dense storage. */
 function attributesOf(r: Reader, s: Sizes, msgs: Message[]): Record<string, number | number[] | string> {
+  if (msgs.some((m) => m.type === 0x0c && m.shared)) throw new NotReadHere('shared attribute');
   const stored = msgs.filter((x) => x.type === 0x0c).map((m) => m.data);
   const info = msgs.find((m) => m.type === 0x15);
   if (info) {
+    // With creation order indexed the library lists attributes in that order: not followed here.
+    if (info.data[1] & 2) throw new NotReadHere('attributes indexed by creation order');
     const at = 2 + (info.data[1] & 1 ? 2 : 0);
     const heap = uint(info.data, at, s.o), nameIndex = uint(info.data, at + s.o, s.o);
     if (heap !== UNDEFINED) stored.push(...denseObjects(r, s, heap, nameIndex, 'attributes'));
   }
-  const out: Record<string, number | number[] | string> = {};
+  // Kept in the library's order, by name (byte order of the UTF-8 names): a caller looking a
+  // value up by several spellings takes the first it finds, as on the library path.
+  const found: [string, number | number[] | string][] = [];
+  const out = { set(name: string, v: number | number[] | string) { found.push([name, v]); } };
   for (const d of stored) {
     const version = d[0];
     if (version !== 1 && version !== 2 && version !== 3) throw new NotReadHere(`attribute version ${version}`);
@@ -496,10 +523,14 @@ function attributesOf(r: Reader, s: Sizes, msgs: Message[]): Record<string, numb
     const count = dims.length === 0 ? 1 : dims[0];
     const data = d.subarray(p);
     if (t.vlenString) {
-      // [length, collection address, object index] per element; only a single text is kept.
-      if (dims.length !== 0) continue;
-      const text = globalHeapObject(r, s, uint(data, 4, s.o), data.readUInt32LE(4 + s.o)).toString('utf8');
-      if (text.length <= 500) out[name] = text;
+      // [length, collection address, object index] per element; a single text is kept, and an
+      // empty list (no texts, so no number that is not finite), as the library path keeps them.
+      if (dims.length !== 0) {
+        if (count === 0) out.set(name, []);
+        continue;
+      }
+      const text = textOf(globalHeapObject(r, s, uint(data, 4, s.o), data.readUInt32LE(4 + s.o)), t.charset ?? -1);
+      if (text.length <= 500) out.set(name, text);
       continue;
     }
     if (!((t.cls === 0 && (t.size === 1 || t.size === 2 || t.size === 4 || t.size === 8)) || (t.cls === 1 && t.ieee))) throw new NotReadHere(`attribute type class ${t.cls}`);
@@ -514,12 +545,13 @@ function attributesOf(r: Reader, s: Sizes, msgs: Message[]): Record<string, numb
           : t.signed ? data.readIntLE(at, t.size) : data.readUIntLE(at, t.size));
     }
     if (dims.length === 0) {
-      if (Number.isFinite(values[0])) out[name] = values[0];
+      if (Number.isFinite(values[0])) out.set(name, values[0]);
     } else if (count <= 16 && values.every(Number.isFinite)) {
-      out[name] = values;
+      out.set(name, values);
     }
   }
-  return out;
+  found.sort(([a], [b]) => Buffer.compare(Buffer.from(a, 'utf8'), Buffer.from(b, 'utf8')));
+  return Object.fromEntries(found);
 }
 
 interface DatasetHeader { shape: number[] | null; type: TypeFacts; msgs: Message[] }
@@ -528,6 +560,8 @@ interface DatasetHeader { shape: number[] | null; type: TypeFacts; msgs: Message
 function datasetHeader(s: Sizes, msgs: Message[]): DatasetHeader | null {
   const layout = msgs.find((m) => m.type === 0x08);
   if (!layout) return null;
+  // A committed datatype or a shared message: its content is elsewhere, for the library to read.
+  if (msgs.some((m) => m.shared)) throw new NotReadHere('shared message');
   const space = msgs.find((m) => m.type === 0x01), type = msgs.find((m) => m.type === 0x03);
   if (!space || !type) throw new NotReadHere('dataset without space or type');
   if (msgs.some((m) => m.type === 0x07)) throw new NotReadHere('external data');
@@ -627,15 +661,7 @@ function listDatasetsFrom(st: Structure, addr: number, prefix: string, seen: Set
  * decide instead (see above).
  */
 export function plainDataset(file: string, datasetPath: string | undefined): PlainDataset | null {
-  let fd: number;
-  try {
-    fd = fs.openSync(file, 'r');
-  } catch {
-    return null;
-  }
-  try {
-    const st = openStructure(fd);
-    if (!st) return null;
+  return withStructure(file, (st) => {
     let found: { path: string; header: DatasetHeader } | null = null;
     if (datasetPath !== undefined) {
       const addr = walkPath(st, datasetPath);
@@ -652,8 +678,7 @@ export function plainDataset(file: string, datasetPath: string | undefined): Pla
     const { header } = found;
     if (!header.type.little && header.type.size > 1) return null;
     const storedShape = header.shape!;
-    const layoutMsg = header.msgs.find((m) => m.type === 0x08)!;
-    const ld = layoutMsg.data;
+    const ld = header.msgs.find((m) => m.type === 0x08)!.data;
     let chunks: number[] | null = null;
     if ((ld[0] === 3 || ld[0] === 4) && ld[1] === 2) {
       const dims = ld[0] === 3 ? Array.from({ length: ld[2] }, (_, i) => ld.readUInt32LE(3 + st.s.o + 4 * i))
@@ -666,21 +691,7 @@ export function plainDataset(file: string, datasetPath: string | undefined): Pla
     const msgs = header.msgs;
     return {
       datasetPath: found.path, storedShape, dtype: numericName(header.type) as DType, chunks, attributes,
-      layout: (elementBytes, rowElements) => {
-        const again = fs.openSync(file, 'r');
-        try {
-          const st2 = openStructure(again);
-          return st2 ? layoutOf(st2, msgs, storedShape, elementBytes, rowElements) : null;
-        } catch {
-          return null;
-        } finally {
-          fs.closeSync(again);
-        }
-      },
+      layout: (elementBytes, rowElements) => withStructure(file, (again) => layoutOf(again, msgs, storedShape, elementBytes, rowElements)),
     };
-  } catch {
-    return null;
-  } finally {
-    fs.closeSync(fd);
-  }
+  });
 }
