@@ -1,12 +1,14 @@
 // The one way Scanfold writes a file the user named. The target's folder is resolved once
 // (through symlinks and "..", as the system does); a private folder of our own (mode 0700,
 // created with mkdtemp beside the target) holds the result while it is written, so nobody can
-// plant a link on its name; the finished file is synced and renamed onto the target. Scanfold
+// plant a link on its name; the finished file is synced and renamed onto the target (the folder
+// is named by machine and process, so a later write can remove one a killed writer left). Scanfold
 // never removes a file it did not create, never writes over a file it reads (compared by
 // device and inode, so links are seen through), never replaces a file the user may not write,
 // and never replaces anything but a regular file.
 import * as fs from 'node:fs';
 import * as nodePath from 'node:path';
+import os from 'node:os';
 import { InputError, OutputError } from '../../src-shared/model/errors';
 import { fmtBytes } from '../../src-shared/model/bytes';
 import { errnoText, fileKindText, physicalPath, sameFile, type FileIdentity } from './input-file';
@@ -41,6 +43,49 @@ function installExitHook(): void {
   process.on('exit', () => {
     for (const p of pending) removeOurs(p);
   });
+}
+
+/** This machine, in the temporary folders' names (a folder shared by several machines holds folders of each). */
+const HOST_TAG = os.hostname().replace(/[^A-Za-z0-9_-]/g, '').slice(0, 24) || 'host';
+
+/**
+ * Temporary folders a writer of the same target left behind when it was killed (a crash cannot
+ * clean up): named by this machine and a process that no longer runs, owned by this user, and
+ * holding at most the one file a writer puts there. Anything else is left alone.
+ */
+function removeStaleFolders(dir: string, base: string): void {
+  const prefix = `.${base}.scanfold-${HOST_TAG}-`;
+  let names: string[];
+  try { names = fs.readdirSync(dir); } catch { return; }
+  for (const name of names) {
+    if (!name.startsWith(prefix)) continue;
+    const m = /^(\d+)-[A-Za-z0-9]{6}$/.exec(name.slice(prefix.length));
+    if (!m || isRunning(Number(m[1]))) continue;
+    const folder = nodePath.join(dir, name);
+    try {
+      const st = fs.lstatSync(folder);
+      if (!st.isDirectory() || (process.getuid && st.uid !== process.getuid())) continue;
+      const inside = fs.readdirSync(folder);
+      if (inside.length > 1 || inside.some((f) => f !== (base || 'result'))) continue;
+      for (const f of inside) {
+        const file = nodePath.join(folder, f);
+        if (fs.lstatSync(file).isFile()) fs.unlinkSync(file);
+      }
+      fs.rmdirSync(folder);
+    } catch {
+      // gone meanwhile, or not ours to remove: leave it
+    }
+  }
+}
+
+function isRunning(pid: number): boolean {
+  if (pid === process.pid) return true;
+  try {
+    process.kill(pid, 0);
+    return true;
+  } catch (e) {
+    return (e as NodeJS.ErrnoException).code !== 'ESRCH';
+  }
 }
 
 /** Remove our temporary file and folder, each only if it is still the one we created. */
@@ -85,9 +130,10 @@ export class OutputFile {
     this.protect(protect);
     const dir = nodePath.dirname(target);
     const base = truncateUtf8(nodePath.basename(target), NAME_PART_BYTES);
+    removeStaleFolders(dir, base);
     let tmpDir: string;
     try {
-      tmpDir = fs.mkdtempSync(nodePath.join(dir, `.${base}.scanfold-`));
+      tmpDir = fs.mkdtempSync(nodePath.join(dir, `.${base}.scanfold-${HOST_TAG}-${process.pid}-`));
     } catch (e) {
       throw new InputError(`${flag} ${requested}: cannot create a file in the folder ${dir} (${errnoText((e as NodeJS.ErrnoException).code)}); nothing was written`, 'bad-output');
     }

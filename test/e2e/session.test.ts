@@ -5,6 +5,7 @@
 // file whole.
 import fs from 'node:fs';
 import path from 'node:path';
+import os from 'node:os';
 import { spawn, spawnSync } from 'node:child_process';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { build } from 'esbuild';
@@ -13,6 +14,7 @@ import type { KeptResult } from '../../src-shared/contract/service';
 import type { AppSetup } from '../../src-shared/model/session';
 import { writeHdf5File } from '../../src-main/io/hdf5-writer';
 import { readSessionFile } from '../../src-main/session/session-file';
+import { OutputFile } from '../../src-main/io/output-file';
 import { writeSample } from '../../samples/write-sample';
 import { inputError, makeDemoSample, PYTHON, readNpyF64 } from '../helpers/fixtures';
 
@@ -254,6 +256,7 @@ print(json.dumps(meta))
       outfile: child, packages: 'external', logLevel: 'error',
     });
     const target = path.join(dir, 'killed.scanfold.h5');
+    const stale = () => fs.readdirSync(dir).filter((f) => f.startsWith('.killed.scanfold.h5.scanfold-'));
     fs.copyFileSync(session(), target);
     const before = fs.readFileSync(target);
     let replaced = 0;
@@ -264,8 +267,9 @@ print(json.dumps(meta))
       await new Promise((r) => setTimeout(r, (i % 12) * 4));
       p.kill('SIGKILL');
       await new Promise((r) => p.once('exit', r));
-      // A killed writer leaves its private temporary folder (a crash cannot clean up): remove it.
-      for (const f of fs.readdirSync(dir)) if (f.startsWith('.killed.scanfold.h5.scanfold-')) fs.rmSync(path.join(dir, f), { recursive: true, force: true });
+      // A killed writer leaves its private temporary folder (a crash cannot clean up); the next
+      // writer of the same file removes it, so at most the last one is ever there.
+      expect(stale().length).toBeLessThanOrEqual(1);
       const now = fs.readFileSync(target);
       if (!now.equals(before)) {
         replaced++;
@@ -279,5 +283,16 @@ print(json.dumps(meta))
     }
     // Some kills must have landed during a write (the child writes back to back).
     expect(replaced).toBeLessThan(24);
+    // A write that runs to its end leaves no folder behind, the killed writer's included; a folder
+    // of a process still running, or of another user's or machine's name, is left alone.
+    const live = path.join(dir, `.killed.scanfold.h5.scanfold-${os.hostname().replace(/[^A-Za-z0-9_-]/g, '').slice(0, 24) || 'host'}-${process.pid}-abcdef`);
+    fs.mkdirSync(live);
+    const other = path.join(dir, '.killed.scanfold.h5.scanfold-elsewhere-1-abcdef');
+    fs.mkdirSync(other);
+    const out = OutputFile.create(target, { flag: 'session' });
+    out.discard();
+    expect(stale().sort()).toEqual([path.basename(other), path.basename(live)].sort());
+    fs.rmdirSync(live);
+    fs.rmdirSync(other);
   }, 180_000);
 });
