@@ -49,6 +49,8 @@ interface FirstResults extends CachedFirstPass {
   seconds: number;
   /** The pass was made for a command and took no default images along; a viewer's request adds them. */
   defaultImagesLeftOut?: boolean;
+  /** Their pass, while it runs (a second viewer's request waits for it). */
+  addingImages?: Promise<void>;
 }
 
 interface DatasetRecord {
@@ -495,7 +497,12 @@ export class EngineService implements ScanfoldService {
    * The default images of a pass that left them out (made for a command, now wanted by a
    * viewer): one pass of their own, about the disk the first pass found.
    */
-  private async addDefaultImages(r: DatasetRecord, f: FirstResults, jobId: string | undefined, label: string): Promise<void> {
+  private addDefaultImages(r: DatasetRecord, f: FirstResults, jobId: string | undefined, label: string): Promise<void> {
+    f.addingImages ??= this.runDefaultImages(r, f, jobId, label).finally(() => { delete f.addingImages; });
+    return f.addingImages;
+  }
+
+  private async runDefaultImages(r: DatasetRecord, f: FirstResults, jobId: string | undefined, label: string): Promise<void> {
     const { detY, detX } = r.opened.descriptor.shape;
     const specs = 'notFound' in f.disk ? [] : defaultImageSpecs(f.disk, detY, detX);
     if (specs.length) {

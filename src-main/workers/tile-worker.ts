@@ -132,14 +132,14 @@ function changedError(path: string): InputError {
   return new InputError(`${path}: the file changed on disk (moved, replaced or rewritten) since it was opened; open it again`, 'unreadable');
 }
 
+/** Opens under way, by spec: a second request for the same source (a warm-up, then a tile) waits for the first. */
+const opening = new Map<string, Promise<TileSource>>();
+
 /**
  * The open source for `spec`. A spec the engine got back from an open names one version of the
  * file (fileState): reading it after the file changed fails. A user's spec (no fileState) opens
  * the file as it is now, reopening a source whose file has changed.
  */
-/** Opens under way, by spec: a second request for the same source (a warm-up, then a tile) waits for the first. */
-const opening = new Map<string, Promise<TileSource>>();
-
 function sourceFor(spec: SourceSpec): Promise<TileSource> {
   const key = JSON.stringify(spec);
   const pending = opening.get(key);
