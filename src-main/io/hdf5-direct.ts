@@ -106,6 +106,18 @@ function lookup(r: Reader, s: Sizes, addr: number, name: string): number | null 
   return found && found.hard ? found.addr : null;
 }
 
+/** Where scan row `row` starts in the file, for rows of `rowBytes` bytes. */
+export function rowAddress(layout: DirectLayout, row: number, rowBytes: number): number {
+  return layout.kind === 'contiguous' ? layout.address + row * rowBytes
+    : layout.chunkAddress[Math.floor(row / layout.rowsPerChunk)] + (row % layout.rowsPerChunk) * rowBytes;
+}
+
+/** The scan positions (flat indices) whose patterns a dataset's fingerprint is taken from: the first, middle and last. */
+export function fingerprintPositions(scanY: number, scanX: number): number[] {
+  const last = scanY * scanX - 1;
+  return [...new Set([0, Math.floor(last / 2), last])];
+}
+
 /** A file's structure as far as the readers here need it: sizes, the root group, and the base address. */
 interface Structure { rel: Reader; s: Sizes; root: number; off: number }
 
@@ -303,8 +315,7 @@ export function openHdf5Direct(spec: SourceSpec & { hdf5Direct: Hdf5DirectHint }
   const rowBytes = scanX * detY * detX * elementBytes;
   const patternBytes = detY * detX * elementBytes;
   const layout = hint.layout;
-  const where = (row: number) => layout.kind === 'contiguous' ? layout.address + row * rowBytes
-    : layout.chunkAddress[Math.floor(row / layout.rowsPerChunk)] + (row % layout.rowsPerChunk) * rowBytes;
+  const where = (row: number) => rowAddress(layout, row, rowBytes);
   const what = `${d.path}:${d.datasetPath}`;
   let fd: number | null = f.fd;
   return {

@@ -4,7 +4,7 @@ import type { DatasetDescriptor, Hdf5DatasetInfo, Hdf5DirectHint, Shape4D, Sourc
 import { DTYPE_BYTES, DTYPES, isDType, typedView, type ByteOrder, type DType, type NumericArray } from '../../src-shared/model/dtype';
 import { InputError } from '../../src-shared/model/errors';
 import { fingerprint } from './fingerprint';
-import { directLayout, openHdf5Direct, plainDataset, type DirectLayout } from './hdf5-direct';
+import { directLayout, fingerprintPositions, openHdf5Direct, plainDataset, rowAddress, type DirectLayout } from './hdf5-direct';
 import { availableFilterNames, briefHdf5Error, filterName, getH5, isFilterAvailable, withFileOpenLog, type H5Runtime } from './h5wasm-module';
 import { checkPatternRequest, checkRowRequest, type ReaderMemory, type TileSource } from './tile-source';
 import { checkInputFile, errnoText, openInputFile, physicalPath, readFullyAt } from './input-file';
@@ -176,21 +176,17 @@ function openPlain(file: string, spec: SourceSpec): TileSource | null {
   const layout = plain.layout(elementBytes, shape.scanX * shape.detY * shape.detX);
   if (!layout) return null;
   const byteSize = shape.scanY * shape.scanX * shape.detY * shape.detX * elementBytes;
-  // The fingerprint's samples, as the library path takes them: the first, middle and last pattern.
+  // The fingerprint's samples, the patterns the library path takes.
   const patternBytes = shape.detY * shape.detX * elementBytes;
   const rowBytes = shape.scanX * patternBytes;
-  const last = shape.scanY * shape.scanX - 1;
   const f = openInputFile(file, 'an HDF5 file');
   let samples: Uint8Array[];
   let st: fs.Stats;
   try {
     st = fs.fstatSync(f.fd);
-    samples = [...new Set([0, Math.floor(last / 2), last])].map((p) => {
-      const row = Math.floor(p / shape.scanX), x = p % shape.scanX;
-      const at = layout.kind === 'contiguous' ? layout.address + row * rowBytes
-        : layout.chunkAddress[Math.floor(row / layout.rowsPerChunk)] + (row % layout.rowsPerChunk) * rowBytes;
+    samples = fingerprintPositions(shape.scanY, shape.scanX).map((p) => {
       const b = new Uint8Array(patternBytes);
-      readFullyAt(f.fd, b, at + x * patternBytes, what);
+      readFullyAt(f.fd, b, rowAddress(layout, Math.floor(p / shape.scanX), rowBytes) + (p % shape.scanX) * patternBytes, what);
       return b;
     });
   } finally {
@@ -287,9 +283,7 @@ class Hdf5TileSource implements TileSource {
         for (const x of [...new Set([0, scanX - 1])]) {
           const a = new Uint8Array(patternBytes);
           const b = typedView(this.g.dtype, new ArrayBuffer(patternBytes), 0, this.patternElements);
-          const rowAt = layout.kind === 'contiguous' ? layout.address + row * rowBytes
-            : layout.chunkAddress[Math.floor(row / layout.rowsPerChunk)] + (row % layout.rowsPerChunk) * rowBytes;
-          readFullyAt(fd, a, rowAt + x * patternBytes, `${this.g.file}:${this.g.datasetPath}`);
+          readFullyAt(fd, a, rowAddress(layout, row, rowBytes) + x * patternBytes, `${this.g.file}:${this.g.datasetPath}`);
           const p = row * scanX + x;
           this.readPiece(this.pieceForPositions(p, p + 1, p), b);
           if (!Buffer.from(a.buffer).equals(Buffer.from(b.buffer))) throw new Error('differs');
@@ -340,9 +334,7 @@ class Hdf5TileSource implements TileSource {
   /** Patterns at the first, middle and last position, for the fingerprint. */
   samplePatterns(): Uint8Array[] {
     const { scanY, scanX } = this.g.shape;
-    const last = scanY * scanX - 1;
-    const positions = [...new Set([0, Math.floor(last / 2), last])];
-    return positions.map((p) => {
+    return fingerprintPositions(scanY, scanX).map((p) => {
       const pattern = typedView(this.g.dtype, new ArrayBuffer(this.patternElements * this.elementBytes), 0, this.patternElements);
       this.readPiece(this.pieceForPositions(p, p + 1, p), pattern);
       return new Uint8Array(pattern.buffer, pattern.byteOffset, pattern.byteLength);
