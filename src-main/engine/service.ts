@@ -51,6 +51,11 @@ interface FirstResults extends CachedFirstPass {
   defaultImagesLeftOut?: boolean;
   /** Their pass, while it runs (a second viewer's request waits for it). */
   addingImages?: Promise<void>;
+  /**
+   * Images of the detectors a command asked for, taken along by the pass it started (each over
+   * the detector less the pixels that looked bad on the sample), for that command alone.
+   */
+  along?: { specs: DetectorSpec[]; images: Float64Array[] };
 }
 
 interface DatasetRecord {
@@ -111,6 +116,17 @@ function defaultImageSpecs(disk: { cx: number; cy: number; r: number }, detY: nu
   const specs: DetectorSpec[] = [{ shape: { kind: 'disk', cx: disk.cx, cy: disk.cy, r: disk.r }, label: 'bright field' }];
   if (edge > 2 * disk.r + 1) specs.push({ shape: { kind: 'annulus', cx: disk.cx, cy: disk.cy, rInner: 2 * disk.r, rOuter: edge }, label: 'annular dark field' });
   return specs;
+}
+
+/** Whether sorted `indices` hold `i`. */
+function isInside(indices: Uint32Array, i: number): boolean {
+  let lo = 0, hi = indices.length - 1;
+  while (lo <= hi) {
+    const mid = (lo + hi) >> 1;
+    if (indices[mid] === i) return true;
+    if (indices[mid] < i) lo = mid + 1; else hi = mid - 1;
+  }
+  return false;
 }
 
 /** Input problems found by an analysis name the file they were found in. */
@@ -374,7 +390,7 @@ export class EngineService implements ScanfoldService {
    * The first pass's results: those already at hand, else the cache's (unless the preview cube
    * itself is needed), else a pass over the data, whose results then go to the cache.
    */
-  private async ensureFirstPass(r: DatasetRecord, jobId: string | undefined, label: string, needPreview = false): Promise<FirstResults> {
+  private async ensureFirstPass(r: DatasetRecord, jobId: string | undefined, label: string, needPreview = false, along?: DetectorSpec[]): Promise<FirstResults> {
     if (r.first && (r.first.summary || !needPreview)) {
       if (needPreview && r.first.defaultImagesLeftOut) await this.addDefaultImages(r, r.first, jobId, label);
       return r.first;
@@ -397,7 +413,7 @@ export class EngineService implements ScanfoldService {
     }
     // The default images are for a viewer (asked for with the preview cube); a command that
     // only needs bad pixels, the disk or the COM sums spares the pass their kernel.
-    const pending = this.runFirstPass(r, key, jobId, label, needPreview);
+    const pending = this.runFirstPass(r, key, jobId, label, needPreview, along);
     r.firstPending = pending;
     try {
       return await pending;
@@ -406,8 +422,8 @@ export class EngineService implements ScanfoldService {
     }
   }
 
-  private async runFirstPass(r: DatasetRecord, key: string | null, jobId: string | undefined, label: string, withImages: boolean): Promise<FirstResults> {
-    const comPlan = await this.comPlanForPass(r, withImages);
+  private async runFirstPass(r: DatasetRecord, key: string | null, jobId: string | undefined, label: string, withImages: boolean, along?: DetectorSpec[]): Promise<FirstResults> {
+    const comPlan = await this.comPlanForPass(r, withImages, along);
     // The first default image (bright field) goes out row by row as tiles finish, so a view can fill in.
     const { scanY: sy, scanX: sx } = r.opened.descriptor.shape;
     const rows = comPlan?.imageSpecs.length
@@ -440,6 +456,7 @@ export class EngineService implements ScanfoldService {
         label: spec.label ?? describeDetector(spec), detector: spec, image: summary.com!.images[k],
       })) : [],
       ...(comPlan && !withImages ? { defaultImagesLeftOut: true } : {}),
+      ...(summary.com && comPlan?.alongSpecs ? { along: { specs: comPlan.alongSpecs, images: summary.com.images.slice(comPlan.imageSpecs.length) } } : {}),
     };
     if (key && this.cacheDir) writeCachedFirstPass(this.cacheDir, key, r.first);
     r.opened = { ...r.opened, version: r.opened.version + 1 };
@@ -453,7 +470,7 @@ export class EngineService implements ScanfoldService {
    * scan, whose values are kept per position so any that the pass clears can be added back.
    * Null when too many pixels look bad for their values to be kept.
    */
-  private async comPlanForPass(r: DatasetRecord, withImages: boolean): Promise<(FirstPassComPlan & { imageSpecs: DetectorSpec[] }) | null> {
+  private async comPlanForPass(r: DatasetRecord, withImages: boolean, along?: DetectorSpec[]): Promise<(FirstPassComPlan & { imageSpecs: DetectorSpec[]; alongSpecs: DetectorSpec[] | null }) | null> {
     const { scanY, scanX, detY, detX } = r.opened.descriptor.shape;
     const side = Math.min(COM_SAMPLE_SIDE, scanY, scanX);
     const positions: [number, number][] = [];
@@ -490,7 +507,53 @@ export class EngineService implements ScanfoldService {
       }
     }
     const images = imageSpecs.map((spec) => this.compileDetectors(r, [spec], seen.mask)[0]);
-    return { mask, watch, images, imageSpecs };
+    // A command's own detectors too (see virtualImages), unless one lies wholly on suspect pixels.
+    let alongSpecs: DetectorSpec[] | null = null;
+    if (along?.length) {
+      try {
+        images.push(...this.compileDetectors(r, along, seen.mask));
+        alongSpecs = along;
+      } catch (e) {
+        if (!isInputError(e)) throw e;
+      }
+    }
+    return { mask, watch, images, imageSpecs, alongSpecs };
+  }
+
+  /**
+   * The images of `specs` taken along by the first pass, made exact for the final bad pixels:
+   * watched pixels that proved good are added back from their kept values. Null (the caller
+   * then makes its own pass) when the pass took none for these detectors, or a bad pixel inside
+   * a detector was not watched and may have counts. Integer data and binary detectors only
+   * (the caller's condition), so every sum is of whole numbers and equals its own pass's exactly.
+   */
+  private imagesTakenAlong(r: DatasetRecord, specs: DetectorSpec[], bad: Uint8Array | undefined): Float64Array[] | null {
+    const f = r.first;
+    const along = f?.along;
+    if (!f || !along || along.specs !== specs) return null;
+    delete f.along;
+    const com = f.summary?.com;
+    if (!com) return null;
+    const { detY, detX } = r.opened.descriptor.shape;
+    const watched = new Uint8Array(detY * detX);
+    for (const i of com.watch) watched[i] = 1;
+    const nW = com.watch.length, n = along.images[0]?.length ?? 0;
+    const out: Float64Array[] = [];
+    for (let k = 0; k < specs.length; k++) {
+      const full = compileDetector(specs[k], detY, detX);
+      if (full.mode !== 'indices') return null;
+      const image = along.images[k].slice();
+      for (const i of full.indices) {
+        if (bad?.[i] && !watched[i] && !(f.maxPattern[i] === -Infinity || (f.maxPattern[i] === 0 && f.meanPattern[i] === 0))) return null;
+      }
+      for (let j = 0; j < nW; j++) {
+        const i = com.watch[j];
+        if (bad?.[i] || !isInside(full.indices, i)) continue;
+        for (let p = 0; p < n; p++) image[p] += com.watchValues[p * nW + j];
+      }
+      out.push(image);
+    }
+    return out;
   }
 
   /**
@@ -513,9 +576,9 @@ export class EngineService implements ScanfoldService {
     delete f.defaultImagesLeftOut;
   }
 
-  private async badPixelMask(r: DatasetRecord, mode: BadPixelsMode | undefined, jobId: string | undefined): Promise<{ mask: Uint8Array | undefined; count: number; list?: { hot: [number, number][]; dead: [number, number][] } }> {
+  private async badPixelMask(r: DatasetRecord, mode: BadPixelsMode | undefined, jobId: string | undefined, along?: DetectorSpec[]): Promise<{ mask: Uint8Array | undefined; count: number; list?: { hot: [number, number][]; dead: [number, number][] } }> {
     if (mode === 'none') return { mask: undefined, count: 0 };
-    const f = await this.ensureFirstPass(r, jobId ? `${jobId}/first-pass` : undefined, 'first pass (bad pixels)');
+    const f = await this.ensureFirstPass(r, jobId ? `${jobId}/first-pass` : undefined, 'first pass (bad pixels)', false, along);
     return { mask: f.badPixels.mask, count: f.badPixels.hot.length + f.badPixels.dead.length, list: { hot: f.badPixels.hot, dead: f.badPixels.dead } };
   }
 
@@ -547,10 +610,18 @@ export class EngineService implements ScanfoldService {
     return this.requestKept('virtualImages', req, async () => {
       const r = this.record(req.dataset);
       // Every detector is checked before any pass over the data.
-      this.compileDetectors(r, req.detectors);
-      const bad = await this.badPixelMask(r, req.badPixels, req.jobId);
+      const plain = this.compileDetectors(r, req.detectors);
+      // A first pass still to make (for the bad pixels) takes the images along: one read, not
+      // two. Integer data and binary detectors, whose sums it can make exact afterwards.
+      const d = r.opened.descriptor;
+      const along = req.badPixels !== 'none' && !r.first && !r.firstPending && !d.dtype.startsWith('float') && plain.every((c) => c.mode === 'indices')
+        ? req.detectors : undefined;
+      const bad = await this.badPixelMask(r, req.badPixels, req.jobId, along);
       const compiled = this.compileDetectors(r, req.detectors, bad.mask);
-      const v = await this.track(this.engine.virtualImages(specOf(r), compiled), req.jobId, 'virtual images');
+      const taken = along ? this.imagesTakenAlong(r, along, bad.mask) : null;
+      const v = taken
+        ? { descriptor: d, images: taken, nonFinite: 0, seconds: r.first?.seconds ?? 0 }
+        : await this.track(this.engine.virtualImages(specOf(r), compiled), req.jobId, 'virtual images');
       return {
         dataset: r.id, descriptor: v.descriptor, images: v.images, labels: req.detectors.map((s) => s.label ?? describeDetector(s)),
         badPixelsLeftOut: bad.count, ...(bad.list ? { badPixels: bad.list } : {}), nonFiniteInputs: v.nonFinite, seconds: v.seconds,

@@ -81,6 +81,46 @@ print(json.dumps(((a * m * xx).sum(axis=(-2, -1)) / t).ravel().tolist()))`, file
     }
   });
 
+  it('virtual images before any first pass: the pass the bad pixels need takes them along (one read), equal to NumPy and to a pass of their own', async () => {
+    // steady.npy (made by the test above): a.npy without its one-pattern spike at (20, 20).
+    const cases = [
+      // The disk holds the hot pixel (3, 5), watched from the sample: one read.
+      { file: path.join(fx, 'steady.npy'), detectors: [{ shape: { kind: 'disk' as const, cx: 5, cy: 3, r: 4 } }, { shape: { kind: 'annulus' as const, cx: 18, cy: 20, rInner: 3, rOuter: 15 } }], reads: 1 },
+      // The annulus holds the spike, found bad only by the whole pass: its own pass follows.
+      { file: path.join(fx, 'a.npy'), detectors: [{ shape: { kind: 'annulus' as const, cx: 18, cy: 20, rInner: 1, rOuter: 15 } }], reads: 2 },
+    ];
+    for (const c of cases) {
+      const fresh = new EngineService({ workers: 2, cacheDir: null });
+      try {
+        const d = await fresh.open({ path: c.file });
+        const labels: string[] = [];
+        fresh.onEvent((e) => { if (e.kind === 'job' && e.job.state === 'done') labels.push(e.job.label); });
+        const v = await fresh.virtualImages({ dataset: d.id, detectors: c.detectors, jobId: 'img' });
+        expect([...new Set(labels)], c.file).toEqual(c.reads === 1 ? ['first pass (bad pixels)'] : ['first pass (bad pixels)', 'virtual images']);
+        // reference: NumPy's sums over each detector (pixel centres inside, inner radius exclusive) without the bad pixels listed
+        const bad = JSON.stringify([...v.badPixels!.hot, ...v.badPixels!.dead]);
+        const p = spawnSync(PYTHON, ['-c', `import numpy as np, sys, json
+a = np.load(sys.argv[1]).astype(np.float64); ky, kx = a.shape[-2:]
+yy, xx = np.mgrid[0:ky, 0:kx]; good = np.ones((ky, kx), bool)
+for y, x in json.loads(sys.argv[2]): good[y, x] = False
+out = []
+for s in json.loads(sys.argv[3]):
+    s = s['shape']; r = np.hypot(xx - s['cx'], yy - s['cy'])
+    m = (r <= s['r']) if s['kind'] == 'disk' else ((r > s['rInner']) & (r <= s['rOuter']))
+    out.append((a * (m & good)).sum(axis=(-2, -1)).ravel().tolist())
+print(json.dumps(out))`, c.file, bad, JSON.stringify(c.detectors)], { encoding: 'utf8' });
+        expect(p.status, p.stderr).toBe(0);
+        const want = JSON.parse(p.stdout) as number[][];
+        v.images.forEach((im, k) => expect(Array.from(im)).toEqual(want[k]));
+        // The same request again (the first pass known now) makes a pass of its own: bitwise the same.
+        const again = await fresh.virtualImages({ dataset: d.id, detectors: c.detectors });
+        again.images.forEach((im, k) => expect(Array.from(im)).toEqual(Array.from(v.images[k])));
+      } finally {
+        await fresh.shutdown();
+      }
+    }
+  });
+
   it('the pattern at one probe position equals NumPy\'s a[y, x]', async () => {
     const d = await service.open({ path: path.join(fx, 'a.h5'), datasetPath: '/entry/frames' });
     const r = await service.patternAt({ dataset: d.id, y: 2, x: 3 });
