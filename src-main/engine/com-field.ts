@@ -160,6 +160,15 @@ export interface ComSumsOverGoodPixels {
 }
 
 /**
+ * Whether detector pixel `i` may hold counts in some pattern, judged from the first pass's mean
+ * and max patterns: not when it was never finite (max −∞) or zero everywhere. A bad pixel the
+ * pass did not watch can be left out of sums made without it only when it holds none.
+ */
+export function mayHaveCounts(i: number, mean: Float64Array, max: Float64Array): boolean {
+  return !(max[i] === -Infinity || (max[i] === 0 && mean[i] === 0));
+}
+
+/**
  * The first pass's COM sums turned into what the COM pass computes with its defaults (whole
  * detector less the bad pixels `bad`, no threshold): watched pixels that are not bad are added
  * back from their kept values. Null when a bad pixel was not watched and could have counts (a
@@ -169,7 +178,7 @@ export function comSumsLessBadPixels(c: Omit<FirstPassComSums, 'images'>, bad: U
   const watched = new Uint8Array(bad.length);
   for (const i of c.watch) watched[i] = 1;
   for (let i = 0; i < bad.length; i++) {
-    if (bad[i] && !watched[i] && !(max[i] === -Infinity || (max[i] === 0 && mean[i] === 0))) return null;
+    if (bad[i] && !watched[i] && mayHaveCounts(i, mean, max)) return null;
   }
   const total = c.total.slice(), sumX = c.sumX.slice(), sumY = c.sumY.slice();
   let nonFinite = c.nonFinite;

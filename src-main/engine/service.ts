@@ -26,7 +26,7 @@ import type { FirstPassComPlan } from '../workers/tile-worker';
 import type { Job } from './job';
 import { previewDetectorImages } from './preview';
 import { previewImages } from '../../src-shared/compute/preview-image';
-import { comDefaults, comFieldFromSums, comSumsLessBadPixels } from './com-field';
+import { comDefaults, comFieldFromSums, comSumsLessBadPixels, mayHaveCounts } from './com-field';
 import { cacheKey, defaultCacheDir, readCachedFirstPass, writeCachedFirstPass, type CachedFirstPass } from './first-pass-cache';
 import { findVacuum, type VacuumFinding } from '../../src-shared/compute/vacuum';
 import { featuresToImage, planFeatures, type FeaturePlan } from '../../src-shared/compute/pattern-features';
@@ -527,33 +527,32 @@ export class EngineService implements ScanfoldService {
    * a detector was not watched and may have counts. Integer data and binary detectors only
    * (the caller's condition), so every sum is of whole numbers and equals its own pass's exactly.
    */
-  private imagesTakenAlong(r: DatasetRecord, specs: DetectorSpec[], bad: Uint8Array | undefined): Float64Array[] | null {
+  private imagesTakenAlong(r: DatasetRecord, specs: DetectorSpec[], plain: CompiledDetector[], bad: Uint8Array | undefined): Float64Array[] | null {
     const f = r.first;
     const along = f?.along;
     if (!f || !along || along.specs !== specs) return null;
     delete f.along;
     const com = f.summary?.com;
     if (!com) return null;
-    const { detY, detX } = r.opened.descriptor.shape;
-    const watched = new Uint8Array(detY * detX);
+    const watched = new Uint8Array(f.meanPattern.length);
     for (const i of com.watch) watched[i] = 1;
-    const nW = com.watch.length, n = along.images[0]?.length ?? 0;
-    const out: Float64Array[] = [];
-    for (let k = 0; k < specs.length; k++) {
-      const full = compileDetector(specs[k], detY, detX);
+    const nW = com.watch.length;
+    const pixels: Uint32Array[] = [];
+    for (const full of plain) {
       if (full.mode !== 'indices') return null;
-      const image = along.images[k].slice();
-      for (const i of full.indices) {
-        if (bad?.[i] && !watched[i] && !(f.maxPattern[i] === -Infinity || (f.maxPattern[i] === 0 && f.meanPattern[i] === 0))) return null;
-      }
+      for (const i of full.indices) if (bad?.[i] && !watched[i] && mayHaveCounts(i, f.meanPattern, f.maxPattern)) return null;
+      pixels.push(full.indices);
+    }
+    // The images are this request's alone (taken off the first pass above): completed in place.
+    return pixels.map((indices, k) => {
+      const image = along.images[k];
       for (let j = 0; j < nW; j++) {
         const i = com.watch[j];
-        if (bad?.[i] || !isInside(full.indices, i)) continue;
-        for (let p = 0; p < n; p++) image[p] += com.watchValues[p * nW + j];
+        if (bad?.[i] || !isInside(indices, i)) continue;
+        for (let p = 0; p < image.length; p++) image[p] += com.watchValues[p * nW + j];
       }
-      out.push(image);
-    }
-    return out;
+      return image;
+    });
   }
 
   /**
@@ -618,7 +617,7 @@ export class EngineService implements ScanfoldService {
         ? req.detectors : undefined;
       const bad = await this.badPixelMask(r, req.badPixels, req.jobId, along);
       const compiled = this.compileDetectors(r, req.detectors, bad.mask);
-      const taken = along ? this.imagesTakenAlong(r, along, bad.mask) : null;
+      const taken = along ? this.imagesTakenAlong(r, along, plain, bad.mask) : null;
       const v = taken
         ? { descriptor: d, images: taken, nonFinite: 0, seconds: r.first?.seconds ?? 0 }
         : await this.track(this.engine.virtualImages(specOf(r), compiled), req.jobId, 'virtual images');
