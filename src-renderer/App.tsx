@@ -334,7 +334,8 @@ export function App({ client, store, shell = null }: { client: Client; store: St
     try {
       const f = await client.exportResult({
         key, array: array.name, format: exportFormat, ...(stack ? { index: Math.min(exportIndex, array.shape[0] - 1) } : {}),
-        ...(exportFormat === 'png' ? { colormap: view.colormap === 'categories' ? 'viridis' : view.colormap, scaling: view.scaling } : {}),
+        // The view's colour map, but a cluster map keeps the engine's categories (as the Scan view draws it).
+        ...(exportFormat === 'png' ? { ...(array.units.startsWith('cluster index') ? {} : { colormap: view.colormap }), scaling: view.scaling } : {}),
       });
       const a = document.createElement('a');
       a.href = URL.createObjectURL(new Blob([f.bytes as BlobPart], { type: f.mediaType }));

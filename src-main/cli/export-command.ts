@@ -30,8 +30,8 @@ export async function cmdExport(args: string[], engineOptions: (v: Record<string
   }
   if (typeof v.out !== 'string') throw new InputError(`export needs --out FILE.${format}`);
   if (format === 'h5') return exportSet(file, [name, ...extra], v.out, engineOptions, v);
-  // The engine checks the colour map's name (and says which there are).
-  const colormap = typeof v.colormap === 'string' ? v.colormap : 'viridis';
+  // The engine checks the colour map's name (and says which there are), and picks one when none is given.
+  const colormap = typeof v.colormap === 'string' ? v.colormap : undefined;
   let scaling: Scaling = { kind: 'linear' };
   if (typeof v.scaling === 'string') {
     const g = /^gamma:([\d.]+)$/.exec(v.scaling);
@@ -56,7 +56,7 @@ export async function cmdExport(args: string[], engineOptions: (v: Record<string
     out.protect(s.datasets.flatMap((d) => (d.path ? [d.path] : [])));
     const f = await service.exportResult({
       key, format, ...(array ? { array } : {}), ...(index !== undefined ? { index } : {}),
-      ...(format === 'png' ? { colormap, scaling, ...(limits ? { limits } : {}), ...(scanStep !== undefined ? { scanStepNm: scanStep } : {}),
+      ...(format === 'png' ? { ...(colormap ? { colormap } : {}), scaling, ...(limits ? { limits } : {}), ...(scanStep !== undefined ? { scanStepNm: scanStep } : {}),
         ...(mradPerPixel !== undefined ? { mradPerPixel } : {}) } : {}),
     });
     const path = await writeBytes(out, f.bytes);

@@ -271,7 +271,8 @@ scanfold export FILE.scanfold.h5 KEY [KEY…] --format h5 --out SET.h5
                           just them, laid out as in the session (h5py reads it, Scanfold reopens it)
   --out FILE              where it goes (written whole or not at all)
   --index I               one image of a 3-D stack (a component, a cluster, a detector)
-  --colormap NAME         png: viridis (default), cividis, magma, sinebow or categories
+  --colormap NAME         png: viridis, cividis, magma, sinebow or categories (default: categories
+                          for a cluster map, viridis for the rest)
   --scaling linear|log|gamma:G
                           png: how values map onto the colours (default linear)
   --limits LO,HI          png: the colour bar's limits (default: 0.5th and 99.5th percentiles)

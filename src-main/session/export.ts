@@ -63,7 +63,9 @@ export async function exportResult(results: KeptResult[], req: ExportRequest, sc
   }
   const [h, w] = shape;
   if (req.format === 'tiff') return done(await tiffBytes(data, w, h), ', float32');
-  const colormap = (req.colormap ?? 'viridis') as ColormapName;
+  // A cluster map is drawn in categories unless a colour map is asked for, as the app draws it.
+  const clusters = String(a.attrs?.units ?? '').startsWith('cluster index');
+  const colormap = (req.colormap ?? (clusters ? 'categories' : 'viridis')) as ColormapName;
   if (!COLORMAP_NAMES.includes(colormap)) throw new InputError(`export: colour map ${colormap}: expected one of ${COLORMAP_NAMES.join(', ')}`, 'bad-request');
   // Categories as the app draws them: value k (a cluster) in the k-th colour.
   const limits = req.limits ?? (colormap === 'categories' ? [-0.5, 9.5] as [number, number] : null);

@@ -134,6 +134,10 @@ print(json.dumps({
     const set = path.join(dir, 'set.h5');
     expect(scanfold('export', s(), 'pca', 'field', '--format', 'h5', '--out', set).status).toBe(0);
     expect(py("import h5py,sys; print(sorted(h5py.File(sys.argv[1])['results'].keys()))", set).trim()).toBe("['field', 'pca']");
+    // A cluster map is drawn in categories unless a colour map is asked for, as the app draws it.
+    const clusters = scanfold('export', s(), 'kmeans/labels', '--format', 'png', '--out', path.join(dir, 'labels.png'));
+    expect(clusters.status, clusters.stderr).toBe(0);
+    expect(clusters.stderr).toMatch(/, categories, limits -0\.5000 … 9\.500/);
     // A stack needs --index for an image; the message says so.
     const stack = scanfold('export', s(), 'pca/loadings', '--format', 'png', '--out', path.join(dir, 'x.png'));
     expect(stack.status).toBe(2);
