@@ -93,14 +93,18 @@ export function App({ client, store, shell = null }: { client: Client; store: St
   const [loadedFrom, setLoadedFrom] = useState<string | null>(null);
   const [sessionNote, setSessionNote] = useState<string | null>(null);
   const kept = useRef(new Set<string>());
-  const [keptVersion, setKeptVersion] = useState(0);
-  /** Goes up whenever a result is kept (a new one, or one replaced under the same key). */
+  /**
+   * Goes up whenever the kept results change (a new one, one replaced under the same key, a
+   * session opened): read at once by the autosave snapshot, and as state for what lists them.
+   */
   const keptCount = useRef(0);
+  const [keptVersion, setKeptVersion] = useState(0);
+  const keptChanged = useCallback(() => { keptCount.current++; setKeptVersion(keptCount.current); }, []);
   /** A result the engine kept for the session: counted only if its dataset is still the one on view (a late job's is not). */
   const markKept = useCallback((key: string, dataset: string) => {
     if (datasetRef.current !== dataset) return;
-    kept.current.add(key); keptCount.current++; setKeptVersion((v) => v + 1);
-  }, []);
+    kept.current.add(key); keptChanged();
+  }, [keptChanged]);
   /** What a save would write, as it stood at the last save or open: autosave skips while nothing differs. */
   const savedSnapshot = useRef<string | null>(null);
   const snapshot = useCallback(() => {
@@ -111,6 +115,7 @@ export function App({ client, store, shell = null }: { client: Client; store: St
   const [relinkTo, setRelinkTo] = useState('');
   const [recoverable, setRecoverable] = useState<Recoverable[]>([]);
   const [allRecoveries, setAllRecoveries] = useState(false);
+  const recoverableNewest = useMemo(() => newestFirst(recoverable), [recoverable]);
   const lastRecovery = useRef<string | null>(null);
 
   const fail = useCallback((e: unknown) => {
@@ -151,7 +156,7 @@ export function App({ client, store, shell = null }: { client: Client; store: St
       j.jobs.clear();
       setJobs((m) => { const next = new Map(m); for (const u of updates) next.set(u.jobId, u); return next; });
     };
-    return client.onEvent((e) => {
+    const off = client.onEvent((e) => {
       if (e.kind === 'job') {
         jobsFrame.current.jobs.set(e.job.jobId, e.job);
         jobsFrame.current.frame ??= requestAnimationFrame(flushJobs);
@@ -160,6 +165,13 @@ export function App({ client, store, shell = null }: { client: Client; store: St
         rowsFrame.current ??= setTimeout(flushRows, ROWS_EVERY_MS);
       }
     });
+    return () => {
+      off();
+      if (rowsFrame.current !== null) clearTimeout(rowsFrame.current);
+      if (jobsFrame.current.frame !== null) cancelAnimationFrame(jobsFrame.current.frame);
+      rowsFrame.current = null;
+      jobsFrame.current.frame = null;
+    };
   }, [client]);
 
   const startDataset = useCallback(async (id: string, descriptor: DatasetDescriptor) => {
@@ -205,12 +217,7 @@ export function App({ client, store, shell = null }: { client: Client; store: St
     const canvas = document.querySelector('canvas[data-view=scan]') as HTMLCanvasElement | null;
     if (!canvas) return;
     canvas.toBlob((blob) => {
-      if (!blob) return;
-      const a = document.createElement('a');
-      a.href = URL.createObjectURL(blob);
-      a.download = `${store.get().dataset?.name ?? 'scan'}-scan-view.png`;
-      a.click();
-      setTimeout(() => URL.revokeObjectURL(a.href), 10_000);
+      if (blob) download(blob, `${store.get().dataset?.name ?? 'scan'}-scan-view.png`);
     }, 'image/png');
   }, [store]);
 
@@ -230,18 +237,17 @@ export function App({ client, store, shell = null }: { client: Client; store: St
     }
     // Only the results of the dataset on view are shown (a session may hold several datasets').
     const r = sortResults(s.results.filter((x) => refId === null || x.datasetRef === refId));
-    keptCount.current++;
     const withItems = withOutsideItems(stateFromSetup(s.document.app, dataset), r);
     const next = s.document.app ? withItems : showsForResults(withItems, r);
     store.reset(next);
-    kept.current = new Set(s.results.map((x) => x.key)); setKeptVersion((v) => v + 1);
+    kept.current = new Set(s.results.map((x) => x.key)); keptChanged();
     setPca(r.pca ?? null); setKmeans(r.kmeans ?? null); setField(r.field ?? null); setCalibration(r.calibration ?? null);
     if (r.fit) {
       const refs = (s.results.find((x) => x.key === KEYS.fit)?.request.references ?? []) as unknown[];
       const names = refs.map((shape, k) => next.regions.find((g) => JSON.stringify(g.shape) === JSON.stringify(shape))?.name ?? r.fit!.regions[k]);
       setFit({ ...r.fit, names });
     } else setFit(null);
-    if (r.field) { setRotationText(String(Math.round(r.field.rotation.degrees * 100) / 100)); setFlip(r.field.rotation.flip); }
+    if (r.field) { setRotationText(String(round2(r.field.rotation.degrees))); setFlip(r.field.rotation.flip); }
     setDetectorImages(new Map(r.detectors.map((d) => [d.id, { values: d.image, width: d.scanX, height: d.scanY, label: next.detectors.find((x) => x.id === d.id)?.name ?? d.name }])));
     setRegionPatterns(new Map(r.regions.map((g) => [g.id, g.result])));
     setFirst(null); setFilling(null); setPattern(null);
@@ -337,11 +343,7 @@ export function App({ client, store, shell = null }: { client: Client; store: St
         // The view's colour map, but a cluster map keeps the engine's categories (as the Scan view draws it).
         ...(exportFormat === 'png' ? { ...(array.units.startsWith('cluster index') ? {} : { colormap: view.colormap }), scaling: view.scaling } : {}),
       });
-      const a = document.createElement('a');
-      a.href = URL.createObjectURL(new Blob([f.bytes as BlobPart], { type: f.mediaType }));
-      a.download = f.fileName;
-      a.click();
-      setTimeout(() => URL.revokeObjectURL(a.href), 10_000);
+      download(new Blob([f.bytes as BlobPart], { type: f.mediaType }), f.fileName);
       setSessionNote(`exported ${f.description}`);
     } catch (e) { fail(e); }
   };
@@ -574,7 +576,7 @@ export function App({ client, store, shell = null }: { client: Client; store: St
     const r = await client.comField({ dataset: d.id, rotation, jobId: newJobId('field'), keepAs: KEYS.field, ...descan, ...(cal ? { calibration: cal } : {}) });
     setField(r);
     markKept(KEYS.field, d.id);
-    setRotationText(String(Math.round(r.rotation.degrees * 100) / 100));
+    setRotationText(String(round2(r.rotation.degrees)));
     setFlip(r.rotation.flip);
     setScanShows({ kind: 'field', map: 'direction' });
   });
@@ -671,7 +673,7 @@ export function App({ client, store, shell = null }: { client: Client; store: St
       {error && <div className="error" role="alert">{error} <button onClick={() => setError(null)}>dismiss</button></div>}
       {sessionNote && <div className="note" role="status">{sessionNote} <button onClick={() => setSessionNote(null)}>dismiss</button></div>}
       {/* The newest offers in full; older ones (several stops without a save) in one line, so they never push the views away. */}
-      {newestFirst(recoverable).slice(0, allRecoveries ? undefined : RECOVERY_OFFERS_SHOWN).map((r) => (
+      {recoverableNewest.slice(0, allRecoveries ? undefined : RECOVERY_OFFERS_SHOWN).map((r) => (
         <div key={r.recovery} className="note recover" aria-live="polite">
           Work not saved when Scanfold last stopped: {r.session ? baseName(r.session) : 'an unsaved session'}, {r.results} result{r.results === 1 ? '' : 's'}, last written {new Date(r.modified).toLocaleString()}.
           <button onClick={() => void recover(r)}>Recover</button>
@@ -682,7 +684,7 @@ export function App({ client, store, shell = null }: { client: Client; store: St
         <div className="note recover">
           and {recoverable.length - RECOVERY_OFFERS_SHOWN} older unsaved session{recoverable.length - RECOVERY_OFFERS_SHOWN === 1 ? '' : 's'}.
           <button onClick={() => setAllRecoveries(true)}>Show them</button>
-          <button onClick={() => newestFirst(recoverable).slice(RECOVERY_OFFERS_SHOWN).forEach(discardRecovered)}>Discard them</button>
+          <button onClick={() => recoverableNewest.slice(RECOVERY_OFFERS_SHOWN).forEach(discardRecovered)}>Discard them</button>
         </div>
       )}
       {absentData.map((d) => (
@@ -873,6 +875,15 @@ export function App({ client, store, shell = null }: { client: Client; store: St
 }
 
 const baseName = (p: string) => p.split(/[\\/]/).pop() ?? p;
+
+/** Hand `blob` to the browser as a download named `name`. */
+function download(blob: Blob, name: string): void {
+  const a = document.createElement('a');
+  a.href = URL.createObjectURL(blob);
+  a.download = name;
+  a.click();
+  setTimeout(() => URL.revokeObjectURL(a.href), 10_000);
+}
 
 /** A whole number between min and max (components, clusters); other entries are ignored. */
 function CountInput({ label, ariaLabel, min, max, value, set }: { label: string; ariaLabel: string; min: number; max: number; value: number; set(n: number): void }) {

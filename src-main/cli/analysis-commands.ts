@@ -136,8 +136,7 @@ export async function withService<T>(options: EngineOptions, quiet: boolean, fn:
     try {
       let keep: Keep = {};
       if (session) {
-        if (fs.existsSync(session.path)) await service.openSession({ path: session.path, openData: false });
-        const taken = new Set((await service.sessionEntries()).map((e) => e.key));
+        const taken = new Set(fs.existsSync(session.path) ? (await service.openSession({ path: session.path, openData: false })).results.map((e) => e.key) : []);
         let key = session.key ?? session.command;
         for (let n = 2; session.key === null && taken.has(key); n++) key = `${session.command}-${n}`;
         keep = { keepAs: key };

@@ -4,11 +4,11 @@
 import { InputError } from '../../src-shared/model/errors';
 import type { Scaling } from '../../src-shared/model/contrast';
 import type { EngineOptions } from '../engine/engine';
-import { physicalPath } from '../io/input-file';
+import { physicalPath, sameFileAt } from '../io/input-file';
 import { OutputFile } from '../io/output-file';
 import { writeBytes } from '../io/array-export';
 import { withService } from './analysis-commands';
-import { decimalNumber, parseFlags, wholeNumber } from './source-flags';
+import { decimalNumber, numberList, parseFlags, wholeNumber } from './source-flags';
 
 type Flags = Record<string, string | boolean | (string | boolean)[] | undefined>;
 type EngineFlags = Record<string, { type: 'string' | 'boolean' }>;
@@ -41,8 +41,8 @@ export async function cmdExport(args: string[], engineOptions: (v: Record<string
   }
   let limits: [number, number] | null = null;
   if (typeof v.limits === 'string') {
-    const parts = v.limits.split(',').map((x) => decimalNumber('limits', x));
-    if (parts.length !== 2 || !(parts[1] > parts[0])) throw new InputError(`--limits ${v.limits}: expected LO,HI with LO < HI`);
+    const parts = numberList('limits', v.limits, 2);
+    if (!(parts[1] > parts[0])) throw new InputError(`--limits ${v.limits}: expected LO,HI with LO < HI`);
     limits = [parts[0], parts[1]];
   }
   const [key, array, ...more] = name.split('/');
@@ -69,7 +69,7 @@ async function exportSet(file: string, keys: string[], outPath: string, engineOp
   if (keys.some((k) => k.includes('/'))) throw new InputError('export --format h5 takes whole results (KEY KEY …), not single arrays');
   await withService(engineOptions({ ...v, quiet: true } as Record<string, unknown>), true, async (service) => {
     const source = physicalPath(file);
-    if (physicalPath(outPath) === source) throw new InputError('export: --out is the session being exported from; give a new name');
+    if (sameFileAt(outPath, source)) throw new InputError('export: --out is the session being exported from; give a new name');
     await service.openSession({ path: source, openData: false });
     const saved = await service.saveSession({ path: outPath, keys });
     process.stderr.write(`wrote ${saved.path}: ${saved.results} result(s) of ${source} (${keys.join(', ')})\n`);

@@ -1,13 +1,13 @@
 // `scanfold session show FILE` and `scanfold session apply FILE --to DATA --out NEW`: a session
 // file listed (its datasets found, moved or missing; its results and their recipes), and its
 // recipe replayed on other data, through the service like everything else.
-import nodePath from 'node:path';
 import { InputError } from '../../src-shared/model/errors';
-import { SESSION_METHODS, SESSION_SUFFIX, type SessionMethod } from '../../src-shared/model/session';
+import { SESSION_SUFFIX, type SessionMethod } from '../../src-shared/model/session';
 import type { EngineOptions } from '../engine/engine';
 import type { EngineService } from '../engine/service';
-import { physicalPath } from '../io/input-file';
+import { physicalPath, sameFileAt } from '../io/input-file';
 import { withService } from './analysis-commands';
+import { shapeText } from '../session/relink';
 import { parseFlags, rejectExtraPositionals, SOURCE_OPTIONS, sourceSpecFromFlags } from './source-flags';
 
 type Flags = Record<string, string | boolean | (string | boolean)[] | undefined>;
@@ -25,9 +25,6 @@ function relinkFlags(v: Flags): Record<string, string> {
   return out;
 }
 
-function shapeText(s: { scanY: number; scanX: number; detY: number; detX: number }): string {
-  return `${s.scanY}×${s.scanX} positions × ${s.detY}×${s.detX} pixels`;
-}
 
 export async function cmdSession(args: string[], engineOptions: (v: Record<string, unknown>) => EngineOptions, engineFlags: EngineFlags): Promise<void> {
   const [sub, ...rest] = args;
@@ -94,7 +91,7 @@ async function sessionApply(args: string[], engineOptions: (v: Record<string, un
   if (typeof v.out !== 'string') throw new InputError(`session apply needs --out NEW${SESSION_SUFFIX} (the new session; the one applied is left as it is)`);
   const spec = sourceSpecFromFlags(v.to, v as Record<string, unknown>);
   const source = physicalPath(file);
-  if (nodePath.resolve(physicalPath(v.out)) === nodePath.resolve(source)) throw new InputError('session apply: --out is the session being applied; give a new name so the recipe stays as it was');
+  if (sameFileAt(v.out, source)) throw new InputError('session apply: --out is the session being applied; give a new name so the recipe stays as it was');
   const quiet = v.quiet === true;
   await withService(engineOptions(v as Record<string, unknown>), quiet, async (service) => {
     const s = await service.openSession({ path: source, openData: false });
@@ -103,7 +100,6 @@ async function sessionApply(args: string[], engineOptions: (v: Record<string, un
     await service.forgetSession();
     const opened = await service.open(spec);
     for (const e of recipe) {
-      if (!(SESSION_METHODS as readonly string[]).includes(e.method)) continue;
       if (!quiet) process.stderr.write(`${e.key}: ${e.method}\n`);
       await replay(service, e.method, e.request, opened.id, e.key);
     }

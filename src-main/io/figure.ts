@@ -3,7 +3,10 @@
 // with its limits, and a scale bar with units when the calibration is known. RGBA bytes, for
 // the PNG encoder. Labels use a small 5×7 bitmap font of our own (digits, units), drawn at 2×.
 import { colormapLut, type ColormapName } from '../../src-shared/model/colormaps';
-import { mapValue, percentileLimits, type Scaling } from '../../src-shared/model/contrast';
+import { lutIndex, mapValue, MISSING_GREY, percentileLimits, type Scaling } from '../../src-shared/model/contrast';
+
+/** Missing values, in the views' grey. */
+const MISSING = [MISSING_GREY, MISSING_GREY, MISSING_GREY];
 
 export interface FigureOptions {
   colormap: ColormapName;
@@ -112,13 +115,13 @@ export function renderFigure(values: ArrayLike<number>, w: number, h: number, o:
   for (let y = 0; y < h; y++) {
     for (let x = 0; x < w; x++) {
       const t = mapValue(values[y * w + x], contrast);
-      const rgb = Number.isNaN(t) ? [96, 96, 96] : lut.subarray(4 * Math.min(255, Math.floor(t * 256)), 4 * Math.min(255, Math.floor(t * 256)) + 3);
+      const rgb = Number.isNaN(t) ? MISSING : lut.subarray(4 * lutIndex(t), 4 * lutIndex(t) + 3);
       for (let dy = 0; dy < zoom; dy++) for (let dx = 0; dx < zoom; dx++) put(img, width, MARGIN + x * zoom + dx, MARGIN + y * zoom + dy, rgb);
     }
   }
   // The colour bar: the map from bottom (lower limit) to top (upper limit).
   for (let y = 0; y < H; y++) {
-    const i = Math.min(255, Math.floor(((H - 1 - y) / Math.max(H - 1, 1)) * 256));
+    const i = lutIndex((H - 1 - y) / Math.max(H - 1, 1));
     for (let x = 0; x < BAR_WIDTH; x++) put(img, width, barX + x, MARGIN + y, lut.subarray(4 * i, 4 * i + 3));
   }
   drawText(img, width, hiText, labelX, MARGIN);

@@ -24,6 +24,15 @@ export function sameFile(a: FileIdentity, b: FileIdentity): boolean {
 }
 
 /** What a non-regular file is, in words a user knows. */
+/** Whether two names lead to the same file (through links too); by name when either does not exist yet. */
+export function sameFileAt(a: string, b: string): boolean {
+  try {
+    return sameFile(fs.statSync(a), fs.statSync(b));
+  } catch {
+    return physicalPath(a) === physicalPath(b);
+  }
+}
+
 export function fileKindText(st: fs.Stats): string {
   if (st.isDirectory()) return 'a folder';
   if (st.isFIFO()) return 'a named pipe (FIFO)';

@@ -53,10 +53,9 @@ export class SessionKeeper {
   /** Keep a result under req.keepAs, unless the session changed since the request began (`generation` then). */
   keep(method: SessionMethod, req: Record<string, unknown> & { keepAs?: string }, result: unknown, data: DatasetRecordOf, generation = this.generation): void {
     if (!req.keepAs || generation !== this.generation) return;
-    // A key keeps its place in the recipe's order when its result is replaced.
+    // A replaced result moves to the end: the recipe lists results in the order they were made.
     const now = new Date().toISOString();
-    const prev = this.kept.get(req.keepAs);
-    if (prev) this.kept.delete(req.keepAs);
+    this.kept.delete(req.keepAs);
     this.kept.set(req.keepAs, { key: req.keepAs, method, request: recipeOf(req), created: now, scanfoldVersion: SCANFOLD_VERSION, data, result });
   }
 
@@ -70,10 +69,6 @@ export class SessionKeeper {
   /** Where the data of the kept results was (nothing a session write makes may replace it). */
   dataPaths(): string[] {
     return [...new Set([...this.kept.values()].map((k) => k.data.absolutePath).concat(this.loadedApp?.data ? [this.loadedApp.data.absolutePath] : []))];
-  }
-
-  has(key: string): boolean {
-    return this.kept.has(key);
   }
 
   /** Kept results, each with the engine's id of its dataset when that dataset is open. */

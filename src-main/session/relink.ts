@@ -24,12 +24,16 @@ export function relinkMatches(ref: SessionDatasetRef, key: string): boolean {
   return [ref.id, ref.absolutePath, ref.relativePath, nodePath.basename(ref.absolutePath)].includes(key) || nodePath.resolve(key) === ref.absolutePath;
 }
 
+/** A dataset's shape in words. */
+export function shapeText(s: SessionDatasetRef['shape']): string {
+  return `${s.scanY}×${s.scanX} positions × ${s.detY}×${s.detX} pixels`;
+}
+
 /** What differs between the recorded dataset and the one found, in words. */
 export function differences(ref: SessionDatasetRef, d: DatasetDescriptor): string {
   const out: string[] = [];
-  const shape = (s: SessionDatasetRef['shape']) => `${s.scanY}×${s.scanX} positions × ${s.detY}×${s.detX} pixels`;
   if (ref.format !== d.format) out.push(`format ${d.format}, not ${ref.format}`);
-  if (shape(ref.shape) !== shape(d.shape)) out.push(`shape ${shape(d.shape)}, not ${shape(ref.shape)}`);
+  if (shapeText(ref.shape) !== shapeText(d.shape)) out.push(`shape ${shapeText(d.shape)}, not ${shapeText(ref.shape)}`);
   if (ref.dtype !== d.dtype) out.push(`type ${d.dtype}, not ${ref.dtype}`);
   if (!out.length) out.push('the same shape and type, but other values (sampled bytes differ)');
   return out.join('; ');

@@ -3,7 +3,7 @@
 // each a button that shows the full image in its view.
 import { useEffect, useRef } from 'react';
 import { colormapLut, type ColormapName } from '../../src-shared/model/colormaps';
-import { mapValue, percentileLimits, type Scaling } from '../../src-shared/model/contrast';
+import { lutIndex, mapValue, MISSING_GREY, percentileLimits, type Scaling } from '../../src-shared/model/contrast';
 
 const LINEAR: Scaling = { kind: 'linear' };
 
@@ -28,8 +28,8 @@ export function Thumbnail({ values, width, height, colormap, scaling = LINEAR, l
     for (let i = 0; i < sampled.length; i++) {
       const t = mapValue(sampled[i], { lo, hi, scaling });
       const o = 4 * i;
-      if (Number.isNaN(t)) { px[o] = px[o + 1] = px[o + 2] = 128; } else {
-        const k = 4 * Math.round(t * 255);
+      if (Number.isNaN(t)) { px[o] = px[o + 1] = px[o + 2] = MISSING_GREY; } else {
+        const k = 4 * lutIndex(t);
         px[o] = lut[k]; px[o + 1] = lut[k + 1]; px[o + 2] = lut[k + 2];
       }
       px[o + 3] = 255;

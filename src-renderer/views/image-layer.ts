@@ -47,7 +47,7 @@ export class ImageLayer {
         varying vec2 uv;
         void main() {
           vec4 s = texture2D(data, uv);
-          if (s.a < 0.5) { gl_FragColor = vec4(0.5, 0.5, 0.5, 1.0); return; }
+          if (s.a < 0.5) { gl_FragColor = vec4(0.5, 0.5, 0.5, 1.0); return; } // MISSING_GREY (contrast.ts)
           float v = s.r;
           float t;
           if (mode == 3.0) {
@@ -65,7 +65,7 @@ export class ImageLayer {
             if (mode == 2.0) t = pow(t, gamma);
           }
           t = clamp(t, 0.0, 1.0);
-          gl_FragColor = texture2D(lut, vec2((floor(t * 255.0 + 0.5) + 0.5) / 256.0, 0.5));
+          gl_FragColor = texture2D(lut, vec2((floor(t * 255.0 + 0.5) + 0.5) / 256.0, 0.5)); // lutIndex (contrast.ts)
         }`,
       attributes: { corner: [[0, 0], [1, 0], [0, 1], [1, 1]] },
       uniforms: {

@@ -11,6 +11,14 @@ export interface Contrast {
   scaling: Scaling;
 }
 
+/** The colour-map entry (of 256) for a position t in [0, 1]: the nearest, as the shader takes it (floor(t·255 + 0.5)). */
+export function lutIndex(t: number): number {
+  return Math.round(t * 255);
+}
+
+/** The grey (0–255) drawn where a value is missing (not finite), as the shader draws it (0.5). */
+export const MISSING_GREY = 128;
+
 /**
  * The p-th and (100 − p)-th percentiles of the finite values (nearest rank), or [0, 1] when there
  * are none. Found by selection, not by sorting: the limits follow a dragged detector's image.

@@ -146,6 +146,12 @@ print(json.dumps({
 
   it('session apply refuses to write over the session it applies, and names the result a dataset cannot take', () => {
     expect(scanfold('session', 'apply', s(), '--to', file, '--out', s()).stderr).toMatch(/--out is the session being applied/);
+    // Under another name too: a link to it is the same file.
+    const link = path.join(dir, 'link.scanfold.h5');
+    fs.symlinkSync(s(), link);
+    expect(scanfold('session', 'apply', s(), '--to', file, '--out', link).stderr).toMatch(/--out is the session being applied/);
+    expect(scanfold('export', s(), 'pca', '--format', 'h5', '--out', link).stderr).toMatch(/--out is the session being exported from/);
+    fs.unlinkSync(link);
     const tiny = path.join(dir, 'tiny.h5');
     expect(scanfold('sample', '--size', 'tiny', '--out', tiny).status).toBe(0);
     const r = scanfold('session', 'apply', s(), '--to', tiny, '--out', path.join(dir, 'tiny.scanfold.h5'), '--quiet');
