@@ -42,16 +42,18 @@ export async function exportResult(results: KeptResult[], req: ExportRequest, sc
   let data: ArrayLike<number> = a.data;
   let shape = a.shape;
   let dims = a.dims ?? shape.map((_, i) => `dim_${i}`);
-  if (req.index !== undefined) {
+  // A stack of one image (one detector's virtual image) is that image.
+  const index = req.index ?? (a.shape.length === 3 && a.shape[0] === 1 && (req.format === 'png' || req.format === 'tiff' || req.format === 'csv') ? 0 : undefined);
+  if (index !== undefined) {
     if (shape.length < 3) throw new InputError(`export: ${req.key}/${name} is ${shape.length}-D; an index picks one image of a 3-D stack`, 'bad-request');
-    if (req.index >= shape[0]) throw new InputError(`export: index ${req.index}: expected 0 … ${shape[0] - 1} (${dims[0]})`, 'bad-request');
+    if (index >= shape[0]) throw new InputError(`export: index ${index}: expected 0 … ${shape[0] - 1} (${dims[0]})`, 'bad-request');
     const n = shape[1] * shape[2];
-    data = a.data.subarray(req.index * n, (req.index + 1) * n);
+    data = a.data.subarray(index * n, (index + 1) * n);
     shape = shape.slice(1);
     dims = dims.slice(1);
   }
-  const what = `${req.key}/${name}${req.index !== undefined ? `[${req.index}]` : ''}`;
-  const fileName = `${req.key}-${name}${req.index !== undefined ? `-${req.index}` : ''}.${req.format === 'tiff' ? 'tif' : req.format}`;
+  const what = `${req.key}/${name}${index !== undefined ? `[${index}]` : ''}`;
+  const fileName = `${req.key}-${name}${index !== undefined ? `-${index}` : ''}.${req.format === 'tiff' ? 'tif' : req.format}`;
   const done = (bytes: Uint8Array, note = ''): ExportedFile => ({ bytes, fileName, mediaType: MEDIA[req.format], description: `${what} (${shape.join('×')})${note}` });
   if (req.format === 'npy') return done(npyBytes(data as Float64Array, shape));
   if (req.format === 'csv') {

@@ -134,6 +134,10 @@ print(json.dumps({
     const set = path.join(dir, 'set.h5');
     expect(scanfold('export', s(), 'pca', 'field', '--format', 'h5', '--out', set).status).toBe(0);
     expect(py("import h5py,sys; print(sorted(h5py.File(sys.argv[1])['results'].keys()))", set).trim()).toBe("['field', 'pca']");
+    // One detector's image is a stack of one: exported without an index.
+    const one = scanfold('export', s(), 'image-2/images', '--format', 'png', '--out', path.join(dir, 'one.png'));
+    expect(one.status, one.stderr).toBe(0);
+    expect(one.stderr).toMatch(/image-2\/images\[0\] \(64×64\)/);
     // A cluster map is drawn in categories unless a colour map is asked for, as the app draws it.
     const clusters = scanfold('export', s(), 'kmeans/labels', '--format', 'png', '--out', path.join(dir, 'labels.png'));
     expect(clusters.status, clusters.stderr).toBe(0);
