@@ -7,7 +7,7 @@ import type { EngineOptions } from '../engine/engine';
 import type { EngineService } from '../engine/service';
 import { physicalPath, sameFileAt } from '../io/input-file';
 import { withService } from './analysis-commands';
-import { shapeText } from '../session/relink';
+import { shapeText } from '../../src-shared/model/dataset';
 import { parseFlags, rejectExtraPositionals, SOURCE_OPTIONS, sourceSpecFromFlags } from './source-flags';
 
 type Flags = Record<string, string | boolean | (string | boolean)[] | undefined>;

@@ -4,7 +4,7 @@
 // never analysed in its place.
 import fs from 'node:fs';
 import nodePath from 'node:path';
-import type { DatasetDescriptor, SourceSpec } from '../../src-shared/model/dataset';
+import { shapeText, type DatasetDescriptor, type SourceSpec } from '../../src-shared/model/dataset';
 import { InputError } from '../../src-shared/model/errors';
 import type { SessionDatasetRef } from '../../src-shared/model/session';
 
@@ -22,11 +22,6 @@ export interface Located {
 /** Whether `key` (as given to --relink OLD=NEW) names this dataset: its id, either path, or its file name. */
 export function relinkMatches(ref: SessionDatasetRef, key: string): boolean {
   return [ref.id, ref.absolutePath, ref.relativePath, nodePath.basename(ref.absolutePath)].includes(key) || nodePath.resolve(key) === ref.absolutePath;
-}
-
-/** A dataset's shape in words. */
-export function shapeText(s: SessionDatasetRef['shape']): string {
-  return `${s.scanY}×${s.scanX} positions × ${s.detY}×${s.detX} pixels`;
 }
 
 /** What differs between the recorded dataset and the one found, in words. */

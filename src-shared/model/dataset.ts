@@ -113,3 +113,8 @@ export function userSpec(spec: SourceSpec): SourceSpec {
   const { hdf5Direct: _hint, fileState: _state, ...plain } = spec;
   return plain;
 }
+
+/** A dataset's shape in words, for listings and messages. */
+export function shapeText(s: Shape4D): string {
+  return `${s.scanY}×${s.scanX} positions × ${s.detY}×${s.detX} pixels`;
+}
