@@ -18,7 +18,7 @@ import { CalibrationForm } from './panels/CalibrationForm';
 import { Thumbnail } from './panels/Thumbnail';
 import { startTiming } from './test-hooks';
 import { latestWins } from './latest-wins';
-import { KEYS, keysToSave, setupOf, showsForResults, sortResults, stateFromSetup, withOutsideItems } from './session';
+import { KEYS, keysToSave, setupOf, showsForResults, sortResults, stateFromSetup, unreachableKeys, withOutsideItems } from './session';
 import { SESSION_SUFFIX } from '../src-shared/model/session';
 
 type Job = JobInfo & { jobId: string };
@@ -304,11 +304,18 @@ export function App({ client, store, shell = null }: { client: Client; store: St
     } catch (e) { fail(e); }
   }, [client, store, fail, sessionInput, sessionPath, snapshot]);
 
-  // Autosave: unsaved changes go to the recovery file every few seconds.
+  // Autosave: unsaved changes go to the recovery file every few seconds. First, the engine
+  // forgets the images of detectors (and patterns of regions) deleted beyond undo's reach.
   const autosaved = useRef<string | null>(null);
   const autosaving = useRef(false);
   useEffect(() => {
     const timer = setInterval(() => {
+      const stale = unreachableKeys(kept.current, store.history());
+      if (stale.length) {
+        for (const k of stale) kept.current.delete(k);
+        keptChanged();
+        client.forgetResults(stale).catch(() => undefined);
+      }
       const st = store.get();
       if (!st.dataset || (kept.current.size === 0 && st.detectors.length === 0 && st.regions.length === 0)) return;
       const now = snapshot();
@@ -321,7 +328,7 @@ export function App({ client, store, shell = null }: { client: Client; store: St
         .finally(() => { autosaving.current = false; });
     }, AUTOSAVE_MS);
     return () => clearInterval(timer);
-  }, [client, store, snapshot]);
+  }, [client, store, snapshot, keptChanged]);
 
   // Export: one array of a kept result as a file (the engine makes the bytes; the page downloads them).
   const [exportables, setExportables] = useState<KeptEntry[]>([]);

@@ -27,6 +27,17 @@ export function keysToSave(kept: Iterable<string>, s: AppState): string[] {
   });
 }
 
+/**
+ * Kept detector and region results that no state undo or redo can reach any more (`states`: the
+ * store's history): the engine can forget them. A deleted detector's image stays kept while an
+ * undo could bring the detector back.
+ */
+export function unreachableKeys(kept: Iterable<string>, states: AppState[]): string[] {
+  const all = [...kept];
+  const reachable = new Set(states.flatMap((s) => keysToSave(all, s)));
+  return all.filter((k) => !reachable.has(k));
+}
+
 const view = (v: Record<string, unknown>, fallback: ViewSettings): ViewSettings => {
   const colormap = COLORMAP_NAMES.includes(v.colormap as never) ? v.colormap : fallback.colormap;
   return { ...(v as unknown as ViewSettings), colormap } as ViewSettings;

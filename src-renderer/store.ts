@@ -120,6 +120,11 @@ export class Store {
     this.changed();
   }
 
+  /** Every state undo and redo can reach, the present one included (oldest first). */
+  history(): AppState[] {
+    return [...this.past, this.state, ...this.future.slice().reverse()];
+  }
+
   /** Start over from `state` (a session opened): nothing to undo. */
   reset(state: AppState): void {
     this.state = structuredClone(state);

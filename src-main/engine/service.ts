@@ -363,6 +363,11 @@ export class EngineService implements ScanfoldService {
     this.session.forget();
   }
 
+  async forgetResults(keys: string[]): Promise<string[]> {
+    validateRequest('forgetResults', keys);
+    return this.session.drop(keys);
+  }
+
   private async track<T>(job: Job<T>, jobId: string | undefined, label: string): Promise<T> {
     const id = jobId ?? `job-${this.nextJob++}`;
     if (jobId !== undefined && [...this.requests].some(([id, req]) => req.cancelled && (jobId === id || jobId.startsWith(`${id}/`)))) job.cancel();

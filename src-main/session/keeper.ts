@@ -59,6 +59,11 @@ export class SessionKeeper {
     this.kept.set(req.keepAs, { key: req.keepAs, method, request: recipeOf(req), created: now, scanfoldVersion: SCANFOLD_VERSION, data, result });
   }
 
+  /** Drop the results kept under `keys`; returns those that were kept. */
+  drop(keys: string[]): string[] {
+    return keys.filter((k) => this.kept.delete(k));
+  }
+
   forget(): void {
     this.generation++;
     this.kept.clear();

@@ -541,6 +541,11 @@ export interface ScanfoldService {
   sessionEntries(): Promise<KeptEntry[]>;
   /** Forget every kept result (a new session). */
   forgetSession(): Promise<void>;
+  /**
+   * Forget the kept results under these keys (e.g. the image of a detector deleted beyond undo),
+   * freeing their memory; returns the keys that were kept. Keys not kept are ignored.
+   */
+  forgetResults(keys: string[]): Promise<string[]>;
 
   /** Fast requests, outside the job queue. */
   patternAt(req: PatternAtRequest): Promise<PatternAtResult>;
@@ -566,7 +571,7 @@ export interface ScanfoldService {
 /** The request methods, for generic transports and the validator. */
 export const SERVICE_METHODS = [
   'inspect', 'open', 'close', 'datasets', 'firstPass', 'virtualImages', 'comField', 'calibrate',
-  'regionPattern', 'pca', 'kmeans', 'fit', 'saveSession', 'openSession', 'autosave', 'recoverable', 'discardRecovery', 'exportResult', 'sessionEntries', 'forgetSession', 'patternAt', 'previewImages', 'filesRead', 'jobs', 'cancel', 'shutdown',
+  'regionPattern', 'pca', 'kmeans', 'fit', 'saveSession', 'openSession', 'autosave', 'recoverable', 'discardRecovery', 'exportResult', 'sessionEntries', 'forgetSession', 'forgetResults', 'patternAt', 'previewImages', 'filesRead', 'jobs', 'cancel', 'shutdown',
 ] as const satisfies readonly (keyof ScanfoldService)[];
 
 export type ServiceMethod = (typeof SERVICE_METHODS)[number];

@@ -197,6 +197,7 @@ const SCHEMAS: Record<ServiceMethod, z.ZodType> = {
   discardRecovery: z.string().min(1, 'expected a recovery file path'),
   sessionEntries: z.undefined(),
   forgetSession: z.undefined(),
+  forgetResults: z.array(sessionKey).max(10000, 'expected at most 10000 keys at once'),
   jobs: z.undefined(),
   cancel: z.string().min(1),
   shutdown: z.undefined(),

@@ -228,6 +228,20 @@ print(json.dumps(meta))
     expect((await service.sessionEntries()).map((x) => x.key)).not.toContain('late');
   }, 60_000);
 
+  it('kept results can be forgotten by key (a deleted detector\'s image): the others stay, unknown keys are ignored, bad keys refused', async () => {
+    const d = (await service.datasets())[0];
+    const disk = (r: number) => [{ shape: { kind: 'disk' as const, cx: 48, cy: 48, r } }];
+    await service.virtualImages({ dataset: d.id, detectors: disk(5), badPixels: 'none', keepAs: 'detector-gone' });
+    await service.virtualImages({ dataset: d.id, detectors: disk(9), badPixels: 'none', keepAs: 'detector-stays' });
+    expect(await service.forgetResults(['detector-gone', 'never-kept'])).toEqual(['detector-gone']);
+    const keys = (await service.sessionEntries()).map((x) => x.key);
+    expect(keys).toContain('detector-stays');
+    expect(keys).not.toContain('detector-gone');
+    expect((await inputError(service.forgetResults(['../x']))).message).toMatch(/forgetResults.*expected a name of letters/);
+    expect((await inputError(service.forgetResults('detector-stays' as never))).message).toMatch(/forgetResults/);
+    await service.forgetResults(['detector-stays']);
+  }, 60_000);
+
   it('a dataset whose file is replaced while open is not read as the new file', async () => {
     const eng = new EngineService({ workers: 1, cacheDir: null });
     const copy = path.join(dir, 'replaced.h5');

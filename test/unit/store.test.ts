@@ -2,6 +2,7 @@
 // undoable changes only, and the state survives JSON exactly (what a session file will save).
 import { describe, expect, it } from 'vitest';
 import { INITIAL_STATE, Store, type DetectorItem } from '../../src-renderer/store';
+import { unreachableKeys } from '../../src-renderer/session';
 
 const annulus: DetectorItem = { id: 'd1', name: 'annulus 1', colour: '#f28e2b', visible: true, shape: { kind: 'annulus', cx: 47.5, cy: 47.5, rInner: 12, rOuter: 40 } };
 
@@ -59,5 +60,32 @@ describe('store, views', () => {
     s.redo();
     expect(s.get().detectors).toEqual([annulus]);
     expect(s.get().shows.scan).toEqual({ kind: 'detector', id: 'd1' });
+  });
+
+  it('a deleted detector\'s kept image is forgotten only once no undo or redo can bring the detector back', () => {
+    const s = new Store();
+    const kept = ['detector-d1', 'field'];
+    s.update((st) => ({ ...st, detectors: [annulus] }), { undoable: true });
+    s.update((st) => ({ ...st, detectors: [] }), { undoable: true });
+    // Deleted, but an undo brings it back: still reachable.
+    expect(unreachableKeys(kept, s.history())).toEqual([]);
+    s.undo();
+    expect(s.get().detectors.map((d) => d.id)).toEqual(['d1']);
+    // Back in the present, and in the redo list after a second undo.
+    s.undo();
+    expect(unreachableKeys(kept, s.history())).toEqual([]);
+    // A session opened: nothing to undo, so the old detector's image (not the field) goes.
+    s.reset(INITIAL_STATE);
+    expect(unreachableKeys(kept, s.history())).toEqual(['detector-d1']);
+  });
+
+  it('keeps at most 200 undoable steps, so a detector deleted 200 edits ago is out of reach', () => {
+    const s = new Store();
+    s.update((st) => ({ ...st, detectors: [annulus] }), { undoable: true });
+    s.update((st) => ({ ...st, detectors: [] }), { undoable: true });
+    for (let i = 0; i < 199; i++) s.update((st) => ({ ...st, regions: [], calibration: { ...st.calibration } }), { undoable: true });
+    expect(unreachableKeys(['detector-d1'], s.history())).toEqual([]);
+    s.update((st) => ({ ...st, regions: [] }), { undoable: true });
+    expect(unreachableKeys(['detector-d1'], s.history())).toEqual(['detector-d1']);
   });
 });
