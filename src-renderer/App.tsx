@@ -112,7 +112,8 @@ export function App({ client, store, shell = null }: { client: Client; store: St
     return JSON.stringify([setupOf(st), keysToSave(kept.current, st), keptCount.current]);
   }, [store]);
   const [absentData, setAbsentData] = useState<OpenedSession['datasets']>([]);
-  const [relinkTo, setRelinkTo] = useState('');
+  /** Where the user says each missing dataset is now, by the session's dataset id. */
+  const [relinkTo, setRelinkTo] = useState<Record<string, string>>({});
   const [recoverable, setRecoverable] = useState<Recoverable[]>([]);
   const [allRecoveries, setAllRecoveries] = useState(false);
   const recoverableNewest = useMemo(() => newestFirst(recoverable), [recoverable]);
@@ -695,9 +696,9 @@ export function App({ client, store, shell = null }: { client: Client; store: St
         </div>
       )}
       {absentData.map((d) => (
-        <form key={d.ref.id} className="note relink" role="alert" onSubmit={(e) => { e.preventDefault(); if (loadedFrom && relinkTo.trim()) void relinkNow(loadedFrom, { [d.ref.id]: relinkTo.trim() }); }}>
+        <form key={d.ref.id} className="note relink" role="alert" onSubmit={(e) => { e.preventDefault(); const to = relinkTo[d.ref.id]?.trim(); if (loadedFrom && to) void relinkNow(loadedFrom, { [d.ref.id]: to }); }}>
           The data of this session ({d.ref.name}) {d.status === 'different' ? 'was replaced' : 'was not found'}: {d.how}. Its results are shown; to compute more, give where it is now:
-          <input aria-label="where the data is now" placeholder={d.ref.absolutePath} value={relinkTo} onChange={(e) => setRelinkTo(e.target.value)} />
+          <input aria-label="where the data is now" placeholder={d.ref.absolutePath} value={relinkTo[d.ref.id] ?? ''} onChange={(e) => { const v = e.target.value; setRelinkTo((r) => ({ ...r, [d.ref.id]: v })); }} />
           <button type="submit">Relink</button>
         </form>
       ))}
