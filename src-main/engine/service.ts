@@ -40,7 +40,7 @@ import { defaultStateDir, RecoveryIndex } from '../session/recovery';
 import { attributeValue, CONVERGENCE_ATTRIBUTES, ENERGY_ATTRIBUTES, SCAN_STEP_ATTRIBUTES } from './attributes';
 import { OutputFile } from '../io/output-file';
 import { SessionKeeper, datasetRecordOf, type DatasetRecordOf } from '../session/keeper';
-import { isSessionFile, readSessionFile, writeSessionFile } from '../session/session-file';
+import { isSessionFile, readSessionDocument, readSessionFile, writeSessionFile } from '../session/session-file';
 import { locateDataset, relinkMatches } from '../session/relink';
 
 interface FirstResults extends CachedFirstPass {
@@ -285,7 +285,7 @@ export class EngineService implements ScanfoldService {
       // A session saved after its recovery was written needs no recovery.
       try { if (e.session && fs.statSync(e.session).mtimeMs >= rec.mtimeMs) continue; } catch { /* session never saved or gone: recover */ }
       try {
-        const { doc } = await readSessionFile(e.recovery);
+        const { doc } = await readSessionDocument(e.recovery);
         out.push({ recovery: e.recovery, session: e.session, modified: doc.modified, results: doc.entries.length });
       } catch { /* damaged: not offered */ }
     }

@@ -242,6 +242,45 @@ print(json.dumps(meta))
     await service.forgetResults(['detector-stays']);
   }, 60_000);
 
+  it('recovery files are listed from their documents alone: a damaged document is not offered; damaged arrays are refused when opened', async () => {
+    const stateDir = path.join(dir, 'state-listing');
+    const writer = new EngineService({ workers: 1, cacheDir: null, stateDir });
+    try {
+      const d = await writer.open({ path: file });
+      await writer.virtualImages({ dataset: d.id, detectors: [{ shape: { kind: 'disk', cx: 48, cy: 48, r: 12 } }], badPixels: 'none', keepAs: 'detector-a' });
+      const { recovery } = await writer.autosave({ session: null, keys: ['detector-a'] });
+      // Two damaged copies, listed in the index as a crash would have left them (h5py rewrites them).
+      const badDoc = path.join(stateDir, 'unsaved.baddoc-1.recovery.h5');
+      const badArrays = path.join(stateDir, 'unsaved.badarrays-2.recovery.h5');
+      fs.copyFileSync(recovery, badDoc);
+      fs.copyFileSync(recovery, badArrays);
+      const py = `import h5py, sys
+with h5py.File(sys.argv[1], 'r+') as f: f.attrs['session_json'] = '{not json'
+with h5py.File(sys.argv[2], 'r+') as f:
+    g = f['results/detector-a']; del g['images']; g['images'] = [1.0, 2.0]`;
+      const p = spawnSync(PYTHON, ['-c', py, badDoc, badArrays], { encoding: 'utf8' });
+      expect(p.status, p.stderr).toBe(0);
+      const indexFile = path.join(stateDir, 'recovery-index.json');
+      const index = JSON.parse(fs.readFileSync(indexFile, 'utf8')) as { recovery: string; session: string | null }[];
+      fs.writeFileSync(indexFile, JSON.stringify([...index, { recovery: badDoc, session: null }, { recovery: badArrays, session: null }]));
+      // The next start (another engine on the same state folder).
+      const next = new EngineService({ workers: 1, cacheDir: null, stateDir });
+      try {
+        const offers = await next.recoverable();
+        expect(offers.map((o) => path.basename(o.recovery)).sort()).toEqual([path.basename(recovery), path.basename(badArrays)].sort());
+        expect(offers.every((o) => o.results === 1)).toBe(true);
+        const e = await inputError(next.openSession({ path: badArrays, openData: false }));
+        expect(e.code).toBe('bad-session');
+        expect(e.message).toMatch(/result detector-a: .*the file is damaged/);
+        expect((await next.openSession({ path: recovery, openData: false })).results.map((x) => x.key)).toEqual(['detector-a']);
+      } finally {
+        await next.shutdown();
+      }
+    } finally {
+      await writer.shutdown();
+    }
+  }, 60_000);
+
   it('a dataset whose file is replaced while open is not read as the new file', async () => {
     const eng = new EngineService({ workers: 1, cacheDir: null });
     const copy = path.join(dir, 'replaced.h5');
