@@ -5,7 +5,10 @@ import { connectService, type Port } from '../src-shared/contract/channel';
 import type { ScanfoldService } from '../src-shared/contract/service';
 import { decodeMessage, encodeMessage } from '../src-shared/contract/wire';
 
-export type Client = ScanfoldService & { disconnect(): void };
+export type Client = ScanfoldService & { disconnect(reason?: string): void };
+
+/** What every request answers once served mode's socket has closed. */
+export const CONNECTION_LOST = 'the connection to the Scanfold engine was lost (was `scanfold serve` stopped?); expected it running: start it again and open the address it prints';
 
 export function connectServed(loc: Location = window.location): Promise<Client> {
   const token = loc.pathname.split('/').filter(Boolean)[0] ?? '';
@@ -28,7 +31,10 @@ export function connectServed(loc: Location = window.location): Promise<Client> 
   return new Promise((resolve, reject) => {
     ws.addEventListener('open', () => {
       for (const b of pending.splice(0)) ws.send(b);
-      resolve(connectService(port));
+      const client = connectService(port);
+      // Requests waiting for an answer, and every later one, fail saying why instead of waiting forever.
+      ws.addEventListener('close', () => client.disconnect(CONNECTION_LOST));
+      resolve(client);
     });
     ws.addEventListener('error', () => reject(new Error('could not connect to the Scanfold engine')));
   });

@@ -51,6 +51,16 @@ export function contentSecurityPolicy(): string {
   ].join('; ');
 }
 
+/**
+ * One app page at a time: the engine holds one session (its kept results, its recovery file), so
+ * two pages would mix their work (a dataset opened in one forgets the other's results). A second
+ * page's requests wait this long for the first page to go (a reload closes the old page's socket
+ * as the new one connects), then are refused, saying why; tools (no Origin) are not pages.
+ */
+export const PAGE_WAIT_MS = 3000;
+const ANOTHER_PAGE = 'Scanfold is open in another tab or window, and one engine serves one app page at a time ' +
+  '(two would mix their work); expected this page to be the only one: close the other, then reload this page';
+
 /** Requests a browser may make that would reach the engine's host in ways we do not serve. */
 const REFUSED = 'refused: open the address (with its token) that `scanfold serve` printed\n';
 
@@ -102,9 +112,25 @@ export async function startServed(opts: ServedOptions): Promise<Served> {
       socket.end('HTTP/1.1 403 Forbidden\r\n\r\n');
       return;
     }
-    wss.handleUpgrade(req, socket, head, (ws) => connect(ws));
+    wss.handleUpgrade(req, socket, head, (ws) => connect(ws, origin !== undefined));
   });
-  const connect = (ws: WebSocket) => {
+  // The app page whose requests are served (see PAGE_WAIT_MS), and pages waiting for it to go.
+  let activePage: WebSocket | null = null;
+  const pageWaiters = new Set<() => void>();
+  const claimPage = async (ws: WebSocket): Promise<void> => {
+    const deadline = Date.now() + PAGE_WAIT_MS;
+    while (activePage !== null && activePage !== ws) {
+      const left = deadline - Date.now();
+      if (left <= 0 || ws.readyState !== ws.OPEN) throw new InputError(ANOTHER_PAGE, 'bad-request');
+      await new Promise<void>((resolve) => {
+        const timer = setTimeout(done, left);
+        function done() { clearTimeout(timer); pageWaiters.delete(done); resolve(); }
+        pageWaiters.add(done);
+      });
+    }
+    activePage = ws;
+  };
+  const connect = (ws: WebSocket, isPage: boolean) => {
     ws.on('error', () => ws.terminate());
     const listeners = new Set<(m: unknown) => void>();
     const wsPort: Port = {
@@ -128,8 +154,9 @@ export async function startServed(opts: ServedOptions): Promise<Served> {
     // The jobs this client started end with its connection (a closed tab leaves nothing running);
     // the engine is never shut down by a client (the command that serves it does that).
     const jobs = new Set<string>();
-    const own = interceptService(real, (method, arg, call) => {
-      if (method === 'shutdown') return Promise.reject(new Error('shutdown: not offered over the served connection'));
+    const own = interceptService(real, async (method, arg, call) => {
+      if (method === 'shutdown') throw new Error('shutdown: not offered over the served connection');
+      if (isPage) await claimPage(ws);
       const jobId = arg && typeof arg === 'object' && typeof (arg as { jobId?: unknown }).jobId === 'string' ? (arg as { jobId: string }).jobId : null;
       if (!jobId) return call();
       jobs.add(jobId);
@@ -141,6 +168,10 @@ export async function startServed(opts: ServedOptions): Promise<Served> {
       stop();
       stops.delete(stop);
       for (const id of jobs) real.cancel(id).catch(() => undefined);
+      if (activePage === ws) {
+        activePage = null;
+        for (const wake of [...pageWaiters]) wake();
+      }
     });
   };
   await new Promise<void>((resolve, reject) => {

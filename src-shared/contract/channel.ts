@@ -74,8 +74,10 @@ export function serveService(service: ScanfoldService, port: Port): () => void {
 }
 
 /** A ScanfoldService whose every method is a request over `port`. */
-export function connectService(port: Port): ScanfoldService & { disconnect(): void } {
+export function connectService(port: Port): ScanfoldService & { disconnect(reason?: string): void } {
   let nextId = 1;
+  /** Why the connection ended (every call after it fails at once, saying so). */
+  let closed: string | null = null;
   const waiting = new Map<number, { resolve: (v: unknown) => void; reject: (e: unknown) => void }>();
   const listeners = new Set<(e: ServiceEvent) => void>();
   const off = port.onMessage((raw) => {
@@ -89,6 +91,7 @@ export function connectService(port: Port): ScanfoldService & { disconnect(): vo
     else w.reject(rebuildError(m.error));
   });
   const call = (method: ServiceMethod) => (arg?: unknown) => new Promise((resolve, reject) => {
+    if (closed !== null) { reject(new Error(closed)); return; }
     const id = nextId++;
     waiting.set(id, { resolve, reject });
     port.send({ t: 'call', id, method, arg } satisfies Call);
@@ -99,9 +102,11 @@ export function connectService(port: Port): ScanfoldService & { disconnect(): vo
       listeners.add(listener);
       return () => listeners.delete(listener);
     },
-    disconnect() {
+    disconnect(reason = 'service connection closed') {
+      if (closed !== null) return;
+      closed = reason;
       off();
-      for (const w of waiting.values()) w.reject(new Error('service connection closed'));
+      for (const w of waiting.values()) w.reject(new Error(reason));
       waiting.clear();
     },
   });

@@ -453,4 +453,42 @@ describe('served mode, a long job', () => {
       await slow.shutdown();
     }
   });
+
+  it('one app page at a time: a second tab is told another has the engine, and works once that one is closed', async () => {
+    const second = await startServed({ service, rendererDir: distFile('renderer') });
+    const label = (p: Page) => p.evaluate(() => (window as unknown as { __scanfold: { view(n: string): { label: string | null } } }).__scanfold.view('scan').label);
+    const a = await browser.newPage({ viewport: { width: 1000, height: 860 } });
+    const b = await browser.newPage({ viewport: { width: 1000, height: 860 } });
+    try {
+      await a.goto(second.url);
+      await expect.poll(() => label(a), { timeout: 60_000 }).toBe('bright field');
+      await b.goto(second.url);
+      await expect.poll(async () => (await b.getByRole('alert').allTextContents()).join(' '), { timeout: 20_000 }).toMatch(/open in another tab or window.*close the other, then reload this page/);
+      expect(await label(b)).toBeNull();
+      await b.screenshot({ path: path.join(ARTIFACTS, '9-another-tab.png') });
+      // A tool (no Origin: not a page) is still served meanwhile.
+      const ws = new WebSocket(`ws://127.0.0.1:${second.port}/${second.token}/contract`);
+      await new Promise((r) => ws.on('open', r));
+      const tool = connectService({
+        send: (m) => ws.send(encodeMessage(m)),
+        onMessage: (l) => { const h = (d: Buffer) => l(decodeMessage(new Uint8Array(d))); ws.on('message', h); return () => ws.off('message', h); },
+      });
+      expect((await tool.datasets()).length).toBeGreaterThan(0);
+      ws.close();
+      await a.close();
+      await b.reload();
+      await expect.poll(() => label(b), { timeout: 60_000 }).toBe('bright field');
+      expect(await b.getByRole('alert').count()).toBe(0);
+      // The server stops: the page's next request fails at once, saying so, instead of waiting forever.
+      await second.close();
+      await b.getByLabel('file to open').fill(demo);
+      await b.getByRole('button', { name: 'Open', exact: true }).click();
+      await expect.poll(async () => (await b.getByRole('alert').allTextContents()).join(' '), { timeout: 10_000 }).toMatch(/connection to the Scanfold engine was lost/);
+    } finally {
+      await a.close().catch(() => undefined);
+      await b.close();
+      await second.close();
+    }
+  }, 120_000);
 });
+
