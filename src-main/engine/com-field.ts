@@ -78,7 +78,10 @@ export function comFieldFromSums(
   if (rotation === 'auto') {
     // Vacuum (found, or the reference region given) settles the 180° ambiguity: a specimen's
     // phase lies above vacuum's, its mean inner potential being positive (common practice).
-    estimate = estimateRotation(ds.comX, ds.comY, scanY, scanX, vacuumMask ? { vacuumMask } : {});
+    // The half-turn is judged on the field referenced to vacuum whatever the descan asked for
+    // (a plane through the whole scan leaves a gradient over vacuum that can turn the decision).
+    estimate = estimateRotation(ds.comX, ds.comY, scanY, scanX, vacuumMask
+      ? { vacuumMask, ...(mode.kind === 'reference' ? {} : { halfTurnField: { comX, comY } }) } : {});
     degrees = estimate.degrees;
     flip = estimate.flip;
     if (!vacuumMask) {

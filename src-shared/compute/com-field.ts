@@ -430,6 +430,13 @@ export interface EstimateRotationOptions {
    */
   vacuumMask?: Uint8Array;
   /**
+   * With a vacuum mask: the field (same frame as comX, comY) the half-turn is judged on, when the
+   * one given was descanned otherwise than against vacuum: e.g. the field before a plane through
+   * the whole scan was taken out, which leaves a gradient over vacuum that integrates to a bowl
+   * and can put vacuum on the wrong side. It is turned like the field and referenced to vacuum.
+   */
+  halfTurnField?: { comX: Float64Array; comY: Float64Array };
+  /**
    * Gaussian widths (scan steps) tried on the field before its curl is measured; the one
    * leaving the least relative curl is used. Default [0, 1, 2]: counting noise is white and
    * its finite differences are as curled as they are divergent, so on a noisy scan the
@@ -611,6 +618,27 @@ function skewness(values: Float64Array): number {
   return m2 > 0 ? m3 / Math.pow(m2, 1.5) : 0;
 }
 
+/**
+ * The phase the half-turn is judged on, with a vacuum mask: that of the field less its mean over
+ * vacuum, where the beam is not deflected. A field descanned some other way (the scan's mean, a
+ * plane through the whole scan) keeps an offset over vacuum, which integrates to a ramp across
+ * the scan large enough to put vacuum on the wrong side of the specimen; the decision must not
+ * depend on how the user chose to descan. `phase` (that of `field`) is reused when the offset is already nil.
+ */
+function vacuumReferencedPhase(field: { comX: Float64Array; comY: Float64Array }, phase: Float64Array | null, mask: Uint8Array, scanY: number, scanX: number): Float64Array {
+  const offset = (a: Float64Array) => {
+    let sum = 0, n = 0;
+    for (let i = 0; i < a.length; i++) if (mask[i] !== 0 && Number.isFinite(a[i])) { sum += a[i]; n++; }
+    return n > 0 ? sum / n : 0;
+  };
+  const ox = offset(field.comX), oy = offset(field.comY);
+  let spread = 0;
+  for (let i = 0; i < field.comX.length; i++) if (Number.isFinite(field.comX[i]) && Number.isFinite(field.comY[i])) spread = Math.max(spread, Math.abs(field.comX[i]), Math.abs(field.comY[i]));
+  if (phase && Math.abs(ox) <= 1e-12 * spread && Math.abs(oy) <= 1e-12 * spread) return phase;
+  const x = field.comX.map((v) => v - ox), y = field.comY.map((v) => v - oy);
+  return integrateCom(x, y, scanY, scanX).phase;
+}
+
 function vacuumContrast(phase: Float64Array, mask: Uint8Array): number {
   let all = 0;
   let vacuum = 0;
@@ -688,7 +716,13 @@ export function estimateRotation(
   const integrated = integrateCom(rotated.comX, rotated.comY, scanY, scanX);
   const { phase } = integrated;
   const halfTurnRule = options.vacuumMask ? 'vacuum-phase-lowest' : 'positive-phase-skewness';
-  let score = options.vacuumMask ? vacuumContrast(phase, options.vacuumMask) : skewness(phase);
+  let score: number;
+  if (options.vacuumMask) {
+    const judged = options.halfTurnField ? rotateCom(options.halfTurnField.comX, options.halfTurnField.comY, best.degrees, flip) : rotated;
+    score = vacuumContrast(vacuumReferencedPhase(judged, options.halfTurnField ? null : phase, options.vacuumMask, scanY, scanX), options.vacuumMask);
+  } else {
+    score = skewness(phase);
+  }
   let degrees = best.degrees;
   if (score < 0) {
     degrees = normaliseDegrees(degrees + 180);

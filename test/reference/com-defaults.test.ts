@@ -51,3 +51,27 @@ print(json.dumps({'corr': float(np.corrcoef(truth.ravel(), f['phase'][()].ravel(
   expect(got.flip).toBe('no');
   console.log(`demo, no flags: phase correlation ${got.corr.toFixed(4)} with the integrated truth; rotation ${got.rotation.toFixed(2)}° (truth 0°)`);
 });
+
+it('the descan asked for does not turn the field: mean, plane and none settle the same half-turn by vacuum as the default', () => {
+  const demo = path.join(dir, 'demo.h5');
+  if (!fs.existsSync(demo)) expect(scanfold('sample', '--size', 'demo', '--out', demo, '--quiet').status).toBe(0);
+  for (const mode of ['mean', 'plane', 'none']) {
+    const out = path.join(dir, `com-${mode}.h5`);
+    const r = scanfold('com', demo, '--dataset', '/scan/frames', '--descan', mode, '--out', out, '--quiet');
+    expect(r.status, r.stderr).toBe(0);
+    const p = spawnSync(PYTHON, ['-c', `import h5py, numpy as np, sys, json
+f = h5py.File(sys.argv[1]); t = h5py.File(sys.argv[2])['/truth']
+print(json.dumps({'rotation': float(f.attrs['rotation_degrees']), 'half_turn': str(f.attrs['rotation_half_turn']),
+  'cx': float(np.corrcoef(f['com_x'][()].ravel(), t['field_shift_x'][()].ravel())[0, 1]),
+  'cy': float(np.corrcoef(f['com_y'][()].ravel(), t['field_shift_y'][()].ravel())[0, 1])}))`, out, demo], { encoding: 'utf8' });
+    expect(p.status, p.stderr).toBe(0);
+    const got = JSON.parse(p.stdout);
+    // reference: the generator draws the field in the scan frame with no rotation (a descan
+    // removes an offset or a plane, which cannot turn the field)
+    expect(got.half_turn, mode).toBe('settled by vacuum');
+    expect(Math.min(got.rotation, 360 - got.rotation), mode).toBeLessThan(3);
+    // signed: the shifts point the way the truth's do (a half-turn wrong would give about −0.85)
+    expect(got.cx, mode).toBeGreaterThan(0.7);
+    expect(got.cy, mode).toBeGreaterThan(0.7);
+  }
+}, 120_000);
