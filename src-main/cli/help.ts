@@ -99,7 +99,7 @@ flags:
                           the scan-to-detector rotation and flip: auto (default, both) estimates them
                           by least curl, the half-turn settled by vacuum when there is some; or give both
   --mask-disk CX,CY,R     only pixels inside this disk (detector px) count towards the COM
-  --threshold T           pixels at or below T count as 0 (default 0; may be negative)
+  --threshold T           pixels below T count as 0 (those equal to T count; default 0; may be negative)
   --mrad-per-pixel M --energy-kev E --scan-step-nm S
                           together: also give the COM in mrad and the phase in radians
 ${BAD_PIXELS}

@@ -111,7 +111,7 @@ export interface ComFieldRequest extends JobOptions {
   dataset: DatasetId;
   /** Only pixels inside this disk count (detector px); default the whole pattern. */
   maskDisk?: { cx: number; cy: number; r: number };
-  /** Pixels at or below this value are left out. */
+  /** Pixels below this value count as zero (a pixel equal to it counts). */
   threshold?: number;
   descan?: DescanRequest;
   /** Estimated by least curl (auto), or given. */
