@@ -52,8 +52,10 @@ ${SOURCE}`,
 
   summary: `scanfold summary FILE [source flags] --out OUT.h5 [engine flags]
   The first streaming pass: /mean_pattern, /max_pattern (det_y, det_x) and /total_intensity
-  (scan_y, scan_x), float64; from the same read /bright_field (the disk found on 16 patterns
-  sampled across the scan) and /annular_dark_field (twice its radius to the detector's edge).
+  (scan_y, scan_x; every pixel), float64; with bad pixels found, /total_intensity_less_bad_pixels
+  too (a few hot pixels can outweigh the specimen); from the same read /bright_field (the disk
+  found on 16 patterns sampled across the scan) and /annular_dark_field (twice its radius to the
+  detector's edge).
 
 ${OUT}
 

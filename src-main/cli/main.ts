@@ -70,7 +70,16 @@ async function writeSummary(service: EngineService, out: OutputFile, r: FirstPas
   return (await writeResults(service, out, {
     mean_pattern: { data: r.meanPattern, shape: [detY, detX], dims: ['det_y', 'det_x'], attrs: { units: 'counts per pattern' } },
     max_pattern: { data: r.maxPattern, shape: [detY, detX], dims: ['det_y', 'det_x'], attrs: { units: 'counts' } },
-    total_intensity: { data: r.totalIntensity, shape: [scanY, scanX], dims: ['scan_y', 'scan_x'], attrs: { units: 'counts' } },
+    total_intensity: {
+      data: r.totalIntensity, shape: [scanY, scanX], dims: ['scan_y', 'scan_x'],
+      attrs: { units: 'counts', ...(r.totalIntensityLessBadPixels ? { note: 'every pixel, the bad pixels listed in the attributes included: see /total_intensity_less_bad_pixels' } : {}) },
+    },
+    ...(r.totalIntensityLessBadPixels ? {
+      total_intensity_less_bad_pixels: {
+        data: r.totalIntensityLessBadPixels, shape: [scanY, scanX], dims: ['scan_y', 'scan_x'],
+        attrs: { units: 'counts', note: 'Σ of each pattern over the detector less the bad pixels listed in the attributes (bad_pixels_*_yx)' },
+      },
+    } : {}),
     // The default images taken in the same pass: /bright_field, /annular_dark_field.
     ...Object.fromEntries(r.defaultImages.map((im) => [im.label.replace(/ /g, '_'), {
       data: im.image, shape: [scanY, scanX], dims: ['scan_y', 'scan_x'],
@@ -163,15 +172,16 @@ async function cmdDemo(args: string[]) {
   const spec = { path: file, datasetPath: '/scan/frames' };
   const out = OutputFile.create(summaryFile, { flag: 'demo summary', protect: [file] });
   const { r } = await summarise(spec, values, out, 'scanfold demo');
+  // The range a user would look at: without the hot pixels, which can outweigh the specimen.
   let tmin = Infinity, tmax = -Infinity;
-  for (const v of r.totalIntensity) { if (v < tmin) tmin = v; if (v > tmax) tmax = v; }
+  for (const v of r.totalIntensityLessBadPixels ?? r.totalIntensity) { if (v < tmin) tmin = v; if (v > tmax) tmax = v; }
   const disk = r.brightFieldDisk;
   process.stdout.write(JSON.stringify({
     dataset: r.descriptor.path + ':' + r.descriptor.datasetPath,
     shape: r.descriptor.shape,
     dtype: r.descriptor.dtype,
     seconds: Number(r.seconds.toFixed(3)),
-    totalIntensity: { min: tmin, max: tmax },
+    totalIntensity: { min: tmin, max: tmax, badPixels: r.totalIntensityLessBadPixels ? 'left out' : r.badPixels.hot.length + r.badPixels.dead.length > 0 ? 'included' : 'none found' },
     brightFieldDisk: 'notFound' in disk ? disk.notFound : { x: Number(disk.cx.toFixed(2)), y: Number(disk.cy.toFixed(2)), radiusPx: Number(disk.r.toFixed(2)) },
     badDetectorPixels: { hot: r.badPixels.hot, dead: r.badPixels.dead },
     previewCube: { shape: [r.preview.qY, r.preview.qX, r.preview.pY, r.preview.pX], detBin: r.preview.detBin, scanBin: r.preview.scanBin },

@@ -597,6 +597,7 @@ export class EngineService implements ScanfoldService {
       const s = f.summary!;
       return {
         dataset: r.id, descriptor: s.descriptor, meanPattern: s.meanPattern, maxPattern: s.maxPattern, totalIntensity: s.totalIntensity,
+        totalIntensityLessBadPixels: f.com && f.badPixels.hot.length + f.badPixels.dead.length > 0 ? f.com.total : null,
         nonFiniteInputs: s.nonFinite, seconds: s.seconds, badPixels: f.badPixels, brightFieldDisk: f.disk, defaultImages: f.defaultImages,
         preview: { qY: s.preview.qY, qX: s.preview.qX, pY: s.preview.pY, pX: s.preview.pX, detBin: s.preview.detBin, scanBin: s.preview.scanBin },
       };

@@ -60,7 +60,14 @@ export interface FirstPassResult {
   descriptor: DatasetDescriptor;
   meanPattern: Float64Array;
   maxPattern: Float64Array;
+  /** Σ of each pattern over every pixel, bad ones included (scanY × scanX). */
   totalIntensity: Float64Array;
+  /**
+   * Σ of each pattern over the detector less the bad pixels found; null when none were found
+   * (it is then totalIntensity) or when too many looked bad on the sample for the pass to watch.
+   * A few hot pixels can outweigh the specimen's counts and flatten the plain total.
+   */
+  totalIntensityLessBadPixels: Float64Array | null;
   /** NaN/±Inf input values left out of the sums and maxima. */
   nonFiniteInputs: number;
   seconds: number;
