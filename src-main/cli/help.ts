@@ -8,6 +8,8 @@ const SOURCE = `source flags (which data to read):
   --dtype NAME            raw binary: ${DTYPES.join(', ')}
   --byte-order little|big raw binary: byte order (default little)
   --offset BYTES          raw binary: header bytes to skip (default 0)
+  --trailer BYTES         raw binary: bytes after the data that are not part of it (default 0; a
+                          file longer than offset + data + trailer is refused)
   --format hdf5|npy|raw   only when the file's first bytes cannot tell`;
 
 const ENGINE = `engine flags:

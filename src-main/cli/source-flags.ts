@@ -14,6 +14,7 @@ export const SOURCE_OPTIONS = {
   dtype: { type: 'string' },
   'byte-order': { type: 'string' },
   offset: { type: 'string' },
+  trailer: { type: 'string' },
   format: { type: 'string' },
 } as const;
 
@@ -120,10 +121,11 @@ export function sourceSpecFromFlags(file: string | undefined, v: Record<string, 
     const byteOrder = typeof v['byte-order'] === 'string' ? v['byte-order'] : 'little';
     if (byteOrder !== 'little' && byteOrder !== 'big') throw new InputError(`--byte-order ${byteOrder}: expected little or big`);
     const offset = typeof v.offset === 'string' ? wholeNumber('offset', v.offset, 0, 'a whole number of bytes ≥ 0 (plain digits)') : 0;
+    const trailer = typeof v.trailer === 'string' ? wholeNumber('trailer', v.trailer, 0, 'a whole number of bytes ≥ 0 (plain digits)') : 0;
     spec.format = 'raw';
-    spec.raw = { shape: { scanY, scanX, detY, detX }, dtype, byteOrder, offset };
-  } else if (v.dtype !== undefined || v['byte-order'] !== undefined || v.offset !== undefined) {
-    throw new InputError('--dtype, --byte-order and --offset describe a raw binary file and need --raw-shape');
+    spec.raw = { shape: { scanY, scanX, detY, detX }, dtype, byteOrder, offset, ...(trailer ? { trailer } : {}) };
+  } else if (v.dtype !== undefined || v['byte-order'] !== undefined || v.offset !== undefined || v.trailer !== undefined) {
+    throw new InputError('--dtype, --byte-order, --offset and --trailer describe a raw binary file and need --raw-shape');
   }
   return spec;
 }

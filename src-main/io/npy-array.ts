@@ -56,16 +56,25 @@ export function readNpy2D(file: string, what: string): SmallArray2D {
 export async function readClusterLabels(file: string): Promise<{ labels: Int32Array; height: number; width: number; clusters: number }> {
   const abs = checkInputFile(file, 'an HDF5 file written by scanfold kmeans').path;
   const { h5wasm } = await getH5();
-  const f = new h5wasm.File(abs, 'r');
+  let f: InstanceType<typeof h5wasm.File>;
+  try {
+    f = new h5wasm.File(abs, 'r');
+  } catch {
+    throw new InputError(`${abs}: not an HDF5 file (or a damaged one); expected the output of scanfold kmeans`, 'bad-input');
+  }
   try {
     const d = f.get('labels') as { shape?: number[]; dtype?: string; value?: unknown } | null;
     if (!d || !Array.isArray(d.shape) || d.shape.length !== 2) {
       throw new InputError(`${abs}: no 2-D /labels dataset; expected the output of scanfold kmeans`, 'bad-input');
     }
-    const values = Int32Array.from(d.value as ArrayLike<number>);
+    const raw = d.value as ArrayLike<number | bigint>;
+    const values = new Int32Array(raw.length);
     let clusters = 0;
-    for (const v of values) {
-      if (!Number.isInteger(v) || v < 0) throw new InputError(`${abs}: /labels holds ${v}; expected cluster indices 0, 1, 2, …`, 'bad-input');
+    for (let i = 0; i < raw.length; i++) {
+      const v = Number(raw[i]);
+      // Checked before the conversion to 32-bit integers, which would turn 0.5 into 0 unseen.
+      if (!Number.isInteger(v) || v < 0 || v > 2 ** 31 - 2) throw new InputError(`${abs}: /labels holds ${raw[i]}; expected cluster indices 0, 1, 2, …`, 'bad-input');
+      values[i] = v;
       clusters = Math.max(clusters, v + 1);
     }
     return { labels: values, height: d.shape[0], width: d.shape[1], clusters };

@@ -25,7 +25,7 @@ export async function describeRaw(spec: SourceSpec): Promise<DatasetDescriptor> 
 
 function openRawSync(spec: SourceSpec): TileSource {
   let path = physicalPath(spec.path);
-  const { shape, dtype, byteOrder, offset } = checkRawLayout(spec.raw, path);
+  const { shape, dtype, byteOrder, offset, trailer } = checkRawLayout(spec.raw, path);
   const elementBytes = DTYPE_BYTES[dtype];
   validateShape(shape, elementBytes, path);
   const byteSize = shape.scanY * shape.scanX * shape.detY * shape.detX * elementBytes;
@@ -36,12 +36,28 @@ function openRawSync(spec: SourceSpec): TileSource {
   const file = openInputFile(spec.path, 'a raw binary file');
   path = file.path;
   try {
-    if (file.size < needed) {
+    // A file that describes itself, read as raw from byte 0, would give its header as counts.
+    if (offset === 0) {
+      const head = Buffer.alloc(8);
+      fs.readSync(file.fd, head, 0, 8, 0);
+      const kind = head.subarray(0, 6).equals(NPY_MAGIC) ? 'a NumPy .npy file' : head.equals(HDF5_MAGIC) ? 'an HDF5 file' : null;
+      if (kind) {
+        throw new InputError(`${path}: is ${kind}, which describes its own shape and type; expected no raw flags (--raw-shape, --dtype, --byte-order, --offset) for it`, 'bad-input');
+      }
+    }
+    if (file.size < needed + trailer) {
       throw new InputError(
-        `${path}: file is ${file.size} bytes; expected at least ${needed} bytes ` +
-        `(offset ${offset} + shape ${shapeText(shape)} of ${dtype} = ${byteSize} bytes of data), ` +
-        `so ${needed - file.size} bytes are missing — check the shape, dtype and offset`,
+        `${path}: file is ${file.size} bytes; expected ${needed + trailer} bytes ` +
+        `(offset ${offset} + shape ${shapeText(shape)} of ${dtype} = ${byteSize} bytes of data${trailer ? ` + a trailer of ${trailer}` : ''}), ` +
+        `so ${needed + trailer - file.size} bytes are missing — check the shape, dtype and offset`,
         'short-file');
+    }
+    if (file.size > needed + trailer) {
+      throw new InputError(
+        `${path}: file is ${file.size} bytes, ${file.size - needed - trailer} more than offset ${offset} + shape ${shapeText(shape)} of ${dtype} ` +
+        `(${byteSize} bytes of data)${trailer ? ` + a trailer of ${trailer}` : ''}; expected the description to cover the file — check the shape, dtype and offset ` +
+        `(a wrong detector width or a header left out reads every pattern out of step), or give the bytes after the data as --trailer`,
+        'bad-shape');
     }
     const fp = contiguousFingerprint(file.fd, { format: 'raw', shape, dtype, byteOrder, dataOffset: offset, byteSize }, path);
     const descriptor: DatasetDescriptor = {
@@ -54,7 +70,7 @@ function openRawSync(spec: SourceSpec): TileSource {
       byteSize,
       fingerprint: fp,
       layout: { kind: 'contiguous', dataOffset: offset, byteOrder },
-      spec: { ...spec, format: 'raw', path, raw: { shape, dtype, byteOrder, offset } },
+      spec: { ...spec, format: 'raw', path, raw: { shape, dtype, byteOrder, offset, ...(trailer ? { trailer } : {}) } },
       sourceFiles: [path],
     };
     return new ContiguousTileSource(descriptor, file.fd);
@@ -69,7 +85,11 @@ interface CheckedRawLayout {
   dtype: DType;
   byteOrder: ByteOrder;
   offset: number;
+  trailer: number;
 }
+
+const NPY_MAGIC = Buffer.from([0x93, 0x4e, 0x55, 0x4d, 0x50, 0x59]);
+const HDF5_MAGIC = Buffer.from([0x89, 0x48, 0x44, 0x46, 0x0d, 0x0a, 0x1a, 0x0a]);
 
 /** The raw layout arrives from the CLI, IPC or a session file, so every field is checked here. */
 function checkRawLayout(raw: unknown, path: string): CheckedRawLayout {
@@ -95,5 +115,9 @@ function checkRawLayout(raw: unknown, path: string): CheckedRawLayout {
   if (typeof offset !== 'number' || !Number.isSafeInteger(offset) || offset < 0) {
     throw new InputError(`${path}: header offset ${JSON.stringify(offset)} is not usable; expected a whole number of bytes ≥ 0`, 'bad-input');
   }
-  return { shape, dtype, byteOrder, offset };
+  const trailer = r.trailer ?? 0;
+  if (typeof trailer !== 'number' || !Number.isSafeInteger(trailer) || trailer < 0) {
+    throw new InputError(`${path}: trailer ${JSON.stringify(trailer)} is not usable; expected a whole number of bytes ≥ 0`, 'bad-input');
+  }
+  return { shape, dtype, byteOrder, offset, trailer };
 }

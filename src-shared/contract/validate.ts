@@ -29,7 +29,8 @@ const sourceSpec = z.object({
     dtype: z.enum(DTYPES as unknown as [string, ...string[]]),
     byteOrder: z.enum(['little', 'big']),
     offset: whole,
-  }).optional(),
+    trailer: whole.optional(),
+  }).strict().optional(),
 }).strict();
 
 const maskShape = z.object({ kind: z.literal('mask'), width: positiveWhole, height: positiveWhole, values: numbers })

@@ -17,6 +17,11 @@ export interface RawLayoutSpec {
   byteOrder: ByteOrder;
   /** Bytes to skip at the start of the file. */
   offset: number;
+  /**
+   * Bytes after the data that are not part of it (a footer); absent: none. A file longer than
+   * offset + data + trailer is refused: a wrong shape, dtype or offset reads patterns out of step.
+   */
+  trailer?: number;
 }
 
 /** What the user asks to open. Serializable: workers receive it and open their own reader. */

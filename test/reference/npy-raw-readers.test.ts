@@ -385,7 +385,7 @@ describe('bad input is refused with a message naming the file and what was expec
     const layout = { ...rawU2(), offset: 16 };
     // reference: the script wrote 16 + nbytes − 10 bytes.
     await expectInputError(raw(layout, manifest.bad.short_raw), 'short-file',
-      ['short_raw.bin', `${manifest.shortRawSize} bytes`, `at least ${manifest.shortRawNeeded} bytes`, 'offset 16']);
+      ['short_raw.bin', `${manifest.shortRawSize} bytes`, `expected ${manifest.shortRawNeeded} bytes`, 'offset 16']);
   });
 
   it('a file that is not .npy at all', async () => {
@@ -458,9 +458,12 @@ describe('bad input is refused with a message naming the file and what was expec
     }
   });
 
-  it('raw with trailing bytes is accepted and ignores them', async () => {
+  it('raw with trailing bytes: refused unless they are said (a wrong description would read patterns out of step); said, they are ignored', async () => {
     const f = fixture('raw_u1_trailing');
     expect(fs.statSync(inDir(f.file)).size).toBeGreaterThan(f.dataOffset + f.byteSize);
+    const { trailer, ...unsaid } = f.raw as Record<string, unknown>;
+    expect(trailer).toBe(333);
+    await expectInputError(raw(unsaid, f.file), 'bad-shape', ['raw_u1_trailing.bin', '333 more than offset 7', '--trailer']);
     const src = await open(f);
     const all = readAll(src, f.shape[0], true);
     src.close();
