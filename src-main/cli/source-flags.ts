@@ -81,10 +81,15 @@ export function parseFlags<O extends OptionSpec>(args: string[], options: O) {
       i++;
     } else joined.push(a);
   }
+  let parsed;
   try {
-    return parseArgs({ args: joined, options: { ...options, help: { type: 'boolean', short: 'h' } }, allowPositionals: true, strict: true, tokens: true });
+    parsed = parseArgs({ args: joined, options: { ...options, help: { type: 'boolean', short: 'h' } }, allowPositionals: true, strict: true, tokens: true });
   } catch (e) {
     const err = e as Error & { code?: string };
+    const ambiguous = /Option '(--[^' ]+)' argument is ambiguous/.exec(err.message);
+    if (ambiguous) throw new InputError(`${ambiguous[1]} needs a value, but a flag follows it; expected ${ambiguous[1]} VALUE (a value that starts with "-" is written ${ambiguous[1]}=VALUE)`);
+    const missing = /Option '(--[^' ]+) <value>' argument missing/.exec(err.message);
+    if (missing) throw new InputError(`${missing[1]} needs a value; expected ${missing[1]} VALUE`);
     const unknown = /Unknown option '(-{1,2}[^']+)'/.exec(err.message);
     if (err.code === 'ERR_PARSE_ARGS_UNKNOWN_OPTION' && unknown) {
       const near = closestFlag(unknown[1].replace(/^-+/, ''), Object.keys(options));
@@ -92,6 +97,14 @@ export function parseFlags<O extends OptionSpec>(args: string[], options: O) {
     }
     throw new InputError(`${err.message.split('\n')[0]} (scanfold COMMAND --help lists every flag)`);
   }
+  // A flag given twice would silently take its last value: refused, unless it may repeat.
+  const seen = new Set<string>();
+  for (const t of parsed.tokens) {
+    if (t.kind !== 'option' || (options[t.name] as { multiple?: boolean } | undefined)?.multiple) continue;
+    if (seen.has(t.name)) throw new InputError(`--${t.name} is given twice; expected it once (the second would silently replace the first)`);
+    seen.add(t.name);
+  }
+  return parsed;
 }
 
 export function sourceSpecFromFlags(file: string | undefined, v: Record<string, unknown>): SourceSpec {

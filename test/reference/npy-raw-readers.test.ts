@@ -461,7 +461,7 @@ describe('bad input is refused with a message naming the file and what was expec
   it('raw with trailing bytes: refused unless they are said (a wrong description would read patterns out of step); said, they are ignored', async () => {
     const f = fixture('raw_u1_trailing');
     expect(fs.statSync(inDir(f.file)).size).toBeGreaterThan(f.dataOffset + f.byteSize);
-    const { trailer, ...unsaid } = f.raw as Record<string, unknown>;
+    const { trailer, ...unsaid } = f.raw as unknown as Record<string, unknown>;
     expect(trailer).toBe(333);
     await expectInputError(raw(unsaid, f.file), 'bad-shape', ['raw_u1_trailing.bin', '333 more than offset 7', '--trailer']);
     const src = await open(f);
