@@ -684,6 +684,11 @@ export function estimateRotation(
   checkMap('comX', comX, scanY, scanX);
   checkMap('comY', comY, scanY, scanX);
   if (options.vacuumMask) checkMap('vacuum mask', options.vacuumMask, scanY, scanX);
+  if (scanY < 2 || scanX < 2) {
+    throw new InputError(
+      `rotation estimate: a ${scanY}×${scanX} scan has neighbouring positions along one direction at most, and least curl needs both ` +
+      '(along one line every angle fits); expected a 2-D scan, or give the rotation and flip by hand');
+  }
 
   const sigmas = (options.smoothingSigmas ?? [0, 1, 2]).filter((s) => s === 0 || 4 * s < Math.min(scanY, scanX));
   if (sigmas.length === 0) sigmas.push(0);
@@ -707,6 +712,15 @@ export function estimateRotation(
   const { plain, flipped } = chosen;
   const bestPlain = minimiseCurl(plain);
   const bestFlipped = minimiseCurl(flipped);
+  // Derivatives at rounding level next to the field's own size: a field that does not vary.
+  let scale = 0;
+  for (let i = 0; i < comX.length; i++) if (Number.isFinite(comX[i]) && Number.isFinite(comY[i])) scale = Math.max(scale, Math.abs(comX[i]), Math.abs(comY[i]));
+  const flat = (b: { total: number }, count: number) => !(Math.sqrt(b.total / Math.max(1, count)) > 1e-9 * scale);
+  if (flat(bestPlain, plain.count) && flat(bestFlipped, flipped.count)) {
+    throw new InputError(
+      'rotation estimate: the centre of mass does not change across the scan (no divergence or curl to judge by), so the rotation cannot be estimated; ' +
+      'expected a field that varies, or give the rotation and flip by hand');
+  }
   const flip = relative(bestFlipped) < relative(bestPlain);
   const best = flip ? bestFlipped : bestPlain;
   const other = flip ? bestPlain : bestFlipped;

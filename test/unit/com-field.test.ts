@@ -561,3 +561,17 @@ describe('(6) NaN positions', () => {
     expect(() => fillNonFinite(new Float64Array(4).fill(NaN), 2, 2)).toThrow(InputError);
   });
 });
+
+describe('the rotation estimate refuses what it cannot judge', () => {
+  it('a scan one position high or wide (analytic: along one line a gradient field fits every angle)', () => {
+    // gx = 1 along a 1×8 line: curl-free at every rotation, since no y-derivative exists
+    const n = 8;
+    expect(() => estimateRotation(new Float64Array(n).fill(1), new Float64Array(n), 1, n)).toThrow(/1×8 scan has neighbouring positions along one direction at most/);
+    expect(() => estimateRotation(new Float64Array(n), new Float64Array(n), n, 1)).toThrow(InputError);
+  });
+
+  it('a field that does not vary (no divergence or curl at any angle)', () => {
+    const n = 6 * 7;
+    expect(() => estimateRotation(new Float64Array(n).fill(3), new Float64Array(n).fill(-2), 6, 7)).toThrow(/does not change across the scan/);
+  });
+});
