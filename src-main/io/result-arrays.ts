@@ -97,7 +97,7 @@ const LAYOUTS: Record<SessionMethod, Layout> = {
     const { scanY, scanX } = r.descriptor.shape;
     return {
       coefficients: { data: r.coefficients, shape: [r.r, scanY, scanX], dims: ['reference', ...SCAN], attrs: { units: 'weight of the reference (1 = the reference itself)' }, field: ['coefficients'] },
-      residual: { data: r.residual, shape: [scanY, scanX], dims: SCAN, attrs: { units: 'relative residual norm ‖f − Σ c_i r_i‖ / ‖f‖' }, field: ['residual'] },
+      residual: { data: r.residual, shape: [scanY, scanX], dims: SCAN, attrs: { units: 'relative residual norm ‖f − Σ c_i r_i‖ / ‖f‖', note: 'NaN where the pattern is all zero (nothing to explain)' }, field: ['residual'] },
       references: {
         data: r.references, shape: [r.r, f.outY, f.outX], dims: ['reference', 'det_y_binned', 'det_x_binned'], field: ['references'],
         attrs: { units: 'feature units (after scaling)', note: 'NaN where a detector bin was left out' },

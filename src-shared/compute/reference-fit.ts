@@ -115,7 +115,7 @@ export function nnlsNormal(g: Float64Array, b: Float64Array, r: number): Float64
 
 /**
  * Fit n feature rows (n × D): coefficients (n × r) and the relative residual ‖f − Rᵀc‖ / ‖f‖
- * (0 for an all-zero pattern).
+ * (NaN for an all-zero pattern: 0/0, nothing to explain; 0 would read as fully explained).
  */
 export function fitRows(features: Float64Array, n: number, plan: FitPlan, nonnegative: boolean): { coefficients: Float64Array; residual: Float64Array } {
   const { r, d, references, gram, chol } = plan;
@@ -146,7 +146,7 @@ export function fitRows(features: Float64Array, n: number, plan: FitPlan, nonneg
         rr += v * v;
       }
     }
-    residual[p] = ff > 0 ? Math.sqrt(rr / ff) : 0;
+    residual[p] = ff > 0 ? Math.sqrt(rr / ff) : NaN;
   }
   return { coefficients, residual };
 }

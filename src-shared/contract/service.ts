@@ -378,7 +378,7 @@ export interface FitResult {
   r: number;
   /** r × scanY × scanX: each position's weight of each reference. */
   coefficients: Float64Array;
-  /** scanY × scanX: ‖f − Σ c_i r_i‖ / ‖f‖ per position, what no reference explains. */
+  /** scanY × scanX: ‖f − Σ c_i r_i‖ / ‖f‖ per position, what no reference explains (NaN where the pattern is all zero). */
   residual: Float64Array;
   /** r × outY × outX: each reference as a pattern on the binned detector (NaN where a bin was left out). */
   references: Float64Array;
