@@ -202,8 +202,15 @@ export function provenance(d: { path: string; datasetPath: string | null; finger
     source_path: d.path,
     source_dataset: d.datasetPath ?? '',
     source_fingerprint: d.fingerprint,
-    ...(request !== undefined ? { request: JSON.stringify(request, (_k, v) => (ArrayBuffer.isView(v) || (Array.isArray(v) && v.length > 64) ? `(${(v as ArrayLike<number>).length} values)` : v)) } : {}),
+    // The request as given; the engine's handle of the dataset means nothing outside this run.
+    ...(request !== undefined ? { request: JSON.stringify(withoutHandle(request), (_k, v) => (ArrayBuffer.isView(v) || (Array.isArray(v) && v.length > 64) ? `(${(v as ArrayLike<number>).length} values)` : v)) } : {}),
   };
+}
+
+function withoutHandle(request: unknown): unknown {
+  if (request === null || typeof request !== 'object' || Array.isArray(request)) return request;
+  const { dataset: _dataset, ...rest } = request as Record<string, unknown>;
+  return rest;
 }
 
 /** Bad detector pixels left out, as [y, x] coordinates, for the output's attributes. */

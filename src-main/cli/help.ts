@@ -26,7 +26,8 @@ const OUT = `  --out OUT.h5            where the results go: written beside it i
                           a FIFO or a file you may not write; a symlink is written through`;
 
 const SESSION = `  --session FILE.scanfold.h5
-                          also add the result and its recipe (the request, defaults included) to a
+                          also add the result and its recipe (the request as given; the values
+                          chosen for the rest are in the result) to a
                           session file, created if missing, replaced atomically; --out is then optional
   --as NAME               the result's name in the session (default: the command's name, numbered
                           when taken: pca, pca-2, …); a name already there is replaced`;

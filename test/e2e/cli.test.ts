@@ -67,6 +67,8 @@ print(json.dumps({k: str(f.attrs[k]) for k in ('scanfold_version', 'command_line
     expect(a.scanfold_version).toMatch(/^\d+\.\d+\.\d+/);
     expect(JSON.parse(a.command_line)).toEqual(['summary', path.join(fx, 'a.npy'), '--out', out, '--quiet']);
     expect(a.source_fingerprint).toMatch(/^sha256:/);
+    // The request as given, without the engine's handle of the dataset (meaningless after the run).
+    expect(JSON.parse(a.request)).not.toHaveProperty('dataset');
     expect(a.dims).toEqual(['det_y', 'det_x']);
     expect(Date.parse(a.created)).not.toBeNaN();
   });
