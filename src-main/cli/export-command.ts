@@ -1,7 +1,7 @@
 // `scanfold export SESSION RESULT --format png|tiff|npy|csv --out FILE`: one array of a session's
 // results for another program or a report. The service reads the session and makes the bytes
 // (the data it was made from need not be present); this command writes them.
-import { InputError } from '../../src-shared/model/errors';
+import { InputError, isInputError } from '../../src-shared/model/errors';
 import type { Scaling } from '../../src-shared/model/contrast';
 import type { EngineOptions } from '../engine/engine';
 import { physicalPath, sameFileAt } from '../io/input-file';
@@ -52,7 +52,14 @@ export async function cmdExport(args: string[], engineOptions: (v: Record<string
   const mradPerPixel = typeof v['mrad-per-pixel'] === 'string' ? decimalNumber('mrad-per-pixel', v['mrad-per-pixel']) : undefined;
   const out = OutputFile.create(v.out, { flag: '--out', protect: [physicalPath(file)] });
   await withService(engineOptions({ ...v, quiet: true } as Record<string, unknown>), true, async (service) => {
-    const s = await service.openSession({ path: physicalPath(file), openData: false });
+    const s = await service.openSession({ path: physicalPath(file), openData: false }).catch(async (e: unknown) => {
+      // A command's --out file is the commonest file to try: say how to get a session instead.
+      if (isInputError(e) && e.code === 'bad-session' && (await producedByCommand(physicalPath(file)))) {
+        throw new InputError(`${physicalPath(file)}: the output of a scanfold command, not a session; export draws results kept in a session: run the command again ` +
+          'with --session NAME.scanfold.h5, then export from that (the arrays of this file are plain HDF5 datasets, for h5py)', 'bad-session');
+      }
+      throw e;
+    });
     out.protect(s.datasets.flatMap((d) => (d.path ? [d.path] : [])));
     const f = await service.exportResult({
       key, format, ...(array ? { array } : {}), ...(index !== undefined ? { index } : {}),
@@ -74,4 +81,21 @@ async function exportSet(file: string, keys: string[], outPath: string, engineOp
     const saved = await service.saveSession({ path: outPath, keys });
     process.stderr.write(`wrote ${saved.path}: ${saved.results} result(s) of ${source} (${keys.join(', ')})\n`);
   });
+}
+
+/** Whether an HDF5 file says a Scanfold command wrote it (its producer attribute). */
+async function producedByCommand(file: string): Promise<boolean> {
+  try {
+    const { getH5 } = await import('../io/h5wasm-module');
+    const { h5wasm } = await getH5();
+    const f = new h5wasm.File(file, 'r');
+    try {
+      const v = (f.attrs as Record<string, { value: unknown } | undefined>).producer?.value;
+      return typeof v === 'string' && v.startsWith('scanfold ');
+    } finally {
+      f.close();
+    }
+  } catch {
+    return false;
+  }
 }

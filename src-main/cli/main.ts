@@ -14,7 +14,7 @@ import { outputFlag, parseFlags, rejectExtraPositionals, SOURCE_OPTIONS, sourceS
 import { interruptRunningJob } from './progress';
 import { writeSample, SAMPLE_SIZES } from '../../samples/write-sample';
 import { projectRoot } from '../engine/paths';
-import { COMMAND_HELP, OVERVIEW } from './help';
+import { closestFlag, COMMAND_HELP, OVERVIEW } from './help';
 import { SCANFOLD_VERSION } from '../engine/version';
 import { cmdFit, cmdKmeans, cmdPca } from './statistics-commands';
 import { cmdSession } from './session-commands';
@@ -197,6 +197,8 @@ async function cmdDemo(args: string[]) {
   }, null, 2) + '\n');
 }
 
+const COMMANDS = ['info', 'summary', 'image', 'com', 'calibrate', 'pattern', 'pca', 'kmeans', 'fit', 'session', 'export', 'serve', 'sample', 'demo'];
+
 export async function main(argv: string[]): Promise<number> {
   const [cmd, ...rest] = argv;
   try {
@@ -208,8 +210,8 @@ export async function main(argv: string[]): Promise<number> {
       process.stdout.write(OVERVIEW + '\n');
       return 0;
     }
-    if (rest.includes('--help') || rest.includes('-h')) {
-      process.stdout.write((COMMAND_HELP[cmd] ?? OVERVIEW) + '\n');
+    if ((rest.includes('--help') || rest.includes('-h')) && COMMAND_HELP[cmd]) {
+      process.stdout.write(COMMAND_HELP[cmd] + '\n');
       return 0;
     }
     switch (cmd) {
@@ -228,7 +230,10 @@ export async function main(argv: string[]): Promise<number> {
       case 'serve': await (await import('./serve-command')).cmdServe(rest, engineOptions, ENGINE_OPTIONS); break;
       case 'session': await cmdSession(rest, engineOptions, ENGINE_OPTIONS); break;
       case 'export': await cmdExport(rest, engineOptions, ENGINE_OPTIONS); break;
-      default: throw new InputError(`unknown command "${cmd}"; expected info, summary, image, com, calibrate, pattern, pca, kmeans, fit, session, export, serve, sample or demo (see scanfold --help; benchmarks: npm run bench)`);
+      default: {
+        const near = closestFlag(cmd, COMMANDS);
+        throw new InputError(`unknown command "${cmd}"${near ? ` (did you mean ${near}?)` : ''}; expected ${COMMANDS.slice(0, -1).join(', ')} or ${COMMANDS.at(-1)} (see scanfold --help; benchmarks: npm run bench)`);
+      }
     }
     return 0;
   } catch (e) {
