@@ -15,6 +15,11 @@ export interface FigureOptions {
   limits: [number, number] | null;
   /** Size of one data pixel, and its unit ('nm' for the scan, 'mrad' for the detector); null: no scale bar. */
   pixelSize: { value: number; unit: 'nm' | 'mrad' } | null;
+  /**
+   * A map of category indices 0 … n − 1 drawn with limits −0.5 … 9.5 in 'categories': the colour
+   * bar shows those n colours only, labelled 0 and n − 1 (not ten labelled −0.5 and 9.5).
+   */
+  categories?: number;
 }
 
 export interface Figure {
@@ -94,8 +99,10 @@ export function renderFigure(values: ArrayLike<number>, w: number, h: number, o:
   const H = h * zoom;
   const limits = o.limits ?? percentileLimits(values);
   const contrast = { lo: limits[0], hi: limits[1], scaling: o.scaling };
-  const hiText = numberLabel(limits[1]);
-  const loText = numberLabel(limits[0]);
+  // The share of the colour bar shown: all of it, or the first n of ten categories.
+  const shown = o.categories ? Math.min(1, (o.categories - limits[0] - 0.5) / (limits[1] - limits[0])) : 1;
+  const hiText = o.categories ? String(o.categories - 1) : numberLabel(limits[1]);
+  const loText = o.categories ? '0' : numberLabel(limits[0]);
   let scaleBar: Figure['scaleBar'] = null;
   if (o.pixelSize && o.pixelSize.value > 0) {
     // About a fifth of the image's width, rounded down to 1, 2 or 5 × 10^k units.
@@ -121,7 +128,7 @@ export function renderFigure(values: ArrayLike<number>, w: number, h: number, o:
   }
   // The colour bar: the map from bottom (lower limit) to top (upper limit).
   for (let y = 0; y < H; y++) {
-    const i = lutIndex((H - 1 - y) / Math.max(H - 1, 1));
+    const i = lutIndex(shown * (H - 1 - y) / Math.max(H - 1, 1));
     for (let x = 0; x < BAR_WIDTH; x++) put(img, width, barX + x, MARGIN + y, lut.subarray(4 * i, 4 * i + 3));
   }
   drawText(img, width, hiText, labelX, MARGIN);

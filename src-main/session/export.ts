@@ -67,11 +67,20 @@ export async function exportResult(results: KeptResult[], req: ExportRequest, sc
   if (req.format === 'tiff') return done(await tiffBytes(data, w, h), ', float32');
   // A cluster map is drawn in categories unless a colour map is asked for, as the app draws it.
   const clusters = String(a.attrs?.units ?? '').startsWith('cluster index');
-  const colormap = (req.colormap ?? (clusters ? 'categories' : 'viridis')) as ColormapName;
+  // An angle (the COM direction) in the cyclic map, so −π and π, the same direction, share a colour.
+  const angle = String(a.attrs?.units ?? '').startsWith('radians, atan2');
+  const colormap = (req.colormap ?? (clusters ? 'categories' : angle ? 'sinebow' : 'viridis')) as ColormapName;
   if (!COLORMAP_NAMES.includes(colormap)) throw new InputError(`export: colour map ${colormap}: expected one of ${COLORMAP_NAMES.join(', ')}`, 'bad-request');
   // Categories as the app draws them: value k (a cluster) in the k-th colour.
-  const limits = req.limits ?? (colormap === 'categories' ? [-0.5, 9.5] as [number, number] : null);
-  const fig = renderFigure(data, w, h, { colormap, scaling: req.scaling ?? { kind: 'linear' }, limits, pixelSize: pixelSize(results, kept, dims, req, scanStepFallback) });
-  return done(pngBytes(fig), `, ${colormap}, limits ${fig.limits.map((x) => x.toPrecision(4)).join(' … ')}, ${fig.zoom}× enlarged; ` +
+  const limits = req.limits ?? (colormap === 'categories' ? [-0.5, 9.5] as [number, number] : angle && colormap === 'sinebow' ? [-Math.PI, Math.PI] as [number, number] : null);
+  // Its colour bar shows the clusters there are (k of the ten colours), labelled 0 … k − 1.
+  let categories: number | undefined;
+  if (clusters && colormap === 'categories' && !req.limits) {
+    let top = -1;
+    for (let i = 0; i < data.length; i++) if (data[i] > top) top = data[i];
+    if (Number.isInteger(top) && top >= 0 && top < 10) categories = top + 1;
+  }
+  const fig = renderFigure(data, w, h, { colormap, scaling: req.scaling ?? { kind: 'linear' }, limits, pixelSize: pixelSize(results, kept, dims, req, scanStepFallback), ...(categories ? { categories } : {}) });
+  return done(pngBytes(fig), `, ${colormap}, ${categories ? `${categories} categories` : `limits ${fig.limits.map((x) => x.toPrecision(4)).join(' … ')}`}, ${fig.zoom}× enlarged; ` +
     (fig.scaleBar ? `scale bar ${fig.scaleBar.label} = ${fig.scaleBar.pixels} px` : `no scale bar (the session holds no calibration: add a calibrate result to it, or give ${dims.at(-1) === 'scan_x' ? 'the scan step in nm' : 'mrad per detector pixel'})`));
 }

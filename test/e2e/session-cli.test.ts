@@ -141,7 +141,13 @@ print(json.dumps({
     // A cluster map is drawn in categories unless a colour map is asked for, as the app draws it.
     const clusters = scanfold('export', s(), 'kmeans/labels', '--format', 'png', '--out', path.join(dir, 'labels.png'));
     expect(clusters.status, clusters.stderr).toBe(0);
-    expect(clusters.stderr).toMatch(/, categories, limits -0\.5000 … 9\.500/);
+    // Its colour bar shows the clusters there are (labels 0 … k − 1), not ten categories.
+    const k = Number(py("import h5py,sys; print(int(h5py.File(sys.argv[1])['results/kmeans/labels'][()].max()) + 1)", s()).trim());
+    expect(clusters.stderr).toMatch(new RegExp(`, categories, ${k} categories,`));
+    // An angle map in the cyclic colour map, over −π … π, so opposite ends share a colour.
+    const direction = scanfold('export', s(), 'field/direction', '--format', 'png', '--out', path.join(dir, 'direction.png'));
+    expect(direction.status, direction.stderr).toBe(0);
+    expect(direction.stderr).toMatch(/, sinebow, limits -3\.142 … 3\.142/);
     // A stack needs --index for an image; the message says so.
     const stack = scanfold('export', s(), 'pca/loadings', '--format', 'png', '--out', path.join(dir, 'x.png'));
     expect(stack.status).toBe(2);
