@@ -177,6 +177,11 @@ export async function writeResults(service: EngineService, out: OutputFile | nul
 }
 
 /** Say on stderr which results are NaN or ±Inf (overflowed sums, divisions by zero). */
+/** NaN/±Inf values in the input, left out of every sum: said on every command that met them. */
+export function noteNonFiniteInputs(n: number): void {
+  if (n > 0) process.stderr.write(`note: ${n} NaN/Inf input values were left out of the sums and maxima (non_finite_inputs)\n`);
+}
+
 export function noteNonFiniteResults(w: WrittenResults | null, expected = ''): void {
   if (!w) return;
   const parts = Object.entries(w.nonFiniteResults).map(([k, n]) => `${k} ${n}`);
@@ -243,6 +248,7 @@ export async function cmdImage(args: string[], engineOptions: EngineOptionsOf, e
     const arrays = resultArrays('virtualImages', r);
     Object.assign(arrays.images.attrs!, { bad_pixels_left_out: r.badPixelsLeftOut, non_finite_inputs: r.nonFiniteInputs });
     const written = await writeResults(service, out, arrays, { ...provenance(r.descriptor, 'scanfold image', request), ...badPixelAttrs(r.badPixels) });
+    noteNonFiniteInputs(r.nonFiniteInputs);
     noteNonFiniteResults(written);
     if (!quiet) process.stderr.write(`${wrote(written)}: ${r.images.length} image(s) ${scanY}×${scanX}${r.badPixelsLeftOut ? `, ${r.badPixelsLeftOut} bad detector pixel(s) left out` : ''}\n`);
   }, out, session);
@@ -319,6 +325,7 @@ export async function cmdCom(args: string[], engineOptions: EngineOptionsOf, eng
       arrays.phase_radians.attrs!.radians_per_phase_unit = c.radiansPerPhaseUnit;
     }
     const written = await writeResults(service, out, arrays, rootAttrs);
+    noteNonFiniteInputs(f.nonFiniteInputs);
     noteNonFiniteResults(written, f.zeroTotalPatterns ? `; ${f.zeroTotalPatterns} pattern(s) with zero total have no centre of mass (NaN by design)` : '');
     if (!quiet) {
       process.stderr.write(`${wrote(written)}: rotation ${rot.degrees.toFixed(2)}°, flip ${rot.flip ? 'yes' : 'no'}${rot.alternativeDegrees !== undefined ? ` (estimated; relative curl ${rot.curlRelative!.toFixed(3)}; 180° away: ${rot.alternativeDegrees.toFixed(2)}°)` : ''}` +
@@ -419,6 +426,7 @@ export async function cmdPattern(args: string[], engineOptions: EngineOptionsOf,
     const request = { dataset: opened.id, region };
     const r = await service.regionPattern({ ...request, ...keep });
     const written = await writeResults(service, out, resultArrays('regionPattern', r), { region: r.region, positions: r.count, non_finite_inputs: r.nonFiniteInputs, ...provenance(r.descriptor, 'scanfold pattern', request) });
+    noteNonFiniteInputs(r.nonFiniteInputs);
     noteNonFiniteResults(written);
     if (v.quiet !== true) process.stderr.write(`${wrote(written)}: mean and max pattern over ${r.count} probe position(s)\n`);
   }, out, session);

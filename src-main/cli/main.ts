@@ -19,7 +19,7 @@ import { SCANFOLD_VERSION } from '../engine/version';
 import { cmdFit, cmdKmeans, cmdPca } from './statistics-commands';
 import { cmdSession } from './session-commands';
 import { cmdExport } from './export-command';
-import { cmdCalibrate, cmdCom, cmdImage, badPixelAttrs, cmdPattern, noteNonFiniteResults, openProtected, provenance, withService, writeResults } from './analysis-commands';
+import { cmdCalibrate, cmdCom, cmdImage, badPixelAttrs, cmdPattern, noteNonFiniteInputs, noteNonFiniteResults, openProtected, provenance, withService, writeResults } from './analysis-commands';
 import type { EngineService } from '../engine/service';
 
 const ENGINE_OPTIONS = {
@@ -108,7 +108,7 @@ async function cmdSummary(args: string[]) {
   const spec = sourceSpecFromFlags(positionals[0], values);
   const out = outputFlag(values.out, 'summary', [spec.path]);
   const { r, written } = await summarise(spec, values, out, 'scanfold summary');
-  if (r.nonFiniteInputs > 0) process.stderr.write(`note: ${r.nonFiniteInputs} NaN/Inf input values were left out of the sums and maxima\n`);
+  noteNonFiniteInputs(r.nonFiniteInputs);
   noteNonFiniteResults(written);
   if (values.quiet !== true) {
     process.stderr.write(`wrote ${written.path} (${fmtBytes(r.descriptor.byteSize)} in ${r.seconds.toFixed(2)} s, ` +

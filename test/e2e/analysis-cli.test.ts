@@ -69,6 +69,8 @@ describe('scanfold image', () => {
     // reference: NumPy sum over the whole pattern with non-finite values set to 0
     expect(maxRelDiff(got.values as number[], readNpyF64(path.join(fx, 'b_image_full.npy')).data)).toBeLessThan(1e-6);
     expect(got.attrs.non_finite_inputs).toBe(2);
+    // and said on stderr, not only stored
+    expect(r.err).toMatch(/note: 2 NaN\/Inf input values were left out/);
   });
 
   const bad: [string, string[], RegExp][] = [
