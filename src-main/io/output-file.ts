@@ -283,6 +283,8 @@ function truncateUtf8(name: string, max: number): string {
  * but a regular file the user may write, or a new name in an existing folder, is refused.
  */
 function resolveTarget(requested: string, flag: string): string {
+  // "x.h5/" names a folder to the system; writing "x.h5" instead would not be what was asked.
+  if (/[\\/]$/.test(requested)) throw new InputError(`${flag} ${requested}: ends with a slash, so it names a folder; expected a file name such as results.h5`, 'bad-output');
   const lst = statOrNull(requested, true);
   if (lst?.isSymbolicLink()) {
     let target: string;
@@ -311,9 +313,11 @@ function checkExisting(target: string, requested: string, flag: string): string 
   if (!st) throw new InputError(`${flag} ${requested}: cannot be examined; expected a file name such as results.h5`, 'bad-output');
   if (st.isDirectory()) throw new InputError(`${flag} ${requested}: is a folder; expected a file name such as results.h5`, 'bad-output');
   if (!st.isFile()) throw new InputError(`${flag} ${requested}: is ${fileKindText(st)}, not a regular file; Scanfold only writes regular files, so give a file name such as results.h5`, 'bad-output');
-  // Replacing by rename would get round the file's own permissions: honour them.
+  // Replacing by rename would get round the file's own permissions: honour them, and a file
+  // made read-only for everyone stays so even for a user (root) whom the system would let write.
   try {
     fs.accessSync(target, fs.constants.W_OK);
+    if ((st.mode & 0o222) === 0) throw new Error('read-only for everyone');
   } catch {
     throw new InputError(`${flag} ${requested}: exists and this user may not write it (read-only, or someone else's); Scanfold replaces only files you may write. Choose another name`, 'bad-output');
   }
