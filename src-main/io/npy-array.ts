@@ -32,6 +32,9 @@ export function readNpy2D(file: string, what: string): SmallArray2D {
       throw new InputError(`${abs}: the ${what} has shape (${shape.join(', ')}); expected a 2-D array`, 'bad-shape');
     }
     const [height, width] = shape;
+    // NumPy's default integer (int64): what np.save(mask.astype(int)) writes, the commonest mask.
+    const wide = /^([<>=|])([iu])8$/.exec(String(h.descr));
+    if (wide) return readWideIntegers(f.fd, f.size, abs, h.dataOffset, height, width, wide[1] === '>', wide[2] === 'i', what);
     const isBool = h.descr === '|b1';
     const { dtype, byteOrder } = isBool ? { dtype: 'uint8' as const, byteOrder: 'little' as const } : npyDType(h.descr, abs);
     const bytes = height * width * DTYPE_BYTES[dtype];
@@ -47,6 +50,24 @@ export function readNpy2D(file: string, what: string): SmallArray2D {
   } finally {
     fs.closeSync(f.fd);
   }
+}
+
+/** A 2-D array of 64-bit integers, each converted exactly to a number (refused beyond 2^53). */
+function readWideIntegers(fd: number, size: number, abs: string, dataOffset: number, height: number, width: number, big: boolean, signed: boolean, what: string): SmallArray2D {
+  const bytes = height * width * 8;
+  if (bytes > MAX_SMALL_BYTES) throw new InputError(`${abs}: the ${what} is ${bytes} bytes; expected a small 2-D array`, 'bad-shape');
+  if (size < dataOffset + bytes) throw new InputError(`${abs}: file is ${size} bytes, expected ${dataOffset + bytes} for a ${height}×${width} 64-bit integer array`, 'short-file');
+  const raw = new Uint8Array(bytes);
+  readFullyAt(fd, raw, dataOffset, abs);
+  const view = new DataView(raw.buffer);
+  const values = new Float64Array(height * width);
+  for (let i = 0; i < values.length; i++) {
+    const v = signed ? view.getBigInt64(i * 8, !big) : view.getBigUint64(i * 8, !big);
+    const n = Number(v);
+    if (!Number.isSafeInteger(n)) throw new InputError(`${abs}: the ${what} holds ${v}, beyond what a number holds exactly; expected small integers (0/1) or weights`, 'bad-input');
+    values[i] = n;
+  }
+  return { height, width, values };
 }
 
 /**

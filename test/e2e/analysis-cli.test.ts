@@ -59,6 +59,12 @@ describe('scanfold image', () => {
     });
     expect(String(got.attrs.detector_0)).toMatch(/annulus/);
     expect(String(got.attrs.detector_4)).toMatch(/mask/);
+    // The same mask saved as NumPy's default integer (int64), the commonest way to save 0/1.
+    const out64 = path.join(tmp, 'images-int64.h5');
+    const r64 = scanfold('image', path.join(fx, 'a.h5'), '--dataset', '/frames', '--bad-pixels', 'none', '--quiet', '--mask', path.join(fx, 'painted-int64.npy'), '--out', out64);
+    expect(r64.code, r64.err).toBe(0);
+    // reference: NumPy tile.reshape(n,-1) @ mask, as above
+    expect(maxRelDiff(h5py(out64).data.images.values as number[], readNpyF64(path.join(fx, 'image_painted.npy')).data)).toBeLessThan(1e-9);
   });
 
   it('float data: NaN/Inf are counted and left out, not propagated', () => {
