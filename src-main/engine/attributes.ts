@@ -20,3 +20,20 @@ export function attributeValue(attrs: Record<string, number | number[] | string>
   }
   return null;
 }
+
+/**
+ * The first attribute among `names` that is present but not one positive number (text, a
+ * negative or non-finite value, a pair that disagrees), as written; null when none is. Said to
+ * the user rather than treated as absent: "stores none" would send them looking for nothing.
+ */
+export function unusableAttribute(attrs: Record<string, number | number[] | string> | undefined, names: readonly string[]): { name: string; text: string } | null {
+  if (!attrs) return null;
+  for (const want of names) {
+    const name = Object.keys(attrs).find((k) => k.toLowerCase() === want);
+    if (!name) continue;
+    if (attributeValue({ [want]: attrs[name] }, [want])) return null;
+    return { name, text: JSON.stringify(attrs[name]) };
+  }
+  return null;
+}
+

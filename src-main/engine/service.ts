@@ -37,7 +37,7 @@ import type { AutosaveRequest, ExportedFile, ExportRequest, KeptEntry, OpenSessi
 import fs from 'node:fs';
 import nodePath from 'node:path';
 import { defaultStateDir, RecoveryIndex } from '../session/recovery';
-import { attributeValue, CONVERGENCE_ATTRIBUTES, ENERGY_ATTRIBUTES, SCAN_STEP_ATTRIBUTES } from './attributes';
+import { attributeValue, CONVERGENCE_ATTRIBUTES, ENERGY_ATTRIBUTES, SCAN_STEP_ATTRIBUTES, unusableAttribute } from './attributes';
 import { OutputFile } from '../io/output-file';
 import { SessionKeeper, datasetRecordOf, type DatasetRecordOf } from '../session/keeper';
 import { isSessionFile, readSessionDocument, readSessionFile, writeSessionFile } from '../session/session-file';
@@ -723,6 +723,7 @@ export class EngineService implements ScanfoldService {
   }
 
   async calibrate(req: CalibrationRequest): Promise<CalibrationResult> {
+    const CALIBRATION_FLAGS: Record<string, string> = { energyKeV: '--energy-kev', convergenceMrad: '--convergence-mrad', scanStepNm: '--scan-step-nm' };
     validateRequest('calibrate', req);
     return this.requestKept('calibrate', req, async () => {
       const r = this.record(req.dataset);
@@ -734,6 +735,10 @@ export class EngineService implements ScanfoldService {
         if (given !== undefined) { sources[key] = 'given'; return given; }
         const found = attributeValue(d.attributes, names);
         if (found) sources[key] = `attribute ${found.name} of the dataset`;
+        else {
+          const bad = unusableAttribute(d.attributes, names);
+          if (bad) throw new InputError(`${file}: the dataset's attribute ${bad.name} = ${bad.text} is not a usable value (expected one positive number); give the value by hand instead (${CALIBRATION_FLAGS[key]} in the command line)`, 'bad-input');
+        }
         return found?.value;
       };
       const energyKeV = pick('energyKeV', req.energyKeV, ENERGY_ATTRIBUTES);
