@@ -147,7 +147,7 @@ export async function cmdKmeans(args: string[], engineOptions: (v: Record<string
       features_kind: f.kind, ...(f.kind === 'pca' ? { pca_components: f.components, pca_explained_variance: f.explainedVariance!, pca_passes_over_data: r.method.pcaPasses } : { features: f.components }),
       passes_over_data: pv ? 0 : r.method.passes,
       bin: f.bin, crop_x0_y0_x1_y1: JSON.stringify([f.crop.x0, f.crop.y0, f.crop.x1, f.crop.y1]), scaling: f.scaling, normalize: f.normalize ? 'yes' : 'no', bad_pixels: f.badPixels,
-      method: r.method.algorithm === 'lloyd' ? 'k-means++ seeding (Arthur & Vassilvitskii 2007), Lloyd iterations, lowest inertia of the restarts'
+      method: r.method.algorithm === 'lloyd' ? 'greedy k-means++ seeding (Arthur & Vassilvitskii 2007; the best of 2 + ln k draws per centre), Lloyd iterations, lowest inertia of the restarts'
         : 'mini-batch k-means (Sculley 2010) from k-means++ centres on a sample',
       ...(pv ? { preview: 'yes: clusters of the preview cube, not of the full data', preview_scan_bin: pv.scanBin, preview_detector_bin: pv.detBin } : {}),
       ...provenance(r.descriptor, 'scanfold kmeans', request), ...badPixelAttrs(r.badPixels),

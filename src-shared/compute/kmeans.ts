@@ -1,7 +1,8 @@
 /**
  * k-means of n points in f dimensions (row-major n × f): k-means++ seeding (Arthur &
  * Vassilvitskii, SODA 2007: each next centre drawn with probability proportional to the squared
- * distance to the nearest centre so far), then Lloyd iterations (assign each point to its nearest
+ * distance to the nearest centre so far; greedily, as that paper suggests and common practice
+ * does: of 2 + ⌊ln k⌋ such draws, the one that leaves the least total squared distance), then Lloyd iterations (assign each point to its nearest
  * centre, move each centre to the mean of its points) until no point changes cluster or the
  * centres move less than `tol` × the data's total variance; the restart with the lowest inertia
  * (Σ squared distances to the assigned centres) is kept. A cluster left empty takes the point
@@ -46,25 +47,44 @@ function sqDist(p: Float64Array, i: number, c: Float64Array, j: number, f: numbe
   return s;
 }
 
-/** k-means++ seeding: k centres chosen among the points. */
+/**
+ * Greedy k-means++ seeding: k centres chosen among the points. Plain k-means++ (one draw per
+ * centre) left a 30-point 1-D case in a worse minimum on every one of 10 restarts for some seeds.
+ */
 export function kmeansPlusPlus(points: Float64Array, n: number, f: number, k: number, random: () => number): Float64Array {
   const centers = new Float64Array(k * f);
   const first = Math.min(n - 1, Math.floor(random() * n));
   centers.set(points.subarray(first * f, (first + 1) * f), 0);
   const nearest = new Float64Array(n);
   for (let i = 0; i < n; i++) nearest[i] = sqDist(points, i, centers, 0, f);
+  const trials = 2 + Math.floor(Math.log(k));
+  const candidate = new Float64Array(n);
+  const bestNearest = new Float64Array(n);
   for (let c = 1; c < k; c++) {
     let total = 0;
     for (let i = 0; i < n; i++) total += nearest[i];
     let pick = n - 1;
-    if (total > 0) {
-      let r = random() * total;
-      for (let i = 0; i < n; i++) { r -= nearest[i]; if (r < 0) { pick = i; break; } }
-    } else {
-      pick = Math.min(n - 1, Math.floor(random() * n));
+    let bestPotential = Infinity;
+    for (let t = 0; t < trials; t++) {
+      let draw = n - 1;
+      if (total > 0) {
+        let r = random() * total;
+        for (let i = 0; i < n; i++) { r -= nearest[i]; if (r < 0) { draw = i; break; } }
+      } else {
+        draw = Math.min(n - 1, Math.floor(random() * n));
+      }
+      // The total squared distance if this point became the next centre.
+      let potential = 0;
+      for (let i = 0; i < n; i++) {
+        let d = 0;
+        for (let x = 0; x < f; x++) { const e = points[i * f + x] - points[draw * f + x]; d += e * e; }
+        candidate[i] = Math.min(nearest[i], d);
+        potential += candidate[i];
+      }
+      if (potential < bestPotential) { bestPotential = potential; pick = draw; bestNearest.set(candidate); }
     }
     centers.set(points.subarray(pick * f, (pick + 1) * f), c * f);
-    for (let i = 0; i < n; i++) nearest[i] = Math.min(nearest[i], sqDist(points, i, centers, c, f));
+    nearest.set(bestNearest);
   }
   return centers;
 }
