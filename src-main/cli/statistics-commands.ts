@@ -12,6 +12,17 @@ import { parseFlags, rectangleFlag, rejectExtraPositionals, SOURCE_OPTIONS, sour
 type Flags = Record<string, string | boolean | (string | boolean)[] | undefined>;
 type EngineFlags = Record<string, { type: 'string' | 'boolean' }>;
 
+/**
+ * What cutting the detector to whole bins left out, for the line a command prints (the crop is
+ * also an attribute): e.g. "; the detector cut to 8×12 px, whole bins: 47 edge pixels left out".
+ */
+function trimmed(f: { crop: { x0: number; y0: number; x1: number; y1: number } }, shape: { detY: number; detX: number }, asked: unknown): string {
+  if (asked) return '';
+  const kept = (f.crop.x1 - f.crop.x0 + 1) * (f.crop.y1 - f.crop.y0 + 1);
+  const all = shape.detY * shape.detX;
+  return kept < all ? `; the detector cut to ${f.crop.y1 - f.crop.y0 + 1}×${f.crop.x1 - f.crop.x0 + 1} px, whole bins: ${all - kept} edge pixels left out` : '';
+}
+
 /** --bin, --crop, --scaling, --normalize, --bad-pixels: how patterns become feature vectors. */
 export const FEATURE_FLAGS = {
   bin: { type: 'string' }, crop: { type: 'string' }, scaling: { type: 'string' }, normalize: { type: 'boolean' }, 'bad-pixels': { type: 'string' },
@@ -79,7 +90,8 @@ export async function cmdPca(args: string[], engineOptions: (v: Record<string, u
       components_found: r.k, total_variance: r.totalVariance, bin: f.bin, crop_x0_y0_x1_y1: JSON.stringify([f.crop.x0, f.crop.y0, f.crop.x1, f.crop.y1]),
       features: f.nFeatures, bins_left_out: f.binsLeftOut, scaling: f.scaling, normalize: f.normalize ? 'yes' : 'no', bad_pixels: f.badPixels,
       oversample: r.method.oversample, sketch_columns: r.method.sketch, power_iterations: r.method.powerIterations, seed: r.method.seed,
-      sketch_kind: r.method.passes === 1 && request.passes === 1 ? 'one pass: range and co-range sketches (Tropp, Yurtsever, Udell & Cevher 2017)' : 'range sketch with power iterations',
+      sketch_kind: r.method.passes === 1 && request.passes === 1 ? 'one pass: range and co-range sketches (Tropp, Yurtsever, Udell & Cevher 2017)'
+        : r.method.powerIterations === 0 ? 'range sketch, no power iteration' : `range sketch with ${r.method.powerIterations} power iteration${r.method.powerIterations === 1 ? '' : 's'}`,
       passes_over_data: r.method.passes, total_variance_from: r.method.totalVarianceFrom, zero_total_patterns: r.zeroPatterns,
       method: `randomized SVD of the ${request.centre === false ? 'uncentred' : 'mean-centred'} features (Halko, Martinsson & Tropp 2011)`,
       centred: request.centre === false ? 'no' : 'yes',
@@ -94,7 +106,8 @@ export async function cmdPca(args: string[], engineOptions: (v: Record<string, u
       const top = Array.from(r.explainedVarianceRatio.slice(0, 5), (x) => `${(100 * x).toFixed(1)} %`).join(', ');
       const what = r.preview ? `a preview (preview cube binned ${r.preview.scanBin}× over the scan, ${r.preview.detBin}× on the detector), no pass over the data`
         : r.method.passes === 1 ? '1 pass' : `${r.method.passes} passes`;
-      process.stderr.write(`${wrote(written)}: ${r.k} components of ${f.outY}×${f.outX} bins (bin ${f.bin}), ${what}; explained variance ${top}${r.k > 5 ? ', …' : ''}\n`);
+      const bins = r.preview ? `bin ${f.bin} of the preview cube's ${r.preview.detBin}×${r.preview.detBin}-pixel bins` : `bin ${f.bin}`;
+      process.stderr.write(`${wrote(written)}: ${r.k} components of ${f.outY}×${f.outX} bins (${bins}${trimmed(f, r.descriptor.shape, request.crop ?? r.preview)}), ${what}; explained variance ${top}${r.k > 5 ? ', …' : ''}\n`);
     }
   }, out, session);
 }
