@@ -183,7 +183,7 @@ async function cmdDemo(args: string[]) {
     seconds: Number(r.seconds.toFixed(3)),
     totalIntensity: { min: tmin, max: tmax, badPixels: r.totalIntensityLessBadPixels ? 'left out' : r.badPixels.hot.length + r.badPixels.dead.length > 0 ? 'included' : 'none found' },
     brightFieldDisk: 'notFound' in disk ? disk.notFound : { x: Number(disk.cx.toFixed(2)), y: Number(disk.cy.toFixed(2)), radiusPx: Number(disk.r.toFixed(2)) },
-    badDetectorPixels: { hot: r.badPixels.hot, dead: r.badPixels.dead },
+    badDetectorPixels: { hotYX: r.badPixels.hot, deadYX: r.badPixels.dead, note: "[row, column] of each, as the output attributes bad_pixels_*_yx; detector flags take x,y" },
     previewCube: { shape: [r.preview.qY, r.preview.qX, r.preview.pY, r.preview.pX], detBin: r.preview.detBin, scanBin: r.preview.scanBin },
     summaryFile: out.path,
     defaultImages: r.defaultImages.map((im) => im.label),
