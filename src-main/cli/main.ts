@@ -14,6 +14,7 @@ import { outputFlag, parseFlags, rejectExtraPositionals, SOURCE_OPTIONS, sourceS
 import { interruptRunningJob } from './progress';
 import { writeSample, SAMPLE_SIZES } from '../../samples/write-sample';
 import { projectRoot } from '../engine/paths';
+import { SERVICE_METHODS } from '../../src-shared/contract/service';
 import { closestFlag, COMMAND_HELP, OVERVIEW } from './help';
 import { SCANFOLD_VERSION } from '../engine/version';
 import { cmdFit, cmdKmeans, cmdPca } from './statistics-commands';
@@ -197,6 +198,23 @@ async function cmdDemo(args: string[]) {
   }, null, 2) + '\n');
 }
 
+/** Request fields whose flag is not their name in kebab case. */
+const FIELD_FLAGS: Record<string, string> = {
+  keepAs: '--as', pcaComponents: '--features pca:N', detectors: 'the detector flags', region: 'the region flags',
+  references: '--reference-region', descanRegion: '--descan-region', maskDisk: '--mask-disk',
+};
+
+/**
+ * A request refused by the service's validator names the request's fields ("comField:
+ * maskDisk.r: got 0; …"); at the command line the flag is what the user typed, so say that.
+ */
+function inFlagTerms(message: string): string {
+  const m = /^([a-zA-Z]+): ([a-zA-Z]+)((?:\.[\w]+)*): ([\s\S]*)$/.exec(message);
+  if (!m || !(SERVICE_METHODS as readonly string[]).includes(m[1]) || m[2] === 'dataset') return message;
+  const flag = FIELD_FLAGS[m[2]] ?? `--${m[2].replace(/[A-Z]/g, (c) => `-${c.toLowerCase()}`)}`;
+  return `${flag}${m[3] ? ` (its ${m[3].slice(1).replace(/\./g, ' ')})` : ''}: ${m[4]}`;
+}
+
 const COMMANDS = ['info', 'summary', 'image', 'com', 'calibrate', 'pattern', 'pca', 'kmeans', 'fit', 'session', 'export', 'serve', 'sample', 'demo'];
 
 export async function main(argv: string[]): Promise<number> {
@@ -238,7 +256,7 @@ export async function main(argv: string[]): Promise<number> {
     return 0;
   } catch (e) {
     if (isInputError(e)) {
-      process.stderr.write(`scanfold: ${e.message}\n`);
+      process.stderr.write(`scanfold: ${inFlagTerms(e.message)}\n`);
       return 2;
     }
     if (isOutputError(e)) {

@@ -130,6 +130,7 @@ export async function cmdKmeans(args: string[], engineOptions: (v: Record<string
     const m = /^pca:(\d+)$/.exec(v.features);
     if (v.features === 'patterns') kind = 'patterns';
     else if (!m) throw new InputError(`--features ${v.features}: expected pca:N (the first N principal components of every pattern, e.g. pca:10) or patterns`);
+    else if (Number(m[1]) < 1) throw new InputError(`--features ${v.features}: expected pca:N with N ≥ 1`);
     else { kind = 'pca'; pcaComponents = wholeNumber('features', m[1], 1, 'pca:N with N ≥ 1'); }
   }
   const features = featureOptions(v);

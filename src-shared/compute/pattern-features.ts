@@ -58,7 +58,9 @@ export function planFeatures(req: FeatureRequest, detY: number, detX: number, ba
   if (!(FEATURE_BINS as readonly number[]).includes(req.bin)) throw new InputError(`binning: expected 1, 2, 4 or 8, got ${req.bin}`, 'bad-request');
   const c = req.crop ?? { x0: 0, y0: 0, x1: detX - 1, y1: detY - 1 };
   for (const [name, v, hi] of [['x0', c.x0, detX - 1], ['x1', c.x1, detX - 1], ['y0', c.y0, detY - 1], ['y1', c.y1, detY - 1]] as const) {
-    if (!Number.isInteger(v) || v < 0 || v > hi) throw new InputError(`crop: ${name} = ${v} is outside the ${detY}×${detX} detector; expected a whole pixel index from 0 to ${hi}`, 'bad-request');
+    if (!Number.isInteger(v) || v < 0 || v > hi) {
+      throw new InputError(`crop: ${name} = ${v} is ${Number.isInteger(v) ? `outside the ${detY}×${detX} detector` : 'not a whole pixel index'}; expected a whole pixel index from 0 to ${hi}`, 'bad-request');
+    }
   }
   if (c.x1 < c.x0 || c.y1 < c.y0) throw new InputError(`crop: x0..x1 = ${c.x0}..${c.x1}, y0..y1 = ${c.y0}..${c.y1} is empty; expected x0 ≤ x1 and y0 ≤ y1`, 'bad-request');
   const bin = req.bin;
