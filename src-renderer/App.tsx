@@ -94,6 +94,11 @@ export function App({ client, store, shell = null }: { client: Client; store: St
   const [sessionNote, setSessionNote] = useState<string | null>(null);
   const kept = useRef(new Set<string>());
   /**
+   * Keys this page's own requests kept: the only ones it may have the engine forget. A session's
+   * results (a CLI's detector-* among them, or another dataset's) belong to no item of this page.
+   */
+  const madeHere = useRef(new Set<string>());
+  /**
    * Goes up whenever the kept results change (a new one, one replaced under the same key, a
    * session opened): read at once by the autosave snapshot, and as state for what lists them.
    */
@@ -103,7 +108,7 @@ export function App({ client, store, shell = null }: { client: Client; store: St
   /** A result the engine kept for the session: counted only if its dataset is still the one on view (a late job's is not). */
   const markKept = useCallback((key: string, dataset: string) => {
     if (datasetRef.current !== dataset) return;
-    kept.current.add(key); keptChanged();
+    kept.current.add(key); madeHere.current.add(key); keptChanged();
   }, [keptChanged]);
   /** What a save would write, as it stood at the last save or open: autosave skips while nothing differs. */
   const savedSnapshot = useRef<string | null>(null);
@@ -114,6 +119,8 @@ export function App({ client, store, shell = null }: { client: Client; store: St
   const [absentData, setAbsentData] = useState<OpenedSession['datasets']>([]);
   /** Where the user says each missing dataset is now, by the session's dataset id. */
   const [relinkTo, setRelinkTo] = useState<Record<string, string>>({});
+  /** Relinks already made for the session on view: each new one is sent with them, or it would undo them. */
+  const relinked = useRef<{ session: string | null; paths: Record<string, string> }>({ session: null, paths: {} });
   const [recoverable, setRecoverable] = useState<Recoverable[]>([]);
   const [allRecoveries, setAllRecoveries] = useState(false);
   const recoverableNewest = useMemo(() => newestFirst(recoverable), [recoverable]);
@@ -180,7 +187,7 @@ export function App({ client, store, shell = null }: { client: Client; store: St
     const dataset = { id, name: baseName(descriptor.path), scanY, scanX, detY, detX, dtype: descriptor.dtype, spec: descriptor.spec, fingerprint: descriptor.fingerprint };
     store.update((s) => ({ ...s, dataset, detectors: [], activeDetector: null }), { undoable: true });
     // A new dataset starts a new session.
-    kept.current = new Set(); setKeptVersion((v) => v + 1); setSessionPath(null); setLoadedFrom(null); setAbsentData([]);
+    kept.current = new Set(); madeHere.current = new Set(); setKeptVersion((v) => v + 1); setSessionPath(null); setLoadedFrom(null); setAbsentData([]);
     void client.forgetSession().catch(() => undefined);
     setFirst(null); setPca(null); setKmeans(null); setField(null); setFit(null); setRegionPatterns(new Map()); setDetectorImages(new Map()); setFilling(null); setCalibration(null);
     store.update((s) => ({ ...s, regions: [], calibration: {} }));
@@ -241,7 +248,7 @@ export function App({ client, store, shell = null }: { client: Client; store: St
     const withItems = withOutsideItems(stateFromSetup(s.document.app, dataset), r);
     const next = s.document.app ? withItems : showsForResults(withItems, r);
     store.reset(next);
-    kept.current = new Set(s.results.map((x) => x.key)); keptChanged();
+    kept.current = new Set(s.results.map((x) => x.key)); madeHere.current = new Set(); keptChanged();
     setPca(r.pca ?? null); setKmeans(r.kmeans ?? null); setField(r.field ?? null); setCalibration(r.calibration ?? null);
     if (r.fit) {
       const refs = (s.results.find((x) => x.key === KEYS.fit)?.request.references ?? []) as unknown[];
@@ -253,6 +260,8 @@ export function App({ client, store, shell = null }: { client: Client; store: St
     setRegionPatterns(new Map(r.regions.map((g) => [g.id, g.result])));
     setFirst(null); setFilling(null); setPattern(null);
     setAbsentData(s.datasets.filter((d) => !d.opened));
+    // Another session: its dataset ids (data-1, …) say nothing about the last one's relinks.
+    if (relinked.current.session !== s.path) { relinked.current = { session: null, paths: {} }; setRelinkTo({}); }
     setSessionPath(sessionFile); setSessionInput(sessionFile ?? '');
     savedSnapshot.current = snapshot();
     // The results are on view now; the data's first pass (hover, previews) follows, and the
@@ -284,7 +293,9 @@ export function App({ client, store, shell = null }: { client: Client; store: St
     setError(null);
     try {
       const keep = sessionPathRef.current;
-      const s = await client.openSession({ path: from, relink });
+      const all = { ...(relinked.current.session === from ? relinked.current.paths : {}), ...relink };
+      const s = await client.openSession({ path: from, relink: all });
+      relinked.current = { session: from, paths: all };
       await applySession(s, keep);
       setSessionNote(`relinked: ${s.datasets.filter((d) => d.opened).map((d) => d.path).join(', ')}`);
     } catch (e) { fail(e); }
@@ -311,11 +322,11 @@ export function App({ client, store, shell = null }: { client: Client; store: St
   const autosaving = useRef(false);
   useEffect(() => {
     const timer = setInterval(() => {
-      const stale = unreachableKeys(kept.current, store.history());
+      const stale = unreachableKeys(madeHere.current, store.history());
       if (stale.length) {
-        for (const k of stale) kept.current.delete(k);
-        keptChanged();
-        client.forgetResults(stale).catch(() => undefined);
+        // Nothing a save writes changes (they were left out of it already): no autosave for this.
+        for (const k of stale) { kept.current.delete(k); madeHere.current.delete(k); }
+        client.forgetResults(stale).then(() => client.sessionEntries()).then(setExportables, () => undefined);
       }
       const st = store.get();
       if (!st.dataset || (kept.current.size === 0 && st.detectors.length === 0 && st.regions.length === 0)) return;
@@ -329,7 +340,7 @@ export function App({ client, store, shell = null }: { client: Client; store: St
         .finally(() => { autosaving.current = false; });
     }, AUTOSAVE_MS);
     return () => clearInterval(timer);
-  }, [client, store, snapshot, keptChanged]);
+  }, [client, store, snapshot]);
 
   // Export: one array of a kept result as a file (the engine makes the bytes; the page downloads them).
   const [exportables, setExportables] = useState<KeptEntry[]>([]);

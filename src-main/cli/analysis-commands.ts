@@ -176,12 +176,12 @@ export async function writeResults(service: EngineService, out: OutputFile | nul
   return writeFloat64Results(out, arrays, attrs);
 }
 
-/** Say on stderr which results are NaN or ±Inf (overflowed sums, divisions by zero). */
-/** NaN/±Inf values in the input, left out of every sum: said on every command that met them. */
+/** NaN/±Inf values in the input, left out of every sum: said by summary, image, com and pattern. */
 export function noteNonFiniteInputs(n: number): void {
   if (n > 0) process.stderr.write(`note: ${n} NaN/Inf input values were left out of the sums and maxima (non_finite_inputs)\n`);
 }
 
+/** Say on stderr which results are NaN or ±Inf (overflowed sums, divisions by zero). */
 export function noteNonFiniteResults(w: WrittenResults | null, expected = ''): void {
   if (!w) return;
   const parts = Object.entries(w.nonFiniteResults).map(([k, n]) => `${k} ${n}`);

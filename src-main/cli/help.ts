@@ -55,7 +55,8 @@ ${SOURCE}`,
 
   summary: `scanfold summary FILE [source flags] --out OUT.h5 [engine flags]
   The first streaming pass: /mean_pattern, /max_pattern (det_y, det_x) and /total_intensity
-  (scan_y, scan_x; every pixel), float64; with bad pixels found, /total_intensity_less_bad_pixels
+  (scan_y, scan_x; every pixel), float64; with bad pixels found (and watched by the pass, as all
+  but the rare detector with very many are), /total_intensity_less_bad_pixels
   too (a few hot pixels can outweigh the specimen); from the same read /bright_field (the disk
   found on 16 patterns sampled across the scan) and /annular_dark_field (twice its radius to the
   detector's edge).
@@ -104,7 +105,8 @@ flags:
                           the scan-to-detector rotation and flip: auto (default, both) estimates them
                           by least curl, the half-turn settled by vacuum when there is some; or give both
   --mask-disk CX,CY,R     only pixels inside this disk (detector px) count towards the COM
-  --threshold T           pixels below T count as 0 (those equal to T count; default 0; may be negative)
+  --threshold T           pixels below T count as 0, those equal to T count (may be negative); 0, the
+                          default, means no threshold (negative values of float data count too)
   --mrad-per-pixel M --energy-kev E --scan-step-nm S
                           together: also give the COM in mrad and the phase in radians
 ${BAD_PIXELS}
@@ -277,7 +279,8 @@ scanfold export FILE.scanfold.h5 KEY [KEY…] --format h5 --out SET.h5
   --out FILE              where it goes (written whole or not at all)
   --index I               one image of a 3-D stack (a component, a cluster, a detector)
   --colormap NAME         png: viridis, cividis, magma, sinebow or categories (default: categories
-                          for a cluster map, viridis for the rest)
+                          for a cluster map, sinebow over −π … π for the COM direction, viridis
+                          for the rest)
   --scaling linear|log|gamma:G
                           png: how values map onto the colours (default linear)
   --limits LO,HI          png: the colour bar's limits (default: 0.5th and 99.5th percentiles)

@@ -198,10 +198,16 @@ async function cmdDemo(args: string[]) {
   }, null, 2) + '\n');
 }
 
-/** Request fields whose flag is not their name in kebab case. */
+/**
+ * The flag that sets each request field the validator may name; a field not here (one a command
+ * fills itself, or sets from a positional argument) keeps the service's wording.
+ */
 const FIELD_FLAGS: Record<string, string> = {
-  keepAs: '--as', pcaComponents: '--features pca:N', detectors: 'the detector flags', region: 'the region flags',
-  references: '--reference-region', descanRegion: '--descan-region', maskDisk: '--mask-disk',
+  keepAs: '--as', maskDisk: '--mask-disk', threshold: '--threshold', components: '--components', clusters: '--clusters',
+  bin: '--bin', crop: '--crop', scaling: '--scaling', oversample: '--oversample', powerIterations: '--power-iterations',
+  seed: '--seed', restarts: '--restarts', badPixels: '--bad-pixels', passes: '--passes', pcaComponents: '--features pca:N',
+  energyKeV: '--energy-kev', convergenceMrad: '--convergence-mrad', scanStepNm: '--scan-step-nm',
+  latticeSpacingAngstrom: '--lattice-spacing-angstrom', braggDistancePx: '--bragg-distance-px',
 };
 
 /**
@@ -210,12 +216,13 @@ const FIELD_FLAGS: Record<string, string> = {
  */
 function inFlagTerms(message: string): string {
   const m = /^([a-zA-Z]+): ([a-zA-Z]+)((?:\.[\w]+)*): ([\s\S]*)$/.exec(message);
-  if (!m || !(SERVICE_METHODS as readonly string[]).includes(m[1]) || m[2] === 'dataset') return message;
-  const flag = FIELD_FLAGS[m[2]] ?? `--${m[2].replace(/[A-Z]/g, (c) => `-${c.toLowerCase()}`)}`;
+  const flag = m && (SERVICE_METHODS as readonly string[]).includes(m[1]) ? FIELD_FLAGS[m[2]] : undefined;
+  if (!m || !flag) return message;
   return `${flag}${m[3] ? ` (its ${m[3].slice(1).replace(/\./g, ' ')})` : ''}: ${m[4]}`;
 }
 
-const COMMANDS = ['info', 'summary', 'image', 'com', 'calibrate', 'pattern', 'pca', 'kmeans', 'fit', 'session', 'export', 'serve', 'sample', 'demo'];
+/** Every command: each has its help. */
+const COMMANDS = Object.keys(COMMAND_HELP);
 
 export async function main(argv: string[]): Promise<number> {
   const [cmd, ...rest] = argv;

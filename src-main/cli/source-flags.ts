@@ -100,7 +100,10 @@ export function parseFlags<O extends OptionSpec>(args: string[], options: O) {
   // A flag given twice would silently take its last value: refused, unless it may repeat.
   const seen = new Set<string>();
   for (const t of parsed.tokens) {
-    if (t.kind !== 'option' || (options[t.name] as { multiple?: boolean } | undefined)?.multiple) continue;
+    if (t.kind !== 'option') continue;
+    const spec = options[t.name] as { type: string; multiple?: boolean } | undefined;
+    // A switch said twice says the same thing twice.
+    if (spec?.multiple || spec?.type === 'boolean' || t.name === 'help') continue;
     if (seen.has(t.name)) throw new InputError(`--${t.name} is given twice; expected it once (the second would silently replace the first)`);
     seen.add(t.name);
   }

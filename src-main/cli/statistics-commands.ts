@@ -211,12 +211,15 @@ export async function cmdFit(args: string[], engineOptions: (v: Record<string, u
       method: r.nonnegative ? 'non-negative least squares on the normal equations (Lawson & Hanson active set)' : 'linear least squares on the normal equations (Cholesky)',
       ...provenance(r.descriptor, 'scanfold fit', request), ...badPixelAttrs(r.badPixels),
     });
-    const expectedNaN = { references: f.binsLeftOut * r.r };
+    // NaN by design: bins left out (references) and all-zero patterns, which have nothing to explain (residual).
+    let mean = 0, explained = 0;
+    for (const x of r.residual) if (Number.isFinite(x)) { mean += x; explained++; }
+    const expectedNaN = { references: f.binsLeftOut * r.r, residual: r.residual.length - explained };
     if (Object.entries(written?.nonFiniteResults ?? {}).some(([name, count]) => count !== (expectedNaN as Record<string, number>)[name])) noteNonFiniteResults(written);
     if (v.quiet !== true) {
-      let mean = 0;
-      for (const x of r.residual) mean += x;
-      process.stderr.write(`${wrote(written)}: ${r.r} reference(s) fitted to every pattern; mean relative residual ${(mean / r.residual.length).toFixed(4)}\n`);
+      const zero = r.residual.length - explained;
+      process.stderr.write(`${wrote(written)}: ${r.r} reference(s) fitted to every pattern; mean relative residual ${explained ? (mean / explained).toFixed(4) : 'none'}` +
+        `${zero ? ` (${zero} all-zero pattern(s) left out: residual NaN, nothing to explain)` : ''}\n`);
     }
   }, out, session);
 }

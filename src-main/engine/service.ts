@@ -41,7 +41,7 @@ import { attributeValue, CONVERGENCE_ATTRIBUTES, ENERGY_ATTRIBUTES, SCAN_STEP_AT
 import { OutputFile } from '../io/output-file';
 import { SessionKeeper, datasetRecordOf, type DatasetRecordOf } from '../session/keeper';
 import { isSessionFile, readSessionDocument, readSessionFile, writeSessionFile } from '../session/session-file';
-import { locateDataset, relinkMatches } from '../session/relink';
+import { locateDataset, relinkMatches, sessionSpecAt } from '../session/relink';
 
 interface FirstResults extends CachedFirstPass {
   /** The pass itself, with its preview cube; null when the results came from the cache. */
@@ -335,7 +335,7 @@ export class EngineService implements ScanfoldService {
         found.set(ref.id, datasetRecordOf(where.descriptor));
         if (req.openData !== false) {
           const id = this.openIdOf(ref.fingerprint);
-          opened = id ? publicOpened(this.record(id).opened) : await this.open({ ...ref.spec, path: where.path! });
+          opened = id ? publicOpened(this.record(id).opened) : await this.open(sessionSpecAt(ref, where.path!));
         }
       }
       statuses.push({ ref, status: where.status, path: where.path, how: where.how, opened });
@@ -731,13 +731,16 @@ export class EngineService implements ScanfoldService {
       const file = d.path;
       // Values not given are read from the dataset's attributes, and the result says which.
       const sources: Record<string, string> = {};
-      const pick = (key: string, given: number | undefined, names: readonly string[]): number | undefined => {
+      // A value needed (energy, semi-angle) stored unusably is refused, naming it; an optional one
+      // (the scan step) is left out, and the sources say why.
+      const pick = (key: string, given: number | undefined, names: readonly string[], needed = true): number | undefined => {
         if (given !== undefined) { sources[key] = 'given'; return given; }
         const found = attributeValue(d.attributes, names);
         if (found) sources[key] = `attribute ${found.name} of the dataset`;
         else {
           const bad = unusableAttribute(d.attributes, names);
-          if (bad) throw new InputError(`${file}: the dataset's attribute ${bad.name} = ${bad.text} is not a usable value (expected one positive number); give the value by hand instead (${CALIBRATION_FLAGS[key]} in the command line)`, 'bad-input');
+          if (bad && !needed) sources[key] = `not used: the dataset's attribute ${bad.name} = ${bad.text} is not one positive number`;
+          else if (bad) throw new InputError(`${file}: the dataset's attribute ${bad.name} = ${bad.text} is not a usable value (expected one positive number); give the value by hand instead (${CALIBRATION_FLAGS[key]} in the command line)`, 'bad-input');
         }
         return found?.value;
       };
@@ -750,7 +753,7 @@ export class EngineService implements ScanfoldService {
       if (lattice === undefined && alpha === undefined) {
         throw new InputError(`${file}: neither a convergence semi-angle nor a lattice spacing was given, and the dataset stores no semi-angle (looked for ${CONVERGENCE_ATTRIBUTES.join(', ')}); expected one of them`, 'bad-request');
       }
-      const scanStepNm = pick('scanStepNm', req.scanStepNm, SCAN_STEP_ATTRIBUTES);
+      const scanStepNm = pick('scanStepNm', req.scanStepNm, SCAN_STEP_ATTRIBUTES, false);
       const f = await this.ensureFirstPass(r, req.jobId, 'first pass');
       const { detY, detX } = d.shape;
       if ('notFound' in f.disk) throw new InputError(`${file}: ${f.disk.notFound}`);

@@ -99,8 +99,6 @@ export function renderFigure(values: ArrayLike<number>, w: number, h: number, o:
   const H = h * zoom;
   const limits = o.limits ?? percentileLimits(values);
   const contrast = { lo: limits[0], hi: limits[1], scaling: o.scaling };
-  // The share of the colour bar shown: all of it, or the first n of ten categories.
-  const shown = o.categories ? Math.min(1, (o.categories - limits[0] - 0.5) / (limits[1] - limits[0])) : 1;
   const hiText = o.categories ? String(o.categories - 1) : numberLabel(limits[1]);
   const loText = o.categories ? '0' : numberLabel(limits[0]);
   let scaleBar: Figure['scaleBar'] = null;
@@ -128,7 +126,10 @@ export function renderFigure(values: ArrayLike<number>, w: number, h: number, o:
   }
   // The colour bar: the map from bottom (lower limit) to top (upper limit).
   for (let y = 0; y < H; y++) {
-    const i = lutIndex(shown * (H - 1 - y) / Math.max(H - 1, 1));
+    const u = (H - 1 - y) / Math.max(H - 1, 1);
+    // Categories: n equal bands, each the colour of its category's value (no row of the next one).
+    const t = o.categories ? (Math.min(o.categories - 1, Math.floor(u * o.categories)) - limits[0]) / (limits[1] - limits[0]) : u;
+    const i = lutIndex(t);
     for (let x = 0; x < BAR_WIDTH; x++) put(img, width, barX + x, MARGIN + y, lut.subarray(4 * i, 4 * i + 3));
   }
   drawText(img, width, hiText, labelX, MARGIN);

@@ -42,7 +42,7 @@ function openRawSync(spec: SourceSpec): TileSource {
       fs.readSync(file.fd, head, 0, 8, 0);
       const kind = head.subarray(0, 6).equals(NPY_MAGIC) ? 'a NumPy .npy file' : head.equals(HDF5_MAGIC) ? 'an HDF5 file' : null;
       if (kind) {
-        throw new InputError(`${path}: is ${kind}, which describes its own shape and type; expected no raw flags (--raw-shape, --dtype, --byte-order, --offset) for it`, 'bad-input');
+        throw new InputError(`${path}: is ${kind}, which describes its own shape and type; expected it opened as such, without a raw layout (no --raw-shape, --dtype, --byte-order, --offset or --trailer in the command line)`, 'bad-input');
       }
     }
     if (file.size < needed + trailer) {

@@ -6,6 +6,7 @@ import fs from 'node:fs';
 import nodePath from 'node:path';
 import { shapeText, type DatasetDescriptor, type SourceSpec } from '../../src-shared/model/dataset';
 import { InputError } from '../../src-shared/model/errors';
+import { DTYPE_BYTES } from '../../src-shared/model/dtype';
 import type { SessionDatasetRef } from '../../src-shared/model/session';
 
 export type DatasetStatus = 'found' | 'moved' | 'missing' | 'different';
@@ -39,6 +40,24 @@ export function differences(ref: SessionDatasetRef, d: DatasetDescriptor): strin
  * dataset) is the only place looked at when given, and data there with another fingerprint is
  * refused with an InputError; otherwise the usual places are tried in turn.
  */
+/**
+ * The spec that opens a session's dataset at `path`. Sessions written before raw files had to be
+ * covered by their description (--trailer) recorded no trailer for a file with bytes after the
+ * data: those bytes are taken as its trailer, and the fingerprint still decides whether it is
+ * the same data.
+ */
+export function sessionSpecAt(ref: SessionDatasetRef, path: string): SourceSpec {
+  const spec: SourceSpec = { ...ref.spec, path };
+  const raw = spec.raw;
+  if (!raw || raw.trailer !== undefined) return spec;
+  const { scanY, scanX, detY, detX } = raw.shape;
+  const bytes = scanY * scanX * detY * detX * (DTYPE_BYTES[raw.dtype] ?? 0);
+  let size = 0;
+  try { size = fs.statSync(path).size; } catch { return spec; }
+  const extra = size - raw.offset - bytes;
+  return extra > 0 && Number.isSafeInteger(extra) ? { ...spec, raw: { ...raw, trailer: extra } } : spec;
+}
+
 export async function locateDataset(ref: SessionDatasetRef, sessionPath: string, relinkTo: string | undefined,
   describe: (spec: SourceSpec) => Promise<DatasetDescriptor>): Promise<Located> {
   const folder = nodePath.dirname(sessionPath);
@@ -57,7 +76,7 @@ export async function locateDataset(ref: SessionDatasetRef, sessionPath: string,
     }
     let d: DatasetDescriptor;
     try {
-      d = await describe({ ...ref.spec, path });
+      d = await describe(sessionSpecAt(ref, path));
     } catch (e) {
       if (relinkTo !== undefined) throw e;
       other ??= { status: 'different', path, how: `${path} could not be opened as the dataset (${(e as Error).message})`, descriptor: null };

@@ -162,7 +162,9 @@ export async function startServed(opts: ServedOptions): Promise<Served> {
       jobs.add(jobId);
       return call().finally(() => jobs.delete(jobId));
     });
-    const stop = serveService(own, wsPort);
+    // A page waiting for another to go hears none of that page's jobs.
+    const heard = { ...own, onEvent: (l: Parameters<ScanfoldService['onEvent']>[0]) => own.onEvent((e) => { if (!isPage || activePage === null || activePage === ws) l(e); }) } as ScanfoldService;
+    const stop = serveService(heard, wsPort);
     stops.add(stop);
     ws.on('close', () => {
       stop();

@@ -626,17 +626,12 @@ function skewness(values: Float64Array): number {
  * depend on how the user chose to descan. `phase` (that of `field`) is reused when the offset is already nil.
  */
 function vacuumReferencedPhase(field: { comX: Float64Array; comY: Float64Array }, phase: Float64Array | null, mask: Uint8Array, scanY: number, scanX: number): Float64Array {
-  const offset = (a: Float64Array) => {
-    let sum = 0, n = 0;
-    for (let i = 0; i < a.length; i++) if (mask[i] !== 0 && Number.isFinite(a[i])) { sum += a[i]; n++; }
-    return n > 0 ? sum / n : 0;
-  };
-  const ox = offset(field.comX), oy = offset(field.comY);
+  const referenced = descan(field.comX, field.comY, scanY, scanX, { kind: 'reference', mask });
+  const ox = referenced.removedX.a, oy = referenced.removedY.a;
   let spread = 0;
   for (let i = 0; i < field.comX.length; i++) if (Number.isFinite(field.comX[i]) && Number.isFinite(field.comY[i])) spread = Math.max(spread, Math.abs(field.comX[i]), Math.abs(field.comY[i]));
   if (phase && Math.abs(ox) <= 1e-12 * spread && Math.abs(oy) <= 1e-12 * spread) return phase;
-  const x = field.comX.map((v) => v - ox), y = field.comY.map((v) => v - oy);
-  return integrateCom(x, y, scanY, scanX).phase;
+  return integrateCom(referenced.comX, referenced.comY, scanY, scanX).phase;
 }
 
 function vacuumContrast(phase: Float64Array, mask: Uint8Array): number {

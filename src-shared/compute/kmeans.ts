@@ -76,12 +76,10 @@ export function kmeansPlusPlus(points: Float64Array, n: number, f: number, k: nu
       // The total squared distance if this point became the next centre.
       let potential = 0;
       for (let i = 0; i < n; i++) {
-        let d = 0;
-        for (let x = 0; x < f; x++) { const e = points[i * f + x] - points[draw * f + x]; d += e * e; }
-        candidate[i] = Math.min(nearest[i], d);
+        candidate[i] = Math.min(nearest[i], sqDist(points, i, points, draw, f));
         potential += candidate[i];
       }
-      if (potential < bestPotential) { bestPotential = potential; pick = draw; bestNearest.set(candidate); }
+      if (t === 0 || potential < bestPotential) { bestPotential = potential; pick = draw; bestNearest.set(candidate); }
     }
     centers.set(points.subarray(pick * f, (pick + 1) * f), c * f);
     nearest.set(bestNearest);

@@ -118,7 +118,7 @@ export interface ComFieldRequest extends JobOptions {
   dataset: DatasetId;
   /** Only pixels inside this disk count (detector px); default the whole pattern. */
   maskDisk?: { cx: number; cy: number; r: number };
-  /** Pixels below this value count as zero (a pixel equal to it counts). */
+  /** Pixels below this value count as zero (a pixel equal to it counts); 0 means no threshold at all. */
   threshold?: number;
   descan?: DescanRequest;
   /** Estimated by least curl (auto), or given. */

@@ -281,6 +281,39 @@ with h5py.File(sys.argv[2], 'r+') as f:
     }
   }, 60_000);
 
+  it('a raw dataset saved before trailers were recorded (bytes after its data, no trailer in the session) still reopens', async () => {
+    const raw = path.join(dir, 'with-footer.raw');
+    const p = spawnSync(PYTHON, ['-c', `import h5py, sys
+with open(sys.argv[2], 'wb') as out:
+    out.write(h5py.File(sys.argv[1])['scan/frames'][()].astype('<u2').tobytes()); out.write(b'a footer of 23 bytes!!!')`, file, raw], { encoding: 'utf8' });
+    expect(p.status, p.stderr).toBe(0);
+    const eng = new EngineService({ workers: 1, cacheDir: null, stateDir: path.join(dir, 'state-raw') });
+    const old = path.join(dir, 'old-raw.scanfold.h5');
+    try {
+      const { shape } = (await eng.open({ path: file })).descriptor;
+      const d = await eng.open({ path: raw, raw: { shape, dtype: 'uint16', byteOrder: 'little', offset: 0, trailer: 23 } });
+      await eng.virtualImages({ dataset: d.id, detectors: [{ shape: { kind: 'disk', cx: 48, cy: 48, r: 10 } }], badPixels: 'none', keepAs: 'disk' });
+      await eng.saveSession({ path: old });
+    } finally {
+      await eng.shutdown();
+    }
+    // As an older Scanfold wrote it: the same session with no trailer in the dataset's spec.
+    const q = spawnSync(PYTHON, ['-c', `import h5py, json, sys
+with h5py.File(sys.argv[1], 'r+') as f:
+    doc = json.loads(f.attrs['session_json'])
+    for d in doc['datasets']: d['spec']['raw'].pop('trailer')
+    f.attrs['session_json'] = json.dumps(doc)`, old], { encoding: 'utf8' });
+    expect(q.status, q.stderr).toBe(0);
+    const next = new EngineService({ workers: 1, cacheDir: null, stateDir: path.join(dir, 'state-raw') });
+    try {
+      const s = await next.openSession({ path: old });
+      expect(s.datasets.map((x) => x.status)).toEqual(['found']);
+      expect(s.datasets[0].opened).not.toBeNull();
+    } finally {
+      await next.shutdown();
+    }
+  }, 60_000);
+
   it('a dataset whose file is replaced while open is not read as the new file', async () => {
     const eng = new EngineService({ workers: 1, cacheDir: null });
     const copy = path.join(dir, 'replaced.h5');
