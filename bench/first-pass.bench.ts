@@ -14,7 +14,7 @@ import { fmtBytes } from '../src-main/engine/budget';
 import { allocTyped } from '../src-shared/model/dtype';
 import { runAnalysesBenchmark } from './analyses.bench';
 import { runCommandsBenchmark } from './commands.bench';
-import { runPcaBenchmark } from './pca.bench';
+import { productsBenchmark, runPcaBenchmark } from './pca.bench';
 import { runAppBenchmark } from './app.bench';
 
 const PY = '/usr/bin/python3';
@@ -147,7 +147,8 @@ export async function runBenchmark(opts: { dir: string; workers: number; parts: 
   if (opts.parts.has('first-pass')) await firstPassBenchmark({ h5, raw, shape, workers: opts.workers, read: reads[1] });
   if (opts.parts.has('analyses')) await runAnalysesBenchmark({ raw, shape, workers: opts.workers, readRate });
   if (opts.parts.has('commands')) runCommandsBenchmark({ raw, shape, workers: opts.workers });
-  if (opts.parts.has('pca')) runPcaBenchmark({ h5, shape, workers: opts.workers });
+  if (opts.parts.has('pca')) await runPcaBenchmark({ h5, shape, workers: opts.workers });
+  if (opts.parts.has('products')) await productsBenchmark(opts.workers);
   if (opts.parts.has('app')) {
     const read = [plainRead(h5), plainRead(h5), plainRead(h5)].sort((a, b) => a.seconds - b.seconds)[1];
     await runAppBenchmark({ h5, workers: opts.workers, plainReadSeconds: read.seconds });

@@ -13,7 +13,7 @@ if (!Number.isInteger(workers) || workers < 1) {
   console.error(`bench: --workers ${values.workers}: expected a whole number ≥ 1`);
   process.exit(2);
 }
-const PARTS = ['first-pass', 'analyses', 'commands', 'pca', 'app'] as const;
+const PARTS = ['first-pass', 'analyses', 'commands', 'pca', 'products', 'app'] as const;
 const only = values.only?.split(',');
 const unknown = only?.filter((p) => !(PARTS as readonly string[]).includes(p)) ?? [];
 if (unknown.length) {

@@ -14,20 +14,27 @@ fs.mkdirSync(path.join(dist, 'wasm'), { recursive: true });
 // 1. WebAssembly kernels: every file in wasm-src whose name does not start with "_" is an entry.
 const wasmSrc = path.join(root, 'src-shared/compute/wasm-src');
 const SHARED_MEMORY_ENTRIES = new Set(['preview-image']);
+// Entries built a second time, as NAME-relaxed.wasm, with relaxed SIMD (fused multiply-add) on;
+// the loader takes that build where the runtime compiles it (wasm-loader.ts).
+const RELAXED_ENTRIES = new Set(['sketch']);
 if (fs.existsSync(wasmSrc)) {
   const asc = path.join(root, 'node_modules/assemblyscript/bin/asc.js');
   for (const f of fs.readdirSync(wasmSrc)) {
     if (!f.endsWith('.ts') || f.startsWith('_') || f.endsWith('.d.ts')) continue;
     const name = f.replace(/\.ts$/, '');
-    const out = path.join(dist, 'wasm', `${name}.wasm`);
     const src = path.join(wasmSrc, f);
-    if (fs.existsSync(out) && newestMtime(wasmSrc) <= fs.statSync(out).mtimeMs) continue;
-    // The preview cube's memory is shared: the first pass's workers write into it directly.
-    const memoryFlags = SHARED_MEMORY_ENTRIES.has(name)
-      ? ['--enable', 'simd,threads', '--sharedMemory', '--maximumMemory', '65536']
-      : ['--enable', 'simd'];
-    execFileSync(process.execPath, [asc, src, '-o', out, '-O3', '--noAssert', ...memoryFlags,
-      '--runtime', 'stub', '--importMemory', '--initialMemory', '1'], { stdio: 'inherit', cwd: root });
+    const builds = [[`${name}.wasm`, 'simd']];
+    if (RELAXED_ENTRIES.has(name)) builds.push([`${name}-relaxed.wasm`, 'simd,relaxed-simd']);
+    for (const [file, features] of builds) {
+      const out = path.join(dist, 'wasm', file);
+      if (fs.existsSync(out) && newestMtime(wasmSrc) <= fs.statSync(out).mtimeMs) continue;
+      // The preview cube's memory is shared: the first pass's workers write into it directly.
+      const memoryFlags = SHARED_MEMORY_ENTRIES.has(name)
+        ? ['--enable', `${features},threads`, '--sharedMemory', '--maximumMemory', '65536']
+        : ['--enable', features];
+      execFileSync(process.execPath, [asc, src, '-o', out, '-O3', '--noAssert', ...memoryFlags,
+        '--runtime', 'stub', '--importMemory', '--initialMemory', '1'], { stdio: 'inherit', cwd: root });
+    }
   }
 }
 
@@ -66,7 +73,11 @@ await build({
 });
 // `npm run bench`, in a folder of its own that is not shipped (electron-builder.yml leaves it out).
 fs.rmSync(path.join(dist, 'bench'), { recursive: true, force: true });
-await build({ ...bundleOptions, entryPoints: { bench: path.join(root, 'bench/main.ts') }, outdir: path.join(dist, 'bench') });
+await build({
+  ...bundleOptions,
+  entryPoints: { bench: path.join(root, 'bench/main.ts'), 'products-worker': path.join(root, 'bench/products-worker.ts') },
+  outdir: path.join(dist, 'bench'),
+});
 
 // 3. The renderer (served mode and, later, the Electron window): one browser bundle, its page
 //    and styles, into dist/renderer.

@@ -8,7 +8,7 @@ import { kmeans } from '../../src-shared/compute/kmeans';
 import { patternFeatures } from '../../src-shared/compute/pattern-features';
 import { coRangeRows } from '../../src-shared/compute/randomized-svd';
 import { createWasmSketchKernel } from '../../src-shared/compute/sketch-wasm';
-import { loadWasmModule } from '../workers/wasm-loader';
+import { loadFastestWasmModule } from '../workers/wasm-loader';
 import type { PreviewCube } from './first-pass';
 import { MiB, planTiles, type EngineLimits } from './budget';
 import { Job } from './job';
@@ -73,11 +73,12 @@ export function startPca(pool: WorkerPool, spec: SourceSpec, plan: FeaturePlan, 
     const groupRows = Math.min(scanY, align * Math.max(1, Math.floor(GROUP_BYTES / (rowBytes * align))));
     // Per worker beside its tile: with 8/16-bit data the tile sits in the bin kernel's memory
     // (half a tile of slack) which also holds the detector bins it writes (float32), copied out
-    // once; a group's feature vectors (float64) and its Y and W in the sketch kernel.
+    // once; a group's feature vectors (float64, and their float32 copy for the products) and its
+    // Y and W in the sketch kernel.
     const binsRatio = 4 / (DTYPE_BYTES[d.dtype] * plan.bin * plan.bin);
     const viaBins = kernel === 'wasm' && DTYPE_BYTES[d.dtype] <= 2 && !d.dtype.startsWith('float');
     const extraCopies = viaBins ? 0.5 + 2 * binsRatio : 0;
-    const perWorkerGroup = groupRows * scanX * (dim + l) * 8 + dim * l * 8 * 2;
+    const perWorkerGroup = groupRows * scanX * (dim * 12 + l * 8) + dim * l * 8 * 2;
     const sketchCols = options.onePass ? Math.min(2 * l + 1, n) : l;
     // Slots of partial W (D × sketch columns each) for every worker's tile in flight and one more
     // tile's waiting to be added in scan order; a lane waits for a free slot rather than fail.
@@ -253,7 +254,7 @@ export async function previewPca(cube: PreviewCube, plan: FeaturePlan, options: 
   const dim = plan.nFeatures;
   const binsPerRow = cube.pY * cube.pX;
   const data = cube.imager ? cube.imager.cube() : cube.data;
-  const sk = createWasmSketchKernel(loadWasmModule('sketch'));
+  const sk = createWasmSketchKernel(loadFastestWasmModule('sketch'));
   const BLOCK = 256;
   let zeroPatterns = 0;
   let first = true;

@@ -22,7 +22,7 @@ import { fitRows, type FitPlan } from '../../src-shared/compute/reference-fit';
 import { createWasmSketchKernel, type SketchKernel } from '../../src-shared/compute/sketch-wasm';
 import { openTileSource, type TileSource } from '../io/index';
 import type { ReaderMemory } from '../io/tile-source';
-import { loadWasmModule } from './wasm-loader';
+import { loadFastestWasmModule, loadWasmModule } from './wasm-loader';
 import { keepErrorCodesAcrossThreads } from './error-transfer';
 import fs from 'node:fs';
 import { InputError } from '../../src-shared/model/errors';
@@ -228,7 +228,7 @@ const SMALL_INTEGER_DTYPES = new Set<DType>(['uint8', 'uint16', 'int8', 'int16']
 
 let sketch: SketchKernel | null = null;
 function sketchKernel(): SketchKernel {
-  sketch ??= createWasmSketchKernel(loadWasmModule('sketch'));
+  sketch ??= createWasmSketchKernel(loadFastestWasmModule('sketch'));
   return sketch;
 }
 

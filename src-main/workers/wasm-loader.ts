@@ -1,5 +1,6 @@
 import fs from 'node:fs';
 import path from 'node:path';
+import v8 from 'node:v8';
 import { fileURLToPath } from 'node:url';
 
 const compiled = new Map<string, WebAssembly.Module>();
@@ -19,6 +20,31 @@ export function loadWasmModule(name: string): WebAssembly.Module {
   }
   const module = new WebAssembly.Module(fs.readFileSync(file));
   compiled.set(name, module);
+  return module;
+}
+
+let relaxedFlagTried = false;
+
+/**
+ * The relaxed-SIMD build of NAME (dist/wasm/NAME-relaxed.wasm: fused multiply-add) where this
+ * runtime compiles it, else the plain build. Node 20's V8 has relaxed SIMD behind a flag, which is
+ * set here (process-wide, once) when the build does not validate without it; later runtimes
+ * have it on. SCANFOLD_WASM_RELAXED=off keeps the plain build.
+ */
+export function loadFastestWasmModule(name: string): WebAssembly.Module {
+  const key = `${name}-relaxed`;
+  const cached = compiled.get(key);
+  if (cached) return cached;
+  const file = path.join(projectRoot(), 'dist', 'wasm', `${key}.wasm`);
+  if (process.env.SCANFOLD_WASM_RELAXED === 'off' || !fs.existsSync(file)) return loadWasmModule(name);
+  const bytes = fs.readFileSync(file);
+  if (!WebAssembly.validate(bytes) && !relaxedFlagTried) {
+    relaxedFlagTried = true;
+    v8.setFlagsFromString('--experimental-wasm-relaxed-simd');
+  }
+  if (!WebAssembly.validate(bytes)) return loadWasmModule(name);
+  const module = new WebAssembly.Module(bytes);
+  compiled.set(key, module);
   return module;
 }
 

@@ -150,19 +150,24 @@ export function patternFeatures(tile: NumericArray, nPatterns: number, p: Featur
  * file). Returns true when the pattern's features sum to zero (it is left all zero).
  */
 function finishFeatureRow(row: Float64Array, p: FeaturePlan): boolean {
-  const d = row.length;
+  return finishFeatures(row, 0, row.length, p);
+}
+
+/** finishFeatureRow on out[off … off + d − 1], with no view made (a view per pattern costs more than its work). */
+function finishFeatures(out: Float64Array, off: number, d: number, p: FeaturePlan): boolean {
+  const end = off + d;
   let total = 0;
-  for (let j = 0; j < d; j++) total += row[j];
+  for (let j = off; j < end; j++) total += out[j];
   if (total === 0) return true;
-  if (p.normalize) for (let j = 0; j < d; j++) row[j] /= total;
+  if (p.normalize) for (let j = off; j < end; j++) out[j] /= total;
   if (p.scaling === 'sqrt') {
-    for (let j = 0; j < d; j++) row[j] = row[j] > 0 ? Math.sqrt(row[j]) : 0;
+    for (let j = off; j < end; j++) out[j] = out[j] > 0 ? Math.sqrt(out[j]) : 0;
   } else if (p.scaling === 'poisson') {
     const g = total / d;
-    if (!(g > 0)) { row.fill(0); return false; }
+    if (!(g > 0)) { out.fill(0, off, end); return false; }
     const s = 1 / Math.sqrt(g);
     const h = p.columnScale!;
-    for (let j = 0; j < d; j++) row[j] *= s * h[j];
+    for (let j = 0; j < d; j++) out[off + j] *= s * h[j];
   }
   return false;
 }
@@ -189,12 +194,16 @@ export function featuresFromBins(bins: ArrayLike<number>, nPatterns: number, pY:
     const b = p.binOf[j];
     src[j] = (by0 + Math.floor(b / p.outX)) * pX + bx0 + (b % p.outX);
   }
+  // Every bin kept, in order (no crop, no bin left out): each pattern's bins are its features.
+  let contiguous = true;
+  for (let j = 0; j < d && contiguous; j++) contiguous = src[j] === src[0] + j;
   let zeroPatterns = 0;
   for (let k = 0; k < nPatterns; k++) {
-    const row = out.subarray(k * d, (k + 1) * d);
+    const off = k * d;
     const base = k * pY * pX;
-    for (let j = 0; j < d; j++) row[j] = bins[base + src[j]];
-    if (finishFeatureRow(row, p)) zeroPatterns++;
+    if (contiguous && ArrayBuffer.isView(bins)) out.set((bins as Float32Array).subarray(base + src[0], base + src[0] + d), off);
+    else for (let j = 0; j < d; j++) out[off + j] = bins[base + src[j]];
+    if (finishFeatures(out, off, d, p)) zeroPatterns++;
   }
   return { zeroPatterns };
 }

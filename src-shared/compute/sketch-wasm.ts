@@ -3,7 +3,9 @@ import { ensureMemoryBytes, PAGE_BYTES, roundUp } from './wasm-memory';
 
 /**
  * The WebAssembly SIMD twin of rangeBlock (randomized-svd.ts), built from wasm-src/sketch.ts:
- * for a block of feature rows C (n × d), Y = C·Z and W = Cᵀ·Y in float64. The caller writes
+ * for a block of feature rows C (n × d), Y = C·Z and W = Cᵀ·Y. The rows are written in float64
+ * and the column sums and Σ of squares are made in float64; the products run in float32 (see
+ * wasm-src/sketch.ts) and come back as float64. The caller writes
  * the rows straight into kernel memory (`rows`), then calls `run`. Growing the memory detaches
  * views, so take the view from `rows` before every `run` and do not keep it after.
  */
@@ -29,9 +31,9 @@ export function createWasmSketchKernel(wasmModule: WebAssembly.Module): SketchKe
     env: { memory, abort: () => { throw new Error('sketch: WebAssembly kernel aborted'); } },
   });
   const ex = instance.exports as unknown as {
-    centreRows(a: number, n: number, d: number, centre: number, colSum: number): number;
-    matmul(a: number, m: number, k: number, b: number, l: number, out: number, accumulate: number): void;
-    matmulTransA(a: number, m: number, k: number, b: number, l: number, out: number, accumulate: number): void;
+    centreRows(a: number, n: number, d: number, centre: number, colSum: number, a32: number): number;
+    matmul(a: number, m: number, k: number, b: number, l: number, out: number): void;
+    matmulTransA(a: number, m: number, k: number, b: number, l: number, out: number): void;
     clusterSumsU16(tile: number, n: number, nPix: number, labels: number, sums: number): void;
   };
   const clusterLayout = (n: number, nPix: number, k: number) => {
@@ -41,14 +43,15 @@ export function createWasmSketchKernel(wasmModule: WebAssembly.Module): SketchKe
     return { tile, labels, sums, end: sums + k * nPix * 8 };
   };
   const layout = (n: number, d: number, l: number, s = 0) => {
-    const L = roundUp(Math.max(l, 1), 4);
-    const S = roundUp(s, 4);
+    // Sketch widths padded to whole tiles of 8 float32 columns.
+    const L = roundUp(Math.max(l, 1), 8);
+    const S = roundUp(s, 8);
     const WL = Math.max(L, S);
     let at = PAGE_BYTES;
     const take = (bytes: number) => { const p = at; at = roundUp(at + bytes, 64); return p; };
-    const a = take(n * d * 8), z = take(d * L * 8), y = take(n * L * 8), w = take(d * WL * 8), psi = take(n * S * 8);
+    const a = take(n * d * 8), a32 = take(n * d * 4), z = take(d * L * 4), y = take(n * L * 4), w = take(d * WL * 4), psi = take(n * S * 4);
     const colSum = take(d * 8), centre = take(d * 8);
-    return { L, S, a, z, y, w, psi, colSum, centre, end: at };
+    return { L, S, a, a32, z, y, w, psi, colSum, centre, end: at };
   };
   return {
     rows(n, d, l, s = 0) {
@@ -76,29 +79,29 @@ export function createWasmSketchKernel(wasmModule: WebAssembly.Module): SketchKe
       if (memory.buffer.byteLength < lay.end) throw new Error('sketch: rows(n, d, l) must be called before run');
       const { L } = lay;
       const buf = memory.buffer;
-      // Z padded to L columns with zeros.
-      const zp = new Float64Array(buf, lay.z, d * L);
+      // Z in float32, padded to L columns with zeros.
+      const zp = new Float32Array(buf, lay.z, d * L);
       if (L === l) zp.set(z);
       else { zp.fill(0); for (let j = 0; j < d; j++) zp.set(z.subarray(j * l, (j + 1) * l), j * L); }
       new Float64Array(buf, lay.colSum, d).fill(0);
       if (centre) new Float64Array(buf, lay.centre, d).set(centre);
-      const sumSq = ex.centreRows(lay.a, n, d, centre ? lay.centre : 0, lay.colSum);
-      ex.matmul(lay.a, n, d, lay.z, L, lay.y, 0);
+      const sumSq = ex.centreRows(lay.a, n, d, centre ? lay.centre : 0, lay.colSum, lay.a32);
+      ex.matmul(lay.a32, n, d, lay.z, L, lay.y);
       let wCols = L, wWant = l;
       if (psi) {
         // Ψᵀ rows padded to S columns.
-        const pp = new Float64Array(buf, lay.psi, n * lay.S);
+        const pp = new Float32Array(buf, lay.psi, n * lay.S);
         if (lay.S === psi.s) pp.set(psi.rows.subarray(0, n * psi.s));
         else { pp.fill(0); for (let i = 0; i < n; i++) pp.set(psi.rows.subarray(i * psi.s, (i + 1) * psi.s), i * lay.S); }
-        ex.matmulTransA(lay.a, n, d, lay.psi, lay.S, lay.w, 0);
+        ex.matmulTransA(lay.a32, n, d, lay.psi, lay.S, lay.w);
         wCols = lay.S;
         wWant = psi.s;
       } else {
-        ex.matmulTransA(lay.a, n, d, lay.y, L, lay.w, 0);
+        ex.matmulTransA(lay.a32, n, d, lay.y, L, lay.w);
       }
-      const yv = new Float64Array(buf, lay.y, n * L);
-      const wv = new Float64Array(buf, lay.w, d * wCols);
-      const unpad = (v: Float64Array, rows: number, have: number, want: number, target?: Float64Array) => {
+      const yv = new Float32Array(buf, lay.y, n * L);
+      const wv = new Float32Array(buf, lay.w, d * wCols);
+      const unpad = (v: Float32Array, rows: number, have: number, want: number, target?: Float64Array) => {
         const o = target ?? new Float64Array(rows * want);
         if (o.length !== rows * want) throw new RangeError(`sketch: output holds ${o.length} values, expected ${rows}×${want}`);
         if (have === want) o.set(v);

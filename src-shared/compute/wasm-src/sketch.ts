@@ -1,35 +1,47 @@
 // AssemblyScript: the products of a randomized-SVD pass over one block of feature rows, compiled
-// to WebAssembly SIMD (float64 lanes). The plain TypeScript twin is rangeBlock in
-// ../randomized-svd.ts, the reference these results are tested against.
+// to WebAssembly SIMD. The plain TypeScript twin is rangeBlock in ../randomized-svd.ts, the
+// reference these results are tested against.
+//
+// The feature rows arrive in float64; centreRows takes the centre out, sums the columns and the
+// squares in float64 (exact enough for the total variance), and writes the centred rows once
+// more in float32. The products run on those float32 rows in float32 lanes (four to a vector,
+// twice the float64 rate): each Y entry sums d products, each W entry the block's m rows, and
+// the caller adds the blocks' W in float64. That is the precision a float32 matrix gets in any
+// library's products; the range finder needs far less.
 //
 // The JS side (../sketch-wasm.ts) lays out every buffer in the imported memory and passes
-// pointers; nothing here allocates. All matrices are row-major float64; `l` (the sketch width)
-// is a multiple of 4, padded with zero columns by the caller.
+// pointers; nothing here allocates. All matrices are row-major; `l` (the sketch width) is a
+// multiple of 8, padded with zero columns by the caller.
 
 /**
- * Take `centre` (d values, or 0 for none) out of each of the n rows of `a` (n × d) in place;
- * add the rows as they were to colSum (d values); return Σ of the squared centred entries.
+ * Take `centre` (d values, or 0 for none) out of each of the n rows of `a` (n × d float64);
+ * write the centred rows to `a32` (n × d float32); add the rows as they were to colSum (d
+ * float64 values); return Σ of the squared centred entries (in float64).
  */
-export function centreRows(a: usize, n: i32, d: i32, centre: usize, colSum: usize): f64 {
+export function centreRows(a: usize, n: i32, d: i32, centre: usize, colSum: usize, a32: usize): f64 {
   let sumSq: f64 = 0;
   let acc = f64x2.splat(0);
   for (let i = 0; i < n; i++) {
     const row = a + <usize>i * <usize>d * 8;
+    const row32 = a32 + <usize>i * <usize>d * 4;
     let j = 0;
-    for (; j + 2 <= d; j += 2) {
+    for (; j + 4 <= d; j += 4) {
       const off = <usize>j * 8;
-      const v = v128.load(row + off);
-      v128.store(colSum + off, f64x2.add(v128.load(colSum + off), v));
-      const c = centre != 0 ? f64x2.sub(v, v128.load(centre + off)) : v;
-      v128.store(row + off, c);
-      acc = f64x2.add(acc, f64x2.mul(c, c));
+      const v0 = v128.load(row + off), v1 = v128.load(row + off, 16);
+      v128.store(colSum + off, f64x2.add(v128.load(colSum + off), v0));
+      v128.store(colSum + off, f64x2.add(v128.load(colSum + off, 16), v1), 16);
+      const c0 = centre != 0 ? f64x2.sub(v0, v128.load(centre + off)) : v0;
+      const c1 = centre != 0 ? f64x2.sub(v1, v128.load(centre + off, 16)) : v1;
+      acc = f64x2.add(acc, f64x2.add(f64x2.mul(c0, c0), f64x2.mul(c1, c1)));
+      const h0 = f32x4.demote_f64x2_zero(c0), h1 = f32x4.demote_f64x2_zero(c1);
+      v128.store(row32 + <usize>j * 4, v128.shuffle<f32>(h0, h1, 0, 1, 4, 5));
     }
     for (; j < d; j++) {
       const off = <usize>j * 8;
       const v = load<f64>(row + off);
       store<f64>(colSum + off, load<f64>(colSum + off) + v);
       const c = centre != 0 ? v - load<f64>(centre + off) : v;
-      store<f64>(row + off, c);
+      store<f32>(row32 + <usize>j * 4, <f32>c);
       sumSq += c * c;
     }
   }
@@ -37,113 +49,116 @@ export function centreRows(a: usize, n: i32, d: i32, centre: usize, colSum: usiz
 }
 
 /**
- * out (m × l) = a (m × k) · b (k × l), or out += a·b when `accumulate` is nonzero. l must be a
- * multiple of 4. Register tiles of 4 rows × 4 columns (eight two-lane accumulators) walk the
- * inner dimension, so each value of b loaded serves four rows and each of a four columns.
+ * out (m × l) = a (m × k) · b (k × l), all float32; l a multiple of 8. Register tiles of 4 rows
+ * × 8 columns (eight four-lane accumulators) walk the inner dimension, so each vector of b
+ * loaded serves four rows and each value of a (loaded straight into all four lanes) eight columns.
  */
-export function matmul(a: usize, m: i32, k: i32, b: usize, l: i32, out: usize, accumulate: i32): void {
-  const rowA = <usize>k * 8;
-  const rowB = <usize>l * 8;
+export function matmul(a: usize, m: i32, k: i32, b: usize, l: i32, out: usize): void {
+  const rowA = <usize>k * 4;
+  const rowB = <usize>l * 4;
   let r = 0;
   for (; r + 4 <= m; r += 4) {
     const a0 = a + <usize>r * rowA, a1 = a0 + rowA, a2 = a1 + rowA, a3 = a2 + rowA;
-    for (let c = 0; c < l; c += 4) {
-      let s00 = f64x2.splat(0), s01 = s00, s10 = s00, s11 = s00, s20 = s00, s21 = s00, s30 = s00, s31 = s00;
-      let bp = b + <usize>c * 8;
-      for (let j = 0; j < k; j++) {
-        const off = <usize>j * 8;
+    for (let c = 0; c < l; c += 8) {
+      let s00 = f32x4.splat(0), s01 = s00, s10 = s00, s11 = s00, s20 = s00, s21 = s00, s30 = s00, s31 = s00;
+      let bp = b + <usize>c * 4;
+      for (let off: usize = 0; off < rowA; off += 4) {
         const b0 = v128.load(bp), b1 = v128.load(bp, 16);
-        const x0 = f64x2.splat(load<f64>(a0 + off));
-        const x1 = f64x2.splat(load<f64>(a1 + off));
-        const x2 = f64x2.splat(load<f64>(a2 + off));
-        const x3 = f64x2.splat(load<f64>(a3 + off));
-        s00 = f64x2.add(s00, f64x2.mul(x0, b0)); s01 = f64x2.add(s01, f64x2.mul(x0, b1));
-        s10 = f64x2.add(s10, f64x2.mul(x1, b0)); s11 = f64x2.add(s11, f64x2.mul(x1, b1));
-        s20 = f64x2.add(s20, f64x2.mul(x2, b0)); s21 = f64x2.add(s21, f64x2.mul(x2, b1));
-        s30 = f64x2.add(s30, f64x2.mul(x3, b0)); s31 = f64x2.add(s31, f64x2.mul(x3, b1));
+        const x0 = v128.load32_splat(a0 + off);
+        s00 = madd(x0, b0, s00); s01 = madd(x0, b1, s01);
+        const x1 = v128.load32_splat(a1 + off);
+        s10 = madd(x1, b0, s10); s11 = madd(x1, b1, s11);
+        const x2 = v128.load32_splat(a2 + off);
+        s20 = madd(x2, b0, s20); s21 = madd(x2, b1, s21);
+        const x3 = v128.load32_splat(a3 + off);
+        s30 = madd(x3, b0, s30); s31 = madd(x3, b1, s31);
         bp += rowB;
       }
-      const o = out + (<usize>r * <usize>l + <usize>c) * 8;
-      storeTile(o, s00, s01, accumulate);
-      storeTile(o + rowB, s10, s11, accumulate);
-      storeTile(o + 2 * rowB, s20, s21, accumulate);
-      storeTile(o + 3 * rowB, s30, s31, accumulate);
+      const o = out + (<usize>r * <usize>l + <usize>c) * 4;
+      v128.store(o, s00); v128.store(o, s01, 16);
+      v128.store(o + rowB, s10); v128.store(o + rowB, s11, 16);
+      v128.store(o + 2 * rowB, s20); v128.store(o + 2 * rowB, s21, 16);
+      v128.store(o + 3 * rowB, s30); v128.store(o + 3 * rowB, s31, 16);
     }
   }
   for (; r < m; r++) {
     const a0 = a + <usize>r * rowA;
-    for (let c = 0; c < l; c += 4) {
-      let s0 = f64x2.splat(0), s1 = s0;
-      let bp = b + <usize>c * 8;
-      for (let j = 0; j < k; j++) {
-        const x0 = f64x2.splat(load<f64>(a0 + <usize>j * 8));
-        s0 = f64x2.add(s0, f64x2.mul(x0, v128.load(bp)));
-        s1 = f64x2.add(s1, f64x2.mul(x0, v128.load(bp, 16)));
+    for (let c = 0; c < l; c += 8) {
+      let s0 = f32x4.splat(0), s1 = s0;
+      let bp = b + <usize>c * 4;
+      for (let off: usize = 0; off < rowA; off += 4) {
+        const x0 = v128.load32_splat(a0 + off);
+        s0 = madd(x0, v128.load(bp), s0);
+        s1 = madd(x0, v128.load(bp, 16), s1);
         bp += rowB;
       }
-      storeTile(out + (<usize>r * <usize>l + <usize>c) * 8, s0, s1, accumulate);
+      const o = out + (<usize>r * <usize>l + <usize>c) * 4;
+      v128.store(o, s0); v128.store(o, s1, 16);
     }
   }
 }
 
 /**
- * out (k × l) = aᵀ · b, with a (m × k) and b (m × l) row-major, l a multiple of 4: the products
- * Cᵀ·Y without transposing C. Register tiles of 4 columns of a × 4 columns of b walk the rows;
- * the strip of a they read (m rows × 4 values) stays in cache while the tiles of b pass over it.
+ * out (k × l) = aᵀ · b, with a (m × k) and b (m × l) row-major float32, l a multiple of 8: the
+ * products Cᵀ·Y without transposing C. Register tiles of 4 columns of a × 8 columns of b walk
+ * the rows; the strip of a they read (m rows × 4 values) stays in cache while the tiles of b
+ * pass over it.
  */
-export function matmulTransA(a: usize, m: i32, k: i32, b: usize, l: i32, out: usize, accumulate: i32): void {
-  const rowA = <usize>k * 8;
-  const rowB = <usize>l * 8;
+export function matmulTransA(a: usize, m: i32, k: i32, b: usize, l: i32, out: usize): void {
+  const rowA = <usize>k * 4;
+  const rowB = <usize>l * 4;
   let j = 0;
   for (; j + 4 <= k; j += 4) {
-    for (let c = 0; c < l; c += 4) {
-      let s00 = f64x2.splat(0), s01 = s00, s10 = s00, s11 = s00, s20 = s00, s21 = s00, s30 = s00, s31 = s00;
-      let ap = a + <usize>j * 8;
-      let bp = b + <usize>c * 8;
+    for (let c = 0; c < l; c += 8) {
+      let s00 = f32x4.splat(0), s01 = s00, s10 = s00, s11 = s00, s20 = s00, s21 = s00, s30 = s00, s31 = s00;
+      let ap = a + <usize>j * 4;
+      let bp = b + <usize>c * 4;
       for (let r = 0; r < m; r++) {
         const b0 = v128.load(bp), b1 = v128.load(bp, 16);
-        const xa = v128.load(ap), xb = v128.load(ap, 16);
-        const x0 = v128.shuffle<f64>(xa, xa, 0, 0), x1 = v128.shuffle<f64>(xa, xa, 1, 1);
-        const x2 = v128.shuffle<f64>(xb, xb, 0, 0), x3 = v128.shuffle<f64>(xb, xb, 1, 1);
-        s00 = f64x2.add(s00, f64x2.mul(x0, b0)); s01 = f64x2.add(s01, f64x2.mul(x0, b1));
-        s10 = f64x2.add(s10, f64x2.mul(x1, b0)); s11 = f64x2.add(s11, f64x2.mul(x1, b1));
-        s20 = f64x2.add(s20, f64x2.mul(x2, b0)); s21 = f64x2.add(s21, f64x2.mul(x2, b1));
-        s30 = f64x2.add(s30, f64x2.mul(x3, b0)); s31 = f64x2.add(s31, f64x2.mul(x3, b1));
+        const xa = v128.load(ap);
+        const x0 = v128.shuffle<f32>(xa, xa, 0, 0, 0, 0), x1 = v128.shuffle<f32>(xa, xa, 1, 1, 1, 1);
+        const x2 = v128.shuffle<f32>(xa, xa, 2, 2, 2, 2), x3 = v128.shuffle<f32>(xa, xa, 3, 3, 3, 3);
+        s00 = madd(x0, b0, s00); s01 = madd(x0, b1, s01);
+        s10 = madd(x1, b0, s10); s11 = madd(x1, b1, s11);
+        s20 = madd(x2, b0, s20); s21 = madd(x2, b1, s21);
+        s30 = madd(x3, b0, s30); s31 = madd(x3, b1, s31);
         ap += rowA;
         bp += rowB;
       }
-      const o = out + (<usize>j * <usize>l + <usize>c) * 8;
-      storeTile(o, s00, s01, accumulate);
-      storeTile(o + rowB, s10, s11, accumulate);
-      storeTile(o + 2 * rowB, s20, s21, accumulate);
-      storeTile(o + 3 * rowB, s30, s31, accumulate);
+      const o = out + (<usize>j * <usize>l + <usize>c) * 4;
+      v128.store(o, s00); v128.store(o, s01, 16);
+      v128.store(o + rowB, s10); v128.store(o + rowB, s11, 16);
+      v128.store(o + 2 * rowB, s20); v128.store(o + 2 * rowB, s21, 16);
+      v128.store(o + 3 * rowB, s30); v128.store(o + 3 * rowB, s31, 16);
     }
   }
   for (; j < k; j++) {
-    for (let c = 0; c < l; c += 4) {
-      let s0 = f64x2.splat(0), s1 = s0;
-      let ap = a + <usize>j * 8;
-      let bp = b + <usize>c * 8;
+    for (let c = 0; c < l; c += 8) {
+      let s0 = f32x4.splat(0), s1 = s0;
+      let ap = a + <usize>j * 4;
+      let bp = b + <usize>c * 4;
       for (let r = 0; r < m; r++) {
-        const x = f64x2.splat(load<f64>(ap));
-        s0 = f64x2.add(s0, f64x2.mul(x, v128.load(bp)));
-        s1 = f64x2.add(s1, f64x2.mul(x, v128.load(bp, 16)));
+        const x = v128.load32_splat(ap);
+        s0 = madd(x, v128.load(bp), s0);
+        s1 = madd(x, v128.load(bp, 16), s1);
         ap += rowA;
         bp += rowB;
       }
-      storeTile(out + (<usize>j * <usize>l + <usize>c) * 8, s0, s1, accumulate);
+      const o = out + (<usize>j * <usize>l + <usize>c) * 4;
+      v128.store(o, s0); v128.store(o, s1, 16);
     }
   }
 }
 
+/**
+ * c + a·b in four float32 lanes: one fused multiply-add where the build enables relaxed SIMD
+ * (sketch-relaxed.wasm; rounded once, or twice where the machine has no FMA: either is within
+ * the float32 bound the twin test checks), a multiply and an add otherwise (sketch.wasm).
+ */
 // @ts-ignore: decorator
-@inline function storeTile(p: usize, lo: v128, hi: v128, accumulate: i32): void {
-  if (accumulate != 0) {
-    lo = f64x2.add(lo, v128.load(p));
-    hi = f64x2.add(hi, v128.load(p, 16));
-  }
-  v128.store(p, lo);
-  v128.store(p, hi, 16);
+@inline function madd(a: v128, b: v128, c: v128): v128 {
+  if (ASC_FEATURE_RELAXED_SIMD) return f32x4.relaxed_madd(a, b, c);
+  return f32x4.add(c, f32x4.mul(a, b));
 }
 
 /**
