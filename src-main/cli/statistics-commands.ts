@@ -169,7 +169,7 @@ export async function cmdKmeans(args: string[], engineOptions: (v: Record<string
     noteNonFiniteResults(written, ' (an empty cluster has a NaN mean pattern)');
     if (v.quiet !== true) {
       const where = pv ? ` (a preview: scan bins of ${pv.scanBin}×${pv.scanBin} positions from the preview cube, no pass over the data)` : ' positions';
-      process.stderr.write(`${wrote(written)}: ${r.k} clusters of ${Array.from(r.sizes).join(', ')}${where}; inertia ${r.inertia.toPrecision(6)} on ${f.kind === 'pca' ? `${f.components} principal components` : `the patterns (${f.components} features, ${r.iterations} iterations)`}\n`);
+      process.stderr.write(`${wrote(written)}: ${r.k} clusters of ${Array.from(r.sizes).join(', ')}${where}; inertia ${r.inertia.toPrecision(6)} on ${f.kind === 'pca' ? `${f.components} principal components` : `the patterns (${f.components} features, ${r.iterations} iterations)`}${trimmed(f, r.descriptor.shape, request.crop ?? pv)}\n`);
     }
   }, out, session);
 }
@@ -219,7 +219,7 @@ export async function cmdFit(args: string[], engineOptions: (v: Record<string, u
     if (v.quiet !== true) {
       const zero = r.residual.length - explained;
       process.stderr.write(`${wrote(written)}: ${r.r} reference(s) fitted to every pattern; mean relative residual ${explained ? (mean / explained).toFixed(4) : 'none'}` +
-        `${zero ? ` (${zero} all-zero pattern(s) left out: residual NaN, nothing to explain)` : ''}\n`);
+        `${zero ? ` (${zero} all-zero pattern(s) left out: residual NaN, nothing to explain)` : ''}${trimmed(f, r.descriptor.shape, request.crop)}\n`);
     }
   }, out, session);
 }

@@ -86,3 +86,26 @@ print(json.dumps({'n': int(refs.shape[0]), 'worst': worst, 'own': own}))`, out, 
   // each cluster's positions are mostly their own reference
   for (const w of got.own) expect(w).toBeGreaterThan(0.7);
 });
+
+it('kmeans and fit say when the detector was cut to whole bins, as pca does', () => {
+  // A 10×10 detector binned by 4 keeps 8×8 pixels: 100 − 64 = 36 edge pixels left out.
+  const npy = path.join(dir, 'odd.npy');
+  const made = spawnSync(PYTHON, ['-c', `import numpy as np, sys
+rng = np.random.default_rng(3)
+np.save(sys.argv[1], rng.poisson(5.0, (6, 6, 10, 10)).astype(np.uint16))`, npy], { encoding: 'utf8' });
+  expect(made.status, made.stderr).toBe(0);
+  const note = /the detector cut to 8×8 px, whole bins: 36 edge pixels left out/;
+  for (const args of [
+    ['pca', npy, '--components', '2', '--bin', '4', '--bad-pixels', 'none', '--out', path.join(dir, 'odd-pca.h5')],
+    ['kmeans', npy, '--clusters', '2', '--features', 'patterns', '--bin', '4', '--bad-pixels', 'none', '--out', path.join(dir, 'odd-km.h5')],
+    ['fit', npy, '--reference-region', '0,0,2,2', '--bin', '4', '--bad-pixels', 'none', '--out', path.join(dir, 'odd-fit.h5')],
+  ]) {
+    const r = scanfold(...args);
+    expect(r.status, r.stderr).toBe(0);
+    expect(r.stderr, args[0]).toMatch(note);
+  }
+  // With the crop given, nothing is said: the user chose it.
+  const r = scanfold('kmeans', npy, '--clusters', '2', '--features', 'patterns', '--bin', '4', '--crop', '0,0,7,7', '--bad-pixels', 'none', '--out', path.join(dir, 'odd-km2.h5'));
+  expect(r.status, r.stderr).toBe(0);
+  expect(r.stderr).not.toMatch(/cut to/);
+});
