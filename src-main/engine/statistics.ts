@@ -73,12 +73,11 @@ export function startPca(pool: WorkerPool, spec: SourceSpec, plan: FeaturePlan, 
     const groupRows = Math.min(scanY, align * Math.max(1, Math.floor(GROUP_BYTES / (rowBytes * align))));
     // Per worker beside its tile: with 8/16-bit data the tile sits in the bin kernel's memory
     // (half a tile of slack) which also holds the detector bins it writes (float32), copied out
-    // once; a group's feature vectors (float64, and their float32 copy for the products) and its
-    // Y and W in the sketch kernel.
+    // once; a group's feature vectors (float32) and its Y and W in the sketch kernel.
     const binsRatio = 4 / (DTYPE_BYTES[d.dtype] * plan.bin * plan.bin);
     const viaBins = kernel === 'wasm' && DTYPE_BYTES[d.dtype] <= 2 && !d.dtype.startsWith('float');
     const extraCopies = viaBins ? 0.5 + 2 * binsRatio : 0;
-    const perWorkerGroup = groupRows * scanX * (dim * 12 + l * 8) + dim * l * 8 * 2;
+    const perWorkerGroup = groupRows * scanX * (dim * 4 + l * 8) + dim * l * 8 * 2;
     const sketchCols = options.onePass ? Math.min(2 * l + 1, n) : l;
     // Slots of partial W (D × sketch columns each) for every worker's tile in flight and one more
     // tile's waiting to be added in scan order; a lane waits for a free slot rather than fail.

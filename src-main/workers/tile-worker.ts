@@ -16,7 +16,7 @@ import { createWasmVirtualImageKernel } from '../../src-shared/compute/virtual-i
 import { createReferenceComKernel } from '../../src-shared/compute/com';
 import { createWasmComKernel } from '../../src-shared/compute/com-wasm';
 import { accumulateClusterSums, accumulateRegionPatterns } from '../../src-shared/compute/region-pattern';
-import { binsAlignWithCrop, featuresFromBins, patternFeatures, type FeaturePlan } from '../../src-shared/compute/pattern-features';
+import { binsAlignWithCrop, featuresFromBins, patternFeatures, type FeaturePlan, type FeatureRows } from '../../src-shared/compute/pattern-features';
 import { coRangeRows, rangeBlock } from '../../src-shared/compute/randomized-svd';
 import { fitRows, type FitPlan } from '../../src-shared/compute/reference-fit';
 import { createWasmSketchKernel, type SketchKernel } from '../../src-shared/compute/sketch-wasm';
@@ -256,7 +256,7 @@ function readForFeatures(src: TileSource, row0: number, nRows: number, plan: Fea
   const bins = fk ? fk.run(dtype, nRows, { scanX: shape.scanX, detY: shape.detY, detX: shape.detX, detBin: plan.bin, scanBin: 1 },
     { preview: scratch('feature-bins', 'float32', nPatterns * pY * pX) as Float32Array, total: scratch('feature-totals', 'float64', nPatterns) as Float64Array }).preview : null;
   const binMs = performance.now() - t1;
-  const features = (p0: number, p1: number, out: Float64Array): { nonFinite: number; zeroPatterns: number } => bins
+  const features = (p0: number, p1: number, out: FeatureRows): { nonFinite: number; zeroPatterns: number } => bins
     ? { nonFinite: 0, ...featuresFromBins(bins.subarray(p0 * pY * pX, p1 * pY * pX), p1 - p0, pY, pX, plan, out) }
     : patternFeatures(raw.subarray(p0 * nPix, p1 * nPix), p1 - p0, plan, out);
   return { features, nPatterns, readMs, binMs, rawBytes: nElements * DTYPE_BYTES[dtype] };
@@ -428,7 +428,7 @@ const api = {
       const p1 = Math.min(nRows, (g + 1) * groupRows) * shape.scanX;
       const m = p1 - p0;
       // Features go straight into the kernel's memory (or a scratch array for the reference).
-      const rows = sk ? sk.rows(m, d, l, coRange?.s ?? 0) : scratch('pca-features', 'float64', m * d) as Float64Array;
+      const rows: FeatureRows = sk ? sk.rows(m, d, l, coRange?.s ?? 0) : scratch('pca-features', 'float64', m * d) as Float64Array;
       const f = tile.features(p0, p1, rows);
       nonFinite += f.nonFinite;
       zeroPatterns += f.zeroPatterns;
@@ -437,7 +437,7 @@ const api = {
       // The one-pass sketch's co-range rows, by position (so any tiling draws the same).
       const first = row0 * shape.scanX + p0;
       const psi = coRange ? { rows: coRangeRows(first, first + m, coRange.s, coRange.seed), s: coRange.s } : undefined;
-      const b = sk ? sk.run(m, d, z, l, centre, into, psi) : rangeBlock(rows, m, d, z, l, centre, psi);
+      const b = sk ? sk.run(m, d, z, l, centre, into, psi) : rangeBlock(rows as Float64Array, m, d, z, l, centre, psi);
       if (!sk) { into.y.set(b.y); into.w.set(b.w); }
       groupColSum.set(b.colSum, g * d);
       groupSumSq[g] = b.sumSq;

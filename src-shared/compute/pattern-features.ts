@@ -106,7 +106,7 @@ export function planFeatures(req: FeatureRequest, detY: number, detX: number, ba
  * (nPatterns × nFeatures, row-major). Non-finite values are counted and left out (the caller
  * refuses data that has any); a pattern of zero total stays all zero.
  */
-export function patternFeatures(tile: NumericArray, nPatterns: number, p: FeaturePlan, out: Float64Array): { nonFinite: number; zeroPatterns: number } {
+export function patternFeatures(tile: NumericArray, nPatterns: number, p: FeaturePlan, out: FeatureRows): { nonFinite: number; zeroPatterns: number } {
   const nPix = p.detY * p.detX;
   const d = p.nFeatures;
   if (out.length < nPatterns * d) throw new RangeError(`pattern features: output holds ${out.length} values, expected ${nPatterns * d}`);
@@ -122,8 +122,8 @@ export function patternFeatures(tile: NumericArray, nPatterns: number, p: Featur
   const integer = !(tile instanceof Float32Array || tile instanceof Float64Array);
   let nonFinite = 0;
   let zeroPatterns = 0;
+  const row = new Float64Array(d);
   for (let k = 0; k < nPatterns; k++) {
-    const row = out.subarray(k * d, (k + 1) * d);
     dense.fill(0);
     const base = k * nPix;
     for (let y = y0; y <= y1; y++) {
@@ -141,6 +141,7 @@ export function patternFeatures(tile: NumericArray, nPatterns: number, p: Featur
     }
     for (let j = 0; j < d; j++) row[j] = dense[binOf[j]];
     if (finishFeatureRow(row, p)) zeroPatterns++;
+    out.set(row, k * d);
   }
   return { nonFinite, zeroPatterns };
 }
@@ -150,27 +151,28 @@ export function patternFeatures(tile: NumericArray, nPatterns: number, p: Featur
  * file). Returns true when the pattern's features sum to zero (it is left all zero).
  */
 function finishFeatureRow(row: Float64Array, p: FeaturePlan): boolean {
-  return finishFeatures(row, 0, row.length, p);
-}
-
-/** finishFeatureRow on out[off … off + d − 1], with no view made (a view per pattern costs more than its work). */
-function finishFeatures(out: Float64Array, off: number, d: number, p: FeaturePlan): boolean {
-  const end = off + d;
+  const d = row.length;
   let total = 0;
-  for (let j = off; j < end; j++) total += out[j];
+  for (let j = 0; j < d; j++) total += row[j];
   if (total === 0) return true;
-  if (p.normalize) for (let j = off; j < end; j++) out[j] /= total;
+  if (p.normalize) for (let j = 0; j < d; j++) row[j] /= total;
   if (p.scaling === 'sqrt') {
-    for (let j = off; j < end; j++) out[j] = out[j] > 0 ? Math.sqrt(out[j]) : 0;
+    for (let j = 0; j < d; j++) row[j] = row[j] > 0 ? Math.sqrt(row[j]) : 0;
   } else if (p.scaling === 'poisson') {
     const g = total / d;
-    if (!(g > 0)) { out.fill(0, off, end); return false; }
+    if (!(g > 0)) { row.fill(0); return false; }
     const s = 1 / Math.sqrt(g);
     const h = p.columnScale!;
-    for (let j = 0; j < d; j++) out[off + j] *= s * h[j];
+    for (let j = 0; j < d; j++) row[j] *= s * h[j];
   }
   return false;
 }
+
+/**
+ * Rows of feature vectors: float64 for the plain reference, float32 for the products' kernel
+ * (sketch-wasm.ts). Each vector is made in float64 and rounded once as it is stored.
+ */
+export type FeatureRows = Float64Array | Float32Array;
 
 /**
  * Whether `featuresFromBins` can take this plan's features from detector-bin sums of the whole
@@ -185,7 +187,7 @@ export function binsAlignWithCrop(p: FeaturePlan): boolean {
  * The same features as patternFeatures, from per-pattern sums of bin × bin detector pixels
  * (nPatterns × pY × pX, the whole detector binned from pixel (0, 0), as exact sums).
  */
-export function featuresFromBins(bins: ArrayLike<number>, nPatterns: number, pY: number, pX: number, p: FeaturePlan, out: Float64Array): { zeroPatterns: number } {
+export function featuresFromBins(bins: ArrayLike<number>, nPatterns: number, pY: number, pX: number, p: FeaturePlan, out: FeatureRows): { zeroPatterns: number } {
   if (!binsAlignWithCrop(p)) throw new Error('featuresFromBins: the crop does not start on the bin grid');
   const d = p.nFeatures;
   const by0 = p.crop.y0 / p.bin, bx0 = p.crop.x0 / p.bin;
@@ -198,12 +200,13 @@ export function featuresFromBins(bins: ArrayLike<number>, nPatterns: number, pY:
   let contiguous = true;
   for (let j = 0; j < d && contiguous; j++) contiguous = src[j] === src[0] + j;
   let zeroPatterns = 0;
+  const row = new Float64Array(d);
   for (let k = 0; k < nPatterns; k++) {
-    const off = k * d;
     const base = k * pY * pX;
-    if (contiguous && ArrayBuffer.isView(bins)) out.set((bins as Float32Array).subarray(base + src[0], base + src[0] + d), off);
-    else for (let j = 0; j < d; j++) out[off + j] = bins[base + src[j]];
-    if (finishFeatures(out, off, d, p)) zeroPatterns++;
+    if (contiguous && ArrayBuffer.isView(bins)) row.set((bins as Float32Array).subarray(base + src[0], base + src[0] + d));
+    else for (let j = 0; j < d; j++) row[j] = bins[base + src[j]];
+    if (finishFeatureRow(row, p)) zeroPatterns++;
+    out.set(row, k * d);
   }
   return { zeroPatterns };
 }

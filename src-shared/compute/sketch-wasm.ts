@@ -3,15 +3,15 @@ import { ensureMemoryBytes, PAGE_BYTES, roundUp } from './wasm-memory';
 
 /**
  * The WebAssembly SIMD twin of rangeBlock (randomized-svd.ts), built from wasm-src/sketch.ts:
- * for a block of feature rows C (n × d), Y = C·Z and W = Cᵀ·Y. The rows are written in float64
- * and the column sums and Σ of squares are made in float64; the products run in float32 (see
+ * for a block of feature rows C (n × d), Y = C·Z and W = Cᵀ·Y. The rows are written in float32;
+ * the column sums and Σ of squares are made in float64; the products run in float32 (see
  * wasm-src/sketch.ts) and come back as float64. The caller writes
  * the rows straight into kernel memory (`rows`), then calls `run`. Growing the memory detaches
  * views, so take the view from `rows` before every `run` and do not keep it after.
  */
 export interface SketchKernel {
-  /** A view of n × d float64 values in kernel memory for the block's rows (room for l sketch columns is made too). */
-  rows(n: number, d: number, l: number, s?: number): Float64Array;
+  /** A view of n × d float32 values in kernel memory for the block's rows (room for l sketch columns is made too). */
+  rows(n: number, d: number, l: number, s?: number): Float32Array;
   /**
    * The products for the rows last written; `centre` (d values) is taken out of them first, in
    * place. With `into`, Y and W are written there (n × l and d × l) instead of fresh arrays.
@@ -31,7 +31,7 @@ export function createWasmSketchKernel(wasmModule: WebAssembly.Module): SketchKe
     env: { memory, abort: () => { throw new Error('sketch: WebAssembly kernel aborted'); } },
   });
   const ex = instance.exports as unknown as {
-    centreRows(a: number, n: number, d: number, centre: number, colSum: number, a32: number): number;
+    centreRows(a: number, n: number, d: number, centre: number, colSum: number): number;
     matmul(a: number, m: number, k: number, b: number, l: number, out: number): void;
     matmulTransA(a: number, m: number, k: number, b: number, l: number, out: number): void;
     clusterSumsU16(tile: number, n: number, nPix: number, labels: number, sums: number): void;
@@ -49,15 +49,15 @@ export function createWasmSketchKernel(wasmModule: WebAssembly.Module): SketchKe
     const WL = Math.max(L, S);
     let at = PAGE_BYTES;
     const take = (bytes: number) => { const p = at; at = roundUp(at + bytes, 64); return p; };
-    const a = take(n * d * 8), a32 = take(n * d * 4), z = take(d * L * 4), y = take(n * L * 4), w = take(d * WL * 4), psi = take(n * S * 4);
+    const a = take(n * d * 4), z = take(d * L * 4), y = take(n * L * 4), w = take(d * WL * 4), psi = take(n * S * 4);
     const colSum = take(d * 8), centre = take(d * 8);
-    return { L, S, a, a32, z, y, w, psi, colSum, centre, end: at };
+    return { L, S, a, z, y, w, psi, colSum, centre, end: at };
   };
   return {
     rows(n, d, l, s = 0) {
       const lay = layout(n, d, l, s);
       ensureMemoryBytes(memory, lay.end, 'sketch');
-      return new Float64Array(memory.buffer, lay.a, n * d);
+      return new Float32Array(memory.buffer, lay.a, n * d);
     },
     patternsU16(n, nPix, k) {
       const lay = clusterLayout(n, nPix, k);
@@ -85,19 +85,19 @@ export function createWasmSketchKernel(wasmModule: WebAssembly.Module): SketchKe
       else { zp.fill(0); for (let j = 0; j < d; j++) zp.set(z.subarray(j * l, (j + 1) * l), j * L); }
       new Float64Array(buf, lay.colSum, d).fill(0);
       if (centre) new Float64Array(buf, lay.centre, d).set(centre);
-      const sumSq = ex.centreRows(lay.a, n, d, centre ? lay.centre : 0, lay.colSum, lay.a32);
-      ex.matmul(lay.a32, n, d, lay.z, L, lay.y);
+      const sumSq = ex.centreRows(lay.a, n, d, centre ? lay.centre : 0, lay.colSum);
+      ex.matmul(lay.a, n, d, lay.z, L, lay.y);
       let wCols = L, wWant = l;
       if (psi) {
         // Ψᵀ rows padded to S columns.
         const pp = new Float32Array(buf, lay.psi, n * lay.S);
         if (lay.S === psi.s) pp.set(psi.rows.subarray(0, n * psi.s));
         else { pp.fill(0); for (let i = 0; i < n; i++) pp.set(psi.rows.subarray(i * psi.s, (i + 1) * psi.s), i * lay.S); }
-        ex.matmulTransA(lay.a32, n, d, lay.psi, lay.S, lay.w);
+        ex.matmulTransA(lay.a, n, d, lay.psi, lay.S, lay.w);
         wCols = lay.S;
         wWant = psi.s;
       } else {
-        ex.matmulTransA(lay.a32, n, d, lay.y, L, lay.w);
+        ex.matmulTransA(lay.a, n, d, lay.y, L, lay.w);
       }
       const yv = new Float32Array(buf, lay.y, n * L);
       const wv = new Float32Array(buf, lay.w, d * wCols);

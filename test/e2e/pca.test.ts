@@ -30,11 +30,11 @@ describe('PCA through the service', () => {
   it.each(cases)('%s: singular values, components and mean equal NumPy\'s', async (name, features) => {
     const d = await service.open({ path: path.join(fx, 'mix.npy') });
     // A sketch as wide as the data (oversampling capped at min(patterns, features)) spans them all,
-    // so the result is exact up to the products' float32 rounding: this checks the features and
-    // the streaming, not the sketch's accuracy. Rounding the data to float32 (unit roundoff
-    // u = 2⁻²⁴) moves each singular value by at most ‖ΔA‖₂ ≤ u·‖A‖ (Weyl's inequality) and each
-    // component by about that over the gap to its neighbours: 1e-6 of the largest allows for the
-    // sums of the products as well.
+    // so the result is exact up to float32 rounding (of the features and in the products): this
+    // checks the features and the streaming, not the sketch's accuracy. Rounding the data to
+    // float32 (unit roundoff u = 2⁻²⁴) moves each singular value by at most ‖ΔA‖₂ ≤ u·‖A‖
+    // (Weyl's inequality) and each component by about that over the gap to its neighbours: 1e-6
+    // of the largest allows for the sums of the products as well.
     const r = await service.pca({ dataset: d.id, components: 3, badPixels: 'none', powerIterations: 3, oversample: 1000, ...features });
     // reference: numpy.linalg.svd of NumPy's centred features (make_pca_fixtures.py)
     const s = load(`${name}.s.npy`);
@@ -49,7 +49,9 @@ describe('PCA through the service', () => {
       expect(Math.abs(dot)).toBeGreaterThan(1 - 1e-6);
     }
     const mean = load(`${name}.mean.npy`);
-    for (let j = 0; j < dim; j++) expect(r.meanPattern[j]).toBeCloseTo(mean[j], 9);
+    // The features are stored in float32 (as in a user's float32 matrix): each non-negative
+    // feature x is off by at most u·x (u = 2⁻²⁴), so their mean by at most u·mean.
+    for (let j = 0; j < dim; j++) expect(Math.abs(r.meanPattern[j] - mean[j])).toBeLessThanOrEqual(2 ** -24 * Math.abs(mean[j]) + 1e-12);
     // the loadings are the centred features' coordinates: Σ over positions of a loading is 0, up
     // to the float32 products. Each loading l_i = C_i·v is off by about √d·u·‖C_i‖₂ (u = 2⁻²⁴), and
     // the orthonormalisations mix the columns' errors, most where singular values lie close, so

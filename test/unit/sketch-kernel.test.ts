@@ -55,7 +55,8 @@ describe.each(builds)('WebAssembly sketch kernel, %s', (_, module) => {
 
   it.each([[37, 53, 13, true, 0], [8, 16, 4, false, 0], [1, 7, 1, true, 0], [130, 300, 30, true, 0], [130, 301, 9, true, 21]] as const)(
     'n %i × d %i, l %i, centred %s, co-range %i: within float32 rounding of rangeBlock', (n, d, l, centred, s) => {
-    const a = gaussianMatrix(n, d, 1).map((v) => v * 10 + 3);
+    // The kernel's rows are float32 (the features are made so): the twin gets the same values.
+    const a = gaussianMatrix(n, d, 1).map((v) => Math.fround(v * 10 + 3));
     const z = gaussianMatrix(d, l, 2);
     const centre = centred ? gaussianMatrix(1, d, 3) : null;
     const psi = s ? { rows: gaussianMatrix(n, s, 4), s } : undefined;

@@ -2,46 +2,51 @@
 // to WebAssembly SIMD. The plain TypeScript twin is rangeBlock in ../randomized-svd.ts, the
 // reference these results are tested against.
 //
-// The feature rows arrive in float64; centreRows takes the centre out, sums the columns and the
-// squares in float64 (exact enough for the total variance), and writes the centred rows once
-// more in float32. The products run on those float32 rows in float32 lanes (four to a vector,
-// twice the float64 rate): each Y entry sums d products, each W entry the block's m rows, and
-// the caller adds the blocks' W in float64. That is the precision a float32 matrix gets in any
-// library's products; the range finder needs far less.
+// The feature rows arrive in float32, as the caller made them (a user's matrix in float32 holds
+// the same values); centreRows sums the columns and the squares in float64 (exact enough for the
+// mean and the total variance) and takes the centre out in place. The products run on those
+// rows in float32 lanes (four to a vector, twice the float64 rate): each Y entry sums d
+// products, each W entry the block's m rows, and the caller adds the blocks' W in float64. That
+// is the precision a float32 matrix gets in any library's products; the range finder needs far
+// less.
 //
 // The JS side (../sketch-wasm.ts) lays out every buffer in the imported memory and passes
 // pointers; nothing here allocates. All matrices are row-major; `l` (the sketch width) is a
 // multiple of 8, padded with zero columns by the caller.
 
 /**
- * Take `centre` (d values, or 0 for none) out of each of the n rows of `a` (n × d float64);
- * write the centred rows to `a32` (n × d float32); add the rows as they were to colSum (d
- * float64 values); return Σ of the squared centred entries (in float64).
+ * For the n rows of `a` (n × d float32), in place: add each row as it is to colSum (d float64
+ * values), take `centre` (d float64 values, or 0 for none) out of it, and write it back in
+ * float32; return Σ of the squared centred entries (in float64, before the rounding to float32).
  */
-export function centreRows(a: usize, n: i32, d: i32, centre: usize, colSum: usize, a32: usize): f64 {
+export function centreRows(a: usize, n: i32, d: i32, centre: usize, colSum: usize): f64 {
   let sumSq: f64 = 0;
   let acc = f64x2.splat(0);
   for (let i = 0; i < n; i++) {
-    const row = a + <usize>i * <usize>d * 8;
-    const row32 = a32 + <usize>i * <usize>d * 4;
+    const row = a + <usize>i * <usize>d * 4;
     let j = 0;
     for (; j + 4 <= d; j += 4) {
       const off = <usize>j * 8;
-      const v0 = v128.load(row + off), v1 = v128.load(row + off, 16);
+      const v = v128.load(row + <usize>j * 4);
+      const v0 = f64x2.promote_low_f32x4(v), v1 = f64x2.promote_low_f32x4(v128.shuffle<f32>(v, v, 2, 3, 2, 3));
       v128.store(colSum + off, f64x2.add(v128.load(colSum + off), v0));
       v128.store(colSum + off, f64x2.add(v128.load(colSum + off, 16), v1), 16);
-      const c0 = centre != 0 ? f64x2.sub(v0, v128.load(centre + off)) : v0;
-      const c1 = centre != 0 ? f64x2.sub(v1, v128.load(centre + off, 16)) : v1;
-      acc = f64x2.add(acc, f64x2.add(f64x2.mul(c0, c0), f64x2.mul(c1, c1)));
-      const h0 = f32x4.demote_f64x2_zero(c0), h1 = f32x4.demote_f64x2_zero(c1);
-      v128.store(row32 + <usize>j * 4, v128.shuffle<f32>(h0, h1, 0, 1, 4, 5));
+      if (centre != 0) {
+        const c0 = f64x2.sub(v0, v128.load(centre + off));
+        const c1 = f64x2.sub(v1, v128.load(centre + off, 16));
+        acc = f64x2.add(acc, f64x2.add(f64x2.mul(c0, c0), f64x2.mul(c1, c1)));
+        const h0 = f32x4.demote_f64x2_zero(c0), h1 = f32x4.demote_f64x2_zero(c1);
+        v128.store(row + <usize>j * 4, v128.shuffle<f32>(h0, h1, 0, 1, 4, 5));
+      } else {
+        acc = f64x2.add(acc, f64x2.add(f64x2.mul(v0, v0), f64x2.mul(v1, v1)));
+      }
     }
     for (; j < d; j++) {
       const off = <usize>j * 8;
-      const v = load<f64>(row + off);
+      const v = <f64>load<f32>(row + <usize>j * 4);
       store<f64>(colSum + off, load<f64>(colSum + off) + v);
       const c = centre != 0 ? v - load<f64>(centre + off) : v;
-      store<f32>(row32 + <usize>j * 4, <f32>c);
+      store<f32>(row + <usize>j * 4, <f32>c);
       sumSq += c * c;
     }
   }
