@@ -2,7 +2,7 @@ import type { DatasetDescriptor, SourceSpec } from '../../src-shared/model/datas
 import { DTYPE_BYTES } from '../../src-shared/model/dtype';
 import { CancelledError, InputError } from '../../src-shared/model/errors';
 import type { FeaturePlan } from '../../src-shared/compute/pattern-features';
-import { randomizedPca, type PassSums, type PcaOptions, type PcaResult } from '../../src-shared/compute/pca';
+import { meanOfRows, randomizedPca, sampleGrid, type PassSums, type PcaOptions, type PcaResult } from '../../src-shared/compute/pca';
 import { planFit } from '../../src-shared/compute/reference-fit';
 import { kmeans } from '../../src-shared/compute/kmeans';
 import { patternFeatures } from '../../src-shared/compute/pattern-features';
@@ -77,8 +77,11 @@ export function startPca(pool: WorkerPool, spec: SourceSpec, plan: FeaturePlan, 
     const binsRatio = 4 / (DTYPE_BYTES[d.dtype] * plan.bin * plan.bin);
     const viaBins = kernel === 'wasm' && DTYPE_BYTES[d.dtype] <= 2 && !d.dtype.startsWith('float');
     const extraCopies = viaBins ? 0.5 + 2 * binsRatio : 0;
-    const perWorkerGroup = groupRows * scanX * (dim * 4 + l * 8) + dim * l * 8 * 2;
     const sketchCols = options.onePass ? Math.min(2 * l + 1, n) : l;
+    // In the kernel: the rows, Y (L columns) and the one-pass Ψ (S), float32, sketch widths padded
+    // to 8; Z and W (D × L, D × max(L, S)); Ψ's rows as made in float64 beside it.
+    const L8 = Math.ceil(l / 8) * 8, S8 = options.onePass ? Math.ceil(sketchCols / 8) * 8 : 0;
+    const perWorkerGroup = groupRows * scanX * (dim * 4 + L8 * 4 + S8 * 4 + (options.onePass ? sketchCols * 8 : 0)) + dim * (L8 + Math.max(L8, S8)) * 4;
     // Slots of partial W (D × sketch columns each) for every worker's tile in flight and one more
     // tile's waiting to be added in scan order; a lane waits for a free slot rather than fail.
     const slotBytes = dim * sketchCols * 8;
@@ -155,7 +158,15 @@ export function startPca(pool: WorkerPool, spec: SourceSpec, plan: FeaturePlan, 
       }
       return { y, w, colSum, sumSq };
     };
-    const pca = await randomizedPca(pass, n, dim, options);
+    // A provisional centre for the first pass, from a sample of patterns (see PcaOptions).
+    let provisionalCentre: Float64Array | null = null;
+    if (options.centre !== false) {
+      const rows = sampleGrid(scanY, scanX);
+      const patterns = await Promise.all(rows.map((i) => pool.run((w) => w.readPattern(spec, Math.floor(i / scanX), i % scanX))));
+      provisionalCentre = meanOfRows(rows.map((_, s) => s), dim, (s, out) => { patternFeatures(patterns[s], 1, plan, out); });
+    }
+    if (job.cancelled) return;
+    const pca = await randomizedPca(pass, n, dim, { ...options, provisionalCentre });
     if (job.cancelled) return;
     if (!(pca.totalVariance > 0) || pca.k === 0) {
       throw new InputError(`${d.path}: every pattern has the same features (no variance), so there are no components; expected patterns that differ`, 'bad-input');
@@ -278,7 +289,9 @@ export async function previewPca(cube: PreviewCube, plan: FeaturePlan, options: 
     first = false;
     return { y, w, colSum, sumSq };
   };
-  return { pca: await randomizedPca(pass, n, dim, options), zeroPatterns };
+  const provisionalCentre = options.centre === false ? null
+    : meanOfRows(sampleGrid(cube.qY, cube.qX), dim, (i, out) => { patternFeatures(data.subarray(i * binsPerRow, (i + 1) * binsPerRow), 1, plan, out); });
+  return { pca: await randomizedPca(pass, n, dim, { ...options, provisionalCentre }), zeroPatterns };
 }
 
 export interface StreamedKmeansResult {

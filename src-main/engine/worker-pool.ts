@@ -4,6 +4,7 @@ import * as Comlink from 'comlink';
 import nodeEndpoint from 'comlink/dist/esm/node-adapter.mjs';
 import type { TileWorkerApi } from '../workers/tile-worker';
 import { distFile } from './paths';
+import { enableRelaxedSimd } from '../workers/wasm-loader';
 
 export type TileWorker = Comlink.Remote<TileWorkerApi>;
 
@@ -52,6 +53,8 @@ export class WorkerPool {
     this.size = size;
     this.workerFile = options.workerFile ?? distFile('tile-worker.mjs');
     this.memoryPerWorkerBytes = options.memoryPerWorkerBytes;
+    // Before any worker starts: V8 flags are process-wide (see enableRelaxedSimd).
+    enableRelaxedSimd();
     for (let i = 0; i < this.size; i++) this.slots.push(this.spawn(i, 0));
   }
 

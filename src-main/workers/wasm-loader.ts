@@ -1,6 +1,7 @@
 import fs from 'node:fs';
 import path from 'node:path';
 import v8 from 'node:v8';
+import { isMainThread } from 'node:worker_threads';
 import { fileURLToPath } from 'node:url';
 
 const compiled = new Map<string, WebAssembly.Module>();
@@ -26,10 +27,22 @@ export function loadWasmModule(name: string): WebAssembly.Module {
 let relaxedFlagTried = false;
 
 /**
- * The relaxed-SIMD build of NAME (dist/wasm/NAME-relaxed.wasm: fused multiply-add) where this
- * runtime compiles it, else the plain build. Node 20's V8 has relaxed SIMD behind a flag, which is
- * set here (process-wide, once) when the build does not validate without it; later runtimes
- * have it on. SCANFOLD_WASM_RELAXED=off keeps the plain build.
+ * Relaxed SIMD (fused multiply-add) for the NAME-relaxed.wasm builds: on in Node 22 and later and
+ * in Electron; Node 20's V8 has it behind a flag, which this sets, once and only on the main
+ * thread (V8 flags are process-wide): call it before starting workers, which then compile the
+ * relaxed builds as well. Does nothing where they already compile or were turned off.
+ */
+export function enableRelaxedSimd(): void {
+  if (relaxedFlagTried || !isMainThread || process.env.SCANFOLD_WASM_RELAXED === 'off') return;
+  relaxedFlagTried = true;
+  const file = path.join(projectRoot(), 'dist', 'wasm', 'sketch-relaxed.wasm');
+  if (!fs.existsSync(file) || WebAssembly.validate(fs.readFileSync(file))) return;
+  v8.setFlagsFromString('--experimental-wasm-relaxed-simd');
+}
+
+/**
+ * The relaxed-SIMD build of NAME (dist/wasm/NAME-relaxed.wasm) where this runtime compiles it
+ * (see enableRelaxedSimd), else the plain build. SCANFOLD_WASM_RELAXED=off keeps the plain build.
  */
 export function loadFastestWasmModule(name: string): WebAssembly.Module {
   const key = `${name}-relaxed`;
@@ -37,11 +50,8 @@ export function loadFastestWasmModule(name: string): WebAssembly.Module {
   if (cached) return cached;
   const file = path.join(projectRoot(), 'dist', 'wasm', `${key}.wasm`);
   if (process.env.SCANFOLD_WASM_RELAXED === 'off' || !fs.existsSync(file)) return loadWasmModule(name);
+  enableRelaxedSimd();
   const bytes = fs.readFileSync(file);
-  if (!WebAssembly.validate(bytes) && !relaxedFlagTried) {
-    relaxedFlagTried = true;
-    v8.setFlagsFromString('--experimental-wasm-relaxed-simd');
-  }
   if (!WebAssembly.validate(bytes)) return loadWasmModule(name);
   const module = new WebAssembly.Module(bytes);
   compiled.set(key, module);

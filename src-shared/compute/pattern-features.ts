@@ -203,7 +203,7 @@ export function featuresFromBins(bins: ArrayLike<number>, nPatterns: number, pY:
   const row = new Float64Array(d);
   for (let k = 0; k < nPatterns; k++) {
     const base = k * pY * pX;
-    if (contiguous && ArrayBuffer.isView(bins)) row.set((bins as Float32Array).subarray(base + src[0], base + src[0] + d));
+    if (contiguous && ArrayBuffer.isView(bins) && !(bins instanceof DataView)) row.set((bins as Float32Array).subarray(base + src[0], base + src[0] + d));
     else for (let j = 0; j < d; j++) row[j] = bins[base + src[j]];
     if (finishFeatureRow(row, p)) zeroPatterns++;
     out.set(row, k * d);

@@ -23,6 +23,13 @@ export interface PcaOptions {
   onePass?: boolean;
   /** false: the SVD of the data as they are, the mean left in (default true: mean-centred). */
   centre?: boolean;
+  /**
+   * A centre known before the first pass (e.g. the mean of a sample of rows), taken out of the
+   * rows during it, so that its products (float32 in the WebAssembly kernel) work on rows near
+   * the mean rather than on rows the mean dominates; the exact mean, known only after that pass,
+   * then corrects the provisional one (see randomizedPca). Ignored when not centring.
+   */
+  provisionalCentre?: Float64Array | null;
 }
 
 /** The whole-data sums of one pass: Y stacked over all rows (N × l), W summed (D × l). */
@@ -56,16 +63,20 @@ export async function randomizedPca(pass: PcaPass, n: number, d: number, o: PcaO
   const l = Math.min(k + o.oversample, n, d);
   const centred = o.centre !== false;
   let z = gaussianMatrix(d, l, o.seed);
-  let r = await pass(z, null);
+  const provisional = provisionalCentreOf(o, d);
+  let r = await pass(z, provisional);
   const mean = r.colSum.map((s) => s / n);
   let meanSq = 0;
   if (centred) {
-    // Take the mean out of the uncentred pass: C·Ω = A·Ω − 1·(μᵀΩ), CᵀC·Ω = AᵀA·Ω − N·μ·(μᵀΩ).
+    // The first pass took out the provisional centre μ̂ (or none: μ̂ = 0), B = A − 1·μ̂ᵀ; with
+    // δ = μ − μ̂ the centred matrix is C = B − 1·δᵀ, and since Bᵀ·1 = N·δ:
+    // C·Ω = B·Ω − 1·(δᵀΩ), CᵀC·Ω = BᵀB·Ω − N·δ·(δᵀΩ), Σ‖C_i‖² = Σ‖B_i‖² − N·‖δ‖².
+    const delta = provisional ? mean.map((m, j) => m - provisional[j]) : mean;
     const muZ = new Float64Array(l);
-    for (let j = 0; j < d; j++) for (let c = 0; c < l; c++) muZ[c] += mean[j] * z[j * l + c];
+    for (let j = 0; j < d; j++) for (let c = 0; c < l; c++) muZ[c] += delta[j] * z[j * l + c];
     for (let i = 0; i < n; i++) for (let c = 0; c < l; c++) r.y[i * l + c] -= muZ[c];
-    for (let j = 0; j < d; j++) for (let c = 0; c < l; c++) r.w[j * l + c] -= n * mean[j] * muZ[c];
-    for (let j = 0; j < d; j++) meanSq += mean[j] * mean[j];
+    for (let j = 0; j < d; j++) for (let c = 0; c < l; c++) r.w[j * l + c] -= n * delta[j] * muZ[c];
+    for (let j = 0; j < d; j++) meanSq += delta[j] * delta[j];
   }
   // Uncentred, the "total variance" is the total sum of squares the components share.
   let totalVariance = r.sumSq - n * meanSq;
@@ -104,12 +115,15 @@ async function onePassPca(pass: PcaPass, n: number, d: number, o: PcaOptions): P
   const l = Math.min(k + o.oversample, n, d);
   const s = Math.min(2 * l + 1, n);
   const z = gaussianMatrix(d, l, o.seed);
-  const r = await pass(z, null, { s, seed: o.seed });
+  const provisional = provisionalCentreOf(o, d);
+  const r = await pass(z, provisional, { s, seed: o.seed });
   const mean = r.colSum.map((v) => v / n);
   const centred = o.centre !== false;
+  // As in randomizedPca: the pass took out μ̂; δ = μ − μ̂ is what is left to take out.
+  const delta = centred && provisional ? mean.map((m, j) => m - provisional[j]) : mean;
   const muZ = new Float64Array(l);
   if (centred) {
-    for (let j = 0; j < d; j++) for (let c = 0; c < l; c++) muZ[c] += mean[j] * z[j * l + c];
+    for (let j = 0; j < d; j++) for (let c = 0; c < l; c++) muZ[c] += delta[j] * z[j * l + c];
     for (let i = 0; i < n; i++) for (let c = 0; c < l; c++) r.y[i * l + c] -= muZ[c];
   }
   const { q, rank } = orthonormalize(r.y, n, l);
@@ -131,7 +145,7 @@ async function onePassPca(pass: PcaPass, n: number, d: number, o: PcaOptions): P
   }
   // Centred co-range sketch, transposed: Wc (d × s) = W − μ·(Ψ·1)ᵀ.
   const wc = r.w;
-  if (centred) for (let j = 0; j < d; j++) for (let a = 0; a < s; a++) wc[j * s + a] -= mean[j] * psiSum[a];
+  if (centred) for (let j = 0; j < d; j++) for (let a = 0; a < s; a++) wc[j * s + a] -= delta[j] * psiSum[a];
   // X = (Ψ·Q)⁺·Wcᵀ: with Ψ·Q·T = Qψ orthonormal, X = T·Qψᵀ·Wcᵀ; we need Xᵀ = Wc·Qψ·Tᵀ (d × l).
   const { q: qpsi, t } = orthonormalize(psiQ, s, l);
   const wq = new Float64Array(d * l);
@@ -140,9 +154,39 @@ async function onePassPca(pass: PcaPass, n: number, d: number, o: PcaOptions): P
   for (let j = 0; j < d; j++) for (let c = 0; c < l; c++) { let acc = 0; for (let e = 0; e < l; e++) acc += wq[j * l + e] * t[c * l + e]; xt[j * l + c] = acc; }
   const svd = await svdOfProjection(q, xt, n, d, l, k, rank);
   let meanSq = 0;
-  if (centred) for (let j = 0; j < d; j++) meanSq += mean[j] * mean[j];
+  if (centred) for (let j = 0; j < d; j++) meanSq += delta[j] * delta[j];
   const totalVariance = r.sumSq - n * meanSq;
   return pcaFromSvd(svd, n, d, mean, totalVariance, { sketch: l, passes: 1, totalVarianceFrom: 'the uncentred sums of the only pass' });
+}
+
+/** The provisional centre of the first pass: only when centring, checked for its length. */
+function provisionalCentreOf(o: PcaOptions, d: number): Float64Array | null {
+  if (o.centre === false || !o.provisionalCentre) return null;
+  if (o.provisionalCentre.length !== d) throw new RangeError(`PCA: the provisional centre holds ${o.provisionalCentre.length} values, expected ${d}`);
+  return o.provisionalCentre;
+}
+
+/**
+ * Positions on a grid of at most side × side over a scanY × scanX scan (row-major indices): where
+ * to sample rows for a provisional centre, spread over both scan directions.
+ */
+export function sampleGrid(scanY: number, scanX: number, side = 8): number[] {
+  const sy = Math.min(side, scanY), sx = Math.min(side, scanX);
+  const out: number[] = [];
+  for (let i = 0; i < sy; i++) for (let j = 0; j < sx; j++) out.push(Math.floor(((i + 0.5) * scanY) / sy) * scanX + Math.floor(((j + 0.5) * scanX) / sx));
+  return out;
+}
+
+/** The mean of the feature vectors of `rows` (`features(i, out)` writes row i's): a provisional centre. */
+export function meanOfRows(rows: number[], d: number, features: (i: number, out: Float64Array) => void): Float64Array {
+  const mean = new Float64Array(d);
+  const row = new Float64Array(d);
+  for (const i of rows) {
+    features(i, row);
+    for (let j = 0; j < d; j++) mean[j] += row[j];
+  }
+  for (let j = 0; j < d; j++) mean[j] /= Math.max(1, rows.length);
+  return mean;
 }
 
 /** The pass over rows held in memory (n × d, row-major), in blocks of `blockRows`: the preview cube, tests. */

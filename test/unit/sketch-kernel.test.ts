@@ -46,14 +46,16 @@ function expectWithin(got: Float64Array, want: Float64Array, bound: Float64Array
   expect(worst).toBeLessThanOrEqual(1);
 }
 
-describe.each(builds)('WebAssembly sketch kernel, %s', (_, module) => {
-  it('the engine loads the relaxed build: the runtime compiles it (on Node 20 once the loader set the flag)', () => {
-    expect(WebAssembly.validate(wasmFile('sketch-relaxed'))).toBe(true);
-    // The loader falls back to the plain build's module (cached by loadWasmModule) only where the relaxed one does not compile.
-    expect(fastest).not.toBe(loadWasmModule('sketch'));
-  });
+it('the engine loads the relaxed build: the runtime compiles it (on Node 20 once the loader set the flag)', () => {
+  expect(WebAssembly.validate(wasmFile('sketch-relaxed'))).toBe(true);
+  // The loader falls back to the plain build's module (cached by loadWasmModule) only where the relaxed one does not compile.
+  expect(fastest).not.toBe(loadWasmModule('sketch'));
+});
 
-  it.each([[37, 53, 13, true, 0], [8, 16, 4, false, 0], [1, 7, 1, true, 0], [130, 300, 30, true, 0], [130, 301, 9, true, 21]] as const)(
+describe.each(builds)('WebAssembly sketch kernel, %s', (_, module) => {
+  // Sizes that reach every tail: rows n % 4 = 1, 2, 3; columns d % 4 = 1, 2, 3; widths padded to 8.
+  it.each([[37, 53, 13, true, 0], [8, 16, 4, false, 0], [1, 7, 1, true, 0], [130, 300, 30, true, 0], [130, 301, 9, true, 21],
+    [7, 10, 1, false, 0], [11, 6, 17, true, 13], [6, 3, 8, true, 0]] as const)(
     'n %i × d %i, l %i, centred %s, co-range %i: within float32 rounding of rangeBlock', (n, d, l, centred, s) => {
     // The kernel's rows are float32 (the features are made so): the twin gets the same values.
     const a = gaussianMatrix(n, d, 1).map((v) => Math.fround(v * 10 + 3));
