@@ -64,9 +64,9 @@ export async function runPcaBenchmark(opts: { h5: string; shape: number[]; worke
 }
 
 /**
- * The products of a pass, Y = C·Z and W = Cᵀ·Y, on a matrix of `workers` × 16 blocks of 1024 rows
+ * The products of a pass, Y = C·Z and W = Cᵀ·Y, on a matrix of `workers` × 64 blocks of 256 rows
  * × 4096 features against a sketch of 32 columns: ours on that many workers at once (each block
- * in the kernel's memory, as in a pass), NumPy/OpenBLAS on the whole matrix with as many threads.
+ * in the kernel's memory, as the engine's groups of one scan row on the 2 GiB sample), NumPy/OpenBLAS on the whole matrix with as many threads.
  * Our products are float32 (sketch.ts), as are those of the user's script (it reads the data as
  * float32, and scikit-learn keeps that type), so float32 NumPy is the like-with-like figure; its
  * float64 is shown beside. Three rounds, alternated; the ratio is taken within each round.
@@ -74,7 +74,7 @@ export async function runPcaBenchmark(opts: { h5: string; shape: number[]; worke
 export async function productsBenchmark(workers: number): Promise<void> {
   const npEnv = { ...process.env };
   delete npEnv.OPENBLAS_CORETYPE; delete npEnv.OPENBLAS_L2_SIZE;
-  const block = 1024, d = 4096, l = 32, blocks = 16;
+  const block = 256, d = 4096, l = 32, blocks = 64;
   const rows = workers * blocks * block;
   const flops = 4 * rows * d * l;
   const pool = await Promise.all(Array.from({ length: workers }, (_, i) => new Promise<Worker>((resolve, reject) => {
@@ -101,9 +101,9 @@ print(${flops} / sorted(t)[1] / 1e9)`], { encoding: 'utf8', env: { ...npEnv, OPE
     for (const w of pool) await w.terminate();
   }
   const med = (xs: number[]) => [...xs].sort((x, y) => x - y)[1];
-  const range = (xs: number[]) => `${Math.min(...xs).toFixed(1)}–${Math.max(...xs).toFixed(1)}`;
+  const range = (xs: number[], digits = 1) => `${Math.min(...xs).toFixed(digits)}–${Math.max(...xs).toFixed(digits)}`;
   console.log(`\nproducts of a pass (${rows}×${d} · ${d}×${l} and back, ${workers} workers against ${workers} OpenBLAS threads, 3 alternated rounds), GFLOP/s:`);
   console.log(`WebAssembly (float32 products) ${range(rounds.map((x) => x.ours))}; NumPy/OpenBLAS float32 ${range(rounds.map((x) => x.f32))}, float64 ${range(rounds.map((x) => x.f64))}`);
-  console.log(`ratio to float32 NumPy (like with like) ${range(rounds.map((x) => x.ours / x.f32))}×, median ${med(rounds.map((x) => x.ours / x.f32)).toFixed(2)}×; ` +
-    `to float64 NumPy ${range(rounds.map((x) => x.ours / x.f64))}×, median ${med(rounds.map((x) => x.ours / x.f64)).toFixed(2)}×`);
+  console.log(`ratio to float32 NumPy (like with like) ${range(rounds.map((x) => x.ours / x.f32), 2)}×, median ${med(rounds.map((x) => x.ours / x.f32)).toFixed(2)}×; ` +
+    `to float64 NumPy ${range(rounds.map((x) => x.ours / x.f64), 2)}×, median ${med(rounds.map((x) => x.ours / x.f64)).toFixed(2)}×`);
 }
