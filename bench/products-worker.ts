@@ -1,7 +1,7 @@
 // One worker of the products benchmark (pca.bench.ts): it holds one block of feature rows in the
-// sketch kernel's memory and, on each 'go', runs the products of a pass (Y = C·Z, W = Cᵀ·Y, with
-// the float32 copy they work on) over `blocks` blocks, as a pass's worker does, and answers with
-// the milliseconds it took.
+// sketch kernel's memory (float32, as the engine makes them) and, on each 'go', runs the
+// products of a pass (Y = C·Z, W = Cᵀ·Y) over `blocks` blocks, as a pass's worker does, and
+// answers with the milliseconds it took.
 import { parentPort, workerData } from 'node:worker_threads';
 import { loadFastestWasmModule } from '../src-main/workers/wasm-loader';
 import { gaussianMatrix } from '../src-shared/compute/randomized-svd';
