@@ -39,7 +39,8 @@ export interface DefaultImage {
 
 /** The cache keeps at most this much; the least recently used entries go first. */
 export const CACHE_LIMIT_BYTES = 256 * 2 ** 20;
-const FORMAT = 'scanfold-first-pass-3';
+// 4: the mean pattern of float data with NaN/Inf divides by each pixel's finite values.
+const FORMAT = 'scanfold-first-pass-4';
 
 /** Where entries live: SCANFOLD_CACHE_DIR ('off' disables), else the user's cache folder. */
 export function defaultCacheDir(): string | null {

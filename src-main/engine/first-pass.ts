@@ -95,6 +95,8 @@ export function startFirstPass(pool: WorkerPool, spec: SourceSpec, limits: Engin
     geometry: FirstPassGeometry;
     sum: Float64Array;
     max: Float64Array;
+    /** Per pixel, how many patterns gave no finite value (null while every one did). */
+    lacking: Float64Array | null;
     shared: FirstPassShared;
     preview: Float32Array;
     total: Float64Array;
@@ -121,6 +123,7 @@ export function startFirstPass(pool: WorkerPool, spec: SourceSpec, limits: Engin
         geometry: { scanX, detY, detX, detBin: plan.detBin, scanBin: plan.scanBin },
         sum: new Float64Array(pixels),
         max: new Float64Array(pixels).fill(-Infinity),
+        lacking: null,
         shared,
         preview: imager ? imager.cube() : new Float32Array(shared.preview),
         total: new Float64Array(shared.total),
@@ -135,6 +138,10 @@ export function startFirstPass(pool: WorkerPool, spec: SourceSpec, limits: Engin
     compute: (w, tile, d, plan, s) => w.firstPassTile(d.spec, tile.row0, tile.nRows, s.geometry, { kernel, maxTileBytes: plan.tileBytes }, s.shared, com),
     merge: (r, tile, s) => {
       foldSumMax(s.sum, s.max, r.sum, r.max);
+      if (r.nonFinitePerPixel) {
+        const lacking = (s.lacking ??= new Float64Array(s.sum.length));
+        for (let i = 0; i < lacking.length; i++) lacking[i] += r.nonFinitePerPixel[i];
+      }
       if (s.com && r.com) {
         const at = tile.row0 * s.geometry.scanX;
         s.com.total.set(r.com.total, at);
@@ -153,10 +160,19 @@ export function startFirstPass(pool: WorkerPool, spec: SourceSpec, limits: Engin
       const n = d.shape.scanY * d.shape.scanX;
       const pv = plan.preview;
       return {
-        descriptor: d, meanPattern: s.sum.map((v) => v / n), maxPattern: s.max, totalIntensity: s.total,
+        descriptor: d, meanPattern: meanOfFinite(s.sum, n, s.lacking), maxPattern: s.max, totalIntensity: s.total,
         preview: { data: s.preview, qY: pv.qY, qX: pv.qX, pY: pv.pY, pX: pv.pX, detBin: plan.detBin, scanBin: plan.scanBin, imager: s.imager },
         plan, com: s.com, seconds, ...totals,
       };
     },
   });
+}
+
+/**
+ * Each pixel's mean over the patterns that gave it a finite value (`lacking`: how many did not,
+ * or null when all did); 0 for a pixel that never did (its max, −Infinity, tells it apart).
+ */
+function meanOfFinite(sum: Float64Array, n: number, lacking: Float64Array | null): Float64Array {
+  if (!lacking) return sum.map((v) => v / n);
+  return sum.map((v, i) => (n - lacking[i] > 0 ? v / (n - lacking[i]) : 0));
 }

@@ -54,6 +54,8 @@ export interface TileTiming {
 }
 
 export type FirstPassTileReply = Pick<FirstPassTileResult, 'sum' | 'max' | 'nonFinite'> & TileTiming & {
+  /** Only for a tile holding NaN or ±Inf (float data): how many of its values each pixel lacks (detY × detX). */
+  nonFinitePerPixel?: Float64Array;
   /** With a COM plan: the tile's centre-of-mass sums and the watched pixels' values (pattern-major). */
   com?: { total: Float64Array; sumX: Float64Array; sumY: Float64Array; nonFinite: number; watchValues: Float64Array; images: Float64Array | null };
 };
@@ -356,6 +358,18 @@ const api = {
     const out = sharedOutputs(row0, nRows, geometry, shared);
     const r = k.run(dtype, nRows, geometry, out);
     const transfers: ArrayBuffer[] = [r.sum.buffer as ArrayBuffer, r.max.buffer as ArrayBuffer];
+    // A rare case (float data with NaN or ±Inf): which pixels lacked values, so the mean pattern
+    // divides each pixel's sum by its own count of finite values.
+    let nonFinitePerPixel: Float64Array | undefined;
+    if (r.nonFinite > 0) {
+      const data = copy ?? k.tileBuffer(dtype, n);
+      nonFinitePerPixel = new Float64Array(nPix);
+      for (let p = 0; p < nPatterns; p++) {
+        const base = p * nPix;
+        for (let i = 0; i < nPix; i++) if (!Number.isFinite(data[base + i] as number)) nonFinitePerPixel[i]++;
+      }
+      transfers.push(nonFinitePerPixel.buffer as ArrayBuffer);
+    }
     let comReply: FirstPassTileReply['com'];
     if (com && ck) {
       ck.setOptions({ mask: com.mask, threshold: 0 }, geometry.detY, geometry.detX);
@@ -377,7 +391,7 @@ const api = {
     }
     const reply: FirstPassTileReply = {
       sum: r.sum, max: r.max, nonFinite: r.nonFinite, row0, nRows, bytes, readMs, computeMs: performance.now() - t1,
-      ...(comReply ? { com: comReply } : {}),
+      ...(nonFinitePerPixel ? { nonFinitePerPixel } : {}), ...(comReply ? { com: comReply } : {}),
     };
     return Comlink.transfer(reply, transfers);
   },
