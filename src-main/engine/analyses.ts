@@ -8,7 +8,7 @@ import { InputError } from '../../src-shared/model/errors';
 import { planTiles, type EngineLimits, type ReaderFacts, type TilesPlan } from './budget';
 import type { Job } from './job';
 import { streamingJob } from './tile-runner';
-import { foldSumMax } from '../../src-shared/compute/region-pattern';
+import { foldSumMax, meanOfFinite } from '../../src-shared/compute/region-pattern';
 import type { WorkerPool } from './worker-pool';
 import type { ClusterTileReply, ComTileReply, KernelKind, RegionTileReply, VirtualImagesTileReply } from '../workers/tile-worker';
 
@@ -106,7 +106,7 @@ export function startComSums(pool: WorkerPool, spec: SourceSpec, com: ComOptions
 
 /** Mean and max pattern over a real-space region (a boolean mask of the scan's shape). */
 export function startRegionPattern(pool: WorkerPool, spec: SourceSpec, region: Uint8Array, limits: EngineLimits): Job<RegionPatternResult> {
-  type Acc = { sum: Float64Array; max: Float64Array; count: number };
+  type Acc = { sum: Float64Array; max: Float64Array; count: number; lacking: Float64Array | null };
   return streamingJob<RegionPatternResult, TilesPlan, Acc, RegionTileReply>({
     pool, spec, kind: 'region-pattern', label: `mean pattern over a region of ${spec.path}`,
     plan: tilesWith(limits, (d) => 16 * d.shape.detY * d.shape.detX * (limits.workers + 1)),
@@ -122,10 +122,17 @@ export function startRegionPattern(pool: WorkerPool, spec: SourceSpec, region: U
       if (tiles.length === 0) throw new InputError('the region holds no probe position');
       return tiles;
     },
-    begin: (d) => ({ sum: new Float64Array(d.shape.detY * d.shape.detX), max: new Float64Array(d.shape.detY * d.shape.detX).fill(-Infinity), count: 0 }),
+    begin: (d) => ({ sum: new Float64Array(d.shape.detY * d.shape.detX), max: new Float64Array(d.shape.detY * d.shape.detX).fill(-Infinity), count: 0, lacking: null }),
     compute: (w, tile, d) => w.regionPatternTile(d.spec, tile.row0, tile.nRows, region.slice(tile.row0 * d.shape.scanX, (tile.row0 + tile.nRows) * d.shape.scanX)),
-    merge: (r, _tile, a) => { foldSumMax(a.sum, a.max, r.sum, r.max); a.count += r.count; },
-    finish: (a, { descriptor, totals, seconds }) => ({ descriptor, mean: a.sum.map((v) => v / a.count), max: a.max, count: a.count, nonFinite: totals.nonFinite, seconds }),
+    merge: (r, _tile, a) => {
+      foldSumMax(a.sum, a.max, r.sum, r.max);
+      a.count += r.count;
+      if (r.lacking) {
+        const lacking = (a.lacking ??= new Float64Array(a.sum.length));
+        for (let i = 0; i < lacking.length; i++) lacking[i] += r.lacking[i];
+      }
+    },
+    finish: (a, { descriptor, totals, seconds }) => ({ descriptor, mean: meanOfFinite(a.sum, a.count, a.lacking), max: a.max, count: a.count, nonFinite: totals.nonFinite, seconds }),
   });
 }
 

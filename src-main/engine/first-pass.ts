@@ -3,7 +3,7 @@ import type { FirstPassGeometry } from '../../src-shared/compute/first-pass-type
 import { planFirstPass, type EngineLimits, type FirstPassPlan } from './budget';
 import type { Job } from './job';
 import { streamingJob } from './tile-runner';
-import { foldSumMax } from '../../src-shared/compute/region-pattern';
+import { foldSumMax, meanOfFinite } from '../../src-shared/compute/region-pattern';
 import { createWasmPreviewImager, type PreviewImager } from '../../src-shared/compute/preview-image-wasm';
 import { loadWasmModule } from '../workers/wasm-loader';
 import type { WorkerPool } from './worker-pool';
@@ -166,13 +166,4 @@ export function startFirstPass(pool: WorkerPool, spec: SourceSpec, limits: Engin
       };
     },
   });
-}
-
-/**
- * Each pixel's mean over the patterns that gave it a finite value (`lacking`: how many did not,
- * or null when all did); 0 for a pixel that never did (its max, −Infinity, tells it apart).
- */
-function meanOfFinite(sum: Float64Array, n: number, lacking: Float64Array | null): Float64Array {
-  if (!lacking) return sum.map((v) => v / n);
-  return sum.map((v, i) => (n - lacking[i] > 0 ? v / (n - lacking[i]) : 0));
 }

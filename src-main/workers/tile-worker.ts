@@ -109,7 +109,7 @@ export type ClusterTileReply = { sums: Float64Array; counts: Float64Array; nonFi
 
 export type FeatureSumsReply = { sums: Float64Array; counts: Float64Array; nonFinite: number } & TileTiming;
 
-export type RegionTileReply = { sum: Float64Array; max: Float64Array; count: number; nonFinite: number } & TileTiming;
+export type RegionTileReply = { sum: Float64Array; max: Float64Array; count: number; nonFinite: number; /** Per pixel, values left out (with any non-finite). */ lacking?: Float64Array } & TileTiming;
 
 /**
  * Open sources, most recently used last; several datasets can be open at once. Every request
@@ -571,6 +571,7 @@ const api = {
     const rowBuf = allocTyped(dtype, shape.scanX * pixels);
     const sum = new Float64Array(pixels);
     const max = new Float64Array(pixels).fill(-Infinity);
+    const lacking = new Float64Array(pixels);
     let count = 0, nonFinite = 0, readMs = 0, bytes = 0;
     for (let r = 0; r < nRows; r++) {
       const sel = select.subarray(r * shape.scanX, (r + 1) * shape.scanX);
@@ -579,12 +580,12 @@ const api = {
       src.readRows(row0 + r, 1, rowBuf);
       readMs += performance.now() - tr;
       bytes += rowBuf.byteLength;
-      const a = accumulateRegionPatterns(rowBuf, shape.scanX, pixels, sel, sum, max);
+      const a = accumulateRegionPatterns(rowBuf, shape.scanX, pixels, sel, sum, max, lacking);
       count += a.count;
       nonFinite += a.nonFinite;
     }
     const computeMs = performance.now() - t0 - readMs;
-    return Comlink.transfer({ sum, max, count, nonFinite, row0, nRows, bytes, readMs, computeMs }, [sum.buffer, max.buffer]);
+    return Comlink.transfer({ sum, max, count, nonFinite, ...(nonFinite > 0 ? { lacking } : {}), row0, nRows, bytes, readMs, computeMs }, [sum.buffer, max.buffer]);
   },
 
   close(): void {

@@ -3,11 +3,12 @@ import type { NumericArray } from '../model/dtype';
 /**
  * Virtual diffraction over a real-space region: fold the patterns of a tile whose positions
  * are selected into running float64 sum and max patterns. Non-finite values are left out
- * and counted. `select[i]` is 1 when pattern i of the tile is in the region.
+ * and counted, in total and per pixel in `lacking` (so each pixel's mean divides by its own
+ * finite values). `select[i]` is 1 when pattern i of the tile is in the region.
  */
 export function accumulateRegionPatterns(
   tile: NumericArray, nPatterns: number, pixels: number, select: Uint8Array,
-  sum: Float64Array, max: Float64Array,
+  sum: Float64Array, max: Float64Array, lacking?: Float64Array,
 ): { count: number; nonFinite: number } {
   if (tile.length !== nPatterns * pixels) throw new Error(`accumulateRegionPatterns: tile holds ${tile.length} values, expected ${nPatterns} × ${pixels}`);
   if (select.length !== nPatterns) throw new Error(`accumulateRegionPatterns: select has ${select.length} entries, expected ${nPatterns}`);
@@ -21,7 +22,7 @@ export function accumulateRegionPatterns(
     if (float) {
       for (let i = 0; i < pixels; i++) {
         const v = tile[base + i];
-        if (!Number.isFinite(v)) { nonFinite++; continue; }
+        if (!Number.isFinite(v)) { nonFinite++; if (lacking) lacking[i]++; continue; }
         sum[i] += v;
         if (v > max[i]) max[i] = v;
       }
@@ -65,4 +66,10 @@ export function accumulateClusterSums(tile: NumericArray, nPatterns: number, pix
     }
   }
   return { nonFinite };
+}
+
+/** Each pixel's mean over `count` patterns less those it `lacking` a finite value in (0 where none). */
+export function meanOfFinite(sum: Float64Array, count: number, lacking: Float64Array | null): Float64Array {
+  if (!lacking) return sum.map((v) => v / count);
+  return sum.map((v, i) => (count - lacking[i] > 0 ? v / (count - lacking[i]) : 0));
 }

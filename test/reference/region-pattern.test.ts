@@ -28,6 +28,18 @@ for (const name of ['rect', 'mask'] as const) {
   });
 }
 
+it('over float data with NaN and Inf, each pixel\'s mean is over the positions where it is finite', async () => {
+  // b.h5 is 4×5 positions of 9×11 float32 pixels, NaN at (1, 2, 3, 4) and +Inf at (3, 4, 0, 0):
+  // rows 1–3, columns 2–4 hold both.
+  const region = compileRegion({ kind: 'rectangle', x0: 2, y0: 1, x1: 4, y1: 3 }, 4, 5);
+  const r = await engine.regionPattern({ path: path.join(fx, 'b.h5'), datasetPath: '/frames' }, region).result;
+  // reference: NumPy np.nanmean and np.nanmax over the region, ±Inf taken as NaN (make_analysis_fixtures.py)
+  expect(maxRelDiff(r.mean, readNpyF64(path.join(fx, 'region_nan_mean.npy')).data)).toBeLessThan(1e-9);
+  expect(Array.from(r.max)).toEqual(Array.from(readNpyF64(path.join(fx, 'region_nan_max.npy')).data));
+  expect(r.count).toBe(9);
+  expect(r.nonFinite).toBe(2);
+});
+
 it('a region of the wrong size is refused with a message', async () => {
   await expect(engine.regionPattern({ path: path.join(fx, 'a.h5'), datasetPath: '/frames' }, new Uint8Array(5)).result).rejects.toThrow(/6×7/);
 });
