@@ -8,6 +8,7 @@ import path from 'node:path';
 import { spawnSync } from 'node:child_process';
 import { Worker } from 'node:worker_threads';
 import { projectRoot } from '../src-main/engine/paths';
+import { enableRelaxedSimd } from '../src-main/workers/wasm-loader';
 
 const PY = '/usr/bin/python3';
 
@@ -77,6 +78,7 @@ export async function productsBenchmark(workers: number): Promise<void> {
   const block = 256, d = 4096, l = 32, blocks = 64;
   const rows = workers * blocks * block;
   const flops = 4 * rows * d * l;
+  enableRelaxedSimd(); // as the engine's pool does before its workers start (V8 flags are process-wide)
   const pool = await Promise.all(Array.from({ length: workers }, (_, i) => new Promise<Worker>((resolve, reject) => {
     const w = new Worker(path.join(projectRoot(), 'dist/bench/products-worker.mjs'), { workerData: { block, d, l, blocks, seed: 10 + i } });
     w.once('message', () => resolve(w));

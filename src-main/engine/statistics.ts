@@ -87,8 +87,10 @@ export function startPca(pool: WorkerPool, spec: SourceSpec, plan: FeaturePlan, 
     const slotBytes = dim * sketchCols * 8;
     const slotsFor = (groupsPerTile: number) => (limits.workers + 1) * groupsPerTile;
     // On the main thread: Y, and at the end its orthonormal basis, U and the loadings (N × l each);
-    // W, Z (D × sketch columns each), the slots; a few D-vectors; each worker's group.
-    const reservedFor = (groupsPerTile: number) => 4 * n * l * 8 + slotBytes * (3 + slotsFor(groupsPerTile)) + dim * 8 * 4 + limits.workers * perWorkerGroup;
+    // W, Z (D × sketch columns each), the slots; a few D-vectors; each worker's group; the
+    // sampled patterns for the provisional centre (one per worker at a time).
+    const reservedFor = (groupsPerTile: number) => 4 * n * l * 8 + slotBytes * (3 + slotsFor(groupsPerTile)) + dim * 8 * 4 + limits.workers * perWorkerGroup
+      + limits.workers * detY * detX * 8;
     const reader = { rowAlignment, memory: { ...memory, tileCopies: memory.tileCopies + extraCopies } };
     let tp = planTiles(d, reader, limits, reservedFor(1), groupRows);
     // The tiles' height sets how many groups a tile holds: plan again with their slots counted.
@@ -158,12 +160,22 @@ export function startPca(pool: WorkerPool, spec: SourceSpec, plan: FeaturePlan, 
       }
       return { y, w, colSum, sumSq };
     };
-    // A provisional centre for the first pass, from a sample of patterns (see PcaOptions).
+    // A provisional centre for the first pass, from a sample of patterns (see PcaOptions): read
+    // as many at once as there are workers, each made into its features in the sample's order
+    // (the same sum for any number of workers), so only that many patterns are held at a time.
     let provisionalCentre: Float64Array | null = null;
     if (options.centre !== false) {
       const rows = sampleGrid(scanY, scanX);
-      const patterns = await Promise.all(rows.map((i) => pool.run((w) => w.readPattern(spec, Math.floor(i / scanX), i % scanX))));
-      provisionalCentre = meanOfRows(rows.map((_, s) => s), dim, (s, out) => { patternFeatures(patterns[s], 1, plan, out); });
+      const sum = new Float64Array(dim), row = new Float64Array(dim);
+      for (let s0 = 0; s0 < rows.length && !job.cancelled; s0 += pool.size) {
+        const batch = rows.slice(s0, s0 + pool.size);
+        const patterns = await Promise.all(batch.map((i) => pool.run((w) => w.readPattern(d.spec, Math.floor(i / scanX), i % scanX))));
+        for (const p of patterns) {
+          patternFeatures(p, 1, plan, row);
+          for (let j = 0; j < dim; j++) sum[j] += row[j];
+        }
+      }
+      provisionalCentre = sum.map((v) => v / rows.length);
     }
     if (job.cancelled) return;
     const pca = await randomizedPca(pass, n, dim, { ...options, provisionalCentre });

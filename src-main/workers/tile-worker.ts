@@ -358,16 +358,11 @@ const api = {
     const out = sharedOutputs(row0, nRows, geometry, shared);
     const r = k.run(dtype, nRows, geometry, out);
     const transfers: ArrayBuffer[] = [r.sum.buffer as ArrayBuffer, r.max.buffer as ArrayBuffer];
-    // A rare case (float data with NaN or ±Inf): which pixels lacked values, so the mean pattern
-    // divides each pixel's sum by its own count of finite values.
+    // Float data with NaN or ±Inf: which pixels lacked values, so the mean pattern divides each
+    // pixel's sum by its own count of finite values (a SIMD scan of the tile, only where any).
     let nonFinitePerPixel: Float64Array | undefined;
     if (r.nonFinite > 0) {
-      const data = copy ?? k.tileBuffer(dtype, n);
-      nonFinitePerPixel = new Float64Array(nPix);
-      for (let p = 0; p < nPatterns; p++) {
-        const base = p * nPix;
-        for (let i = 0; i < nPix; i++) if (!Number.isFinite(data[base + i] as number)) nonFinitePerPixel[i]++;
-      }
+      nonFinitePerPixel = k.nonFiniteCounts(dtype, nPatterns, nPix);
       transfers.push(nonFinitePerPixel.buffer as ArrayBuffer);
     }
     let comReply: FirstPassTileReply['com'];

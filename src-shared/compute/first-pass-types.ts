@@ -44,6 +44,12 @@ export interface FirstPassKernel {
    * instead of fresh ones: fresh memory costs page faults, which are slow on some machines.
    */
   run(dtype: DType, nRows: number, geometry: FirstPassGeometry, out?: FirstPassOutputs): FirstPassTileResult;
+  /**
+   * For each of nPix pixels, how many of the first nPatterns patterns in the tile buffer hold NaN
+   * or ±Infinity there (all zero for integer data): so a mean can divide by each pixel's own
+   * finite values. Call after `run`, on the same tile.
+   */
+  nonFiniteCounts(dtype: DType, nPatterns: number, nPix: number): Float64Array;
 }
 
 export function previewDims(scanY: number, g: FirstPassGeometry) {

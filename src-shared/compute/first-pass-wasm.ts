@@ -91,6 +91,19 @@ export function createWasmFirstPassKernel(wasmModule: WebAssembly.Module, maxTil
         nonFinite,
       };
     },
+
+    nonFiniteCounts(dtype: DType, nPatterns: number, nPix: number): Float64Array {
+      if (dtype !== 'float32' && dtype !== 'float64') return new Float64Array(nPix);
+      if (tileDType !== dtype) throw new Error(`first pass: tileBuffer('${dtype}', …) must be called before nonFiniteCounts`);
+      if (nPatterns * nPix > tileElements) throw new RangeError(`first pass: nonFiniteCounts needs ${nPatterns * nPix} elements but tileBuffer was asked for ${tileElements}`);
+      // Scratch after the tile, as run's (whose results are copied out by now).
+      const counts = TILE_OFFSET + tileCapacity;
+      ensureBytes(counts + nPix * 4);
+      new Int32Array(memory.buffer, counts, nPix).fill(0);
+      const count = exports[dtype === 'float32' ? 'nonFiniteCountsFloat32' : 'nonFiniteCountsFloat64'] as unknown as (tile: number, nPatterns: number, nPix: number, counts: number) => void;
+      count(TILE_OFFSET, nPatterns, nPix, counts);
+      return Float64Array.from(new Int32Array(memory.buffer, counts, nPix));
+    },
   };
 }
 

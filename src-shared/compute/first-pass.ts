@@ -77,6 +77,17 @@ export function createReferenceKernel(): FirstPassKernel {
       if (needed > length) throw new RangeError(`first pass: run needs ${needed} elements but tileBuffer was asked for ${length}`);
       return placeOutputs(firstPassReference(buffer.subarray(0, needed), nRows, geometry), out);
     },
+    nonFiniteCounts(dtype: DType, nPatterns: number, nPix: number): Float64Array {
+      const counts = new Float64Array(nPix);
+      if (dtype !== 'float32' && dtype !== 'float64') return counts;
+      if (!buffer || bufferDType !== dtype) throw new Error(`first pass: tileBuffer('${dtype}', …) must be called before nonFiniteCounts`);
+      if (nPatterns * nPix > length) throw new RangeError(`first pass: nonFiniteCounts needs ${nPatterns * nPix} elements but tileBuffer was asked for ${length}`);
+      for (let p = 0; p < nPatterns; p++) {
+        const base = p * nPix;
+        for (let i = 0; i < nPix; i++) if (!Number.isFinite(buffer[base + i])) counts[i]++;
+      }
+      return counts;
+    },
   };
 }
 

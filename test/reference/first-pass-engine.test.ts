@@ -26,6 +26,7 @@ const cases: { name: string; label: string; spec: () => SourceSpec; previewBudge
       raw: { shape: { scanY: 5, scanX: 4, detY: 6, detX: 8 }, dtype: 'float64', byteOrder: 'big', offset: 128 },
     }),
   },
+  { name: 'e', label: 'e.npy (float32, a pixel never finite, NaN/Inf)', spec: () => ({ path: path.join(dir, 'e.npy') }) },
 ];
 
 for (const kernel of ['wasm', 'reference'] as const) {
@@ -37,7 +38,7 @@ for (const kernel of ['wasm', 'reference'] as const) {
         try {
           const r = await engine.firstPass(c.spec()).result;
           expect(r.plan.tiles.length).toBeGreaterThan(1);
-          // reference: NumPy a.sum(axis=(0,1)) / (scan_y*scan_x), float64, non-finite left out
+          // reference: NumPy, each pixel's sum over its finite values / their count (0 where none), float64
           expect(maxRelDiff(r.meanPattern, readNpyF64(path.join(dir, `${c.name}.mean.npy`)).data)).toBeLessThan(1e-9);
           // reference: NumPy a.max(axis=(0,1)) — exact
           expect(Array.from(r.maxPattern)).toEqual(Array.from(readNpyF64(path.join(dir, `${c.name}.max.npy`)).data));

@@ -46,6 +46,14 @@ for (let i = 0; i < n; i++) {
 const provisionalCentre = meanOfRows(sampleGrid(scan, scan), d, (i, out) => out.set(a.subarray(i * d, (i + 1) * d)));
 
 describe('PCA on float32 products, the mean dominating', () => {
+  it('uncentred (the SVD of the data as they are), a provisional centre given is not used', async () => {
+    const options = { components: r, oversample: 10, seed: 5, powerIterations: 1, centre: false };
+    const want = await randomizedPca(inMemoryPass(a, n, d), n, d, options);
+    const got = await randomizedPca(inMemoryPass(a, n, d), n, d, { ...options, provisionalCentre });
+    expect(Array.from(got.singularValues)).toEqual(Array.from(want.singularValues));
+    expect(got.totalVariance).toBe(want.totalVariance);
+  });
+
   it.each([
     ['no power iteration', { powerIterations: 0 }],
     ['one pass (Tropp et al. 2017)', { powerIterations: 0, onePass: true }],

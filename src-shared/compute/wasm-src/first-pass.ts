@@ -910,3 +910,47 @@ function writePreviewRow(previewAcc: usize, dest: usize, scanX: i32, scanBin: i3
     b++;
   }
 }
+
+// ---------------------------------------------------------------------------------------------
+// Non-finite values per pixel (float data only), for means over each pixel's finite values.
+
+/**
+ * counts (nPix i32, zeroed by the caller) gain one for every NaN or ±Infinity at their pixel in
+ * the nPatterns patterns of nPix float32 values at `tile`.
+ */
+export function nonFiniteCountsFloat32(tile: usize, nPatterns: i32, nPix: i32, counts: usize): void {
+  const inf = f32x4.splat(Infinity);
+  for (let p = 0; p < nPatterns; p++) {
+    const src = tile + <usize>p * <usize>nPix * 4;
+    let i = 0;
+    for (; i + 4 <= nPix; i += 4) {
+      const o = <usize>i * 4;
+      // |v| < ∞ is false for NaN and ±∞: the lanes that are not finite are all ones (−1), subtracted.
+      const notFinite = v128.not(f32x4.lt(f32x4.abs(v128.load(src + o)), inf));
+      v128.store(counts + o, i32x4.sub(v128.load(counts + o), notFinite));
+    }
+    for (; i < nPix; i++) {
+      const o = <usize>i * 4;
+      if (!(abs<f32>(load<f32>(src + o)) < Infinity)) store<i32>(counts + o, load<i32>(counts + o) + 1);
+    }
+  }
+}
+
+/** The same for float64 values: two compares of two lanes each, narrowed to four i32 lanes. */
+export function nonFiniteCountsFloat64(tile: usize, nPatterns: i32, nPix: i32, counts: usize): void {
+  const inf = f64x2.splat(Infinity);
+  for (let p = 0; p < nPatterns; p++) {
+    const src = tile + <usize>p * <usize>nPix * 8;
+    let i = 0;
+    for (; i + 4 <= nPix; i += 4) {
+      const s = src + <usize>i * 8;
+      const f0 = f64x2.lt(f64x2.abs(v128.load(s)), inf), f1 = f64x2.lt(f64x2.abs(v128.load(s, 16)), inf);
+      const notFinite = v128.not(v128.shuffle<i32>(f0, f1, 0, 2, 4, 6));
+      const o = counts + <usize>i * 4;
+      v128.store(o, i32x4.sub(v128.load(o), notFinite));
+    }
+    for (; i < nPix; i++) {
+      if (!(abs<f64>(load<f64>(src + <usize>i * 8)) < Infinity)) { const o = counts + <usize>i * 4; store<i32>(o, load<i32>(o) + 1); }
+    }
+  }
+}
