@@ -147,22 +147,32 @@ export interface ClusterPatternsResult {
 
 /** The mean pattern of every cluster, full resolution, in one streamed pass (labels: one per scan position). */
 export function startClusterPatterns(pool: WorkerPool, spec: SourceSpec, labels: Int32Array, k: number, limits: EngineLimits, kernel: KernelKind = 'wasm'): Job<ClusterPatternsResult> {
-  type Acc = { sums: Float64Array; counts: Float64Array };
+  type Acc = { sums: Float64Array; counts: Float64Array; lacking: Float64Array | null };
   return streamingJob<ClusterPatternsResult, TilesPlan, Acc, ClusterTileReply>({
     pool, spec, kind: 'cluster-patterns', label: `mean pattern of each cluster of ${spec.path}`,
     plan: tilesWith(limits, (d) => 8 * k * d.shape.detY * d.shape.detX * (limits.workers + 2)),
     check: (d) => {
       if (labels.length !== d.shape.scanY * d.shape.scanX) throw new InputError(`cluster labels: ${labels.length} values, but ${d.path} has ${d.shape.scanY * d.shape.scanX} positions`);
     },
-    begin: (d) => ({ sums: new Float64Array(k * d.shape.detY * d.shape.detX), counts: new Float64Array(k) }),
+    begin: (d) => ({ sums: new Float64Array(k * d.shape.detY * d.shape.detX), counts: new Float64Array(k), lacking: null }),
     compute: (w, tile, d) => w.clusterSumsTile(d.spec, tile.row0, tile.nRows, labels.slice(tile.row0 * d.shape.scanX, (tile.row0 + tile.nRows) * d.shape.scanX), k, kernel),
     merge: (r, _tile, a) => {
       for (let i = 0; i < a.sums.length; i++) a.sums[i] += r.sums[i];
       for (let c = 0; c < k; c++) a.counts[c] += r.counts[c];
+      if (r.lacking) {
+        const lacking = (a.lacking ??= new Float64Array(a.sums.length));
+        for (let i = 0; i < lacking.length; i++) lacking[i] += r.lacking[i];
+      }
     },
     finish: (a, { descriptor, totals, seconds }) => {
       const pixels = descriptor.shape.detY * descriptor.shape.detX;
-      const means = a.sums.map((v, i) => v / a.counts[Math.floor(i / pixels)]);
+      // Each pixel over the cluster's patterns where it is finite (0 where none is; NaN for an empty cluster).
+      const means = a.sums.map((v, i) => {
+        const count = a.counts[Math.floor(i / pixels)];
+        if (count === 0) return Number.NaN;
+        const finite = count - (a.lacking ? a.lacking[i] : 0);
+        return finite > 0 ? v / finite : 0;
+      });
       return { descriptor, means, counts: a.counts, nonFinite: totals.nonFinite, seconds };
     },
   });

@@ -105,7 +105,7 @@ export type PcaTileReply = {
   zeroPatterns: number;
 } & TileTiming;
 
-export type ClusterTileReply = { sums: Float64Array; counts: Float64Array; nonFinite: number } & TileTiming;
+export type ClusterTileReply = { sums: Float64Array; counts: Float64Array; nonFinite: number; /** Per cluster and pixel, values left out (with any non-finite). */ lacking?: Float64Array } & TileTiming;
 
 export type FeatureSumsReply = { sums: Float64Array; counts: Float64Array; nonFinite: number } & TileTiming;
 
@@ -474,14 +474,18 @@ const api = {
     let sums: Float64Array;
     const counts = new Float64Array(k);
     let nonFinite = 0;
+    let lacking: Float64Array | null = null;
     if (sk) {
       sums = sk.clusterSums(n, pixels, labels, k);
       for (let p = 0; p < n; p++) counts[labels[p]]++;
     } else {
       sums = new Float64Array(k * pixels);
-      nonFinite = accumulateClusterSums(raw, n, pixels, labels, k, sums, counts).nonFinite;
+      lacking = new Float64Array(k * pixels);
+      nonFinite = accumulateClusterSums(raw, n, pixels, labels, k, sums, counts, lacking).nonFinite;
     }
-    const reply: ClusterTileReply = { sums, counts, nonFinite, row0, nRows, bytes: n * pixels * DTYPE_BYTES[dtype], readMs, computeMs: performance.now() - t1 };
+    const reply: ClusterTileReply = {
+      sums, counts, nonFinite, ...(nonFinite > 0 && lacking ? { lacking } : {}), row0, nRows, bytes: n * pixels * DTYPE_BYTES[dtype], readMs, computeMs: performance.now() - t1,
+    };
     return Comlink.transfer(reply, [sums.buffer, counts.buffer]);
   },
 

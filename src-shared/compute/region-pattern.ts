@@ -47,10 +47,11 @@ export function foldSumMax(sum: Float64Array, max: Float64Array, partSum: Float6
 
 /**
  * Sums of the patterns of each cluster: sums (k × pixels) and counts (k) gain every pattern of
- * the tile (nPatterns × pixels) under its label (0 … k − 1). Non-finite values are left out and counted.
+ * the tile (nPatterns × pixels) under its label (0 … k − 1). Non-finite values are left out and
+ * counted, in total and per cluster and pixel in `lacking` (k × pixels).
  */
 export function accumulateClusterSums(tile: NumericArray, nPatterns: number, pixels: number, labels: Int32Array, k: number,
-  sums: Float64Array, counts: Float64Array): { nonFinite: number } {
+  sums: Float64Array, counts: Float64Array, lacking?: Float64Array): { nonFinite: number } {
   if (labels.length !== nPatterns) throw new Error(`accumulateClusterSums: ${labels.length} labels, expected ${nPatterns}`);
   const float = tile instanceof Float32Array || tile instanceof Float64Array;
   let nonFinite = 0;
@@ -60,7 +61,7 @@ export function accumulateClusterSums(tile: NumericArray, nPatterns: number, pix
     counts[c]++;
     const base = p * pixels, to = c * pixels;
     if (float) {
-      for (let i = 0; i < pixels; i++) { const v = tile[base + i]; if (v - v !== 0) { nonFinite++; continue; } sums[to + i] += v; }
+      for (let i = 0; i < pixels; i++) { const v = tile[base + i]; if (v - v !== 0) { nonFinite++; if (lacking) lacking[to + i]++; continue; } sums[to + i] += v; }
     } else {
       for (let i = 0; i < pixels; i++) sums[to + i] += tile[base + i];
     }

@@ -40,6 +40,15 @@ it('over float data with NaN and Inf, each pixel\'s mean is over the positions w
   expect(r.nonFinite).toBe(2);
 });
 
+it('over float data with NaN and Inf, each cluster\'s mean pattern is over its positions where each pixel is finite', async () => {
+  const labels = Int32Array.from({ length: 20 }, (_, i) => i % 3);
+  const r = await engine.clusterPatterns({ path: path.join(fx, 'b.h5'), datasetPath: '/frames' }, labels, 3).result;
+  // reference: NumPy np.nanmean of each cluster's patterns, ±Inf taken as NaN (make_analysis_fixtures.py)
+  expect(maxRelDiff(r.means, readNpyF64(path.join(fx, 'cluster_nan_means.npy')).data)).toBeLessThan(1e-9);
+  expect(Array.from(r.counts)).toEqual([7, 7, 6]);
+  expect(r.nonFinite).toBe(2);
+});
+
 it('a region of the wrong size is refused with a message', async () => {
   await expect(engine.regionPattern({ path: path.join(fx, 'a.h5'), datasetPath: '/frames' }, new Uint8Array(5)).result).rejects.toThrow(/6×7/);
 });
