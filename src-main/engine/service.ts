@@ -484,6 +484,7 @@ export class EngineService implements ScanfoldService {
     }
     const sum = new Float64Array(detY * detX);
     const max = new Float64Array(detY * detX).fill(-Infinity);
+    const finite = new Float64Array(detY * detX);
     // Read on every worker at once; for chunked data each read may inflate a chunk.
     const patterns = await Promise.all(positions.map(([y, x]) => this.engine.pool.run((w) => w.readPattern(specOf(r), y, x))));
     for (const p of patterns) {
@@ -491,10 +492,12 @@ export class EngineService implements ScanfoldService {
         const v = p[i];
         if (!Number.isFinite(v)) continue;
         sum[i] += v;
+        finite[i]++;
         if (v > max[i]) max[i] = v;
       }
     }
-    const mean = sum.map((v) => v / positions.length);
+    // Each pixel over the sampled patterns where it is finite, as the first pass's mean.
+    const mean = sum.map((v, i) => (finite[i] > 0 ? v / finite[i] : 0));
     const seen = findBadPixels(mean, max, detY, detX, { patternCount: positions.length });
     const watch = Uint32Array.from(Array.from(seen.mask).flatMap((v, i) => (v ? [i] : [])));
     if (watch.length > COM_MAX_WATCHED || watch.length >= detY * detX) return null;
