@@ -1,7 +1,7 @@
 // The one validator of the service's requests. The CLI's flags, IPC and WebSocket messages and
 // (later) session files all arrive here, so a bad request gets the same message whatever its
 // way in: "<method>: <field>: <what was wrong>; expected <what>".
-import { z } from 'zod';
+import * as z from 'zod';
 import { DTYPES } from '../model/dtype';
 import { InputError } from '../model/errors';
 import type { ServiceMethod } from './service';
