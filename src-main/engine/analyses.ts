@@ -8,7 +8,7 @@ import { InputError } from '../../src-shared/model/errors';
 import { planTiles, type EngineLimits, type ReaderFacts, type TilesPlan } from './budget';
 import type { Job } from './job';
 import { streamingJob } from './tile-runner';
-import { foldSumMax, meanOfFinite } from '../../src-shared/compute/region-pattern';
+import { addLacking, foldSumMax, meanOfFinite } from '../../src-shared/compute/region-pattern';
 import type { WorkerPool } from './worker-pool';
 import type { ClusterTileReply, ComTileReply, KernelKind, RegionTileReply, VirtualImagesTileReply } from '../workers/tile-worker';
 
@@ -127,10 +127,7 @@ export function startRegionPattern(pool: WorkerPool, spec: SourceSpec, region: U
     merge: (r, _tile, a) => {
       foldSumMax(a.sum, a.max, r.sum, r.max);
       a.count += r.count;
-      if (r.lacking) {
-        const lacking = (a.lacking ??= new Float64Array(a.sum.length));
-        for (let i = 0; i < lacking.length; i++) lacking[i] += r.lacking[i];
-      }
+      a.lacking = addLacking(a.lacking, r.lacking);
     },
     finish: (a, { descriptor, totals, seconds }) => ({ descriptor, mean: meanOfFinite(a.sum, a.count, a.lacking), max: a.max, count: a.count, nonFinite: totals.nonFinite, seconds }),
   });
@@ -159,20 +156,16 @@ export function startClusterPatterns(pool: WorkerPool, spec: SourceSpec, labels:
     merge: (r, _tile, a) => {
       for (let i = 0; i < a.sums.length; i++) a.sums[i] += r.sums[i];
       for (let c = 0; c < k; c++) a.counts[c] += r.counts[c];
-      if (r.lacking) {
-        const lacking = (a.lacking ??= new Float64Array(a.sums.length));
-        for (let i = 0; i < lacking.length; i++) lacking[i] += r.lacking[i];
-      }
+      a.lacking = addLacking(a.lacking, r.lacking);
     },
     finish: (a, { descriptor, totals, seconds }) => {
       const pixels = descriptor.shape.detY * descriptor.shape.detX;
-      // Each pixel over the cluster's patterns where it is finite (0 where none is; NaN for an empty cluster).
-      const means = a.sums.map((v, i) => {
-        const count = a.counts[Math.floor(i / pixels)];
-        if (count === 0) return Number.NaN;
-        const finite = count - (a.lacking ? a.lacking[i] : 0);
-        return finite > 0 ? v / finite : 0;
-      });
+      // Each pixel over the cluster's patterns where it is finite; NaN throughout for an empty cluster.
+      const means = new Float64Array(a.sums.length);
+      for (let c = 0; c < k; c++) {
+        const part = (x: Float64Array) => x.subarray(c * pixels, (c + 1) * pixels);
+        means.set(a.counts[c] === 0 ? part(means).fill(Number.NaN) : meanOfFinite(part(a.sums), a.counts[c], a.lacking && part(a.lacking)), c * pixels);
+      }
       return { descriptor, means, counts: a.counts, nonFinite: totals.nonFinite, seconds };
     },
   });

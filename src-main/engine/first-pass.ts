@@ -3,7 +3,7 @@ import type { FirstPassGeometry } from '../../src-shared/compute/first-pass-type
 import { planFirstPass, type EngineLimits, type FirstPassPlan } from './budget';
 import type { Job } from './job';
 import { streamingJob } from './tile-runner';
-import { foldSumMax, meanOfFinite } from '../../src-shared/compute/region-pattern';
+import { addLacking, foldSumMax, meanOfFinite } from '../../src-shared/compute/region-pattern';
 import { createWasmPreviewImager, type PreviewImager } from '../../src-shared/compute/preview-image-wasm';
 import { loadWasmModule } from '../workers/wasm-loader';
 import type { WorkerPool } from './worker-pool';
@@ -138,10 +138,7 @@ export function startFirstPass(pool: WorkerPool, spec: SourceSpec, limits: Engin
     compute: (w, tile, d, plan, s) => w.firstPassTile(d.spec, tile.row0, tile.nRows, s.geometry, { kernel, maxTileBytes: plan.tileBytes }, s.shared, com),
     merge: (r, tile, s) => {
       foldSumMax(s.sum, s.max, r.sum, r.max);
-      if (r.nonFinitePerPixel) {
-        const lacking = (s.lacking ??= new Float64Array(s.sum.length));
-        for (let i = 0; i < lacking.length; i++) lacking[i] += r.nonFinitePerPixel[i];
-      }
+      s.lacking = addLacking(s.lacking, r.nonFinitePerPixel);
       if (s.com && r.com) {
         const at = tile.row0 * s.geometry.scanX;
         s.com.total.set(r.com.total, at);

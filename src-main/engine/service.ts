@@ -13,6 +13,7 @@ import type {
   VirtualImagesRequest, VirtualImagesResult,
 } from '../../src-shared/contract/service';
 import { validateRequest } from '../../src-shared/contract/validate';
+import { accumulateRegionPatterns, meanOfFinite } from '../../src-shared/compute/region-pattern';
 import { compileDetector, describeDetector } from '../../src-shared/compute/detector-masks';
 import { compileRegion, describeRegion } from '../../src-shared/compute/region-masks';
 import { findBadPixels, replaceBadPixels } from '../../src-shared/compute/bad-pixels';
@@ -484,20 +485,13 @@ export class EngineService implements ScanfoldService {
     }
     const sum = new Float64Array(detY * detX);
     const max = new Float64Array(detY * detX).fill(-Infinity);
-    const finite = new Float64Array(detY * detX);
+    const lacking = new Float64Array(detY * detX);
     // Read on every worker at once; for chunked data each read may inflate a chunk.
     const patterns = await Promise.all(positions.map(([y, x]) => this.engine.pool.run((w) => w.readPattern(specOf(r), y, x))));
-    for (const p of patterns) {
-      for (let i = 0; i < p.length; i++) {
-        const v = p[i];
-        if (!Number.isFinite(v)) continue;
-        sum[i] += v;
-        finite[i]++;
-        if (v > max[i]) max[i] = v;
-      }
-    }
+    const one = Uint8Array.of(1);
+    for (const p of patterns) accumulateRegionPatterns(p, 1, detY * detX, one, sum, max, lacking);
     // Each pixel over the sampled patterns where it is finite, as the first pass's mean.
-    const mean = sum.map((v, i) => (finite[i] > 0 ? v / finite[i] : 0));
+    const mean = meanOfFinite(sum, positions.length, lacking);
     const seen = findBadPixels(mean, max, detY, detX, { patternCount: positions.length });
     const watch = Uint32Array.from(Array.from(seen.mask).flatMap((v, i) => (v ? [i] : [])));
     if (watch.length > COM_MAX_WATCHED || watch.length >= detY * detX) return null;

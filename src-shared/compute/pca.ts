@@ -71,7 +71,7 @@ export async function randomizedPca(pass: PcaPass, n: number, d: number, o: PcaO
     // The first pass took out the provisional centre μ̂ (or none: μ̂ = 0), B = A − 1·μ̂ᵀ; with
     // δ = μ − μ̂ the centred matrix is C = B − 1·δᵀ, and since Bᵀ·1 = N·δ:
     // C·Ω = B·Ω − 1·(δᵀΩ), CᵀC·Ω = BᵀB·Ω − N·δ·(δᵀΩ), Σ‖C_i‖² = Σ‖B_i‖² − N·‖δ‖².
-    const delta = provisional ? mean.map((m, j) => m - provisional[j]) : mean;
+    const delta = leftToCentre(mean, provisional);
     const muZ = new Float64Array(l);
     for (let j = 0; j < d; j++) for (let c = 0; c < l; c++) muZ[c] += delta[j] * z[j * l + c];
     for (let i = 0; i < n; i++) for (let c = 0; c < l; c++) r.y[i * l + c] -= muZ[c];
@@ -120,7 +120,7 @@ async function onePassPca(pass: PcaPass, n: number, d: number, o: PcaOptions): P
   const mean = r.colSum.map((v) => v / n);
   const centred = o.centre !== false;
   // As in randomizedPca: the pass took out μ̂; δ = μ − μ̂ is what is left to take out.
-  const delta = centred && provisional ? mean.map((m, j) => m - provisional[j]) : mean;
+  const delta = leftToCentre(mean, provisional);
   const muZ = new Float64Array(l);
   if (centred) {
     for (let j = 0; j < d; j++) for (let c = 0; c < l; c++) muZ[c] += delta[j] * z[j * l + c];
@@ -157,6 +157,11 @@ async function onePassPca(pass: PcaPass, n: number, d: number, o: PcaOptions): P
   if (centred) for (let j = 0; j < d; j++) meanSq += delta[j] * delta[j];
   const totalVariance = r.sumSq - n * meanSq;
   return pcaFromSvd(svd, n, d, mean, totalVariance, { sketch: l, passes: 1, totalVarianceFrom: 'the uncentred sums of the only pass' });
+}
+
+/** δ = μ − μ̂: what is left to take out of a pass that took out μ̂ (μ itself after none). */
+function leftToCentre(mean: Float64Array, provisional: Float64Array | null): Float64Array {
+  return provisional ? mean.map((m, j) => m - provisional[j]) : mean;
 }
 
 /** The provisional centre of the first pass: only when centring, checked for its length. */

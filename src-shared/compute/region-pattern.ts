@@ -69,6 +69,17 @@ export function accumulateClusterSums(tile: NumericArray, nPatterns: number, pix
   return { nonFinite };
 }
 
+/**
+ * Add a tile's per-pixel counts of values left out (`part`, absent when it had none) into the
+ * running ones, made on first need: returns the running counts (null while no tile had any).
+ */
+export function addLacking(running: Float64Array | null, part: Float64Array | undefined): Float64Array | null {
+  if (!part) return running;
+  const into = running ?? new Float64Array(part.length);
+  for (let i = 0; i < into.length; i++) into[i] += part[i];
+  return into;
+}
+
 /** Each pixel's mean over `count` patterns less those it `lacking` a finite value in (0 where none). */
 export function meanOfFinite(sum: Float64Array, count: number, lacking: Float64Array | null): Float64Array {
   if (!lacking) return sum.map((v) => v / count);
