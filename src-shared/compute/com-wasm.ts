@@ -1,8 +1,9 @@
 import { DTYPE_BYTES, isFloatDType, typedView, type DType, type NumericArray } from '../model/dtype';
-import { ensureMemoryBytes, exportNames, kernelMemory, roundUp, TILE_OFFSET, PAGE_BYTES } from './wasm-memory';
+import { ensureMemoryBytes, exportNames, kernelMemory, roundUp, KeptWrites, TILE_OFFSET, PAGE_BYTES } from './wasm-memory';
 import type { ComKernel, ComOptions } from './tile-kernels-types';
 import { checkComOptions, type ComSums } from './com';
 import { prefersRuns, type SparseRule } from './virtual-image-wasm';
+import { sameCompiledDetector } from './virtual-image';
 
 /**
  * The WebAssembly SIMD centre-of-mass kernel (built from wasm-src/com.ts to dist/wasm/com.wasm).
@@ -38,6 +39,8 @@ export function createWasmComKernel(wasmModule: WebAssembly.Module, maxTileBytes
   let layout: Layout | null = null;
   let prepared: Prepared | null = null;
   let preparedFor: DType | null = null;
+  /** The mask as prepared, written back before each run that reuses it (see KeptWrites). */
+  const kept = new KeptWrites();
 
   const ensureBytes = (bytes: number) => ensureMemoryBytes(memory, bytes, 'centre of mass');
 
@@ -58,9 +61,11 @@ export function createWasmComKernel(wasmModule: WebAssembly.Module, maxTileBytes
     layout = { runs, weights, dense, total, sumX, sumY, end: cursor };
     ensureBytes(cursor);
     preparedFor = null;
+    kept.clear();
   };
 
   const prepare = (dtype: DType, l: Layout): Prepared => {
+    kept.clear();
     const o = options!;
     const buf = memory.buffer;
     const nPix = detY * detX;
@@ -86,6 +91,7 @@ export function createWasmComKernel(wasmModule: WebAssembly.Module, maxTileBytes
       const runs = rowRunsOf(listed, detX);
       if (prefersRuns(listed.length, runs.length / 4, nPix, weighted ? rules.weighted : rules.binary, tuning.sparseFill)) {
         new Uint32Array(buf, l.runs, runs.length).set(runs);
+        kept.keep(buf, l.runs, runs.byteLength);
         p.mode = MODE.runs;
         p.a = l.runs;
         p.n = runs.length / 4;
@@ -93,12 +99,14 @@ export function createWasmComKernel(wasmModule: WebAssembly.Module, maxTileBytes
           // Packed in pixel order, which is the order of the runs.
           const w = new Float64Array(buf, l.weights, listed.length);
           listed.forEach((i, k) => { w[k] = mask.weights[i]; });
+          kept.keep(buf, l.weights, w.byteLength);
           p.d = l.weights;
         }
       } else if (weighted || isFloatDType(dtype)) {
         const w = new Float64Array(buf, l.dense, nPix);
         if (weighted) w.set(mask.weights);
         else { w.fill(0); for (const i of listed) w[i] = 1; }
+        kept.keep(buf, l.dense, w.byteLength);
         p.mode = MODE.denseWeights;
         p.a = l.dense;
       } else {
@@ -107,6 +115,7 @@ export function createWasmComKernel(wasmModule: WebAssembly.Module, maxTileBytes
         const lanes = typedView(bytes === 1 ? 'uint8' : bytes === 2 ? 'uint16' : 'uint32', buf, l.dense, nPix).fill(0);
         const ones = bytes === 1 ? 0xff : bytes === 2 ? 0xffff : 0xffffffff;
         for (const i of listed) lanes[i] = ones;
+        kept.keep(buf, l.dense, lanes.byteLength);
         p.mode = MODE.denseLanes;
         p.a = l.dense;
       }
@@ -128,6 +137,8 @@ export function createWasmComKernel(wasmModule: WebAssembly.Module, maxTileBytes
     },
 
     setOptions(o: ComOptions, y: number, x: number): void {
+      // The same options again (every tile of a pass sends them): keep what was prepared.
+      if (options && y === detY && x === detX && o.threshold === options.threshold && sameCompiledDetector(o.mask, options.mask)) return;
       checkComOptions(o, y, x);
       options = { mask: o.mask, threshold: o.threshold };
       detY = y;
@@ -143,6 +154,7 @@ export function createWasmComKernel(wasmModule: WebAssembly.Module, maxTileBytes
       if (nElements > tileElements) throw new RangeError(`centre of mass: run needs ${nElements} elements but tileBuffer was asked for ${tileElements}`);
       const l = layout!;
       if (preparedFor !== dtype || !prepared) prepared = prepare(dtype, l);
+      else kept.restore(memory.buffer);
       const p = prepared;
       if (nPatterns === 0 || p.allZero) {
         return { total: new Float64Array(nPatterns), sumX: new Float64Array(nPatterns), sumY: new Float64Array(nPatterns), nonFinite: 0 };

@@ -1,8 +1,8 @@
 import { DTYPE_BYTES, isFloatDType, typedView, type DType, type NumericArray } from '../model/dtype';
-import { ensureMemoryBytes, exportNames, kernelMemory, roundUp, TILE_OFFSET, PAGE_BYTES } from './wasm-memory';
+import { ensureMemoryBytes, exportNames, kernelMemory, roundUp, KeptWrites, TILE_OFFSET, PAGE_BYTES } from './wasm-memory';
 import type { CompiledDetector } from '../model/detectors';
 import type { VirtualImageKernel } from './tile-kernels-types';
-import { checkDetectors, supportUnion } from './virtual-image';
+import { checkDetectors, sameCompiledDetector, supportUnion } from './virtual-image';
 
 /**
  * The WebAssembly SIMD virtual-image kernel (built from wasm-src/virtual-image.ts to
@@ -39,6 +39,8 @@ export function createWasmVirtualImageKernel(wasmModule: WebAssembly.Module, max
   let detectors: CompiledDetector[] = [];
   let nPix = 0;
   let preparedFor: DType | null = null;
+  /** The detectors as prepared, written back before each run that reuses them (see KeptWrites). */
+  const kept = new KeptWrites();
   let layout: Layout | null = null;
 
   const ensureBytes = (bytes: number) => ensureMemoryBytes(memory, bytes, 'virtual image');
@@ -69,10 +71,12 @@ export function createWasmVirtualImageKernel(wasmModule: WebAssembly.Module, max
     layout = planLayout();
     ensureBytes(layout.end);
     preparedFor = null;
+    kept.clear();
   };
 
   /** Writes the detector table and whichever representation each detector gets for this dtype. */
   const prepare = (dtype: DType, l: Layout) => {
+    kept.clear();
     const buf = memory.buffer;
     const padded = roundUp(nPix, DENSE_ALIGN);
     const float = isFloatDType(dtype);
@@ -85,14 +89,17 @@ export function createWasmVirtualImageKernel(wasmModule: WebAssembly.Module, max
         const runs = runsOf(det.indices);
         if (prefersRuns(n, runs.length / 2, nPix, rules.binary, tuning.sparseFill)) {
           new Uint32Array(buf, at.indices, runs.length).set(runs);
+          kept.keep(buf, at.indices, runs.byteLength);
           records.push([KIND.sparseRuns, runs.length / 2, at.indices, 0, d]);
         } else if (dtype === 'float64') {
           // float64 has no binary sweep of its own: 0/1 weights.
           const w = new Float64Array(buf, at.dense, padded).fill(0);
           for (const i of det.indices) w[i] = 1;
+          kept.keep(buf, at.dense, w.byteLength);
           records.push([KIND.denseWeights, n, at.dense, 0, d]);
         } else {
           writeLaneMask(buf, at.dense, DTYPE_BYTES[dtype], padded, det.indices);
+          kept.keep(buf, at.dense, padded * DTYPE_BYTES[dtype]);
           records.push([KIND.denseBinary, n, at.dense, 0, d]);
         }
       } else {
@@ -105,10 +112,13 @@ export function createWasmVirtualImageKernel(wasmModule: WebAssembly.Module, max
           const weights = new Float64Array(buf, at.weights, nonzero);
           listed.forEach((i, k) => { weights[k] = det.weights[i]; });
           new Uint32Array(buf, at.indices, runs.length).set(runs);
+          kept.keep(buf, at.weights, weights.byteLength);
+          kept.keep(buf, at.indices, runs.byteLength);
           records.push([KIND.sparseWeighted, runs.length / 2, at.indices, at.weights, d]);
         } else {
           const w = new Float64Array(buf, at.dense, padded).fill(0);
           w.set(det.weights);
+          kept.keep(buf, at.dense, w.byteLength);
           records.push([KIND.denseWeights, nonzero, at.dense, 0, d]);
         }
       }
@@ -117,6 +127,7 @@ export function createWasmVirtualImageKernel(wasmModule: WebAssembly.Module, max
     records.sort((a, b) => (a[0] === KIND.denseBinary ? 0 : 1) - (b[0] === KIND.denseBinary ? 0 : 1) || a[4] - b[4]);
     const table = new Int32Array(buf, l.table, detectors.length * RECORD_INTS).fill(0);
     records.forEach((r, k) => table.set(r, k * RECORD_INTS));
+    kept.keep(buf, l.table, table.byteLength);
     const anyDense = records.some((r) => r[0] === KIND.denseBinary || r[0] === KIND.denseWeights);
 
     let unionCount = 0;
@@ -128,12 +139,14 @@ export function createWasmVirtualImageKernel(wasmModule: WebAssembly.Module, max
         const perPixel = dtype === 'float64' ? 2 : 1;
         const lanes = new Int32Array(buf, l.unionMask, padded * perPixel).fill(0);
         inUnion.forEach((inside, i) => { if (inside) lanes.fill(-1, i * perPixel, (i + 1) * perPixel); });
+        kept.keep(buf, l.unionMask, lanes.byteLength);
         unionDense = 1;
       } else {
         const listed: number[] = [];
         inUnion.forEach((inside, i) => { if (inside) listed.push(i); });
         const runs = runsOf(Uint32Array.from(listed));
         new Uint32Array(buf, l.unionIndices, runs.length).set(runs);
+        kept.keep(buf, l.unionIndices, runs.byteLength);
         unionCount = runs.length / 2;
       }
     }
@@ -156,6 +169,8 @@ export function createWasmVirtualImageKernel(wasmModule: WebAssembly.Module, max
     },
 
     setDetectors(list: CompiledDetector[]): void {
+      // The same detectors again (every tile of a pass sends them): keep what was prepared.
+      if (layout && list.length === detectors.length && list.every((det, k) => sameCompiledDetector(det, detectors[k]))) return;
       checkDetectors(list);
       detectors = list.slice();
       nPix = detectors.length ? detectors[0].detY * detectors[0].detX : 0;
@@ -171,6 +186,7 @@ export function createWasmVirtualImageKernel(wasmModule: WebAssembly.Module, max
       if (nElements > tileElements) throw new RangeError(`virtual image: run needs ${nElements} elements but tileBuffer was asked for ${tileElements}`);
       const l = layout!;
       if (preparedFor !== dtype) preparedUnion = prepare(dtype, l);
+      else kept.restore(memory.buffer);
       const { union, unionCount, unionDense } = preparedUnion;
       const nonFinite = exports[EXPORT_NAMES[dtype]](TILE_OFFSET, nPatterns, nPix, l.table, nDet, union, unionCount, unionDense, l.scratch, l.acc, l.out);
       return { images: new Float64Array(memory.buffer, l.out, nDet * nPatterns).slice(), nonFinite };

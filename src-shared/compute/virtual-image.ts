@@ -120,6 +120,20 @@ export function checkCompiledDetector(det: CompiledDetector, name: string): void
   }
 }
 
+/**
+ * Whether two compiled detectors read the same pixels with the same weights (labels aside): a
+ * kernel handed the same detectors again, as every tile of a pass is, keeps what it prepared.
+ */
+export function sameCompiledDetector(a: CompiledDetector | null, b: CompiledDetector | null): boolean {
+  if (a === b) return true;
+  if (!a || !b || a.mode !== b.mode || a.detY !== b.detY || a.detX !== b.detX) return false;
+  const u = a.mode === 'indices' ? a.indices : a.weights;
+  const v = b.mode === 'indices' ? b.indices : (b as { weights: Float64Array }).weights;
+  if (u.length !== v.length) return false;
+  for (let i = 0; i < u.length; i++) if (u[i] !== v[i]) return false;
+  return true;
+}
+
 /** 1 where some detector reads the pixel (a listed index, or a nonzero weight). */
 export function supportUnion(detectors: readonly CompiledDetector[], nPix: number): Uint8Array {
   const inUnion = new Uint8Array(nPix);

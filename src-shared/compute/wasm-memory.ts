@@ -45,3 +45,27 @@ export function exportNames(prefix: string): Record<DType, string> {
     float32: `${prefix}Float32`, float64: `${prefix}Float64`,
   };
 }
+
+/**
+ * What a kernel wrote into memory for its current options (mask runs, lane masks, weights,
+ * detector tables), kept so that later runs with the same options write it back with one copy
+ * per range instead of preparing it again. The kernels of a worker share one memory and lay
+ * out their scratch at the same places after the tile, so another kernel may have written
+ * over these bytes since: they are always written back before a run that reuses them.
+ */
+export class KeptWrites {
+  private ranges: { at: number; bytes: Uint8Array }[] = [];
+
+  /** Keeps a copy of `byteLength` bytes at `at`, just written. */
+  keep(buffer: ArrayBufferLike, at: number, byteLength: number): void {
+    if (byteLength > 0) this.ranges.push({ at, bytes: new Uint8Array(buffer, at, byteLength).slice() });
+  }
+
+  restore(buffer: ArrayBufferLike): void {
+    for (const r of this.ranges) new Uint8Array(buffer, r.at, r.bytes.length).set(r.bytes);
+  }
+
+  clear(): void {
+    this.ranges = [];
+  }
+}
