@@ -62,7 +62,7 @@ const bundleOptions = {
   logLevel: 'warning',
 };
 const entries = {
-  'cli': 'src-main/cli/main.ts',
+  'cli': 'src-main/cli/entry.ts',
   'tile-worker': 'src-main/workers/tile-worker.ts',
 };
 fs.rmSync(path.join(dist, 'chunks'), { recursive: true, force: true });

@@ -15,6 +15,7 @@ import { readNpy2D } from '../io/npy-array';
 import { canonicalPath, physicalPath } from '../io/input-file';
 import { followJobs } from './progress';
 import { SCANFOLD_VERSION } from '../engine/version';
+import { trace } from '../engine/trace';
 import { decimalNumber, numberList, outputFlag, parseFlags, rectangleFlag, rejectExtraPositionals, SOURCE_OPTIONS, sourceSpecFromFlags } from './source-flags';
 
 type Flags = Record<string, string | boolean | (string | boolean)[] | undefined>;
@@ -293,13 +294,16 @@ export async function cmdCom(args: string[], engineOptions: EngineOptionsOf, eng
   const session = sessionTarget(v, 'com');
   await withService(engineOptions(v as Record<string, unknown>), quiet, async (service, keep) => {
     // Up to 11 maps of the scan: COM x/y, total, magnitude, direction, divergence, curl, phase and three calibrated ones.
+    trace('com: engine started');
     const opened = await openProtected(service, spec, out, { scan: 11, pattern: 0 });
+    trace('com: dataset open');
     const request = {
       dataset: opened.id, maskDisk, threshold, ...(descan ? { descan } : {}), badPixels,
       rotation: rotationGiven === null ? 'auto' as const : { degrees: rotationGiven, flip: flipArg === 'yes' },
       ...(cal[0] !== undefined ? { calibration: { mradPerPixel: cal[0], energyKeV: cal[1]!, scanStepNm: cal[2]! } } : {}),
     };
     const f = await service.comField({ ...request, ...keep });
+    trace('com: field made');
     if (!quiet) for (const note of f.notes) process.stderr.write(`note: ${note}\n`);
     const arrays = resultArrays('comField', f);
     const rot = f.rotation;
@@ -325,6 +329,7 @@ export async function cmdCom(args: string[], engineOptions: EngineOptionsOf, eng
       arrays.phase_radians.attrs!.radians_per_phase_unit = c.radiansPerPhaseUnit;
     }
     const written = await writeResults(service, out, arrays, rootAttrs);
+    trace('com: written');
     noteNonFiniteInputs(f.nonFiniteInputs);
     noteNonFiniteResults(written, f.zeroTotalPatterns ? `; ${f.zeroTotalPatterns} pattern(s) with zero total have no centre of mass (NaN by design)` : '');
     if (!quiet) {

@@ -22,6 +22,7 @@ import { cmdSession } from './session-commands';
 import { cmdExport } from './export-command';
 import { cmdCalibrate, cmdCom, cmdImage, badPixelAttrs, cmdPattern, noteNonFiniteInputs, noteNonFiniteResults, openProtected, provenance, withService, writeResults } from './analysis-commands';
 import type { EngineService } from '../engine/service';
+import { trace } from '../engine/trace';
 
 const ENGINE_OPTIONS = {
   workers: { type: 'string' },
@@ -225,6 +226,7 @@ function inFlagTerms(message: string): string {
 const COMMANDS = Object.keys(COMMAND_HELP);
 
 export async function main(argv: string[]): Promise<number> {
+  trace('main: modules loaded');
   const [cmd, ...rest] = argv;
   try {
     if (cmd === '--version' || cmd === '-V' || cmd === 'version') {
@@ -287,6 +289,7 @@ for (const [signal, code] of [['SIGTERM', 143], ['SIGHUP', 129]] as const) {
 }
 
 main(process.argv.slice(2)).then((code) => {
+  trace('main: done');
   // For the bounded-memory test: the peak resident set of the whole process (all threads).
   if (process.env.SCANFOLD_REPORT_PEAK_RSS) process.stderr.write(`peak-rss-bytes ${process.resourceUsage().maxRSS * 1024}\n`);
   process.exitCode = code;

@@ -30,6 +30,7 @@ import { previewImages } from '../../src-shared/compute/preview-image';
 import { comDefaults, comFieldFromSums, comSumsLessBadPixels, mayHaveCounts } from './com-field';
 import { cacheKey, defaultCacheDir, readCachedFirstPass, writeCachedFirstPass, type CachedFirstPass } from './first-pass-cache';
 import { findVacuum, type VacuumFinding } from '../../src-shared/compute/vacuum';
+import { trace } from './trace';
 import { featuresToImage, planFeatures, type FeaturePlan } from '../../src-shared/compute/pattern-features';
 import { previewPca } from './statistics';
 import { kmeans, kmeansMiniBatch } from '../../src-shared/compute/kmeans';
@@ -430,6 +431,7 @@ export class EngineService implements ScanfoldService {
 
   private async runFirstPass(r: DatasetRecord, key: string | null, jobId: string | undefined, label: string, withImages: boolean, along?: DetectorSpec[]): Promise<FirstResults> {
     const comPlan = await this.comPlanForPass(r, withImages, along);
+    trace('first pass: plan made from the sample');
     // The first default image (bright field) goes out row by row as tiles finish, so a view can fill in.
     const { scanY: sy, scanX: sx } = r.opened.descriptor.shape;
     const rows = comPlan?.imageSpecs.length
@@ -438,6 +440,7 @@ export class EngineService implements ScanfoldService {
       })
       : undefined;
     const summary = await this.track(this.engine.firstPass(specOf(r), comPlan ? { mask: comPlan.mask, watch: comPlan.watch, images: comPlan.images } : undefined, rows), jobId, label);
+    trace('first pass: tiles done');
     const { detY, detX, scanY, scanX } = summary.descriptor.shape;
     const found = aboutFile(summary.descriptor.path, () => findBadPixels(summary.meanPattern, summary.maxPattern, detY, detX, { patternCount: scanY * scanX }));
     const badPixels: BadPixels = { mask: found.mask, hot: found.hot.map(([y, x]) => [y, x]), dead: found.dead.map(([y, x]) => [y, x]) };
@@ -450,7 +453,9 @@ export class EngineService implements ScanfoldService {
       if (!isInputError(e)) throw e;
       disk = { notFound: e.message };
     }
+    trace('first pass: bad pixels and disk found');
     const vacuum = 'notFound' in disk ? null : this.findVacuum(summary, badPixels.mask, disk);
+    trace('first pass: vacuum found');
     // Another request may have finished a first pass meanwhile: keep one.
     const previous = r.first as DatasetRecord['first'];
     if (previous?.summary) this.engine.release(previous.summary);
@@ -487,7 +492,9 @@ export class EngineService implements ScanfoldService {
     const max = new Float64Array(detY * detX).fill(-Infinity);
     const lacking = new Float64Array(detY * detX);
     // Read on every worker at once; for chunked data each read may inflate a chunk.
+    trace('sample: reading');
     const patterns = await Promise.all(positions.map(([y, x]) => this.engine.pool.run((w) => w.readPattern(specOf(r), y, x))));
+    trace('sample: read');
     const one = Uint8Array.of(1);
     for (const p of patterns) accumulateRegionPatterns(p, 1, detY * detX, one, sum, max, lacking);
     // Each pixel over the sampled patterns where it is finite, as the first pass's mean.
@@ -670,6 +677,7 @@ export class EngineService implements ScanfoldService {
         ? { descriptor: r.opened.descriptor, ...fromPass, seconds: 0 }
         : await this.track(this.engine.comSums(specOf(r), { mask, threshold: req.threshold ?? 0 }), req.jobId, 'centre of mass');
       const origin = disk ? { x: disk.cx, y: disk.cy } : { x: (detX - 1) / 2, y: (detY - 1) / 2 };
+      trace('com: sums ready');
       const field = aboutFile(file, () => comFieldFromSums(sums, req, {
         defaults, origin, comMask: maskSpec ? describeDetector(maskSpec) : 'whole pattern', badPixelsLeftOut: bad.count, seconds: sums.seconds,
         sumsFrom: fromPass ? 'first pass' : 'own pass',

@@ -5,6 +5,7 @@ import nodeEndpoint from 'comlink/dist/esm/node-adapter.mjs';
 import type { TileWorkerApi } from '../workers/tile-worker';
 import { distFile } from './paths';
 import { enableRelaxedSimd } from '../workers/wasm-loader';
+import { adoptPrestarted, dropPrestarted } from './prestart';
 
 export type TileWorker = Comlink.Remote<TileWorkerApi>;
 
@@ -56,11 +57,14 @@ export class WorkerPool {
     // Before any worker starts: V8 flags are process-wide (see enableRelaxedSimd).
     enableRelaxedSimd();
     for (let i = 0; i < this.size; i++) this.slots.push(this.spawn(i, 0));
+    dropPrestarted();
   }
 
   private spawn(index: number, generation: number): Slot {
-    const worker = new Worker(this.workerFile, { workerData: { index, memoryPerWorkerBytes: this.memoryPerWorkerBytes } });
+    const worker = adoptPrestarted(this.workerFile) ?? new Worker(this.workerFile);
     const remote = Comlink.wrap<TileWorkerApi>(nodeEndpoint(worker as never));
+    // Before any task (messages arrive in order): its index and memory allowance.
+    void remote.configure({ index, ...(this.memoryPerWorkerBytes !== undefined ? { memoryPerWorkerBytes: this.memoryPerWorkerBytes } : {}) }).catch(() => undefined);
     let rejectDeath!: (e: Error) => void;
     const death = new Promise<never>((_, reject) => { rejectDeath = reject; });
     death.catch(() => undefined);

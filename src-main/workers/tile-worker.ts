@@ -1,7 +1,7 @@
 // Worker thread entry: opens its own reader (positional reads for raw/.npy, its own h5wasm
 // instance for HDF5), reads tiles straight into the kernel's memory and returns small
 // partial results. Tiles never pass through the main thread.
-import { parentPort, workerData } from 'node:worker_threads';
+import { parentPort } from 'node:worker_threads';
 import * as Comlink from 'comlink';
 import nodeEndpoint from 'comlink/dist/esm/node-adapter.mjs';
 import type { SourceSpec, DatasetDescriptor } from '../../src-shared/model/dataset';
@@ -27,6 +27,7 @@ import { keepErrorCodesAcrossThreads } from './error-transfer';
 import fs from 'node:fs';
 import { InputError } from '../../src-shared/model/errors';
 import { filesOpenedByHdf5 } from '../io/h5wasm-module';
+import { trace } from '../engine/trace';
 
 keepErrorCodesAcrossThreads();
 
@@ -115,6 +116,13 @@ export type RegionTileReply = { sum: Float64Array; max: Float64Array; count: num
  * Open sources, most recently used last; several datasets can be open at once. Every request
  * names its source by spec, so jobs on different datasets never read each other's data.
  */
+/** This worker's place in its pool and what it may hold for a reader and its tiles. */
+export interface WorkerConfig {
+  index: number;
+  memoryPerWorkerBytes?: number;
+}
+let config: WorkerConfig = { index: -1 };
+
 const sources = new Map<string, TileSource>();
 const MAX_OPEN_SOURCES = 4;
 
@@ -167,7 +175,7 @@ async function openOrReuse(spec: SourceSpec, key: string): Promise<TileSource> {
   const { fileState: wanted, ...plain } = spec;
   const state = fileState(plain.path);
   if (wanted !== undefined && wanted !== state) throw changedError(plain.path);
-  const src = await openTileSource(plain, { memoryPerWorkerBytes: workerData?.memoryPerWorkerBytes });
+  const src = await openTileSource(plain, { memoryPerWorkerBytes: config.memoryPerWorkerBytes });
   openedAs.set(src, state);
   // Jobs name this version of the file.
   src.descriptor.spec = { ...src.descriptor.spec, fileState: state };
@@ -297,7 +305,9 @@ function readInto(src: TileSource, row0: number, nRows: number, buffer: (n: numb
 const api = {
   /** Open (or keep open) the source; returns its descriptor and storage row alignment. */
   async open(spec: SourceSpec): Promise<OpenReply> {
+    trace('worker: open');
     const source = await sourceFor(spec);
+    trace('worker: opened');
     return { descriptor: source.descriptor, rowAlignment: source.rowAlignment, memory: source.memory };
   },
 
@@ -595,11 +605,17 @@ const api = {
     sketch = null;
   },
 
+  /** The pool's first message to a worker (which may have started before the pool, see prestart.ts). */
+  configure(c: WorkerConfig): void {
+    config = { ...c };
+  },
+
   ping(): number {
-    return (workerData as { index?: number } | undefined)?.index ?? -1;
+    return config.index;
   },
 };
 
 export type TileWorkerApi = typeof api;
 
 if (parentPort) Comlink.expose(api, nodeEndpoint(parentPort as never));
+trace('worker: ready');

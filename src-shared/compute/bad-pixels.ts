@@ -103,14 +103,15 @@ export function findBadPixels(
     }
   }
 
-  const ring = new Float64Array(8);
   for (let y = 0; y < detY; y++) {
     for (let x = 0; x < detX; x++) {
       const i = y * detX + x;
       if (isDead[i]) continue;
       const v = mean[i];
-      // Third-highest of the valid 3×3 neighbours (the lowest when fewer than three exist).
+      // Third-highest of the valid 3×3 neighbours (the lowest when fewer than three exist),
+      // kept as the three highest seen so far (every pixel is visited: no sorting).
       let nRing = 0;
+      let h1 = -Infinity, h2 = -Infinity, h3 = -Infinity;
       for (let dy = -1; dy <= 1; dy++) {
         const yy = y + dy;
         if (yy < 0 || yy >= detY) continue;
@@ -118,11 +119,14 @@ export function findBadPixels(
           const xx = x + dx;
           if ((dy === 0 && dx === 0) || xx < 0 || xx >= detX) continue;
           const j = yy * detX + xx;
-          if (!isDead[j]) ring[nRing++] = mean[j];
+          if (isDead[j]) continue;
+          const m = mean[j];
+          nRing++;
+          if (m > h1) { h3 = h2; h2 = h1; h1 = m; } else if (m > h2) { h3 = h2; h2 = m; } else if (m > h3) h3 = m;
         }
       }
       if (nRing === 0) continue;
-      const reference = kthHighest(ring, nRing, Math.min(3, nRing));
+      const reference = nRing >= 3 ? h3 : nRing === 2 ? h2 : h1;
       // Cheap rejection first: most pixels are nowhere near their neighbours' level × hotFactor.
       if (reference > 0 && !(v > hotFactor * reference)) continue;
       if (!(v > reference)) continue;
@@ -222,18 +226,6 @@ function trimmedStats5x5(
   if (count < 2) return { mean: count === 1 ? shift + sum : shift, spread: 0 };
   const variance = (sumSq - (sum * sum) / count) / (count - 1);
   return { mean: shift + sum / count, spread: variance > 0 ? Math.sqrt(variance) : 0 };
-}
-
-/** The k-th highest (1-based) of values[0..n); sorts that prefix of the scratch buffer in place. */
-function kthHighest(values: Float64Array, n: number, k: number): number {
-  // n ≤ 8: an insertion sort of the prefix is cheaper than anything clever.
-  for (let a = 1; a < n; a++) {
-    const v = values[a];
-    let b = a - 1;
-    while (b >= 0 && values[b] < v) { values[b + 1] = values[b]; b--; }
-    values[b + 1] = v;
-  }
-  return values[k - 1];
 }
 
 /** Median of values[0..n), averaging the middle two for even n; sorts that prefix in place. */
