@@ -500,7 +500,10 @@ export class EngineService implements ScanfoldService {
     // Each pixel over the sampled patterns where it is finite, as the first pass's mean.
     const mean = meanOfFinite(sum, positions.length, lacking);
     const seen = findBadPixels(mean, max, detY, detX, { patternCount: positions.length });
-    const watch = Uint32Array.from(Array.from(seen.mask).flatMap((v, i) => (v ? [i] : [])));
+    let nWatch = 0;
+    for (const v of seen.mask) if (v) nWatch++;
+    const watch = new Uint32Array(nWatch);
+    for (let i = 0, k = 0; k < nWatch; i++) if (seen.mask[i]) watch[k++] = i;
     if (watch.length > COM_MAX_WATCHED || watch.length >= detY * detX) return null;
     const mask = watch.length
       ? this.compileDetectors(r, [{ shape: { kind: 'rectangle', x0: 0, y0: 0, x1: detX - 1, y1: detY - 1 } }], seen.mask)[0]
