@@ -112,10 +112,6 @@ export type FeatureSumsReply = { sums: Float64Array; counts: Float64Array; nonFi
 
 export type RegionTileReply = { sum: Float64Array; max: Float64Array; count: number; nonFinite: number; /** Per pixel, values left out (with any non-finite). */ lacking?: Float64Array } & TileTiming;
 
-/**
- * Open sources, most recently used last; several datasets can be open at once. Every request
- * names its source by spec, so jobs on different datasets never read each other's data.
- */
 /** This worker's place in its pool and what it may hold for a reader and its tiles. */
 export interface WorkerConfig {
   index: number;
@@ -123,6 +119,10 @@ export interface WorkerConfig {
 }
 let config: WorkerConfig = { index: -1 };
 
+/**
+ * Open sources, most recently used last; several datasets can be open at once. Every request
+ * names its source by spec, so jobs on different datasets never read each other's data.
+ */
 const sources = new Map<string, TileSource>();
 const MAX_OPEN_SOURCES = 4;
 
